@@ -1,0 +1,103 @@
+"""Small reusable validators shared by the catalog reader and the CLI.
+
+Every message names the place (file, row, key) and what was expected, so a user
+can fix the input without reading code.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from numbers import Real
+
+__all__ = [
+    "CatalogError",
+    "Problems",
+    "check_option",
+    "check_positive",
+    "is_real_number",
+]
+
+
+class CatalogError(ValueError):
+    """A catalog (or other input file) breaks its contract.
+
+    Parameters
+    ----------
+    problems : list of str
+        Every problem found, each naming the file, row or key and what was
+        expected. ``str(error)`` joins them one per line.
+    """
+
+    def __init__(self, problems: Iterable[str]):
+        self.problems = list(problems)
+        if not self.problems:
+            self.problems = ["unspecified catalog problem"]
+        super().__init__("\n".join(self.problems))
+
+
+class Problems:
+    """Collects problems so that a validator can report all of them at once."""
+
+    def __init__(self, max_per_key: int = 20):
+        self.items: list[str] = []
+        self.max_per_key = max_per_key
+        self._counts: dict[str, int] = {}
+
+    def add(self, message: str, key: str | None = None) -> None:
+        """Record a problem; after ``max_per_key`` with the same key, only count."""
+        if key is not None:
+            n = self._counts.get(key, 0) + 1
+            self._counts[key] = n
+            if n > self.max_per_key:
+                return
+        self.items.append(message)
+
+    def summarise(self) -> None:
+        """Add a line for every key whose problems were cut short."""
+        for key, n in self._counts.items():
+            if n > self.max_per_key:
+                self.items.append(f"{key}: ... and {n - self.max_per_key} more like this")
+        self._counts = {k: min(v, self.max_per_key) for k, v in self._counts.items()}
+
+    def raise_if_any(self) -> None:
+        """Raise :class:`CatalogError` listing every problem, if any."""
+        self.summarise()
+        if self.items:
+            raise CatalogError(self.items)
+
+    def __bool__(self) -> bool:
+        return bool(self.items)
+
+    def __len__(self) -> int:
+        return len(self.items)
+
+
+def is_real_number(value) -> bool:
+    """True for an int or float that is not a bool and is finite."""
+    return (isinstance(value, Real) and not isinstance(value, bool)
+            and math.isfinite(float(value)))
+
+
+def check_positive(value, where: str) -> float:
+    """Return ``float(value)`` or raise ``ValueError`` unless it is a finite number > 0.
+
+    Parameters
+    ----------
+    value : object
+        The value to check.
+    where : str
+        Where it came from, e.g. ``"catalog.json: field.sample_rate_hz"``.
+    """
+    if not is_real_number(value) or float(value) <= 0:
+        raise ValueError(f"{where} must be a finite number > 0, got {value!r}")
+    return float(value)
+
+
+def check_option(value, allowed: Iterable, where: str):
+    """Return ``value`` or raise ``ValueError`` listing the allowed values."""
+    allowed = list(allowed)
+    if value not in allowed:
+        choices = ", ".join(repr(a) for a in allowed)
+        raise ValueError(f"{where} must be one of {choices}, got {value!r}")
+    return value
