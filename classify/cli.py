@@ -86,7 +86,14 @@ def main(argv: list[str] | None = None) -> int:
     except BAD_INPUT_ERRORS as exc:
         if args.debug:
             raise
-        print(f"pulsesort {args.command}: error: {exc}", file=sys.stderr)
+        problems = getattr(exc, "problems", None)
+        if problems:
+            print(f"pulsesort {args.command}: error: {len(problems)} problem(s):",
+                  file=sys.stderr)
+            for line in problems:
+                print(f"  {line}", file=sys.stderr)
+        else:
+            print(f"pulsesort {args.command}: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except Exception as exc:  # noqa: BLE001 - the last line of defence
         if args.debug:

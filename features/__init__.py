@@ -2,23 +2,17 @@
 
 The package never imports :mod:`classify`. Public entry points:
 
-- :func:`open_catalog` reads and validates a catalog folder (spec: catalog v1).
+- :func:`open_catalog` reads and validates a catalog folder (format: catalog v1).
 - :func:`extract_features` computes one row of SI-unit features per pulse.
-- :data:`FEATURES` (in :mod:`features.schema`) lists every feature with its unit.
+- :data:`features.schema.FEATURES` lists every feature with its unit and definition.
 """
 
 import logging
 
+from ._checks import CatalogError
+from .catalog import Catalog, open_catalog, scan_quality
+
 logger = logging.getLogger("pulsesort")
 logger.addHandler(logging.NullHandler())
 
-from ._checks import CatalogError  # noqa: E402
-
-__all__ = ["CatalogError", "logger"]
-
-try:  # the reader and the feature extractor are added as they land
-    from .catalog import Catalog, open_catalog  # noqa: F401,E402
-
-    __all__ += ["Catalog", "open_catalog"]
-except ImportError:  # pragma: no cover - only while the package is being built
-    pass
+__all__ = ["Catalog", "CatalogError", "open_catalog", "scan_quality", "logger"]

@@ -1,0 +1,322 @@
+"""Parsing and validation of the catalog's CSV tables (events.csv, sources.csv).
+
+Private to :mod:`features.catalog`. Every problem is collected in a
+:class:`~features._checks.Problems` list with the file name and the CSV line
+(line 1 is the header, so data row ``i`` is line ``i + 2``).
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import weakref
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ._checks import Problems
+
+__all__ = ["SourceTable", "read_events", "read_sources"]
+
+EVENT_COLUMNS = ("event_id", "time_utc", "flash_id", "range_m")
+SOURCE_REQUIRED = ("event_id", "t_s", "azimuth_deg", "elevation_deg")
+SOURCE_XYZ = ("x_m", "y_m", "z_m")
+
+#: Above this many sources the parsed table is kept in memory-mapped files in a
+#: temporary folder instead of RAM (about 40 bytes per source either way).
+SOURCES_IN_MEMORY_MAX = 2_000_000
+_CSV_CHUNK_ROWS = 500_000
+
+
+def _line(i) -> str:
+    return f"line {int(i) + 2}"
+
+
+def _parse_float_column(values: pd.Series, fname: str, column: str, problems: Problems,
+                        *, allow_empty: bool, line_offset: int = 0) -> np.ndarray:
+    """Strings -> float64; empty (and 'nan') -> NaN when allowed, else a problem."""
+    text = values.astype(str).str.strip()
+    empty = text.eq("") | text.str.lower().isin(("nan", "na", "null", "none"))
+    out = pd.to_numeric(text.where(~empty, "nan"), errors="coerce").to_numpy(dtype=np.float64)
+    bad = np.isnan(out) & ~empty.to_numpy()
+    if not allow_empty:
+        bad |= empty.to_numpy()
+    for i in np.flatnonzero(bad):
+        problems.add(f"{fname} {_line(i + line_offset)}: column '{column}' must be a number, "
+                     f"got {values.iloc[i]!r}", key=f"{fname}:{column}:number")
+    inf = np.isinf(out)
+    for i in np.flatnonzero(inf):
+        problems.add(f"{fname} {_line(i + line_offset)}: column '{column}' must be finite, "
+                     f"got {values.iloc[i]!r}", key=f"{fname}:{column}:finite")
+    out[inf] = np.nan
+    return out
+
+
+def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFrame | None:
+    """Read and validate events.csv.
+
+    Returns a DataFrame with ``event_id`` (str), ``time_utc`` (datetime64[ns, UTC]),
+    ``flash_id`` (str, "" for none), ``range_m`` (float64 m, NaN unknown) and any
+    other columns as strings, or None when the file cannot be used at all.
+    """
+    fname = path.name
+    try:
+        raw = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
+                          encoding="utf-8", skipinitialspace=False)
+    except FileNotFoundError:
+        problems.add(f"{fname}: file not found at {path}")
+        return None
+    except UnicodeDecodeError as exc:
+        problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
+        return None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
+        return None
+    raw.columns = [str(c).strip() for c in raw.columns]
+    missing = [c for c in ("event_id", "time_utc") if c not in raw.columns]
+    if missing:
+        problems.add(f"{fname}: required column(s) {missing} missing; header has "
+                     f"{list(raw.columns)}")
+        return None
+    dup_cols = raw.columns[raw.columns.duplicated()].tolist()
+    if dup_cols:
+        problems.add(f"{fname}: header repeats column(s) {dup_cols}")
+        return None
+    if len(raw) == 0:
+        problems.add(f"{fname}: no event rows after the header")
+
+    event_id = raw["event_id"].astype(str)
+    for i in np.flatnonzero(event_id.str.strip().eq("").to_numpy()):
+        problems.add(f"{fname} {_line(i)}: column 'event_id' is empty", key=f"{fname}:id-empty")
+    dup = event_id.duplicated(keep="first").to_numpy()
+    if dup.any():
+        first = {}
+        for i, e in enumerate(event_id):
+            first.setdefault(e, i)
+        for i in np.flatnonzero(dup):
+            problems.add(f"{fname} {_line(i)}: event_id {event_id.iloc[i]!r} is not unique "
+                         f"(first seen on {_line(first[event_id.iloc[i]])})",
+                         key=f"{fname}:id-dup")
+
+    text = raw["time_utc"].astype(str).str.strip()
+    times = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
+    bad_time = times.isna().to_numpy()
+    for i in np.flatnonzero(bad_time):
+        problems.add(f"{fname} {_line(i)}: column 'time_utc' must be an ISO-8601 UTC time "
+                     f"like 2031-07-14T21:03:55.123456Z, got {raw['time_utc'].iloc[i]!r}",
+                     key=f"{fname}:time")
+    if len(text) and not bad_time.all():
+        has_zone = text.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
+        if not has_zone.all():
+            notes.append(f"{fname}: {int((~has_zone).sum())} time_utc value(s) carry no time "
+                         "zone; read as UTC")
+        frac = text.str.extract(r"\.(\d+)", expand=False).str.len().fillna(0)
+        if (frac < 6).any():
+            notes.append(f"{fname}: {int((frac < 6).sum())} time_utc value(s) have less than "
+                         "microsecond precision")
+    times = times.astype("datetime64[ns, UTC]")
+
+    out = pd.DataFrame({"event_id": event_id, "time_utc": times})
+    if "flash_id" in raw.columns:
+        out["flash_id"] = raw["flash_id"].astype(str).str.strip()
+    else:
+        out["flash_id"] = ""
+    if "range_m" in raw.columns:
+        rng = _parse_float_column(raw["range_m"], fname, "range_m", problems, allow_empty=True)
+        for i in np.flatnonzero(rng <= 0):
+            problems.add(f"{fname} {_line(i)}: column 'range_m' must be > 0 (metres), got "
+                         f"{raw['range_m'].iloc[i]!r}", key=f"{fname}:range")
+        rng[rng <= 0] = np.nan
+        out["range_m"] = rng
+    else:
+        out["range_m"] = np.full(len(raw), np.nan)
+    for col in raw.columns:
+        if col not in EVENT_COLUMNS:
+            out[col] = raw[col]
+    return out
+
+
+@dataclass(frozen=True)
+class SourceTable:
+    """Mapped VHF sources of a catalog, sorted by event row, as flat arrays.
+
+    Attributes
+    ----------
+    event_index : ndarray of int64, shape (n_sources,)
+        Row of events.csv the source belongs to (non-decreasing).
+    t_s : ndarray of float64, shape (n_sources,)
+        Time relative to the event's trigger, in seconds.
+    azimuth_deg, elevation_deg : ndarray of float64, shape (n_sources,)
+        Direction from the station, in degrees.
+    xyz_m : ndarray of float64, shape (n_sources, 3), or None
+        East, north, up positions in metres (NaN where a row left them empty).
+    power_db : ndarray of float64, shape (n_sources,), or None
+        Source power in dB.
+    offsets : ndarray of int64, shape (n_events + 1,)
+        Sources of event ``i`` are ``offsets[i]:offsets[i + 1]``.
+    """
+
+    event_index: np.ndarray
+    t_s: np.ndarray
+    azimuth_deg: np.ndarray
+    elevation_deg: np.ndarray
+    xyz_m: np.ndarray | None
+    power_db: np.ndarray | None
+    offsets: np.ndarray
+
+    @property
+    def n_sources(self) -> int:
+        return int(self.event_index.shape[0])
+
+    @property
+    def has_xyz(self) -> bool:
+        return self.xyz_m is not None
+
+    def counts(self) -> np.ndarray:
+        """Number of sources of each event, shape (n_events,)."""
+        return np.diff(self.offsets)
+
+    def rows(self, start: int, stop: int) -> SourceTable:
+        """The sources of events ``start:stop``, with ``event_index`` relative to ``start``."""
+        lo, hi = int(self.offsets[start]), int(self.offsets[stop])
+        return SourceTable(
+            event_index=np.asarray(self.event_index[lo:hi]) - start,
+            t_s=np.asarray(self.t_s[lo:hi]),
+            azimuth_deg=np.asarray(self.azimuth_deg[lo:hi]),
+            elevation_deg=np.asarray(self.elevation_deg[lo:hi]),
+            xyz_m=None if self.xyz_m is None else np.asarray(self.xyz_m[lo:hi]),
+            power_db=None if self.power_db is None else np.asarray(self.power_db[lo:hi]),
+            offsets=np.asarray(self.offsets[start:stop + 1]) - lo,
+        )
+
+
+class _Columns:
+    """Growable per-column storage: RAM for small tables, memory-mapped temp files beyond."""
+
+    def __init__(self, spill: bool):
+        self.parts: dict[str, list[np.ndarray]] = {}
+        self.spill = spill
+
+    def append(self, **arrays: np.ndarray) -> None:
+        for k, v in arrays.items():
+            self.parts.setdefault(k, []).append(v)
+
+    def finish(self, order: np.ndarray | None) -> dict[str, np.ndarray]:
+        out = {}
+        tmpdir = tempfile.mkdtemp(prefix="pulsesort-sources-") if self.spill else None
+        for k, parts in self.parts.items():
+            arr = np.concatenate(parts) if parts else np.empty(0)
+            self.parts[k] = []
+            if order is not None:
+                arr = arr[order]
+            if tmpdir is not None:
+                mm = np.lib.format.open_memmap(os.path.join(tmpdir, f"{k}.npy"), mode="w+",
+                                               dtype=arr.dtype, shape=arr.shape)
+                mm[...] = arr
+                mm.flush()
+                del arr
+                arr = np.load(os.path.join(tmpdir, f"{k}.npy"), mmap_mode="r")
+            out[k] = arr
+        if tmpdir is not None:
+            out["_tmpdir"] = tmpdir
+        return out
+
+
+def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
+                 notes: list[str]) -> SourceTable | None:
+    """Read and validate sources.csv in chunks; map event ids to event rows."""
+    fname = path.name
+    n_events = len(event_ids)
+    try:
+        size = path.stat().st_size
+        reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
+                             encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
+    except FileNotFoundError:
+        problems.add(f"{fname}: file not found at {path} (declared in catalog.json 'sources')")
+        return None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
+        return None
+    # ~60 bytes per CSV line: spill big tables to disk, not RAM.
+    cols = _Columns(spill=size / 60 > SOURCES_IN_MEMORY_MAX)
+    has_xyz = has_power = None
+    offset = 0
+    try:
+        for chunk in reader:
+            chunk.columns = [str(c).strip() for c in chunk.columns]
+            if has_xyz is None:
+                missing = [c for c in SOURCE_REQUIRED if c not in chunk.columns]
+                if missing:
+                    problems.add(f"{fname}: required column(s) {missing} missing; header has "
+                                 f"{list(chunk.columns)}")
+                    return None
+                present = [c for c in SOURCE_XYZ if c in chunk.columns]
+                if 0 < len(present) < 3:
+                    problems.add(f"{fname}: columns x_m, y_m, z_m come together; found only "
+                                 f"{present}")
+                has_xyz = len(present) == 3
+                has_power = "power_db" in chunk.columns
+            idx = event_ids.get_indexer(chunk["event_id"].astype(str))
+            for i in np.flatnonzero(idx < 0):
+                problems.add(f"{fname} {_line(i + offset)}: event_id "
+                             f"{chunk['event_id'].iloc[i]!r} is not in events.csv",
+                             key=f"{fname}:event")
+            t = _parse_float_column(chunk["t_s"], fname, "t_s", problems,
+                                    allow_empty=False, line_offset=offset)
+            az = _parse_float_column(chunk["azimuth_deg"], fname, "azimuth_deg", problems,
+                                     allow_empty=False, line_offset=offset)
+            el = _parse_float_column(chunk["elevation_deg"], fname, "elevation_deg", problems,
+                                     allow_empty=False, line_offset=offset)
+            for i in np.flatnonzero((az < 0) | (az >= 360)):
+                problems.add(f"{fname} {_line(i + offset)}: azimuth_deg must be in [0, 360), "
+                             f"got {chunk['azimuth_deg'].iloc[i]!r}", key=f"{fname}:az")
+            for i in np.flatnonzero((el < 0) | (el > 90)):
+                problems.add(f"{fname} {_line(i + offset)}: elevation_deg must be in [0, 90], "
+                             f"got {chunk['elevation_deg'].iloc[i]!r}", key=f"{fname}:el")
+            arrays = dict(event_index=idx.astype(np.int64), t_s=t, azimuth_deg=az,
+                          elevation_deg=el)
+            if has_xyz:
+                arrays["xyz_m"] = np.column_stack([
+                    _parse_float_column(chunk[c], fname, c, problems, allow_empty=True,
+                                        line_offset=offset) for c in SOURCE_XYZ])
+            if has_power:
+                arrays["power_db"] = _parse_float_column(chunk["power_db"], fname, "power_db",
+                                                         problems, allow_empty=True,
+                                                         line_offset=offset)
+            cols.append(**arrays)
+            offset += len(chunk)
+    except UnicodeDecodeError as exc:
+        problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
+        return None
+    except pd.errors.ParserError as exc:
+        problems.add(f"{fname}: malformed CSV ({exc})")
+        return None
+    if has_xyz is None:  # header only
+        has_xyz, has_power = False, False
+    if problems:
+        return None
+    ev = np.concatenate(cols.parts.get("event_index", [np.empty(0, np.int64)]))
+    order = None
+    if ev.size and np.any(np.diff(ev) < 0):
+        order = np.argsort(ev, kind="stable")
+        notes.append(f"{fname}: rows are not in events.csv order; sorted on load")
+    del ev
+    arrays = cols.finish(order)
+    event_index = arrays["event_index"]
+    offsets = np.searchsorted(event_index, np.arange(n_events + 1), side="left").astype(np.int64)
+    table = SourceTable(
+        event_index=event_index,
+        t_s=arrays["t_s"],
+        azimuth_deg=arrays["azimuth_deg"],
+        elevation_deg=arrays["elevation_deg"],
+        xyz_m=arrays.get("xyz_m") if has_xyz else None,
+        power_db=arrays.get("power_db") if has_power else None,
+        offsets=offsets,
+    )
+    if "_tmpdir" in arrays:
+        import shutil
+
+        weakref.finalize(table, shutil.rmtree, arrays["_tmpdir"], True)
+    return table

@@ -1,0 +1,303 @@
+"""Features of the fast-antenna field change: shape, amplitude, moments, quality.
+
+All functions take a batch of rows ``(n_pulses, n_samples)`` in V/m (physics
+convention, as :meth:`features.catalog.Catalog.read_field` returns them) and
+the channel's sample rate in Hz; they return one value per row, in SI units.
+
+Definitions (the contract of :mod:`features.schema`):
+
+* **baseline** and **noise**: median and robust standard deviation
+  (1.4826 x MAD, floored at one digitizer step / sqrt(12)) of up to
+  ``BASELINE_MAX_S`` of record before the analysis window.
+* **decay compensation**: a fast antenna with RC constant tau records
+  y with dy/dt + y/tau = dE/dt, so E(t) = y(t) + (1/tau) int y dt
+  (first-order high-pass inverted; common practice for fast antennas).
+* **initial peak**: the largest |E| within ``PEAK_SEARCH_S`` of the trigger,
+  refined by a parabola through three samples. Its sign is the polarity; below,
+  ``u = polarity * E`` so that the initial peak P is positive.
+* **onset**: the last time before the peak where u rises through
+  max(1 % of P, noise); the search stops at the field minimum just before the
+  rise, so a pulse riding on its predecessor's tail still gets an onset.
+* **rise time**: 10 % to 90 % of P on the leading edge.
+* **FWHM**: the contiguous interval around the peak where u >= P / 2.
+* **zero crossing**: the first time after the peak where u <= 0 (before the
+  field rises again above 60 % of P, i.e. before a following pulse).
+* **overshoot**: the largest -u from the zero crossing to the earliest of
+  10 initial half-cycles later, the next rise above 50 % of P, or the window end.
+* **width**: from the 10 % point of the leading edge to the point where the
+  pulse (or its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
+* **current moment** (radiation term, far field over a perfectly conducting
+  ground): E = -(1 / (2 pi eps0 c^2 D)) dM/dt, so M(t) = -2 pi eps0 c^2 D int E dt,
+  integrated from the onset; its peak is taken at the zero crossing (where
+  dM/dt = 0) or, for a pulse with no crossing, at the end of the pulse.
+  Positive M is an upward-directed current moment.
+* **charge moment change**: int M dt from the onset to the end of the
+  overshoot lobe (or of the pulse).
+* **peak current**: transmission-line model I = -2 pi eps0 c^2 D E_peak / v with
+  v = ``TL_SPEED_M_PER_S``.
+
+References
+----------
+Rakov, V. A. and Uman, M. A. (2003), *Lightning: Physics and Effects*, Cambridge
+University Press: ch. 4 (field equations, TL model), ch. 9 and 20 (in-cloud pulses);
+definitions recalled from memory.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+from scipy import constants
+
+from ._rowops import (
+    crossing_after,
+    crossing_before,
+    cumtrapz_rows,
+    first_true,
+    interp_rows,
+    parabolic_peak,
+    take_rows,
+)
+
+__all__ = [
+    "ANALYSIS_WINDOW_S",
+    "PEAK_SEARCH_S",
+    "TL_SPEED_M_PER_S",
+    "REFERENCE_RANGE_M",
+    "decay_compensate",
+    "field_features",
+    "moment_factor_a_per_v",
+]
+
+#: Analysis window relative to the trigger (recorded time), in seconds.
+ANALYSIS_WINDOW_S = (-40e-6, 160e-6)
+#: Where the initial peak is searched, relative to the trigger, in seconds.
+PEAK_SEARCH_S = (-20e-6, 40e-6)
+#: Longest stretch of pre-window record used for baseline and noise, in seconds.
+BASELINE_MAX_S = 60e-6
+#: Transmission-line return-stroke speed assumed for ``peak_current_a``, m/s.
+#: Half the speed of light: the middle of measured return-stroke speeds
+#: (about c/3 to 2c/3; Rakov & Uman 2003, ch. 4; from memory).
+TL_SPEED_M_PER_S = 1.5e8
+#: Range to which peaks are normalised, m (the customary 100 km).
+REFERENCE_RANGE_M = 100e3
+#: Fraction of missing (NaN) samples in the window above which a row is unusable.
+MAX_MISSING_FRACTION = 0.5
+#: Cap of the signal-to-noise ratio for noiseless records, dB.
+SNR_CAP_DB = 200.0
+
+
+def moment_factor_a_per_v(range_m):
+    """2 pi eps0 c^2 D: current-moment rate per unit radiation field, in A/(V s^-1).
+
+    Parameters
+    ----------
+    range_m : float or ndarray
+        Horizontal distance D, in metres.
+
+    Returns
+    -------
+    float or ndarray
+        Multiply E (V/m) by this to get -dM/dt (A m / s).
+    """
+    return 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * np.asarray(range_m, float)
+
+
+def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
+    """Undo a fast antenna's RC decay: E = y + (1/tau) int y dt.
+
+    Parameters
+    ----------
+    y_v_per_m : ndarray, shape (n_pulses, n_samples)
+        Recorded field change, baseline removed, in V/m.
+    sample_rate_hz : float
+        Samples per second.
+    decay_time_s : float or None
+        RC decay constant tau in seconds; None returns the input unchanged.
+
+    Returns
+    -------
+    ndarray, shape (n_pulses, n_samples)
+        The compensated field change in V/m.
+    """
+    y = np.asarray(y_v_per_m, dtype=np.float64)
+    if decay_time_s is None:
+        return y
+    return y + cumtrapz_rows(y, 1.0 / sample_rate_hz) / decay_time_s
+
+
+def _index_range(n_samples, sample_rate_hz, pretrigger_s, window_s):
+    i0 = int(np.floor((pretrigger_s + window_s[0]) * sample_rate_hz))
+    i1 = int(np.ceil((pretrigger_s + window_s[1]) * sample_rate_hz)) + 1
+    return max(i0, 0), min(max(i1, 0), n_samples)
+
+
+def _baseline_noise(field, i0, quantum):
+    """Median and robust sigma of the pre-window record (or the whole row)."""
+    n, m = field.shape
+    if i0 >= 16:
+        base = field[:, :i0]
+    else:  # no usable pre-trigger: the whole row (a pulse fills little of it)
+        base = field
+    with warnings.catch_warnings():  # all-NaN rows give NaN, which is what we want
+        warnings.simplefilter("ignore", RuntimeWarning)
+        med = np.nanmedian(base, axis=1)
+        mad = np.nanmedian(np.abs(base - med[:, None]), axis=1)
+    sigma = 1.4826 * mad
+    if quantum > 0:
+        sigma = np.maximum(sigma, quantum / np.sqrt(12.0))
+    return med, sigma
+
+
+def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0.0,
+                   decay_time_s=None, quantum_v_per_m=0.0, range_m=None,
+                   analysis_window_s=ANALYSIS_WINDOW_S, peak_search_s=PEAK_SEARCH_S,
+                   tl_speed_m_per_s=TL_SPEED_M_PER_S):
+    """Compute every field-change feature of a batch of pulses.
+
+    Parameters
+    ----------
+    field_v_per_m : ndarray, shape (n_pulses, n_samples)
+        Field change in V/m, physics convention, NaN where missing.
+    sample_rate_hz : float
+        Samples per second of the field channel.
+    pretrigger_s : float, default=0.0
+        Sample 0 lies this long before the trigger, in seconds.
+    delay_s : float, default=0.0
+        Channel delay in seconds (physical time = recorded time - delay).
+    decay_time_s : float or None, default=None
+        Fast-antenna RC constant in seconds (None: DC-coupled).
+    quantum_v_per_m : float, default=0.0
+        One digitizer step in V/m (0 for float records); floors the noise estimate.
+    range_m : ndarray, shape (n_pulses,), optional
+        Horizontal distance to the source in metres, NaN where unknown.
+    analysis_window_s, peak_search_s : (float, float)
+        Windows relative to the trigger, in seconds.
+    tl_speed_m_per_s : float
+        Return-stroke speed assumed by the transmission-line peak current, m/s.
+
+    Returns
+    -------
+    dict of str -> ndarray, shape (n_pulses,)
+        Keys as in :data:`features.schema.FEATURES` (``peak_field_v_per_m``,
+        ``rise_time_s``, ...), plus ``peak_time_s`` (physical time of the peak
+        relative to the trigger, s) and ``field_ok`` (bool).
+    """
+    x = np.asarray(field_v_per_m, dtype=np.float64)
+    if x.ndim != 2:
+        raise ValueError(f"field_v_per_m must be 2-D (n_pulses, n_samples), got {x.shape}")
+    n, m = x.shape
+    fs = float(sample_rate_hz)
+    dt = 1.0 / fs
+    rng = np.full(n, np.nan) if range_m is None else np.asarray(range_m, dtype=np.float64)
+    i0, i1 = _index_range(m, fs, pretrigger_s, analysis_window_s)
+    if i1 - i0 < 8:
+        raise ValueError(f"the analysis window {analysis_window_s} s holds fewer than 8 samples "
+                         f"of a {m}-sample record at {fs:g} Hz")
+    base, sigma = _baseline_noise(x, i0, quantum_v_per_m)
+    y = x[:, i0:i1] - base[:, None]
+    missing = np.isnan(y)
+    miss_frac = missing.mean(axis=1)
+    y[missing] = 0.0
+    e = decay_compensate(y, fs, decay_time_s)
+    w = e.shape[1]
+    cols = np.arange(w)
+    t0 = i0 / fs - pretrigger_s - delay_s          # physical time of window sample 0
+
+    # initial peak inside the search window
+    p0, p1 = _index_range(m, fs, pretrigger_s, peak_search_s)
+    p0, p1 = max(p0 - i0, 0), max(min(p1 - i0, w), 1)
+    absw = np.abs(e[:, p0:p1])
+    s = p0 + absw.argmax(axis=1)
+    polarity = np.where(take_rows(e, s) >= 0, 1.0, -1.0)
+    u = e * polarity[:, None]
+    s_frac, peak = parabolic_peak(u, s)
+    ok = (miss_frac <= MAX_MISSING_FRACTION) & (peak > 0)
+
+    lvl = lambda f: f * peak  # noqa: E731 - a level as a fraction of the peak
+    c10 = crossing_before(u, s, lvl(0.1))
+    c50 = crossing_before(u, s, lvl(0.5))
+    c90 = crossing_before(u, s, lvl(0.9))
+    f50 = crossing_after(u, s, lvl(0.5))
+    f10 = crossing_after(u, s, lvl(0.1))
+
+    # onset: last rise through max(1 % P, noise) after the valley preceding the rise
+    j10 = np.where(np.isfinite(c10), np.floor(np.nan_to_num(c10)), 0).astype(np.intp)
+    lookback = np.maximum(3 * (s - j10), 3)
+    lo = np.maximum(j10 - lookback, 0)
+    masked = np.where((cols >= lo[:, None]) & (cols <= np.maximum(j10, lo)[:, None]), u, np.inf)
+    valley = masked.argmin(axis=1)
+    onset_level = np.maximum(lvl(0.01), sigma)
+    onset = crossing_before(u, s, onset_level, start=valley)
+    onset = np.where(np.isfinite(onset), onset, valley.astype(float))
+
+    # zero crossing, bounded by a following pulse rising above 60 % of P
+    after50 = np.where(np.isfinite(f50), np.ceil(np.nan_to_num(f50)), w).astype(np.intp)
+    next_rise, has_next = first_true((u >= lvl(0.6)[:, None]) & (cols > after50[:, None]))
+    zc_stop = np.where(has_next, next_rise, w)
+    zc = crossing_after(u, s, np.zeros(n), stop=zc_stop, inclusive=True)
+    has_zc = np.isfinite(zc)
+    ihc = zc - onset                                   # samples
+
+    # overshoot lobe
+    jz = np.where(has_zc, np.ceil(np.nan_to_num(zc)), w).astype(np.intp)
+    os_end = np.minimum(jz + np.ceil(10 * np.nan_to_num(ihc, nan=0.0)).astype(np.intp) + 1, w)
+    nxt, has_nxt = first_true((u >= lvl(0.5)[:, None]) & (cols > jz[:, None]))
+    os_end = np.where(has_nxt, np.minimum(os_end, nxt), os_end)
+    in_lobe = (cols >= jz[:, None]) & (cols < os_end[:, None])
+    neg = np.where(in_lobe, -u, -np.inf)
+    j_os = neg.argmax(axis=1)
+    overshoot = np.where(has_zc, np.maximum(take_rows(neg, j_os), 0.0), 0.0)
+    bipolarity = np.where(ok, overshoot / np.where(peak > 0, peak, 1.0), np.nan)
+
+    # end of the pulse for the width (overshoot counted when it exceeds 10 % of P)
+    big_os = has_zc & (overshoot >= lvl(0.1))
+    os_fall = crossing_after(-u, j_os, lvl(0.1), stop=os_end)
+    end_width = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, os_end - 1.0), f10)
+    # end of the overshoot lobe for the charge moment: its return through zero
+    lobe_back = crossing_after(-u, j_os, np.zeros(n), stop=os_end, inclusive=True)
+    end_charge = np.where(has_zc, np.where(np.isfinite(lobe_back), lobe_back, os_end - 1.0),
+                          np.where(np.isfinite(f10), f10, w - 1.0))
+
+    # moments: M(t) = -2 pi eps0 c^2 D int_onset^t E dt
+    k = moment_factor_a_per_v(rng)
+    ie = cumtrapz_rows(e, dt)                           # V s / m
+    ie_on = interp_rows(ie, onset)
+    m_end = np.where(has_zc, zc, np.where(np.isfinite(f10), f10, w - 1.0))
+    current_moment = -k * (interp_rows(ie, m_end) - ie_on)
+    mom = ie - ie_on[:, None]                           # int_onset^t E dt, per sample
+    mom = np.where(cols >= np.floor(onset)[:, None], mom, 0.0)
+    iie = cumtrapz_rows(mom, dt)
+    charge_moment = -k * (interp_rows(iie, end_charge) - interp_rows(iie, onset))
+
+    peak_signed = polarity * peak
+    with np.errstate(divide="ignore", invalid="ignore"):
+        snr = 20 * np.log10(peak / sigma)
+    snr = np.where(np.isfinite(snr), np.minimum(snr, SNR_CAP_DB), np.where(peak > 0,
+                   SNR_CAP_DB, np.nan))
+    range_norm = peak_signed * rng / REFERENCE_RANGE_M
+    out = {
+        "peak_field_v_per_m": peak_signed,
+        "polarity": polarity,
+        "rise_time_s": (c90 - c10) * dt,
+        "fwhm_s": (f50 - c50) * dt,
+        "initial_half_cycle_s": ihc * dt,
+        "zero_crossing_s": (zc - s_frac) * dt,
+        "width_s": (end_width - c10) * dt,
+        "bipolarity": bipolarity,
+        "range_normalized_peak_v_per_m": range_norm,
+        "current_moment_peak_a_m": current_moment,
+        "charge_moment_change_c_m": charge_moment,
+        "peak_current_a": -k * peak_signed / tl_speed_m_per_s,
+        "snr_db": snr,
+        "peak_time_s": t0 + s_frac * dt,
+        "onset_time_s": t0 + onset * dt,
+        "field_noise_v_per_m": sigma,
+        "field_ok": ok,
+    }
+    for key, val in out.items():
+        if key != "field_ok" and val.dtype.kind == "f":
+            out[key] = np.where(ok, val, np.nan)
+    out["snr_db"] = np.where(ok, out["snr_db"], np.nan)
+    return out
