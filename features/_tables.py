@@ -39,7 +39,7 @@ def _parse_float_column(values: pd.Series, fname: str, column: str, problems: Pr
     """Strings -> float64; empty (and 'nan') -> NaN when allowed, else a problem."""
     text = values.astype(str).str.strip()
     empty = text.eq("") | text.str.lower().isin(("nan", "na", "null", "none"))
-    out = pd.to_numeric(text.where(~empty, "nan"), errors="coerce").to_numpy(dtype=np.float64)
+    out = np.array(pd.to_numeric(text.where(~empty, "nan"), errors="coerce"), dtype=np.float64)
     bad = np.isnan(out) & ~empty.to_numpy()
     if not allow_empty:
         bad |= empty.to_numpy()

@@ -15,9 +15,12 @@ Definitions (the contract of :mod:`features.schema`):
 * **initial peak**: the largest |E| within ``PEAK_SEARCH_S`` of the trigger,
   refined by a parabola through three samples. Its sign is the polarity; below,
   ``u = polarity * E`` so that the initial peak P is positive.
+* **valley**: the lowest u within four times the 50 %-to-peak time before the
+  peak; leading-edge crossings are searched after it, so a pulse riding on its
+  predecessor's tail is measured on its own edge.
 * **onset**: the last time before the peak where u rises through
-  max(1 % of P, noise); the search stops at the field minimum just before the
-  rise, so a pulse riding on its predecessor's tail still gets an onset.
+  max(1 % of P, noise), after the valley (the valley itself if u never gets
+  that low).
 * **rise time**: 10 % to 90 % of P on the leading edge.
 * **FWHM**: the contiguous interval around the peak where u >= P / 2.
 * **zero crossing**: the first time after the peak where u <= 0 (before the
@@ -216,18 +219,19 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     ok = (miss_frac <= MAX_MISSING_FRACTION) & (peak > 0)
 
     lvl = lambda f: f * peak  # noqa: E731 - a level as a fraction of the peak
-    c10 = crossing_before(u, s, lvl(0.1))
+    # the valley before the rise: lowest u within four 50 %-to-peak times before the peak
     c50 = crossing_before(u, s, lvl(0.5))
-    c90 = crossing_before(u, s, lvl(0.9))
+    lookback = np.where(np.isfinite(c50), 4 * (s - np.nan_to_num(c50)) + 2, 1e-6 * fs)
+    lo = np.maximum(s - np.ceil(lookback).astype(np.intp), 0)
+    valley = np.where((cols >= lo[:, None]) & (cols <= s[:, None]), u, np.inf).argmin(axis=1)
+    # leading-edge levels are searched after the valley (a pulse riding on its
+    # predecessor's tail has no 10 % point of its own: NaN)
+    c10 = crossing_before(u, s, lvl(0.1), start=valley)
+    c50 = crossing_before(u, s, lvl(0.5), start=valley)
+    c90 = crossing_before(u, s, lvl(0.9), start=valley)
     f50 = crossing_after(u, s, lvl(0.5))
     f10 = crossing_after(u, s, lvl(0.1))
-
-    # onset: last rise through max(1 % P, noise) after the valley preceding the rise
-    j10 = np.where(np.isfinite(c10), np.floor(np.nan_to_num(c10)), 0).astype(np.intp)
-    lookback = np.maximum(3 * (s - j10), 3)
-    lo = np.maximum(j10 - lookback, 0)
-    masked = np.where((cols >= lo[:, None]) & (cols <= np.maximum(j10, lo)[:, None]), u, np.inf)
-    valley = masked.argmin(axis=1)
+    # onset: last rise through max(1 % of P, noise) after the valley, else the valley
     onset_level = np.maximum(lvl(0.01), sigma)
     onset = crossing_before(u, s, onset_level, start=valley)
     onset = np.where(np.isfinite(onset), onset, valley.astype(float))

@@ -1,0 +1,44 @@
+"""Flash-context features on hand-computable flashes."""
+
+import numpy as np
+import pandas as pd
+from numpy.testing import assert_allclose
+
+from features._tables import SourceTable
+from features.context import REUSE_MIN_AGE_S, flash_context
+
+
+def _events(flash):
+    return pd.DataFrame({"flash_id": flash})
+
+
+def test_isolation_and_time_in_flash():
+    """Times in ms: flash A at 0, 1, 4; flash B at 10; one pulse without flash at 2."""
+    t_ns = (np.array([0.0, 1.0, 4.0, 10.0, 2.0]) * 1e6).astype(np.int64)
+    ctx = flash_context(_events(["A", "A", "A", "B", ""]), t_ns)
+    assert_allclose(ctx["time_in_flash_s"][:4], [0, 1e-3, 4e-3, 0])
+    assert np.isnan(ctx["time_in_flash_s"][4])
+    assert_allclose(ctx["isolation_s"][:3], [1e-3, 1e-3, 3e-3])
+    assert np.isnan(ctx["isolation_s"][3]) and np.isnan(ctx["isolation_s"][4])
+    assert_allclose(ctx["isolation_any_s"], [1e-3, 1e-3, 2e-3, 6e-3, 1e-3])
+    assert ctx["flash_n_pulses"].tolist() == [3, 3, 3, 1, 1]
+
+
+def test_channel_reuse_counts_only_old_nearby_sources():
+    """Pulse 2 retraces pulse 0's channel (old enough) but not pulse 1's (too recent)."""
+    t_ns = np.array([0, 90_000_000, 100_000_000], dtype=np.int64)    # 0, 90, 100 ms
+    ev = np.repeat([0, 1, 2], 4)
+    base = np.array([[1000.0, 2000.0, 5000.0]] * 4) + np.arange(4)[:, None] * [50, 0, 0]
+    far = base + [20_000.0, 0, 0]
+    # pulse 2: two sources on pulse 0's channel, two next to pulse 1 (10 ms older only)
+    p2 = np.vstack([base[:2] + 5.0, far[:2] + 5.0])
+    xyz = np.vstack([base, far, p2])
+    src = SourceTable(event_index=ev, t_s=np.zeros(12), azimuth_deg=np.zeros(12),
+                      elevation_deg=np.zeros(12), xyz_m=xyz, power_db=None,
+                      offsets=np.array([0, 4, 8, 12]))
+    assert 10e-3 > REUSE_MIN_AGE_S
+    ctx = flash_context(_events(["F", "F", "F"]), t_ns, src)
+    assert_allclose(ctx["channel_reuse"], [0.0, 0.0, 1.0])
+    t_ns2 = np.array([0, 90_000_000, 92_000_000], dtype=np.int64)      # pulse 1 only 2 ms old
+    ctx2 = flash_context(_events(["F", "F", "F"]), t_ns2, src)
+    assert_allclose(ctx2["channel_reuse"], [0.0, 0.0, 0.5])

@@ -1,0 +1,198 @@
+"""Field-change features against analytic pulses and textbook formulas."""
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import constants, signal
+
+from features.waveform import (
+    TL_SPEED_M_PER_S,
+    decay_compensate,
+    field_features,
+    moment_factor_a_per_v,
+)
+
+FS = 20e6
+PRE = 100e-6
+M = 8000
+
+
+def _t(fs=FS, m=M, pre=PRE):
+    return np.arange(m) / fs - pre
+
+
+def _gauss(t, t0, sigma, amp):
+    return amp * np.exp(-0.5 * ((t - t0) / sigma) ** 2)
+
+
+def test_gaussian_width_and_rise_time():
+    """A Gaussian pulse has FWHM = 2 sqrt(2 ln 2) sigma and 10-90 % rise 1.6869 sigma."""
+    sigma = 1e-6
+    x = _gauss(_t(), 5e-6, sigma, 10.0)[None]
+    out = field_features(x, FS, pretrigger_s=PRE)
+    # closed forms: FWHM = 2 sqrt(2 ln 2) sigma; rise = (sqrt(2 ln 10) - sqrt(2 ln(10/9))) sigma
+    assert_allclose(out["fwhm_s"], 2 * np.sqrt(2 * np.log(2)) * sigma, rtol=2e-3)
+    rise = (np.sqrt(2 * np.log(10)) - np.sqrt(2 * np.log(10 / 9))) * sigma
+    assert_allclose(out["rise_time_s"], rise, rtol=5e-3)
+    assert_allclose(out["peak_field_v_per_m"], 10.0, rtol=1e-4)
+    assert out["polarity"][0] == 1
+    assert out["bipolarity"][0] == 0
+
+
+def test_width_of_unipolar_pulse_is_ten_percent_span():
+    """Width of a unipolar Gaussian = span above 10 % = 2 sqrt(2 ln 10) sigma."""
+    sigma = 2e-6
+    out = field_features(_gauss(_t(), 10e-6, sigma, -3.0)[None], FS, pretrigger_s=PRE)
+    assert_allclose(out["width_s"], 2 * np.sqrt(2 * np.log(10)) * sigma, rtol=3e-3)
+    assert out["polarity"][0] == -1
+    assert_allclose(out["peak_field_v_per_m"], -3.0, rtol=1e-4)
+
+
+def _bipolar_sine(t, t0, half_s, overshoot):
+    """One positive sine half-cycle of length half_s, then a negative one of
+    length 2 half_s and relative height ``overshoot``."""
+    x = np.zeros_like(t)
+    a = (t >= t0) & (t < t0 + half_s)
+    x[a] = np.sin(np.pi * (t[a] - t0) / half_s)
+    b = (t >= t0 + half_s) & (t < t0 + 3 * half_s)
+    x[b] = -overshoot * np.sin(np.pi * (t[b] - t0 - half_s) / (2 * half_s))
+    return x
+
+
+def test_bipolar_pulse_half_cycle_zero_crossing_and_bipolarity():
+    """Half-sine bipolar pulse: every timing feature has a closed form."""
+    half = 4e-6
+    x = 7.0 * _bipolar_sine(_t(), 2e-6, half, 0.4)
+    out = field_features(x[None], FS, pretrigger_s=PRE)
+    # onset at 1 % of the peak: asin(0.01)/pi of a half-cycle after the start
+    onset_delay = np.arcsin(0.01) / np.pi * half
+    assert_allclose(out["initial_half_cycle_s"], half - onset_delay, rtol=2e-3)
+    assert_allclose(out["zero_crossing_s"], half / 2, rtol=2e-3)
+    assert_allclose(out["bipolarity"], 0.4, rtol=2e-3)
+    # FWHM of a half-sine: the middle 2/3 of it
+    assert_allclose(out["fwhm_s"], half * 2 / 3, rtol=2e-3)
+    # width: 10 % rising point to the overshoot's last fall below 10 % of the peak
+    t10 = np.arcsin(0.1) / np.pi * half
+    t_os = half + 2 * half * (1 - np.arcsin(0.1 / 0.4) / np.pi)
+    assert_allclose(out["width_s"], t_os - t10, rtol=3e-3)
+
+
+@pytest.mark.parametrize("fs_coarse", [10e6, 5e6])
+def test_sample_rate_invariance(fs_coarse):
+    """The same pulse at two sample rates gives the same times within one coarse sample."""
+    half = 5e-6
+    res = {}
+    for fs in (20e6, fs_coarse):
+        t = np.arange(int(400e-6 * fs)) / fs - PRE
+        res[fs] = field_features((3.0 * _bipolar_sine(t, 1.3e-6, half, 0.3))[None], fs,
+                                 pretrigger_s=PRE)
+    for key in ("rise_time_s", "fwhm_s", "initial_half_cycle_s", "zero_crossing_s",
+                "width_s"):
+        assert abs(res[20e6][key][0] - res[fs_coarse][key][0]) <= 1 / fs_coarse, key
+    assert_allclose(res[20e6]["bipolarity"], res[fs_coarse]["bipolarity"], atol=0.02)
+    assert_allclose(res[20e6]["peak_field_v_per_m"], res[fs_coarse]["peak_field_v_per_m"],
+                    rtol=0.02)
+
+
+def test_moment_factor_uses_codata_constants():
+    """2 pi eps0 c^2 D with eps0 and c from scipy.constants (CODATA)."""
+    assert_allclose(moment_factor_a_per_v(1.0),
+                    2 * np.pi * constants.epsilon_0 * constants.c ** 2, rtol=1e-15)
+    assert constants.c == 299792458.0  # exact by definition of the metre (SI 2019)
+
+
+def test_transmission_line_peak_current_worked_example():
+    """E = -v I / (2 pi eps0 c^2 D): 30 kA, 1.5e8 m/s, 100 km -> about 9.0 V/m.
+
+    Textbook-type worked example of the TL model (Rakov & Uman 2003, ch. 4;
+    from memory). Here the inverse: a -9.0 V/m peak at 100 km gives ~ +30 kA
+    (upward-directed current: a negative return stroke, physics convention).
+    """
+    e_peak = -TL_SPEED_M_PER_S * 30e3 / (2 * np.pi * constants.epsilon_0
+                                         * constants.c ** 2 * 100e3)
+    assert_allclose(e_peak, -9.0, atol=0.01)
+    x = _gauss(_t(), 3e-6, 1e-6, e_peak)[None]
+    out = field_features(x, FS, pretrigger_s=PRE, range_m=np.array([100e3]))
+    assert_allclose(out["peak_current_a"], 30e3, rtol=2e-4)
+    assert_allclose(out["range_normalized_peak_v_per_m"], e_peak, rtol=1e-4)
+
+
+def test_current_and_charge_moment_recovered_from_radiation_field():
+    """Radiation field of a known current moment M(t); recover peak M and int M dt.
+
+    M(t) = M0 (e^2/4) (t/tau)^2 exp(-t/tau) peaks at M0 (t = 2 tau) and has
+    int M dt = M0 (e^2/2) tau. Far-field radiation term over a conducting ground:
+    E = -(1 / (2 pi eps0 c^2 D)) dM/dt (Rakov & Uman 2003, ch. 4; from memory).
+    """
+    m0, tau, d = 2.0e7, 1.5e-6, 80e3
+    t = _t()
+    x = np.clip(t - 1e-6, 0, None)
+    dmdt = m0 * np.e ** 2 / 4 * (x / tau ** 2) * (2 - x / tau) * np.exp(-x / tau)
+    e = -dmdt / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * d)
+    out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]))
+    assert_allclose(out["current_moment_peak_a_m"], m0, rtol=0.02)
+    assert_allclose(out["charge_moment_change_c_m"], m0 * np.e ** 2 / 2 * tau, rtol=0.02)
+    assert out["polarity"][0] == -1          # upward current moment -> negative E
+
+
+def test_decay_compensation_inverts_rc_high_pass():
+    """A fast antenna (first-order RC high-pass, scipy.signal) is undone exactly enough."""
+    tau = 50e-6
+    t = _t()
+    true = 4.0 * (1 - np.exp(-np.clip(t, 0, None) / 2e-6)) * (t > 0)   # a field step
+    b, a = signal.bilinear([1.0, 0.0], [1.0, 1.0 / tau], fs=FS)          # s / (s + 1/tau)
+    recorded = signal.lfilter(b, a, true)
+    back = decay_compensate(recorded[None], FS, tau)[0]
+    assert_allclose(back[t > 50e-6], true[t > 50e-6], rtol=2e-3)
+    with_decay = field_features(recorded[None], FS, pretrigger_s=PRE, decay_time_s=tau)
+    dc = field_features(true[None], FS, pretrigger_s=PRE)
+    assert_allclose(with_decay["peak_field_v_per_m"], dc["peak_field_v_per_m"], rtol=3e-3)
+
+
+def test_noise_and_snr():
+    """SNR is 20 log10(peak / sigma) with sigma from the pre-trigger noise."""
+    rng = np.random.default_rng(0)
+    x = _gauss(_t(), 2e-6, 1e-6, 5.0) + rng.normal(0, 0.05, M)
+    out = field_features(x[None], FS, pretrigger_s=PRE)
+    assert_allclose(out["field_noise_v_per_m"], 0.05, rtol=0.1)
+    assert_allclose(out["snr_db"], 20 * np.log10(5.0 / 0.05), atol=1.0)
+    assert out["bipolarity"][0] < 0.1
+
+
+def test_quantisation_floor_of_noise():
+    """A noiseless int16-like record gets sigma = one step / sqrt(12), not zero."""
+    x = np.round(_gauss(_t(), 2e-6, 1e-6, 100.0))
+    out = field_features(x[None], FS, pretrigger_s=PRE, quantum_v_per_m=1.0)
+    assert_allclose(out["field_noise_v_per_m"], 1 / np.sqrt(12), rtol=1e-9)
+    assert np.isfinite(out["snr_db"]).all()
+
+
+def test_missing_rows_give_nan_and_flag():
+    """An all-NaN row is flagged unusable; its neighbours are unaffected."""
+    x = np.stack([_gauss(_t(), 2e-6, 1e-6, 1.0), np.full(M, np.nan)])
+    out = field_features(x, FS, pretrigger_s=PRE)
+    assert out["field_ok"].tolist() == [True, False]
+    assert np.isnan(out["fwhm_s"][1]) and np.isfinite(out["fwhm_s"][0])
+
+
+def test_pulse_on_predecessor_tail_gets_local_onset():
+    """A leader pulse 8 us after a bigger one: onset is its own, not its predecessor's."""
+    t = _t()
+    first = _gauss(t, -8e-6, 0.4e-6, 0.6) + 0.25 * np.exp(-np.clip(t + 8e-6, 0, None)
+                                                          / 20e-6) * (t > -8e-6)
+    second = _gauss(t, 1e-6, 0.3e-6, 1.0)
+    out = field_features((first + second)[None], FS, pretrigger_s=PRE)
+    assert_allclose(out["peak_time_s"], 1e-6, atol=0.05e-6)
+    onset = out["onset_time_s"][0]
+    assert -1e-6 < onset < 1e-6
+
+
+def test_input_not_mutated_and_shape_checked():
+    """Inputs are left unchanged; a 1-D input is refused with a clear message."""
+    x = _gauss(_t(), 2e-6, 1e-6, 1.0)[None]
+    x[0, 10] = np.nan
+    copy = x.copy()
+    field_features(x, FS, pretrigger_s=PRE)
+    np.testing.assert_array_equal(x, copy)
+    with pytest.raises(ValueError, match="must be 2-D"):
+        field_features(x[0], FS, pretrigger_s=PRE)
