@@ -1,0 +1,63 @@
+"""Export of current labels or of the full history as a labels file."""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import os
+import tempfile
+from pathlib import Path
+
+import pandas as pd
+
+from . import _query
+from ._importer import EXPORT_COLUMNS
+
+
+def export_frame(con, store_path, catalog_id, history: bool) -> pd.DataFrame:
+    """The decisions to export (see :meth:`LabelStore.export_labels`)."""
+    ids = [r[0] for r in con.execute("SELECT catalog_id FROM catalogs ORDER BY 1")]
+    if catalog_id is None:
+        if len(ids) != 1:
+            raise ValueError(f"{store_path} holds {len(ids)} catalogs "
+                             f"({', '.join(ids) or 'none'}); choose one with --catalog")
+        catalog_id = ids[0]
+    elif catalog_id not in ids:
+        raise ValueError(f"catalog {catalog_id!r} is not registered in {store_path}")
+    dec = _query.decisions(con, [catalog_id])
+    if not history:
+        lat = _query.latest(con, [catalog_id])
+        cur = _query.rule(lat)
+        cur = cur[cur["status"] == "labelled"]
+        agreed = lat[~lat["is_resolve"] & lat["label"].notna()].merge(
+            cur.loc[~cur["resolved"], ["catalog_id", "event_id"]])
+        keep = set(agreed["decision_id"]) | set(cur.loc[cur["resolved"], "winning_id"])
+        order = {e: i for i, (e,) in enumerate(con.execute(
+            "SELECT event_id FROM events WHERE catalog_id = ? ORDER BY row_index",
+            (catalog_id,)))}
+        dec = dec[dec["decision_id"].isin(keep)].copy()
+        dec["_row"] = dec["event_id"].map(order)
+        dec = dec.sort_values(["_row", "decided_at", "decision_id"])
+    return dec
+
+
+def write_csv(out: Path, dec: pd.DataFrame) -> None:
+    """Write ``dec`` (decisions) as a labels file: to a temporary name, then renamed."""
+    out.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=out.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            w = csv.writer(fh, lineterminator="\n")
+            w.writerow(EXPORT_COLUMNS)
+            for r in dec.itertuples(index=False):
+                w.writerow([r.catalog_id, r.event_id, r.label or "", r.analyst,
+                            r.decided_at.strftime("%Y-%m-%dT%H:%M:%S.%fZ"), r.note or "",
+                            r.origin, r.model_version or "",
+                            "" if pd.isna(r.confidence) else repr(float(r.confidence))])
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, out)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise

@@ -1,0 +1,251 @@
+"""Read side of the label store: current labels, history, conflicts, agreement, stats.
+
+Every function takes an open :class:`sqlite3.Connection` (the caller holds a
+read transaction, so all queries of one call see the same snapshot) and
+returns pandas objects. The current-label rule is documented in
+:mod:`classify.labels`.
+"""
+
+from __future__ import annotations
+
+import itertools
+import warnings
+
+import numpy as np
+import pandas as pd
+
+STATUSES = ("labelled", "conflict", "unlabelled")
+
+DECISION_COLUMNS = ("decision_id", "catalog_id", "event_id", "label", "analyst",
+                    "decided_at", "origin", "note", "model_version", "confidence",
+                    "batch_id", "source_file", "source_sha256", "recorded_at")
+CURRENT_COLUMNS = ("catalog_id", "event_id", "label", "status", "resolved", "resolved_by",
+                   "n_analysts", "analysts", "decided_at")
+
+
+def _in(column: str, values) -> tuple[str, list]:
+    """``column IN (?, ?, ...)`` and its parameters; an always-true clause for None."""
+    if values is None:
+        return "1 = 1", []
+    values = list(values)
+    if not values:
+        return "0 = 1", []
+    return f"{column} IN ({', '.join('?' * len(values))})", values
+
+
+def _times(series: pd.Series) -> pd.Series:
+    return pd.to_datetime(series, utc=True, format="ISO8601")
+
+
+def decisions(con, catalog_ids=None, event_id=None) -> pd.DataFrame:
+    """Every decision (optionally of some catalogs / one event id), in recorded order."""
+    where, params = _in("d.catalog_id", catalog_ids)
+    if event_id is not None:
+        where += " AND d.event_id = ?"
+        params.append(event_id)
+    rows = con.execute(
+        "SELECT d.decision_id, d.catalog_id, d.event_id, d.label, d.analyst, d.decided_at,"
+        " d.origin, d.note, d.model_version, d.confidence, d.batch_id, b.source_path,"
+        " b.source_sha256, d.recorded_at"
+        " FROM decisions d LEFT JOIN import_batches b ON b.batch_id = d.batch_id"
+        f" WHERE {where} ORDER BY d.decision_id", params).fetchall()
+    df = pd.DataFrame(rows, columns=list(DECISION_COLUMNS), dtype=object)
+    df["decision_id"] = df["decision_id"].astype("int64")
+    df["confidence"] = df["confidence"].astype("float64")
+    df["batch_id"] = df["batch_id"].astype("Int64")
+    for c in ("decided_at", "recorded_at"):
+        df[c] = _times(df[c])
+    return df
+
+
+def latest(con, catalog_ids=None, event=None) -> pd.DataFrame:
+    """Each analyst's latest non-resolve decision and each event's latest resolve.
+
+    Columns: decision_id, catalog_id, event_id, label, analyst, decided_at (text),
+    origin, is_resolve (bool).
+    """
+    where, params = _in("catalog_id", catalog_ids)
+    if event is not None:
+        where += " AND catalog_id = ? AND event_id = ?"
+        params += list(event)
+    rows = con.execute(
+        "WITH ranked AS ("
+        " SELECT decision_id, catalog_id, event_id, label, analyst, decided_at, origin,"
+        "  ROW_NUMBER() OVER ("
+        "   PARTITION BY catalog_id, event_id, origin = 'resolve',"
+        "    CASE WHEN origin = 'resolve' THEN '' ELSE analyst END"
+        "   ORDER BY decided_at DESC, decision_id DESC) AS rn"
+        f" FROM decisions WHERE {where})"
+        " SELECT decision_id, catalog_id, event_id, label, analyst, decided_at, origin"
+        " FROM ranked WHERE rn = 1", params).fetchall()
+    df = pd.DataFrame(rows, columns=["decision_id", "catalog_id", "event_id", "label",
+                                     "analyst", "decided_at", "origin"], dtype=object)
+    df["decision_id"] = df["decision_id"].astype("int64")
+    df["is_resolve"] = (df["origin"] == "resolve").to_numpy(dtype=bool)
+    return df
+
+
+def rule(lat: pd.DataFrame) -> pd.DataFrame:
+    """Apply the current-label rule to :func:`latest` rows: one row per decided event."""
+    key = ["catalog_id", "event_id"]
+    ana = lat[~lat["is_resolve"]].sort_values(["decided_at", "decision_id"])
+    res = lat[lat["is_resolve"]]
+    # the newest analyst decision of each event (retractions included)
+    newest = ana.groupby(key, sort=False).tail(1)[key + ["decided_at", "decision_id"]]
+    live = ana[ana["label"].notna()]
+    g = live.groupby(key, sort=False)
+    summary = pd.DataFrame({
+        "n_labels": g["label"].nunique(),
+        "first_label": g["label"].first(),
+        "n_analysts": g["analyst"].size(),
+        "analysts": g["analyst"].agg(lambda s: tuple(sorted(s))),
+        "live_at": g["decided_at"].max(),
+    }).reset_index()
+    out = newest.rename(columns={"decided_at": "ana_at", "decision_id": "ana_id"})
+    out = out.merge(summary, on=key, how="outer")
+    out = out.merge(res[key + ["label", "analyst", "decided_at", "decision_id"]].rename(
+        columns={"label": "res_label", "analyst": "resolved_by", "decided_at": "res_at",
+                 "decision_id": "res_id"}), on=key, how="outer")
+    has_res = out["res_at"].notna().to_numpy()
+    no_ana = out["ana_at"].isna().to_numpy()
+    res_at = out["res_at"].fillna("").to_numpy(dtype=object)
+    ana_at = out["ana_at"].fillna("").to_numpy(dtype=object)
+    res_id = out["res_id"].fillna(-1).to_numpy(dtype=np.int64)
+    ana_id = out["ana_id"].fillna(-1).to_numpy(dtype=np.int64)
+    newer = (res_at > ana_at) | ((res_at == ana_at) & (res_id > ana_id))
+    wins = has_res & (no_ana | newer)
+    n_labels = out["n_labels"].fillna(0).to_numpy(dtype=np.int64)
+    status = np.where(wins | (n_labels == 1), "labelled",
+                      np.where(n_labels > 1, "conflict", "unlabelled"))
+    label = np.where(wins, out["res_label"].to_numpy(dtype=object),
+                     np.where(n_labels == 1, out["first_label"].to_numpy(dtype=object), None))
+    decided = np.where(wins, res_at, np.where(n_labels > 0,
+                                              out["live_at"].fillna("").to_numpy(dtype=object),
+                                              ana_at))
+    analysts = out["analysts"].to_numpy(dtype=object)
+    analysts = pd.Series([a if isinstance(a, tuple) else () for a in analysts], dtype=object,
+                         index=out.index)
+    return pd.DataFrame({
+        "catalog_id": out["catalog_id"].to_numpy(dtype=object),
+        "event_id": out["event_id"].to_numpy(dtype=object),
+        "label": label.astype(object),
+        "status": status.astype(object),
+        "resolved": wins,
+        "resolved_by": np.where(wins, out["resolved_by"].to_numpy(dtype=object), None),
+        "n_analysts": out["n_analysts"].fillna(0).to_numpy(dtype=np.int64),
+        "analysts": analysts,
+        "decided_at": decided.astype(object),
+        "winning_id": np.where(wins, res_id, -1),
+    })
+
+
+def current_labels(con, catalog_ids=None, status=None) -> pd.DataFrame:
+    """The current label of every registered event of ``catalog_ids`` (all if None)."""
+    where, params = _in("catalog_id", catalog_ids)
+    events = pd.DataFrame(con.execute(
+        f"SELECT catalog_id, event_id FROM events WHERE {where}"
+        " ORDER BY catalog_id, row_index", params).fetchall(),
+        columns=["catalog_id", "event_id"], dtype=object)
+    decided = rule(latest(con, catalog_ids)).drop(columns="winning_id")
+    df = events.merge(decided, on=["catalog_id", "event_id"], how="left", sort=False)
+    df["status"] = df["status"].fillna("unlabelled")
+    df["resolved"] = df["resolved"].fillna(False).astype(bool)
+    df["n_analysts"] = df["n_analysts"].fillna(0).astype("int64")
+    df["analysts"] = [a if isinstance(a, tuple) else () for a in df["analysts"]]
+    df["label"] = df["label"].astype(object).where(df["label"].notna(), None)
+    df["resolved_by"] = df["resolved_by"].astype(object).where(df["resolved_by"].notna(), None)
+    df["decided_at"] = _times(df["decided_at"].replace("", None))
+    df = df[list(CURRENT_COLUMNS)]
+    if status is not None:
+        wanted = [status] if isinstance(status, str) else list(status)
+        bad = [s for s in wanted if s not in STATUSES]
+        if bad:
+            raise ValueError(f"status must be among {', '.join(STATUSES)}, got {bad!r}")
+        df = df[df["status"].isin(wanted)]
+    return df.reset_index(drop=True)
+
+
+def conflicts(con, catalog_ids=None) -> pd.DataFrame:
+    """Long form: one row per analyst's live label on each event in conflict."""
+    lat = latest(con, catalog_ids)
+    cur = rule(lat)
+    bad = cur.loc[cur["status"] == "conflict", ["catalog_id", "event_id"]]
+    live = lat[~lat["is_resolve"] & lat["label"].notna()]
+    out = live.merge(bad, on=["catalog_id", "event_id"])
+    out = out.sort_values(["catalog_id", "event_id", "analyst"])
+    out = out[["catalog_id", "event_id", "analyst", "label", "decided_at", "decision_id"]]
+    out = out.reset_index(drop=True)
+    out["decided_at"] = _times(out["decided_at"])
+    return out
+
+
+def agreement(con, catalog_ids=None) -> pd.DataFrame:
+    """Pairwise agreement between analysts on the events both have labelled.
+
+    Resolutions are left out (a resolver is not an independent rater).
+    ``kappa`` is Cohen's kappa from :func:`sklearn.metrics.cohen_kappa_score`;
+    NaN when it is undefined (no common events, or both used one single class).
+    """
+    from sklearn.metrics import cohen_kappa_score  # only here: keeps imports light
+
+    lat = latest(con, catalog_ids)
+    live = lat[~lat["is_resolve"] & lat["label"].notna()]
+    cols = ["analyst_1", "analyst_2", "n_common", "n_agree", "agreement", "kappa"]
+    wide = live.pivot(index=["catalog_id", "event_id"], columns="analyst", values="label")
+    rows = []
+    for a, b in itertools.combinations(sorted(wide.columns), 2):
+        both = wide[[a, b]].dropna()
+        n = len(both)
+        n_agree = int((both[a] == both[b]).sum())
+        kappa = np.nan
+        if n:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                kappa = float(cohen_kappa_score(both[a].to_numpy(dtype=str),
+                                                both[b].to_numpy(dtype=str),
+                                                replace_undefined_by=np.nan))
+        rows.append((a, b, n, n_agree, n_agree / n if n else np.nan, kappa))
+    df = pd.DataFrame(rows, columns=cols)
+    return df.astype({"analyst_1": object, "analyst_2": object, "n_common": "int64",
+                      "n_agree": "int64", "agreement": "float64", "kappa": "float64"})
+
+
+def stats(con, classes, catalog_ids=None) -> dict[str, pd.DataFrame]:
+    """Counts: per catalog by status, per catalog by class, per analyst by class."""
+    where, params = _in("catalog_id", catalog_ids)
+    cats = pd.DataFrame(con.execute(
+        f"SELECT catalog_id, station, season, n_events FROM catalogs WHERE {where}"
+        " ORDER BY catalog_id", params).fetchall(),
+        columns=["catalog_id", "station", "season", "n_events"])
+    cur = current_labels(con, catalog_ids)
+    status = pd.crosstab(cur["catalog_id"], cur["status"]).reindex(
+        index=cats["catalog_id"], columns=list(STATUSES), fill_value=0)
+    n_dec = pd.DataFrame(con.execute(
+        f"SELECT catalog_id, COUNT(*), COUNT(DISTINCT analyst) FROM decisions WHERE {where}"
+        " GROUP BY catalog_id", params).fetchall(),
+        columns=["catalog_id", "n_decisions", "n_analysts"]).set_index("catalog_id")
+    status.columns.name = None
+    per_cat = cats.set_index("catalog_id").join(status).join(n_dec)
+    per_cat[["n_decisions", "n_analysts"]] = per_cat[["n_decisions", "n_analysts"]].fillna(
+        0).astype("int64")
+    lab = cur[cur["status"] == "labelled"]
+    per_class = pd.crosstab(lab["catalog_id"], lab["label"]).reindex(
+        index=cats["catalog_id"], columns=list(classes), fill_value=0)
+    per_class.columns.name = None
+    per_class.insert(0, "season", cats.set_index("catalog_id")["season"])
+    per_class["total"] = per_class[list(classes)].sum(axis=1)
+    lat = latest(con, catalog_ids)
+    live = lat[~lat["is_resolve"] & lat["label"].notna()]
+    per_analyst = pd.crosstab([live["catalog_id"], live["analyst"]], live["label"]).reindex(
+        columns=list(classes), fill_value=0)
+    per_analyst.columns.name = None
+    per_analyst["total"] = per_analyst.sum(axis=1)
+    counts = pd.DataFrame(con.execute(
+        "SELECT catalog_id, analyst, COUNT(*), SUM(origin = 'retract'), SUM(origin = 'resolve')"
+        f" FROM decisions WHERE {where} GROUP BY catalog_id, analyst", params).fetchall(),
+        columns=["catalog_id", "analyst", "n_decisions", "n_retractions", "n_resolutions"])
+    per_analyst = counts.set_index(["catalog_id", "analyst"]).join(per_analyst, how="left")
+    per_analyst = per_analyst.fillna(0).astype("int64")
+    per_analyst = per_analyst[list(classes) + ["total", "n_decisions", "n_retractions",
+                                               "n_resolutions"]]
+    return {"catalogs": per_cat, "classes": per_class, "analysts": per_analyst.sort_index()}
