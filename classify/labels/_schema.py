@@ -113,6 +113,33 @@ ALTER TABLE decisions ADD COLUMN confidence REAL
 ALTER TABLE classes ADD COLUMN added_at TEXT;
 """
 
+#: What the review page records when an analyst looks at a pulse without
+#: labelling it: ``unsure``, ``skip``, or ``withdrawn`` (takes the analyst's
+#: standing mark on the event back). Not labels, so not in ``decisions``;
+#: append-only like them. The table is created by the first mark (a store
+#: without marks has none), so it needs no schema version of its own.
+REVIEW_MARKS = ("unsure", "skip", "withdrawn")
+REVIEW_MARKS_DDL = f"""
+CREATE TABLE IF NOT EXISTS review_marks (
+    mark_id       INTEGER PRIMARY KEY AUTOINCREMENT,
+    catalog_id    TEXT NOT NULL,
+    event_id      TEXT NOT NULL,
+    analyst       TEXT NOT NULL CHECK (length(analyst) > 0),
+    mark          TEXT NOT NULL CHECK (mark IN ({", ".join(f"'{m}'" for m in REVIEW_MARKS)})),
+    note          TEXT,
+    model_version TEXT,
+    confidence    REAL CHECK (confidence IS NULL OR (confidence >= 0.0 AND confidence <= 1.0)),
+    marked_at     TEXT NOT NULL,
+    FOREIGN KEY (catalog_id, event_id) REFERENCES events(catalog_id, event_id)
+);
+CREATE INDEX IF NOT EXISTS review_marks_by_event
+    ON review_marks(catalog_id, event_id, analyst, mark_id);
+CREATE TRIGGER IF NOT EXISTS review_marks_no_update BEFORE UPDATE ON review_marks
+BEGIN SELECT RAISE(ABORT, 'review marks are append-only'); END;
+CREATE TRIGGER IF NOT EXISTS review_marks_no_delete BEFORE DELETE ON review_marks
+BEGIN SELECT RAISE(ABORT, 'review marks are append-only'); END;
+"""
+
 #: Statements that take a store from version N to N + 1.
 MIGRATIONS = {1: _V1_TO_V2}
 
