@@ -12,7 +12,8 @@ Definitions:
   flash (NaN when alone in its flash or without flash_id).
 * ``isolation_any_s``: time to the nearest other catalogued pulse of the
   catalog, any flash (NaN for a one-pulse catalog).
-* ``flash_n_pulses``: catalogued pulses sharing the flash_id (1 without one).
+* ``flash_n_pulses``: catalogued pulses sharing the flash_id (1 without one;
+  NaN for every pulse when the catalog gives no flash ids at all).
 * ``channel_reuse``: fraction of the pulse's sources that lie near a source
   mapped at least ``REUSE_MIN_AGE_S`` earlier in the same flash. "Near" is
   decided on a grid: with x, y, z, a source counts when an earlier source lies
@@ -146,6 +147,8 @@ def flash_context(events, time_ns, sources=None):
         first = np.full(counts.size, np.iinfo(np.int64).max)
         np.minimum.at(first, c, t[has_flash])
         t_in[has_flash] = (t[has_flash] - first[c]).astype(np.float64) * 1e-9
+    if not has_flash.any():
+        size[:] = np.nan
     reuse = _channel_reuse(code, t, sources)
     return {
         "time_in_flash_s": t_in,

@@ -36,7 +36,7 @@ from .waveform import (
 )
 
 __all__ = ["ChunkJob", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks", "iter_features",
-           "extract_features", "write_csv_rows", "format_for_csv"]
+           "extract_features", "run_jobs", "write_csv_rows", "format_for_csv"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -165,7 +165,7 @@ def _progress(total: int, enabled: bool | None, desc: str):
                 smoothing=0.1)
 
 
-def _run_dask(jobs, address):
+def _run_dask(func, jobs, address, extra_args=()):
     try:
         from distributed import Client
     except ImportError as exc:  # pragma: no cover - depends on the extra
@@ -173,10 +173,10 @@ def _run_dask(jobs, address):
                          ) from exc
     with Client(address) as client:
         window = max(4, 4 * len(client.nthreads()))
-        futures = []
         pending = iter(jobs)
+        futures = []
         for job in pending:
-            futures.append(client.submit(compute_chunk, job, pure=False))
+            futures.append(client.submit(func, job, *extra_args, pure=False))
             if len(futures) >= window:
                 break
         while futures:
@@ -184,23 +184,26 @@ def _run_dask(jobs, address):
             yield head.result()
             job = next(pending, None)
             if job is not None:
-                futures.append(client.submit(compute_chunk, job, pure=False))
+                futures.append(client.submit(func, job, *extra_args, pure=False))
 
 
-def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None):
-    """Yield ``func(job)`` for every job, in order, serially or in parallel."""
+def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None,
+             extra_args: tuple = ()):
+    """Yield ``func(job, *extra_args)`` for every job, in order, serially or in parallel.
+
+    ``func`` must be importable by name (a module-level function) so that
+    joblib's worker processes and Dask workers can run it.
+    """
     if dask_address:
-        if func is not compute_chunk:
-            raise ValueError("the Dask backend runs feature chunks only")
-        yield from _run_dask(jobs, dask_address)
+        yield from _run_dask(func, jobs, dask_address, extra_args)
     elif n_jobs == 1 or len(jobs) <= 1:
         for job in jobs:
-            yield func(job)
+            yield func(job, *extra_args)
     else:
         from joblib import Parallel, delayed
 
         par = Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="2*n_jobs")
-        yield from par(delayed(func)(job) for job in jobs)
+        yield from par(delayed(func)(job, *extra_args) for job in jobs)
 
 
 def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_jobs: int = 1,

@@ -15,7 +15,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "feature_names", "model_feature_names",
-           "format_table"]
+           "missing_groups", "format_table"]
 
 #: Bump when a definition changes in a way that changes values.
 SCHEMA_VERSION = "1.0"
@@ -37,6 +37,10 @@ class Feature:
         "field", "vhf", "mapping", "context", "quality" or "id".
     model : bool
         Whether classifiers use it.
+    requires : frozenset of str
+        Optional catalog parts the value depends on: "range" (range_m or x/y/z),
+        "vhf", "sources", "flash" (flash_id). Without them it is NaN; classifiers
+        train on copies of pulses with such groups masked so they cope.
     """
 
     name: str
@@ -44,6 +48,7 @@ class Feature:
     definition: str
     group: str
     model: bool = True
+    requires: frozenset = frozenset()
 
 
 FEATURES: tuple[Feature, ...] = (
@@ -66,61 +71,86 @@ FEATURES: tuple[Feature, ...] = (
     Feature("bipolarity", "1", "opposite-polarity overshoot peak / initial peak, absolute "
             "ratio (0 = unipolar)", "field"),
     Feature("range_normalized_peak_v_per_m", "V/m", "initial peak scaled to 100 km "
-            "(x range / 100 km); NaN without range", "field"),
+            "(x range / 100 km); NaN without range", "field",
+            requires=frozenset({"range"})),
     Feature("current_moment_peak_a_m", "A m", "peak current moment from the radiation term "
             "M = -2 pi eps0 c^2 D int E dt (onset to zero crossing); + = upward-directed "
-            "current; NaN without range", "field"),
+            "current; NaN without range", "field",
+            requires=frozenset({"range"})),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "
-            "overshoot lobe; NaN without range", "field"),
+            "overshoot lobe; NaN without range", "field",
+            requires=frozenset({"range"})),
     Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 D E / v "
-            "with v = 1.5e8 m/s; + = upward-directed current; NaN without range", "field"),
+            "with v = 1.5e8 m/s; + = upward-directed current; NaN without range", "field",
+            requires=frozenset({"range"})),
     # ---------------------------------------------------------------- vhf
     Feature("vhf_peak_db", "dB", "10 log10 of the peak VHF power within 30 us of the field "
-            "peak, in the catalog's own power units", "vhf", model=False),
+            "peak, in the catalog's own power units", "vhf", model=False,
+            requires=frozenset({"vhf"})),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
-            "power peak (positive: VHF leads); both channels delay-corrected", "vhf"),
+            "power peak (positive: VHF leads); both channels delay-corrected", "vhf",
+            requires=frozenset({"vhf"})),
     Feature("vhf_to_field_db", "dB", "VHF peak power relative to the squared range-"
             "normalised field peak: vhf_peak_db - 20 log10(|range_normalized_peak|); in the "
-            "catalog's VHF units", "vhf", model=False),
+            "catalog's VHF units", "vhf", model=False,
+            requires=frozenset({"range", "vhf"})),
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
-            "field strength, each over its own noise floor (range and gain free)", "vhf"),
-    Feature("vhf_snr_db", "dB", "peak VHF power over the mean pre-trigger VHF power", "vhf"),
+            "field strength, each over its own noise floor (range and gain free)", "vhf", model=False,
+            requires=frozenset({"vhf"})),
+    Feature("vhf_snr_db", "dB", "peak VHF power over the mean pre-trigger VHF power", "vhf",
+            requires=frozenset({"vhf"})),
     Feature("vhf_width_s", "s", "time the VHF power (0.25 us moving average) stays above "
-            "10 % of its peak around the peak", "vhf"),
+            "10 % of its peak around the peak", "vhf",
+            requires=frozenset({"vhf"})),
     # ---------------------------------------------------------------- mapping
     Feature("n_sources", "1", "mapped VHF sources of the pulse (NaN: catalog has no "
-            "sources)", "mapping"),
+            "sources)", "mapping",
+            requires=frozenset({"sources"})),
     Feature("speed_m_per_s", "m/s", "speed from a robust (Huber) straight-line fit of mapped "
             "positions vs time (3-D if xyz, else from range and angles); NaN under 3 sources "
-            "or without positions", "mapping"),
+            "or without positions", "mapping",
+            requires=frozenset({"range", "sources"})),
     Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity, "
-            "+ upward", "mapping"),
+            "+ upward", "mapping",
+            requires=frozenset({"range", "sources"})),
     Feature("motion_elevation_deg", "deg", "angle of the motion above the horizontal "
-            "(+90 straight up); from angles alone when there is no xyz", "mapping"),
+            "(+90 straight up); from angles alone when there is no xyz", "mapping",
+            requires=frozenset({"sources"})),
     Feature("angular_rate_deg_per_s", "deg/s", "angular speed on the sky from a robust fit "
-            "of azimuth and elevation vs time", "mapping"),
+            "of azimuth and elevation vs time", "mapping",
+            requires=frozenset({"sources"})),
     Feature("net_to_path", "1", "net displacement / path length of the time-ordered source "
             "track (1 = straight, near 0 = back and forth); on the sky without xyz",
-            "mapping"),
+            "mapping",
+            requires=frozenset({"sources"})),
     Feature("altitude_m", "m", "median source altitude (z, or range x tan(elevation))",
-            "mapping"),
-    Feature("elevation_median_deg", "deg", "median source elevation", "mapping"),
+            "mapping",
+            requires=frozenset({"range", "sources"})),
+    Feature("elevation_median_deg", "deg", "median source elevation", "mapping",
+            requires=frozenset({"sources"})),
     Feature("source_duration_s", "s", "time from the first to the last mapped source",
-            "mapping"),
+            "mapping",
+            requires=frozenset({"sources"})),
     Feature("source_range_m", "m", "median horizontal distance of the sources (xyz only)",
-            "mapping", model=False),
+            "mapping", model=False,
+            requires=frozenset({"sources"})),
     # ---------------------------------------------------------------- context
     Feature("isolation_s", "s", "time to the nearest other catalogued pulse of the same "
-            "flash (NaN if alone)", "context"),
+            "flash (NaN if alone)", "context",
+            requires=frozenset({"flash"})),
     Feature("isolation_any_s", "s", "time to the nearest other catalogued pulse of any "
             "flash", "context"),
     Feature("time_in_flash_s", "s", "time since the first pulse of its flash (NaN without "
-            "flash_id)", "context"),
-    Feature("flash_n_pulses", "1", "catalogued pulses in its flash (1 without flash_id)",
-            "context"),
+            "flash_id)", "context",
+            requires=frozenset({"flash"})),
+    Feature("flash_n_pulses", "1", "catalogued pulses in its flash (1 without flash_id; NaN "
+            "when the catalog has no flash ids at all)",
+            "context",
+            requires=frozenset({"flash"})),
     Feature("channel_reuse", "1", "fraction of its sources within one 300 m cell (0.3 deg on "
             "the sky without xyz) of a source mapped >= 5 ms earlier in its flash",
-            "context"),
+            "context",
+            requires=frozenset({"flash", "sources"})),
     # ---------------------------------------------------------------- quality
     Feature("range_m", "m", "horizontal range used (events.csv, else the sources' median "
             "horizontal distance)", "quality", model=False),
@@ -146,6 +176,16 @@ def feature_names() -> list[str]:
 def model_feature_names() -> list[str]:
     """Columns a classifier uses, in a fixed order."""
     return [f.name for f in FEATURES if f.model]
+
+
+def missing_groups(names=None) -> dict[str, list[str]]:
+    """For each optional catalog part, the columns of ``names`` that need it."""
+    names = model_feature_names() if names is None else list(names)
+    out: dict[str, list[str]] = {}
+    for n in names:
+        for part in sorted(_BY_NAME[n].requires):
+            out.setdefault(part, []).append(n)
+    return out
 
 
 def get(name: str) -> Feature:

@@ -1,0 +1,464 @@
+"""The pulse classifier: gradient-boosted trees, calibrated, with conformal sets and novelty.
+
+:class:`PulseClassifier` is a scikit-learn classifier. ``fit(X, y, groups=...)``:
+
+1. splits the rows into ``n_splits`` folds grouped by ``groups`` (flashes: the
+   pulses of one flash never sit in both the training and the held-out fold;
+   :class:`~sklearn.model_selection.StratifiedGroupKFold`);
+2. fits one :class:`~sklearn.ensemble.HistGradientBoostingClassifier` per fold
+   (class weights "balanced"; missing values handled natively). Training rows
+   are augmented with copies in which whole groups of columns that a catalog
+   may lack (range, VHF, sources, flash ids; ``missing_groups``) are set to
+   NaN, so the trees learn what to do when a station records less;
+3. calibrates by temperature scaling (Guo et al. 2017) fitted on the
+   out-of-fold predictions: p = softmax(log p_raw / T). The deployed model
+   averages the fold models' probabilities and applies T (cross-fitted
+   calibration, equivalent to ``CalibratedClassifierCV(ensemble=True)`` with one
+   shared temperature);
+4. sets split-conformal thresholds per class (Mondrian / class-conditional
+   conformal prediction; Vovk et al. 2005) on the out-of-fold calibrated
+   probabilities: with score s = 1 - p_true, class k's threshold q_k is the
+   ceil((n_k + 1)(1 - alpha)) / n_k empirical quantile of the scores of class-k
+   pulses, and a pulse's prediction set is {k : 1 - p_k <= q_k};
+5. fits a novelty score: mean Euclidean distance (NaN-aware,
+   :func:`~sklearn.metrics.pairwise.nan_euclidean_distances`) to the
+   ``novelty_k`` nearest of up to ``n_reference`` labelled training pulses in a
+   robust standardised space (median/IQR z-scores, then arcsinh to tame tails);
+   the threshold is the ``novelty_quantile`` of the training pulses' own
+   (leave-self-out) scores.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+import warnings
+
+import numpy as np
+from scipy.optimize import minimize_scalar
+from scipy.special import log_softmax
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.ensemble import HistGradientBoostingClassifier
+from sklearn.metrics.pairwise import nan_euclidean_distances
+from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+__all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature"]
+
+_EPS = 1e-12
+#: Joins catalog_id and event_id in ``sample_ids`` (a character no CSV id contains).
+ID_SEPARATOR = "\x1f"
+
+
+def fit_temperature(proba, y_index, sample_weight=None):
+    """Temperature T minimising the log loss of softmax(log(proba) / T).
+
+    Parameters
+    ----------
+    proba : ndarray, shape (n, n_classes)
+        Uncalibrated probabilities.
+    y_index : ndarray of int, shape (n,)
+        True class indices.
+
+    Returns
+    -------
+    float
+        The temperature, in [0.05, 20].
+    """
+    logp = np.log(np.clip(proba, _EPS, 1.0))
+    w = np.ones(len(y_index)) if sample_weight is None else np.asarray(sample_weight, float)
+
+    def nll(log_t):
+        lp = log_softmax(logp / math.exp(log_t), axis=1)
+        return -np.sum(w * lp[np.arange(len(y_index)), y_index]) / w.sum()
+
+    res = minimize_scalar(nll, bounds=(math.log(0.05), math.log(20.0)), method="bounded",
+                          options={"xatol": 1e-4})
+    return float(math.exp(res.x))
+
+
+def _apply_temperature(proba, temperature):
+    logp = np.log(np.clip(proba, _EPS, 1.0))
+    return np.exp(log_softmax(logp / temperature, axis=1))
+
+
+def conformal_thresholds(proba, y_index, n_classes, coverage):
+    """Class-conditional split-conformal thresholds on scores 1 - p_true.
+
+    Returns
+    -------
+    ndarray, shape (n_classes,)
+        q_k; a class is in a pulse's set when 1 - p_k <= q_k. A class with too
+        few calibration pulses for the level gets q_k = 1 (always in the set).
+    """
+    alpha = 1.0 - coverage
+    scores = 1.0 - proba[np.arange(len(y_index)), y_index]
+    q = np.ones(n_classes)
+    for k in range(n_classes):
+        s = np.sort(scores[y_index == k])
+        n = len(s)
+        rank = math.ceil((n + 1) * (1 - alpha))
+        if n and rank <= n:
+            q[k] = s[rank - 1]
+    return q
+
+
+class PulseClassifier(ClassifierMixin, BaseEstimator):
+    """Calibrated gradient-boosted classifier with conformal sets and a novelty score.
+
+    Parameters
+    ----------
+    coverage : float, default=0.95
+        Target class-conditional coverage of the prediction sets.
+    n_splits : int, default=5
+        Folds (grouped by ``groups``) for out-of-fold calibration; fewer are
+        used when a class has fewer members.
+    max_iter : int, default=150
+        Boosting iterations of each fold model.
+    learning_rate : float, default=0.1
+    max_leaf_nodes : int, default=31
+    l2_regularization : float, default=1.0
+    class_weight : {"balanced"} or None, default="balanced"
+    missing_groups : list of list of int, optional
+        Column-index groups that a catalog may lack together; training rows
+        are augmented with copies in which each group is masked (NaN) with
+        probability 1/2.
+    augment_fraction : float, default=0.5
+        Number of augmented copies as a fraction of the training rows.
+    novelty_quantile : float, default=0.995
+        Quantile of the training pulses' novelty scores used as the threshold.
+    novelty_k : int, default=5
+    n_reference : int, default=2000
+        Labelled pulses kept for the novelty score and look-alikes.
+    random_state : int, default=0
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+    n_features_in_ : int
+    n_iter_ : int
+        Boosting iterations of the longest fold model.
+    feature_names_in_ : ndarray of str
+        Set when ``X`` is a DataFrame.
+    estimators_ : list of HistGradientBoostingClassifier
+        One per fold.
+    temperature_ : float
+    conformal_thresholds_ : ndarray of shape (n_classes,)
+    class_priors_ : ndarray of shape (n_classes,)
+        Class frequencies of the training labels (weights included).
+    oof_proba_ : ndarray of shape (n_samples, n_classes)
+        Calibrated out-of-fold probabilities of the training rows.
+    oof_fold_ : ndarray of int, shape (n_samples,)
+    center_, scale_ : ndarray of shape (n_features,)
+        Robust standardisation of the novelty space.
+    reference_X_ : ndarray of shape (n_reference, n_features)
+        Standardised features of the reference pulses.
+    reference_index_ : ndarray of int
+        Their row numbers in the training ``X``.
+    reference_y_ : ndarray
+        Their labels.
+    reference_ids_ : ndarray of str
+        Their ``sample_ids`` (row numbers when none were given).
+    novelty_threshold_ : float
+    """
+
+    def __init__(self, *, coverage=0.95, n_splits=5, max_iter=150, learning_rate=0.1,
+                 max_leaf_nodes=31, l2_regularization=1.0, class_weight="balanced",
+                 missing_groups=None, augment_fraction=0.5, novelty_quantile=0.995,
+                 novelty_k=5, n_reference=2000, random_state=0):
+        self.coverage = coverage
+        self.n_splits = n_splits
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.max_leaf_nodes = max_leaf_nodes
+        self.l2_regularization = l2_regularization
+        self.class_weight = class_weight
+        self.missing_groups = missing_groups
+        self.augment_fraction = augment_fraction
+        self.novelty_quantile = novelty_quantile
+        self.novelty_k = novelty_k
+        self.n_reference = n_reference
+        self.random_state = random_state
+
+    # ------------------------------------------------------------------ checks
+    def _check_params(self):
+        def check(name, ok, expected):
+            if not ok:
+                raise ValueError(f"PulseClassifier: parameter {name!r} must be {expected}, got "
+                                 f"{getattr(self, name)!r}")
+
+        check("coverage", isinstance(self.coverage, numbers.Real)
+              and 0 < self.coverage < 1, "a float in (0, 1)")
+        check("n_splits", isinstance(self.n_splits, numbers.Integral) and self.n_splits >= 2,
+              "an int >= 2")
+        check("max_iter", isinstance(self.max_iter, numbers.Integral) and self.max_iter >= 1,
+              "an int >= 1")
+        check("augment_fraction", isinstance(self.augment_fraction, numbers.Real)
+              and self.augment_fraction >= 0, "a float >= 0")
+        check("novelty_quantile", isinstance(self.novelty_quantile, numbers.Real)
+              and 0 < self.novelty_quantile <= 1, "a float in (0, 1]")
+        check("class_weight", self.class_weight is None or self.class_weight == "balanced"
+              or isinstance(self.class_weight, dict), "'balanced', a dict or None")
+        check("novelty_k", isinstance(self.novelty_k, numbers.Integral) and self.novelty_k >= 1,
+              "an int >= 1")
+
+    def _new_tree_model(self, seed):
+        cw = self.class_weight
+        if isinstance(cw, dict):  # user labels -> the class indices the trees see
+            cw = {i: cw[c] for i, c in enumerate(self.classes_) if c in cw}
+        return HistGradientBoostingClassifier(
+            max_iter=self.max_iter, learning_rate=self.learning_rate,
+            max_leaf_nodes=self.max_leaf_nodes, l2_regularization=self.l2_regularization,
+            class_weight=cw, early_stopping=False, random_state=seed)
+
+    def _fit_tree_model(self, seed, X, y, w):
+        # a column with no value at all cannot be binned: make it constant (the
+        # trees then never split on it, whatever values it has later)
+        empty = np.isnan(X).all(axis=0)
+        if empty.any():
+            X = X.copy()
+            X[:, empty] = 0.0
+        return self._new_tree_model(seed).fit(X, y, sample_weight=w)
+
+    def _augment(self, X, y, w, rng):
+        groups = [np.asarray(g, dtype=np.intp) for g in (self.missing_groups or []) if len(g)]
+        n_aug = int(round(self.augment_fraction * len(X))) if groups else 0
+        if n_aug == 0:
+            return X, y, w
+        rows = rng.integers(0, len(X), n_aug)
+        Xa = X[rows].copy()
+        masks = rng.random((n_aug, len(groups))) < 0.5
+        masks[~masks.any(axis=1), rng.integers(0, len(groups))] = True
+        for j, g in enumerate(groups):
+            Xa[np.ix_(masks[:, j], g)] = np.nan
+        return (np.vstack([X, Xa]), np.concatenate([y, y[rows]]),
+                np.concatenate([w, w[rows]]))
+
+    def _splits(self, y_idx, groups, rng_seed):
+        counts = np.bincount(y_idx)
+        n_splits = int(min(self.n_splits, counts.min()))
+        if n_splits < 2:
+            return None
+        if groups is None:
+            cv = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=rng_seed)
+            return list(cv.split(np.zeros(len(y_idx)), y_idx))
+        n_groups = len(np.unique(groups))
+        if n_groups < n_splits:
+            n_splits = n_groups
+            if n_splits < 2:
+                return None
+        cv = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=rng_seed)
+        return list(cv.split(np.zeros(len(y_idx)), y_idx, groups))
+
+    # ------------------------------------------------------------------ fit
+    def fit(self, X, y, groups=None, sample_weight=None, sample_ids=None):
+        """Fit fold models, calibration, conformal thresholds and the novelty score.
+
+        Parameters
+        ----------
+        X : array-like or DataFrame, shape (n_samples, n_features)
+            Features; NaN allowed.
+        y : array-like, shape (n_samples,)
+            Class labels.
+        groups : array-like, shape (n_samples,), optional
+            Group (flash) of every row for grouped cross-validation.
+        sample_weight : array-like, shape (n_samples,), optional
+        sample_ids : array-like of str, shape (n_samples,), optional
+            Names of the rows (e.g. "catalog_id/event_id"), kept for the
+            reference pulses so look-alikes can be traced back.
+
+        Returns
+        -------
+        self
+        """
+        self._check_params()
+        X, y = validate_data(self, X, y, ensure_all_finite="allow-nan", dtype=np.float64)
+        check_classification_targets(y)
+        self.classes_, y_idx = np.unique(y, return_inverse=True)
+        if len(self.classes_) < 2:
+            raise ValueError(f"PulseClassifier needs labels of at least 2 classes; got 1 class "
+                             f"({self.classes_.tolist()})")
+        n, n_classes = len(y_idx), len(self.classes_)
+        w = (np.ones(n) if sample_weight is None
+             else np.asarray(sample_weight, dtype=np.float64).reshape(-1))
+        if w.shape != (n,) or not np.all(np.isfinite(w)) or (w < 0).any():
+            raise ValueError(f"sample_weight must be {n} finite non-negative numbers")
+        if groups is not None:
+            groups = np.asarray(groups)
+            if groups.shape != (n,):
+                raise ValueError(f"groups must have one entry per row ({n}), got "
+                                 f"{groups.shape}")
+        rng = np.random.default_rng(self.random_state)
+        seed = int(rng.integers(0, 2**31 - 1))
+        splits = self._splits(y_idx, groups, seed)
+
+        oof_raw = np.zeros((n, n_classes))
+        oof_fold = np.full(n, -1)
+        cal_raw, cal_y, cal_w = [], [], []
+        self.estimators_ = []
+        if splits is None:  # too little data to cross-validate: one model, T = 1
+            Xa, ya, wa = self._augment(X, y_idx, w, rng)
+            est = self._fit_tree_model(seed, Xa, ya, wa)
+            self.estimators_.append(est)
+            oof_raw = self._expand(est, est.predict_proba(X))
+            self.temperature_ = 1.0
+        else:
+            for fold, (tr, te) in enumerate(splits):
+                Xa, ya, wa = self._augment(X[tr], y_idx[tr], w[tr], rng)
+                est = self._fit_tree_model(seed + fold, Xa, ya, wa)
+                self.estimators_.append(est)
+                oof_raw[te] = self._expand(est, est.predict_proba(X[te]))
+                oof_fold[te] = fold
+                # calibrate on the held-out rows and on masked copies of them
+                Xt, yt, wt = self._augment(X[te], y_idx[te], w[te], rng)
+                cal_raw.append(self._expand(est, est.predict_proba(Xt)))
+                cal_y.append(yt)
+                cal_w.append(wt)
+            self.temperature_ = fit_temperature(np.vstack(cal_raw), np.concatenate(cal_y),
+                                                np.concatenate(cal_w))
+        self.oof_proba_ = _apply_temperature(oof_raw, self.temperature_)
+        self.oof_fold_ = oof_fold
+        self.conformal_thresholds_ = conformal_thresholds(self.oof_proba_, y_idx, n_classes,
+                                                          self.coverage)
+        self.n_iter_ = max(int(e.n_iter_) for e in self.estimators_)
+        self.class_priors_ = np.bincount(y_idx, weights=w, minlength=n_classes) / w.sum()
+        self._fit_novelty(X, y_idx, rng)
+        ids = (np.arange(n).astype(str) if sample_ids is None
+               else np.asarray(sample_ids).astype(str))
+        if ids.shape != (n,):
+            raise ValueError(f"sample_ids must have one entry per row ({n}), got {ids.shape}")
+        self.reference_ids_ = ids[self.reference_index_]
+        return self
+
+    def _expand(self, est, proba):
+        """Probabilities over all classes_ even if a fold lacked some class."""
+        if proba.shape[1] == len(self.classes_):
+            return proba
+        full = np.zeros((proba.shape[0], len(self.classes_)))
+        full[:, est.classes_.astype(int)] = proba
+        return full
+
+    # ------------------------------------------------------------------ novelty
+    def _standardise(self, X):
+        z = (X - self.center_) / self.scale_
+        return np.arcsinh(z)
+
+    def _fit_novelty(self, X, y_idx, rng):
+        with warnings.catch_warnings():  # all-NaN columns give NaN: handled below
+            warnings.simplefilter("ignore", RuntimeWarning)
+            center = np.nanmedian(X, axis=0)
+            q75, q25 = np.nanpercentile(X, [75, 25], axis=0)
+            spread = np.nanstd(X, axis=0)
+        scale = q75 - q25
+        scale = np.where(np.isfinite(scale) & (scale > 0), scale,
+                         np.where(np.isfinite(spread) & (spread > 0), spread, 1.0))
+        self.center_ = np.where(np.isfinite(center), center, 0.0)
+        self.scale_ = scale
+        n = len(X)
+        m = min(self.n_reference, n)
+        # stratified choice of reference pulses: every class represented
+        order = rng.permutation(n)
+        per_class = [order[y_idx[order] == k] for k in range(len(self.classes_))]
+        take = []
+        quota = max(1, m // len(per_class))
+        for idx in per_class:
+            take.extend(idx[:quota].tolist())
+        chosen = set(take)
+        rest = [i for i in order if i not in chosen][: max(0, m - len(take))]
+        ref = np.sort(np.array(take + rest, dtype=np.intp))[:m]
+        self.reference_index_ = ref
+        self.reference_X_ = self._standardise(X[ref])
+        self.reference_y_ = self.classes_[y_idx[ref]]
+        # leave-self-out scores of (a sample of) the training pulses
+        probe = rng.choice(n, size=min(n, 4000), replace=False)
+        scores = self._knn_distance(self._standardise(X[probe]),
+                                    exclude=ref.searchsorted(probe), exclude_ok=np.isin(probe,
+                                                                                          ref))
+        finite = scores[np.isfinite(scores)]
+        self.novelty_threshold_ = (float(np.quantile(finite, self.novelty_quantile))
+                                   if finite.size else np.inf)
+
+    def _knn_distance(self, Z, exclude=None, exclude_ok=None, k=None):
+        k = min(self.novelty_k if k is None else k, len(self.reference_X_))
+        out = np.empty(len(Z))
+        for s in range(0, len(Z), 1024):
+            d = nan_euclidean_distances(Z[s:s + 1024], self.reference_X_)
+            if exclude is not None:
+                rows = np.arange(d.shape[0])
+                ex = exclude[s:s + 1024]
+                ok = exclude_ok[s:s + 1024]
+                d[rows[ok], ex[ok]] = np.inf
+            d = np.where(np.isfinite(d), d, np.inf)
+            kk = min(k, d.shape[1])
+            part = np.partition(d, kk - 1, axis=1)[:, :kk]
+            with np.errstate(invalid="ignore"):
+                out[s:s + 1024] = np.where(np.isfinite(part).all(axis=1), part.mean(axis=1),
+                                           np.nan)
+        return out
+
+    # ------------------------------------------------------------------ predict
+    def _validate(self, X):
+        check_is_fitted(self, "estimators_")
+        return validate_data(self, X, reset=False, ensure_all_finite="allow-nan",
+                             dtype=np.float64)
+
+    def predict_proba(self, X):
+        """Calibrated class probabilities, shape (n_samples, n_classes)."""
+        X = self._validate(X)
+        raw = np.mean([self._expand(e, e.predict_proba(X)) for e in self.estimators_], axis=0)
+        return _apply_temperature(raw, self.temperature_)
+
+    def predict(self, X):
+        """Most probable class of every row."""
+        proba = self.predict_proba(X)
+        return self.classes_[np.argmax(proba, axis=1)]
+
+    def predict_set(self, X, proba=None):
+        """Conformal prediction sets: bool array (n_samples, n_classes)."""
+        p = self.predict_proba(X) if proba is None else np.asarray(proba)
+        return (1.0 - p) <= self.conformal_thresholds_[None, :] + 1e-12
+
+    def novelty_score(self, X):
+        """Mean distance to the nearest reference pulses (larger = less familiar)."""
+        X = self._validate(X)
+        return self._knn_distance(self._standardise(X))
+
+    def is_novel(self, X):
+        """True where the novelty score exceeds the training threshold (or is NaN)."""
+        s = self.novelty_score(X)
+        return ~(s <= self.novelty_threshold_)
+
+    def nearest_labelled(self, X, k=5):
+        """Indices into the reference set and distances of the ``k`` nearest, each (n, k)."""
+        Z = self._standardise(self._validate(X))
+        d = nan_euclidean_distances(Z, self.reference_X_)
+        d = np.where(np.isfinite(d), d, np.inf)
+        k = min(k, d.shape[1])
+        idx = np.argsort(d, axis=1, kind="stable")[:, :k]
+        return idx, np.take_along_axis(d, idx, axis=1)
+
+    @property
+    def reference_(self):
+        """The reference (labelled) pulses as a DataFrame: id, label, model features."""
+        import pandas as pd
+
+        check_is_fitted(self, "reference_X_")
+        X = np.sinh(self.reference_X_) * self.scale_ + self.center_
+        names = (list(self.feature_names_in_) if hasattr(self, "feature_names_in_")
+                 else [f"x{i}" for i in range(X.shape[1])])
+        df = pd.DataFrame(X, columns=names)
+        df.insert(0, "label", self.reference_y_)
+        ids = pd.Series(self.reference_ids_, dtype=str)
+        if ids.str.contains(ID_SEPARATOR, regex=False).all():
+            parts = ids.str.split(ID_SEPARATOR, n=1, expand=True)
+            df.insert(0, "event_id", parts[1].to_numpy())
+            df.insert(0, "catalog_id", parts[0].to_numpy())
+        else:
+            df.insert(0, "sample_id", ids.to_numpy())
+        return df
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = True
+        return tags

@@ -1,0 +1,254 @@
+"""Train a pulse classifier on the current labels of catalogs and write its model card.
+
+The training table is the join, on ``(catalog_id, event_id)``, of every
+catalog's features with the label store's current labels (status "labelled";
+events in conflict or unlabelled are left out). Cross-validation groups are
+flashes (``catalog_id`` + ``flash_id``; a pulse without flash is its own group).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import logging
+import platform
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from sklearn import metrics
+
+from features import open_catalog, schema
+from features.extract import extract_features
+
+from .models import ID_SEPARATOR, PulseClassifier
+from .registry import ModelRegistry, save_model
+from .stats import empirical_coverage, expected_calibration_error, flash_groups
+
+__all__ = ["catalog_features", "training_table", "fit_classifier", "cv_metrics",
+           "train_from_store", "model_card_markdown"]
+
+logger = logging.getLogger("pulsesort")
+
+
+def catalog_features(cat, **kwargs) -> pd.DataFrame:
+    """Features of one catalog with a ``catalog_id`` column in front."""
+    df = extract_features(cat, **kwargs)
+    df.insert(0, "catalog_id", cat.catalog_id)
+    return df.reset_index(drop=True)
+
+
+def training_table(catalogs, store, **feature_kwargs) -> pd.DataFrame:
+    """Features of labelled pulses of ``catalogs`` joined with their current labels.
+
+    Parameters
+    ----------
+    catalogs : list of Catalog
+    store : classify.labels.LabelStore
+    **feature_kwargs
+        Passed to :func:`features.extract.extract_features` (``n_jobs``, ...).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``catalog_id, event_id, label, season, station, group`` then the features.
+    """
+    parts = []
+    for cat in catalogs:
+        store.register_catalog(cat)
+        labels = store.current_labels([cat.catalog_id], status="labelled")
+        if labels.empty:
+            logger.warning("%s: no labelled pulses in the store", cat.catalog_id)
+            continue
+        feats = catalog_features(cat, **feature_kwargs)
+        t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")
+        t.insert(2, "season", cat.season or "")
+        t.insert(3, "station", cat.station or "")
+        parts.append(t)
+    if not parts:
+        names = ", ".join(c.catalog_id for c in catalogs)
+        raise ValueError(f"no labelled pulses for catalog(s) {names} in the store; import "
+                         "labels first (pulsesort labels import ...)")
+    table = pd.concat(parts, ignore_index=True)
+    table["group"] = table["catalog_id"] + "/" + flash_groups(table["flash_id"],
+                                                             table["event_id"])
+    label = table.pop("label")
+    table.insert(2, "label", label.astype(str))
+    return table
+
+
+def fit_classifier(table, *, coverage=0.95, sample_weight=None, random_state=0,
+                   **params) -> PulseClassifier:
+    """Fit a :class:`PulseClassifier` on a training table's model features."""
+    names = schema.model_feature_names()
+    X = table[names].astype(float)
+    groups_idx = [[names.index(c) for c in cols]
+                  for cols in schema.missing_groups(names).values()]
+    model = PulseClassifier(coverage=coverage, missing_groups=groups_idx,
+                            random_state=random_state, **params)
+    ids = (table["catalog_id"].astype(str) + ID_SEPARATOR
+           + table["event_id"].astype(str)).to_numpy()
+    return model.fit(X, table["label"].to_numpy(), groups=table["group"].to_numpy(),
+                     sample_weight=sample_weight, sample_ids=ids)
+
+
+def cv_metrics(model: PulseClassifier, y) -> dict:
+    """Grouped cross-validation metrics from the model's out-of-fold probabilities."""
+    y = np.asarray(y).astype(str)
+    classes = model.classes_.astype(str)
+    proba = model.oof_proba_
+    pred = classes[np.argmax(proba, axis=1)]
+    p, r, f, s = metrics.precision_recall_fscore_support(y, pred, labels=classes,
+                                                         zero_division=0)
+    sets = model.predict_set(None, proba=proba)
+    per_cov = {c: float(np.mean(sets[y == c, k])) if (y == c).any() else None
+               for k, c in enumerate(classes)}
+    return {
+        "macro_f1": float(metrics.f1_score(y, pred, labels=classes, average="macro",
+                                           zero_division=0)),
+        "accuracy": float(np.mean(pred == y)),
+        "per_class": {c: {"precision": float(p[k]), "recall": float(r[k]), "f1": float(f[k]),
+                          "support": int(s[k]), "conformal_coverage": per_cov[c]}
+                      for k, c in enumerate(classes)},
+        "confusion_matrix": {"labels": classes.tolist(),
+                             "matrix": metrics.confusion_matrix(y, pred, labels=classes
+                                                                ).tolist()},
+        "ece": expected_calibration_error(proba, y, classes=classes),
+        "conformal_coverage": empirical_coverage(sets, y, classes=classes),
+        "conformal_target": float(model.coverage),
+        "mean_set_size": float(sets.sum(axis=1).mean()),
+        "temperature": float(model.temperature_),
+        "novelty_threshold": float(model.novelty_threshold_),
+        "n_folds": len(model.estimators_),
+    }
+
+
+def _versions() -> dict:
+    import joblib
+    import scipy
+    import sklearn
+    import skops
+
+    from . import __version__
+
+    return {"pulsesort": __version__, "python": platform.python_version(),
+            "numpy": np.__version__, "scipy": scipy.__version__, "pandas": pd.__version__,
+            "scikit-learn": sklearn.__version__, "joblib": joblib.__version__,
+            "skops": skops.__version__}
+
+
+def build_card(model, table, catalogs, version, *, extra=None) -> dict:
+    """The model card as a dict (stored as card.json)."""
+    counts = (table.groupby(["season", "label"]).size().unstack(fill_value=0)
+              .astype(int))
+    card = {
+        "version": version,
+        "created_at": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "kind": "PulseClassifier",
+        "classes": model.classes_.astype(str).tolist(),
+        "class_priors": dict(zip(model.classes_.astype(str), map(float, model.class_priors_))),
+        "feature_schema_version": schema.SCHEMA_VERSION,
+        "features": list(map(str, model.feature_names_in_)),
+        "training_catalogs": [{"catalog_id": c.catalog_id, "station": c.station,
+                               "season": c.season, "content_hash": c.content_hash,
+                               "path": str(c.path), "n_events": c.n_events}
+                              for c in catalogs],
+        "n_training_pulses": int(len(table)),
+        "n_flashes": int(table["group"].nunique()),
+        "labels_per_season": {str(s): {str(k): int(v) for k, v in row.items()}
+                              for s, row in counts.iterrows()},
+        "parameters": {k: v for k, v in model.get_params().items() if k != "missing_groups"},
+        "metrics": cv_metrics(model, table["label"]),
+        "library_versions": _versions(),
+    }
+    if extra:
+        card.update(extra)
+    return card
+
+
+def model_card_markdown(card: dict) -> str:
+    """The model card for people."""
+    m = card["metrics"]
+    lines = [
+        f"# Model card: {card['version']}",
+        "",
+        "pulsesort pulse classifier (research tool, not a lightning warning or safety "
+        "system).",
+        "",
+        f"- created: {card['created_at']}",
+        f"- classes: {', '.join(card['classes'])}",
+        f"- feature schema: {card['feature_schema_version']} ({len(card['features'])} "
+        "features)",
+        f"- training pulses: {card['n_training_pulses']:,} in {card['n_flashes']:,} flashes",
+        "",
+        "## Training catalogs",
+        "",
+        "| catalog | station | season | pulses | content hash |",
+        "|---|---|---|---|---|",
+    ]
+    for c in card["training_catalogs"]:
+        lines.append(f"| {c['catalog_id']} | {c['station']} | {c['season']} | "
+                     f"{c['n_events']:,} | `{c['content_hash'][:23]}...` |")
+    lines += ["", "## Labels per class and season", "",
+              "| season | " + " | ".join(card["classes"]) + " |",
+              "|---" * (len(card["classes"]) + 1) + "|"]
+    for season, row in card["labels_per_season"].items():
+        lines.append(f"| {season} | " + " | ".join(str(row.get(c, 0)) for c in
+                                                   card["classes"]) + " |")
+    lines += ["", f"## Grouped cross-validation ({m['n_folds']} folds, grouped by flash)", "",
+              f"- macro-F1: {m['macro_f1']:.4f}; accuracy {m['accuracy']:.4f}",
+              f"- expected calibration error (15 bins, top label): {m['ece']:.4f} "
+              f"(temperature {m['temperature']:.3f})",
+              f"- conformal coverage: {m['conformal_coverage']:.4f} (target "
+              f"{m['conformal_target']:.2f}); mean set size {m['mean_set_size']:.3f}",
+              f"- novelty threshold: {m['novelty_threshold']:.3f}", "",
+              "| class | precision | recall | F1 | support | set coverage |",
+              "|---|---|---|---|---|---|"]
+    for c, v in m["per_class"].items():
+        cov = "-" if v["conformal_coverage"] is None else f"{v['conformal_coverage']:.3f}"
+        lines.append(f"| {c} | {v['precision']:.4f} | {v['recall']:.4f} | {v['f1']:.4f} | "
+                     f"{v['support']} | {cov} |")
+    cm = m["confusion_matrix"]
+    lines += ["", "Confusion matrix (rows: true, columns: predicted):", "",
+              "| | " + " | ".join(cm["labels"]) + " |", "|---" * (len(cm["labels"]) + 1) + "|"]
+    for lab, row in zip(cm["labels"], cm["matrix"]):
+        lines.append(f"| {lab} | " + " | ".join(map(str, row)) + " |")
+    for section in card.get("comparisons", []):
+        lines += ["", f"## Comparison on {section.get('season', '?')} "
+                      f"({section.get('when', '')})", "", section.get("markdown", "")]
+    lines += ["", "## Library versions", "",
+              ", ".join(f"{k} {v}" for k, v in card["library_versions"].items()), ""]
+    return "\n".join(lines)
+
+
+def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
+                     dask_address=None, chunk_size=512, progress=None, random_state=0,
+                     sample_weight_fn=None, make_current=None, **params):
+    """Train, save and register a model; return ``(model_dir, card)``.
+
+    Parameters
+    ----------
+    catalog_paths : list of path
+    store : classify.labels.LabelStore
+    out_dir : path
+        The new model folder; its parent is the registry.
+    sample_weight_fn : callable, optional
+        ``f(table) -> weights`` (e.g. to weight a new season's labels more).
+    """
+    catalogs = [open_catalog(p) for p in catalog_paths]
+    ids = [c.catalog_id for c in catalogs]
+    if len(set(ids)) != len(ids):
+        raise ValueError(f"the same catalog_id was given twice: {ids}")
+    out_dir = Path(out_dir)
+    if out_dir.exists() and any(out_dir.iterdir()):
+        raise FileExistsError(f"{out_dir}: already exists; model folders are immutable, "
+                              "choose a new --out")
+    table = training_table(catalogs, store, n_jobs=n_jobs, dask_address=dask_address,
+                           chunk_size=chunk_size, progress=progress)
+    weights = None if sample_weight_fn is None else sample_weight_fn(table)
+    model = fit_classifier(table, coverage=coverage, sample_weight=weights,
+                           random_state=random_state, **params)
+    version = out_dir.name
+    card = build_card(model, table, catalogs, version)
+    save_model(model, out_dir, card, model_card_markdown(card))
+    ModelRegistry(out_dir.parent).register(out_dir, make_current=make_current)
+    return out_dir, card

@@ -1,0 +1,344 @@
+"""Triage a whole season: a class, a calibrated confidence and a review flag per pulse.
+
+:func:`triage_catalog` streams the catalog in chunks. Each chunk's features and
+classification run together in one unit of work (serially, in joblib workers or
+on a Dask cluster); rows are written in catalog order to ``<out>.partial``,
+with a journal ``<out>.partial.json`` updated after every chunk. Killed at any
+moment, a run restarted with ``resume=True`` truncates the partial file to the
+last journalled chunk and continues; the finished file is renamed to ``out``
+only at the end, so a partial file is never mistaken for a finished one and the
+result is byte-identical to an uninterrupted run.
+
+A pulse needs review when any of these holds (``review_reason``):
+``low_confidence`` (confidence below ``review_below``), ``ambiguous_set`` (its
+conformal set holds more than one class), ``empty_set`` (no class), ``novel``
+(unlike the training pulses), ``clipped`` (a sample at full scale),
+``no_vhf`` (the catalog has VHF but this pulse's record is missing),
+``field_unusable`` (most of the field record missing).
+"""
+
+from __future__ import annotations
+
+import functools
+import hashlib
+import json
+import logging
+import os
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from features import schema
+from features.extract import (
+    DEFAULT_CHUNK_SIZE,
+    compute_chunk,
+    format_for_csv,
+    plan_chunks,
+    run_jobs,
+)
+
+from . import rules
+from .registry import load_model
+
+__all__ = ["TriageSettings", "triage_catalog", "read_results", "RESULT_COLUMNS"]
+
+logger = logging.getLogger("pulsesort")
+
+RESULT_COLUMNS = ("event_id", "label", "confidence", "needs_review", "novel",
+                  "prediction_set")
+TAIL_COLUMNS = ("review_reason", "novelty_score", "model_version", "catalog_id")
+BOOL_COLUMNS = ("needs_review", "novel", "clipped", "has_vhf", "field_ok")
+RULES_SET_LEVEL = 0.2   # rules mode: classes with pseudo-probability >= this are in the set
+
+
+@dataclass(frozen=True)
+class TriageSettings:
+    """What decides a chunk's rows (part of the resume journal)."""
+
+    model_dir: str | None
+    review_below: float = 0.8
+    priors: tuple | None = None          # adjusted class priors (--adapt-priors)
+    catalog_has_vhf: bool = True
+    catalog_id: str = ""
+    extra: dict = field(default_factory=dict)
+
+
+@functools.lru_cache(maxsize=4)
+def _cached_model(model_dir: str):
+    return load_model(model_dir)
+
+
+def _classify(feats: pd.DataFrame, settings: TriageSettings):
+    """Probabilities, sets, novelty and version for a chunk's features."""
+    if settings.model_dir is None:
+        classes = np.array(rules.CLASSES)
+        proba = rules.rule_proba(feats)
+        sets = proba >= RULES_SET_LEVEL
+        novelty = np.full(len(feats), np.nan)
+        novel = rules.rule_scores(feats).max(axis=1).to_numpy() < 0.3
+        return classes, proba, sets, novelty, novel, rules.RULES_VERSION
+    model, card = _cached_model(settings.model_dir)
+    names = list(model.feature_names_in_)
+    X = feats[names].astype(float)
+    proba = model.predict_proba(X)
+    if settings.priors is not None:
+        from .priors import adjust_priors
+
+        proba = adjust_priors(proba, model.class_priors_, np.asarray(settings.priors))
+    sets = model.predict_set(None, proba=proba)
+    novelty = model.novelty_score(X)
+    novel = ~(novelty <= model.novelty_threshold_)
+    return model.classes_.astype(str), proba, sets, novelty, novel, card["version"]
+
+
+def triage_chunk(job, settings: TriageSettings, proba_only: bool = False):
+    """Features and triage rows of one chunk (a module-level function for workers)."""
+    feats = compute_chunk(job)
+    classes, proba, sets, novelty, novel, version = _classify(feats, settings)
+    if proba_only:
+        return proba
+    top = np.argmax(proba, axis=1)
+    conf = proba[np.arange(len(top)), top]
+    n_set = sets.sum(axis=1)
+    reasons = {
+        "low_confidence": conf < settings.review_below,
+        "ambiguous_set": n_set > 1,
+        "empty_set": n_set == 0,
+        "novel": novel,
+        "clipped": feats["clipped"].to_numpy(dtype=bool),
+        "no_vhf": (~feats["has_vhf"].to_numpy(dtype=bool)) & settings.catalog_has_vhf,
+        "field_unusable": ~feats["field_ok"].to_numpy(dtype=bool),
+    }
+    flags = np.column_stack(list(reasons.values()))
+    names = np.array(list(reasons))
+    reason_text = [";".join(names[row]) for row in flags]
+    set_text = ["|".join(classes[row]) for row in sets]
+    out = pd.DataFrame({
+        "event_id": feats["event_id"].to_numpy(),
+        "label": classes[top],
+        "confidence": conf,
+        "needs_review": flags.any(axis=1),
+        "novel": novel,
+        "prediction_set": set_text,
+    })
+    for k, c in enumerate(classes):
+        out[f"p_{c}"] = proba[:, k]
+    out["review_reason"] = reason_text
+    out["novelty_score"] = novelty
+    out["model_version"] = version
+    out["catalog_id"] = settings.catalog_id
+    feats = feats.reset_index(drop=True)
+    out = pd.concat([out, feats.drop(columns=["event_id"])], axis=1)
+    text = format_for_csv(out).to_csv(index=False, header=False, float_format="%.10g",
+                                      na_rep="", lineterminator="\n")
+    counts = {"n": len(out), "n_review": int(out["needs_review"].sum()),
+              "n_novel": int(novel.sum()),
+              "per_class": pd.Series(classes[top]).value_counts().to_dict(),
+              "reasons": {k: int(v.sum()) for k, v in reasons.items()}}
+    return list(out.columns), text, counts
+
+
+def _journal_key(cat, settings: TriageSettings, chunk_size: int) -> str:
+    model_hash = None
+    if settings.model_dir:
+        sums = Path(settings.model_dir) / "SHA256SUMS"
+        model_hash = hashlib.sha256(sums.read_bytes()).hexdigest() if sums.is_file() else None
+    key = {"catalog": cat.content_hash, "model": model_hash, "chunk_size": chunk_size,
+           "review_below": settings.review_below, "priors": settings.priors,
+           "schema": schema.SCHEMA_VERSION, "rules": rules.RULES_VERSION}
+    return hashlib.sha256(json.dumps(key, sort_keys=True).encode()).hexdigest()
+
+
+def _write_journal(path: Path, data: dict) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "w") as fh:
+        json.dump(data, fh)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+
+
+def _merge_counts(total: dict, part: dict) -> None:
+    total["n"] += part["n"]
+    total["n_review"] += part["n_review"]
+    total["n_novel"] += part["n_novel"]
+    for k, v in part["per_class"].items():
+        total["per_class"][k] = total["per_class"].get(k, 0) + v
+    for k, v in part["reasons"].items():
+        total["reasons"][k] = total["reasons"].get(k, 0) + v
+
+
+def estimate_season_priors(cat, model_dir, *, chunk_size=DEFAULT_CHUNK_SIZE, n_jobs=1,
+                           dask_address=None):
+    """EM estimate of the catalog's class priors from the model's probabilities."""
+    from .priors import estimate_priors_em
+
+    model, _card = _cached_model(str(model_dir))
+    settings = TriageSettings(model_dir=str(model_dir), catalog_id=cat.catalog_id,
+                              catalog_has_vhf=cat.vhf is not None)
+    jobs = plan_chunks(cat, chunk_size)
+    proba = np.vstack(list(run_jobs(triage_chunk, jobs, n_jobs=n_jobs,
+                                    dask_address=dask_address,
+                                    extra_args=(settings, True))))
+    new_priors, _adjusted, n_iter = estimate_priors_em(proba, model.class_priors_)
+    return dict(zip(model.classes_.astype(str), map(float, new_priors))), n_iter
+
+
+def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEFAULT_CHUNK_SIZE,
+                   n_jobs=1, dask_address=None, resume=False, progress=None,
+                   adapt_priors=False, stop_after_chunks=None):
+    """Triage every pulse of ``cat`` into the CSV file ``out``.
+
+    Parameters
+    ----------
+    cat : Catalog
+    out : path
+    model_dir : path, optional
+        A model folder; None uses the physics rules (:mod:`classify.rules`).
+    review_below : float, default=0.8
+        Pulses with a lower confidence need review.
+    chunk_size, n_jobs, dask_address
+        See :func:`features.extract.iter_features`.
+    resume : bool, default=False
+        Continue an interrupted run of the same catalog, model and settings.
+    adapt_priors : bool, default=False
+        Estimate the season's class priors by EM (Saerens et al. 2002) and
+        re-weight the probabilities before deciding (model mode only).
+    stop_after_chunks : int, optional
+        Stop (as if killed) after writing this many chunks; for testing resume.
+
+    Returns
+    -------
+    dict
+        Summary: n, n_review, n_novel, per_class, reasons, seconds, pulses_per_s,
+        model_version, priors (when adapted), out.
+    """
+    out = Path(out)
+    partial = out.with_name(out.name + ".partial")
+    journal = out.with_name(out.name + ".partial.json")
+    if not 0 <= review_below <= 1:
+        raise ValueError(f"review_below must be in [0, 1], got {review_below}")
+    t0 = time.perf_counter()
+    priors = None
+    if adapt_priors:
+        if model_dir is None:
+            raise ValueError("--adapt-priors needs a model (--model), not --rules")
+        est, n_iter = estimate_season_priors(cat, model_dir, chunk_size=chunk_size,
+                                             n_jobs=n_jobs, dask_address=dask_address)
+        classes = list(_cached_model(str(model_dir))[0].classes_.astype(str))
+        priors = tuple(round(est[c], 12) for c in classes)
+        logger.info("estimated class priors of %s (EM, %d iterations): %s", cat.catalog_id,
+                    n_iter, ", ".join(f"{c} {p:.3f}" for c, p in zip(classes, priors)))
+    settings = TriageSettings(model_dir=None if model_dir is None else str(model_dir),
+                              review_below=float(review_below), priors=priors,
+                              catalog_has_vhf=cat.vhf is not None, catalog_id=cat.catalog_id)
+    key = _journal_key(cat, settings, chunk_size)
+    jobs = plan_chunks(cat, chunk_size)
+    done, offset = 0, 0
+    totals = {"n": 0, "n_review": 0, "n_novel": 0, "per_class": {}, "reasons": {}}
+    if resume and journal.is_file() and partial.is_file():
+        state = json.loads(journal.read_text())
+        if state.get("key") != key:
+            raise ValueError(f"{journal}: the interrupted run used another catalog, model or "
+                             "settings; run without --resume to start again")
+        done, offset = int(state["chunks_done"]), int(state["bytes"])
+        totals = state["totals"]
+        with open(partial, "r+b") as fh:
+            fh.truncate(offset)
+        logger.info("resuming %s at chunk %d of %d", out, done, len(jobs))
+    elif partial.exists():
+        logger.info("%s: an unfinished run exists; starting again (use --resume to continue)",
+                    partial)
+    from features.extract import _progress
+
+    bar = _progress(sum(j.stop - j.start for j in jobs[done:]), progress, "triage")
+    mode = "ab" if done else "wb"
+    written = 0
+    try:
+        with open(partial, mode) as fh:
+            for i, (columns, text, counts) in enumerate(
+                    run_jobs(triage_chunk, jobs[done:], n_jobs=n_jobs,
+                             dask_address=dask_address, extra_args=(settings,)), start=done):
+                if i == 0:
+                    fh.write((",".join(columns) + "\n").encode())
+                fh.write(text.encode("utf-8"))
+                fh.flush()
+                os.fsync(fh.fileno())
+                _merge_counts(totals, counts)
+                _write_journal(journal, {"key": key, "chunks_done": i + 1, "bytes": fh.tell(),
+                                         "totals": totals, "n_chunks": len(jobs)})
+                bar.update(counts["n"])
+                written += 1
+                if stop_after_chunks is not None and written >= stop_after_chunks:
+                    return {"stopped": True, "chunks_done": i + 1}
+            if not jobs:
+                header = ["event_id"]
+                fh.write((",".join(header) + "\n").encode())
+    finally:
+        bar.close()
+    os.replace(partial, out)
+    journal.unlink(missing_ok=True)
+    seconds = time.perf_counter() - t0
+    version = rules.RULES_VERSION if model_dir is None else _cached_model(str(model_dir))[1][
+        "version"]
+    summary = dict(totals, seconds=seconds, out=str(out), model_version=version,
+                   pulses_per_s=totals["n"] / seconds if seconds > 0 else float("inf"))
+    if priors is not None:
+        classes = list(_cached_model(str(model_dir))[0].classes_.astype(str))
+        summary["priors"] = dict(zip(classes, priors))
+    return summary
+
+
+def read_results(path) -> pd.DataFrame:
+    """Read a triage results file; booleans parsed, ids kept as strings."""
+    path = Path(path)
+    if not path.is_file():
+        partial = path.with_name(path.name + ".partial")
+        hint = " (an unfinished run exists: rerun triage with --resume)" if partial.exists() else ""
+        raise FileNotFoundError(f"{path}: no such results file{hint}")
+    df = pd.read_csv(path, dtype={"event_id": str, "catalog_id": str, "flash_id": str,
+                                  "label": str, "prediction_set": str, "review_reason": str,
+                                  "model_version": str},
+                     keep_default_na=False, na_values=[""])
+    missing = [c for c in RESULT_COLUMNS if c not in df.columns]
+    if missing:
+        raise ValueError(f"{path}: not a pulsesort triage results file (missing columns "
+                         f"{missing})")
+    for c in BOOL_COLUMNS:
+        if c in df.columns:
+            bad = ~df[c].isin(["true", "false"])
+            if bad.any():
+                raise ValueError(f"{path}: column {c!r} must be true/false; line "
+                                 f"{int(np.flatnonzero(bad.to_numpy())[0]) + 2} has "
+                                 f"{df[c][bad].iloc[0]!r}")
+            df[c] = df[c].eq("true")
+    for c in ("prediction_set", "review_reason", "flash_id"):
+        if c in df.columns:
+            df[c] = df[c].fillna("")
+    if "time_utc" in df.columns:
+        df["time_utc"] = pd.to_datetime(df["time_utc"], format="ISO8601", utc=True)
+    return df
+
+
+def print_summary(summary: dict, file=sys.stdout) -> None:
+    """The end-of-run summary, for people."""
+    n = summary["n"]
+    print(f"triaged {n:,} pulses in {summary['seconds']:.1f} s "
+          f"({summary['pulses_per_s']:,.0f} pulses/s) with {summary['model_version']}",
+          file=file)
+    for c, k in sorted(summary["per_class"].items(), key=lambda kv: -kv[1]):
+        print(f"  {c:<20} {k:>9,}  ({100 * k / max(n, 1):5.1f} %)", file=file)
+    print(f"  need review          {summary['n_review']:>9,}  "
+          f"({100 * summary['n_review'] / max(n, 1):5.1f} %)", file=file)
+    reasons = {k: v for k, v in summary["reasons"].items() if v}
+    if reasons:
+        print("    why: " + ", ".join(f"{k} {v:,}" for k, v in reasons.items()), file=file)
+    print(f"  novel                {summary['n_novel']:>9,}", file=file)
+    if "priors" in summary:
+        print("  adapted class priors: " + ", ".join(f"{c} {p:.3f}" for c, p in
+                                                     summary["priors"].items()), file=file)
+    print(f"results: {summary['out']}", file=file)
