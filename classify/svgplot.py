@@ -102,7 +102,8 @@ class _Frame:
         p.append(f'<text transform="translate(12 {(y0 + y1) / 2:.1f}) rotate(-90)" '
                  f'text-anchor="middle" {_FONT}>{escape(y_label)}</text>')
 
-    def vline(self, v, colour="#888", label=None, dash="4 3"):
+    def vline(self, v, colour="#888", label=None, dash="4 3", row=0):
+        """A dashed vertical line at x = v; its label on text row ``row`` (0 = top)."""
         if not (self.xlim[0] <= v <= self.xlim[1]):
             return
         xx = self.x(v)
@@ -110,7 +111,7 @@ class _Frame:
                           f'y2="{self.h - self.bottom}" stroke="{colour}" '
                           f'stroke-dasharray="{dash}"/>')
         if label:
-            self.parts.append(f'<text x="{xx + 3:.1f}" y="{self.top + 10}" {_FONT} '
+            self.parts.append(f'<text x="{xx + 3:.1f}" y="{self.top + 10 + 12 * row}" {_FONT} '
                               f'fill="{colour}">{escape(label)}</text>')
 
     def legend(self, names, colours):
@@ -174,8 +175,8 @@ def line_chart(series, *, x_label, y_label, width=560, height=220, title=None, x
         pts = " ".join(f"{f.x(a):.1f},{f.y(b):.1f}" for a, b in zip(x[keep], y[keep]))
         f.parts.append(f'<polyline fill="none" stroke="{PALETTE[i % len(PALETTE)]}" '
                        f'stroke-width="1.3" points="{pts}"/>')
-    for x, label, colour in markers:
-        f.vline(x, colour, label)
+    for i, (x, label, colour) in enumerate(markers):
+        f.vline(x, colour, label, row=i)  # one text row each: close markers stay readable
     if legend and len(series) > 1:
         f.legend([s[2] for s in series], PALETTE)
     return f.svg()
