@@ -14,8 +14,10 @@ posteriors with the current prior estimate (E step) and set the estimate to
 the mean adjusted posterior (M step). It converges to the maximum-likelihood
 class mix of the new data, given that the input probabilities are calibrated.
 
-Both functions assume calibrated probabilities (the models of pulsesort are
-calibrated); on uncalibrated scores the estimate is biased.
+:func:`prior_shift` applies the estimate to a model and a catalog's feature
+table (``pulsesort drift --model``). All assume calibrated probabilities (the
+models of pulsesort are calibrated); on uncalibrated scores the estimate is
+biased.
 
 References
 ----------
@@ -36,10 +38,14 @@ from __future__ import annotations
 
 import logging
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
-__all__ = ["adjust_priors", "estimate_priors_em"]
+from features import schema
+
+__all__ = ["adjust_priors", "estimate_priors_em", "PriorShift", "prior_shift"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -195,3 +201,72 @@ def estimate_priors_em(proba, train_priors, max_iter: int = 1000, tol: float = 1
     adjusted = _reweight(p, prior / t)
     logger.debug("prior EM: %d iteration(s), priors %s", n_iter, np.round(prior, 4).tolist())
     return prior, adjusted, n_iter
+
+
+@dataclass
+class PriorShift:
+    """Class mix of a model's training set vs the EM estimate for a new catalog.
+
+    Attributes
+    ----------
+    classes : ndarray, shape (n_classes,)
+    train_priors : ndarray, shape (n_classes,)
+        The model's ``class_priors_``.
+    new_priors : ndarray, shape (n_classes,)
+        EM estimate for the new catalog.
+    mean_proba : ndarray, shape (n_classes,)
+        Unadjusted mean probability (the naive estimate, biased toward the
+        training mix), for comparison.
+    n_pulses : int
+        Pulses used.
+    n_iter : int
+        EM iterations.
+    """
+
+    classes: np.ndarray
+    train_priors: np.ndarray
+    new_priors: np.ndarray
+    mean_proba: np.ndarray
+    n_pulses: int
+    n_iter: int
+
+
+def _model_inputs(model, features: pd.DataFrame) -> pd.DataFrame:
+    """The model's input columns of a feature table (``feature_names_in_``, else the schema's)."""
+    names = getattr(model, "feature_names_in_", None)
+    names = list(names) if names is not None else schema.model_feature_names()
+    missing = [c for c in names if c not in features.columns]
+    if missing:
+        raise ValueError(f"the feature table lacks the model's input column(s) {missing[:8]}")
+    return features[names].astype(np.float64)
+
+
+def prior_shift(model, features: pd.DataFrame, *, max_iter: int = 1000,
+                tol: float = 1e-8) -> PriorShift:
+    """Estimate the class mix of a catalog from a model's calibrated probabilities.
+
+    Parameters
+    ----------
+    model : object
+        With ``classes_``, ``class_priors_`` (training class frequencies) and a
+        calibrated ``predict_proba`` (e.g. :class:`classify.models.PulseClassifier`).
+    features : pandas.DataFrame
+        Feature table of the new catalog. Rows with ``field_ok`` false (no usable
+        field record) are left out.
+    max_iter, tol
+        See :func:`estimate_priors_em`.
+
+    Returns
+    -------
+    PriorShift
+    """
+    use = features
+    if "field_ok" in features.columns:
+        use = features[features["field_ok"].astype(bool).to_numpy()]
+    if use.empty:
+        raise ValueError("no pulse with a usable field record to estimate the class mix from")
+    proba = np.asarray(model.predict_proba(_model_inputs(model, use)), dtype=np.float64)
+    train = np.asarray(model.class_priors_, dtype=np.float64)
+    new, _, n_iter = estimate_priors_em(proba, train, max_iter=max_iter, tol=tol)
+    return PriorShift(np.asarray(model.classes_), train, new, proba.mean(axis=0), len(use),
+                      n_iter)

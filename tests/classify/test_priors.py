@@ -1,12 +1,15 @@
 """Prior-shift EM (Saerens, Latinne & Decaestecker 2002) and Bayes re-weighting."""
 
 import numpy as np
+import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
 from scipy import stats
 from sklearn.linear_model import LogisticRegression
+from sklearn.pipeline import make_pipeline
+from sklearn.preprocessing import StandardScaler
 
-from classify.priors import adjust_priors, estimate_priors_em
+from classify.priors import adjust_priors, estimate_priors_em, prior_shift
 
 # Hand-computable two-class example. x takes two values, a and b, with
 # p(a|c0) = 0.8, p(b|c0) = 0.2, p(a|c1) = 0.3, p(b|c1) = 0.7 and training priors
@@ -120,3 +123,32 @@ def test_adjust_refuses_rows_with_no_mass_left():
     """A row whose probability sits only on classes with new prior 0 has no posterior."""
     with pytest.raises(ValueError, match=r"row 1: all its probability"):
         adjust_priors([[0.5, 0.5], [1.0, 0.0]], [0.5, 0.5], [0.0, 1.0])
+
+
+def test_prior_shift_on_a_feature_table():
+    """A classifier fitted on feature columns: EM finds B's mix; rows without field_ok are
+    left out; the naive mean probability stays biased toward the training mix."""
+    rng = np.random.default_rng(0)
+
+    def table(n, frac0):
+        y = (rng.uniform(size=n) >= frac0).astype(int)
+        return pd.DataFrame({"event_id": [f"e{i}" for i in range(n)],
+                             "bipolarity": rng.normal(np.where(y == 0, 0.5, 0.2), 0.15),
+                             "rise_time_s": rng.normal(np.where(y == 0, 4e-7, 2e-7), 1e-7),
+                             "field_ok": True}), y
+
+    train, y_train = table(4000, 0.5)
+    cols = ["bipolarity", "rise_time_s"]
+    clf = make_pipeline(StandardScaler(), LogisticRegression()).fit(train[cols], y_train)
+    clf.class_priors_ = np.bincount(y_train) / len(y_train)
+    new, y_new = table(8000, 0.8)
+    new.loc[:99, "field_ok"] = False
+    new.loc[:99, cols] = np.nan                 # unusable rows: would break predict_proba
+    shift = prior_shift(clf, new)
+    assert shift.n_pulses == 8000 - 100
+    truth = np.bincount(y_new[100:], minlength=2) / (8000 - 100)
+    assert_allclose(shift.new_priors, truth, atol=0.02)
+    assert np.abs(shift.mean_proba - truth).max() > 0.03
+    assert shift.classes.tolist() == [0, 1]
+    with pytest.raises(ValueError, match=r"lacks the model's input column\(s\) \['bipolarity'\]"):
+        prior_shift(clf, new.drop(columns=["bipolarity"]))
