@@ -1,0 +1,495 @@
+"""What changed between two catalogs: instrument settings, feature distributions, class mix.
+
+A new season rarely looks like the last one: the station gets a new digitizer,
+an antenna is moved, the storms are different. Before trusting a model on the
+new season, :func:`compare_catalogs` lists
+
+1. the **instrument changes** read from the two manifests (and the presence of
+   range, flash ids, VHF and mapped sources), each with the features it is
+   expected to move (:data:`SETTING_EFFECTS`), since they explain most drift;
+2. the **feature drift**, every numeric feature of the schema ranked by its
+   population stability index (PSI) of B against A, with the two-sample
+   Kolmogorov-Smirnov test (:func:`scipy.stats.ks_2samp`) and the change of
+   its missing-value rate;
+
+and, with a model, :func:`classify.priors.prior_shift` estimates the new
+season's class mix and :func:`classify.drift_report.champion_calibration`
+measures the model's calibration on the new season's labelled pulses;
+:mod:`classify.drift_report` prints and draws the result.
+
+PSI (:func:`population_stability_index`) = sum over bins of
+(q_b - q_a) ln(q_b / q_a), with bins at the deciles of A's values plus one bin
+for missing values (NaN), so a feature that becomes missing drifts too. An
+empty bin counts as :data:`PSI_EPS`. Bands: below 0.1 stable, 0.1 to 0.25
+moderate, above 0.25 major (:data:`PSI_BANDS`; common practice, no source).
+
+References
+----------
+Siddiqi, N. (2006), *Credit Risk Scorecards*, Wiley: ch. 8 (the population
+stability index); from memory.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from features import schema
+
+from .priors import PriorShift
+
+if TYPE_CHECKING:
+    from .drift_report import Calibration
+
+__all__ = ["PSI_BINS", "PSI_EPS", "PSI_BANDS", "SETTING_EFFECTS", "SettingEffect",
+           "InstrumentChange", "DriftResult", "instrument_settings", "instrument_changes",
+           "population_stability_index", "psi_band", "feature_drift", "compare_catalogs",
+           "read_feature_table"]
+
+logger = logging.getLogger("pulsesort")
+
+#: Quantile bins of catalog A's values for the PSI (deciles; common practice, no source).
+PSI_BINS = 10
+#: Proportion an empty PSI bin counts as, so ln(q_b / q_a) stays finite. Proportions
+#: are not renormalised, so a bin empty in both catalogs adds exactly 0.
+#: (common practice, no source)
+PSI_EPS = 1e-4
+#: PSI below the first value: stable; up to the second: moderate; above: major
+#: (common practice, no source).
+PSI_BANDS = (0.1, 0.25)
+#: A change in the fraction of events with range (or flash id) counts above this.
+PRESENCE_TOL = 0.05
+
+_FIELD_TIMING = ("rise_time_s", "fwhm_s", "initial_half_cycle_s", "zero_crossing_s",
+                 "width_s")
+_AMPLITUDE = ("peak_field_v_per_m", "range_normalized_peak_v_per_m",
+              "current_moment_peak_a_m", "charge_moment_change_c_m", "peak_current_a")
+_RANGE = ("range_normalized_peak_v_per_m", "current_moment_peak_a_m",
+          "charge_moment_change_c_m", "peak_current_a", "vhf_to_field_db", "speed_m_per_s",
+          "vertical_speed_m_per_s", "altitude_m", "range_m")
+_VHF = ("vhf_peak_db", "vhf_field_lag_s", "vhf_to_field_db", "vhf_field_ratio_db",
+        "vhf_snr_db", "vhf_width_s", "has_vhf")
+_VHF_LEVEL = ("vhf_peak_db", "vhf_snr_db", "vhf_width_s", "vhf_to_field_db",
+              "vhf_field_ratio_db")
+_MAPPING = ("n_sources", "speed_m_per_s", "vertical_speed_m_per_s", "motion_elevation_deg",
+            "angular_rate_deg_per_s", "net_to_path", "altitude_m", "elevation_median_deg",
+            "source_duration_s", "source_range_m", "channel_reuse", "range_m")
+_XYZ = ("speed_m_per_s", "vertical_speed_m_per_s", "motion_elevation_deg", "net_to_path",
+        "altitude_m", "source_range_m", "channel_reuse", "range_m")
+
+
+@dataclass(frozen=True)
+class SettingEffect:
+    """One row of :data:`SETTING_EFFECTS`: a setting and the features it moves."""
+
+    setting: str
+    affects: tuple[str, ...]
+    why: str
+
+
+#: Instrument (and catalog-content) settings and the features each is expected to
+#: affect, from the feature definitions in :mod:`features.waveform`,
+#: :mod:`features.vhf`, :mod:`features.mapping` and :mod:`features.context`.
+SETTING_EFFECTS: tuple[SettingEffect, ...] = (
+    SettingEffect("field.sample_rate_hz", _FIELD_TIMING + (
+        "peak_field_v_per_m", "bipolarity", "field_noise_v_per_m", "snr_db"),
+        "time resolution: durations near 1/rate are quantised, fast peaks under-sampled, "
+        "the noise bandwidth changes"),
+    SettingEffect("field.window_s", (
+        "width_s", "zero_crossing_s", "initial_half_cycle_s", "bipolarity",
+        "charge_moment_change_c_m", "field_ok"),
+        "a shorter record cuts long pulses, late zero crossings and overshoots"),
+    SettingEffect("field.pretrigger_s", (
+        "field_noise_v_per_m", "snr_db", "field_ok", "peak_field_v_per_m"),
+        "less record before the trigger for the baseline and noise (and the peak search)"),
+    SettingEffect("field.decay_time_s", (
+        "bipolarity", "zero_crossing_s", "width_s", "initial_half_cycle_s", "fwhm_s",
+        "current_moment_peak_a_m", "charge_moment_change_c_m", "peak_field_v_per_m",
+        "range_normalized_peak_v_per_m", "peak_current_a"),
+        "RC decay compensation: the slow part of the pulse (overshoot, zero crossing, "
+        "integrals) depends on the decay constant, so a changed or wrong one moves it"),
+    SettingEffect("field.delay_s", ("vhf_field_lag_s",),
+                  "the VHF-to-field lag is measured on delay-corrected times"),
+    SettingEffect("field.sign_convention", ("polarity",) + _AMPLITUDE,
+                  "converted on load: drift of signed features then means a convention "
+                  "declared wrongly"),
+    SettingEffect("field.units", _AMPLITUDE + ("field_noise_v_per_m",),
+                  "V/m vs counts x scale: a wrong calibration scales every amplitude"),
+    SettingEffect("field.scale", _AMPLITUDE + ("field_noise_v_per_m",),
+                  "V/m per count: a wrong calibration scales every amplitude"),
+    SettingEffect("field.full_scale", (
+        "clipped", "peak_field_v_per_m", "range_normalized_peak_v_per_m", "peak_current_a",
+        "fwhm_s"),
+        "clip level: more clipped rows, flattened (under-estimated, widened) peaks"),
+    SettingEffect("field.dtype", ("field_noise_v_per_m", "snr_db"),
+                  "integer samples floor the noise at one digitizer step"),
+    SettingEffect("vhf.present", _VHF, "without a VHF channel every VHF feature is NaN"),
+    SettingEffect("vhf.sample_rate_hz", ("vhf_width_s", "vhf_field_lag_s") + _VHF_LEVEL[:2]
+                  + ("vhf_to_field_db", "vhf_field_ratio_db"),
+                  "time resolution of the VHF power and of its peak"),
+    SettingEffect("vhf.window_s", ("vhf_snr_db", "vhf_field_ratio_db", "has_vhf"),
+                  "record length around the trigger: noise floor and search window"),
+    SettingEffect("vhf.pretrigger_s", ("vhf_snr_db", "vhf_field_ratio_db", "has_vhf"),
+                  "record before the trigger for the VHF noise floor"),
+    SettingEffect("vhf.delay_s", ("vhf_field_lag_s",),
+                  "the VHF-to-field lag is measured on delay-corrected times"),
+    SettingEffect("vhf.band_hz", _VHF_LEVEL,
+                  "another pass band sees another part of the radiation spectrum"),
+    SettingEffect("vhf.kind", _VHF_LEVEL + ("vhf_field_lag_s",),
+                  "detected power envelope vs analytic-signal power of the voltage"),
+    SettingEffect("vhf.full_scale", ("clipped", "vhf_peak_db", "vhf_snr_db"),
+                  "clip level of the VHF digitizer"),
+    SettingEffect("vhf.dtype", ("vhf_snr_db", "vhf_peak_db"),
+                  "integer samples floor the VHF noise"),
+    SettingEffect("events.range_m", _RANGE,
+                  "range-normalised peaks, moments, currents and angle-only positions need "
+                  "the range: NaN without it"),
+    SettingEffect("events.flash_id", ("isolation_s", "time_in_flash_s", "flash_n_pulses",
+                                      "channel_reuse"),
+                  "flash context needs flash ids"),
+    SettingEffect("sources.present", _MAPPING,
+                  "without mapped sources every mapping feature is NaN"),
+    SettingEffect("sources.xyz", _XYZ,
+                  "3-D positions vs range and angles: speeds, altitudes, track shape"),
+    SettingEffect("sources.power_db", (), "not used by any feature"),
+)
+_EFFECTS = {e.setting: e for e in SETTING_EFFECTS}
+
+
+@dataclass(frozen=True)
+class InstrumentChange:
+    """A setting that differs between catalog A and catalog B."""
+
+    setting: str
+    a: object
+    b: object
+    affects: tuple[str, ...]
+    why: str
+
+
+def _fraction(mask) -> float:
+    mask = np.asarray(mask, dtype=bool)
+    return float(mask.mean()) if mask.size else 0.0
+
+
+def instrument_settings(cat) -> dict:
+    """The settings of a catalog that :data:`SETTING_EFFECTS` knows, by name.
+
+    Parameters
+    ----------
+    cat : features.Catalog
+
+    Returns
+    -------
+    dict
+        ``"field.sample_rate_hz"`` (Hz), ``"field.window_s"`` (record length, s),
+        ..., ``"vhf.present"`` (bool), ``"events.range_m"`` (fraction of events
+        with a range), ``"events.flash_id"`` (fraction with a flash id),
+        ``"sources.present"``, ``"sources.xyz"``, ``"sources.power_db"`` (bool).
+        VHF settings are present only when the catalog has a VHF channel.
+    """
+    f = cat.field
+    out = {
+        "field.sample_rate_hz": f.sample_rate_hz, "field.window_s": f.duration_s,
+        "field.pretrigger_s": f.pretrigger_s, "field.decay_time_s": f.decay_time_s,
+        "field.delay_s": f.delay_s, "field.sign_convention": f.sign_convention,
+        "field.units": f.units, "field.scale": f.scale, "field.full_scale": f.full_scale,
+        "field.dtype": str(f.dtype), "vhf.present": cat.vhf is not None,
+    }
+    if cat.vhf is not None:
+        v = cat.vhf
+        out.update({
+            "vhf.sample_rate_hz": v.sample_rate_hz, "vhf.window_s": v.duration_s,
+            "vhf.pretrigger_s": v.pretrigger_s, "vhf.delay_s": v.delay_s,
+            "vhf.band_hz": v.band_hz, "vhf.kind": v.kind, "vhf.full_scale": v.full_scale,
+            "vhf.dtype": str(v.dtype),
+        })
+    src = cat.sources
+    out.update({
+        "events.range_m": _fraction(np.isfinite(cat.range_m)),
+        "events.flash_id": _fraction(cat.events["flash_id"].to_numpy() != ""),
+        "sources.present": src is not None,
+        "sources.xyz": bool(cat.has_xyz),
+        "sources.power_db": src is not None and src.power_db is not None,
+    })
+    return out
+
+
+def _same(a, b) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    if isinstance(a, (tuple, list)) and isinstance(b, (tuple, list)):
+        return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b))
+    if isinstance(a, bool) or isinstance(b, bool) or isinstance(a, str) or isinstance(b, str):
+        return a == b
+    return math.isclose(float(a), float(b), rel_tol=1e-9, abs_tol=0.0)
+
+
+def instrument_changes(cat_a, cat_b) -> list[InstrumentChange]:
+    """Settings that differ between two catalogs, in :data:`SETTING_EFFECTS` order.
+
+    Numbers are compared to a relative 1e-9; the fractions ``events.range_m`` and
+    ``events.flash_id`` count as changed when they differ by more than
+    :data:`PRESENCE_TOL` or one of them is 0. VHF settings are compared only when
+    both catalogs have a VHF channel (otherwise ``vhf.present`` says it).
+    """
+    sa, sb = instrument_settings(cat_a), instrument_settings(cat_b)
+    out = []
+    for eff in SETTING_EFFECTS:
+        if eff.setting not in sa or eff.setting not in sb:
+            continue
+        a, b = sa[eff.setting], sb[eff.setting]
+        if eff.setting.startswith("events."):
+            changed = abs(a - b) > PRESENCE_TOL or ((a == 0) != (b == 0))
+        else:
+            changed = not _same(a, b)
+        if changed:
+            out.append(InstrumentChange(eff.setting, a, b, eff.affects, eff.why))
+    return out
+
+
+def population_stability_index(a, b, n_bins: int = PSI_BINS, eps: float = PSI_EPS) -> float:
+    """PSI of sample ``b`` against sample ``a``, with a bin for missing values.
+
+    Parameters
+    ----------
+    a, b : array-like, shape (n_a,), (n_b,)
+        The values (any unit) of the reference and the new catalog; NaN = missing.
+    n_bins : int, default=10
+        Quantile bins of ``a``'s non-missing values (fewer when ``a`` has ties:
+        every distinct edge is kept once). Bins are right-closed; the outer ones
+        are open-ended.
+    eps : float, default=1e-4
+        Proportion an empty bin counts as (not renormalised).
+
+    Returns
+    -------
+    float
+        sum over bins of (q_b - q_a) ln(q_b / q_a) >= 0; 0 for identical samples.
+
+    Examples
+    --------
+    >>> a = np.arange(100.0)
+    >>> round(population_stability_index(a, np.r_[np.zeros(80), np.full(20, 99.0)], 2), 4)
+    0.4159
+    """
+    a = np.asarray(a, dtype=np.float64).ravel()
+    b = np.asarray(b, dtype=np.float64).ravel()
+    if a.size == 0 or b.size == 0:
+        raise ValueError(f"PSI needs values in both samples, got {a.size} and {b.size}")
+    if int(n_bins) < 1:
+        raise ValueError(f"n_bins must be >= 1, got {n_bins!r}")
+    if not 0 < eps < 1:
+        raise ValueError(f"eps must be in (0, 1), got {eps!r}")
+    fa, fb = a[~np.isnan(a)], b[~np.isnan(b)]
+    if fa.size:
+        edges = np.unique(np.quantile(fa, np.linspace(0, 1, int(n_bins) + 1)[1:-1]))
+    else:
+        edges = np.array([])
+    k = len(edges) + 1
+    qa = np.append(np.bincount(np.searchsorted(edges, fa, side="left"), minlength=k),
+                   a.size - fa.size) / a.size
+    qb = np.append(np.bincount(np.searchsorted(edges, fb, side="left"), minlength=k),
+                   b.size - fb.size) / b.size
+    qa, qb = np.maximum(qa, eps), np.maximum(qb, eps)
+    return float(np.sum((qb - qa) * np.log(qb / qa)))
+
+
+def psi_band(psi: float) -> str:
+    """``"stable"``, ``"moderate"`` or ``"major"`` (:data:`PSI_BANDS`), ``""`` for NaN."""
+    if not np.isfinite(psi):
+        return ""
+    return "stable" if psi < PSI_BANDS[0] else ("moderate" if psi <= PSI_BANDS[1] else "major")
+
+
+def _numeric(col: pd.Series) -> np.ndarray:
+    if col.dtype == bool:
+        return col.to_numpy(dtype=np.float64)
+    return pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64)
+
+
+def feature_drift(feat_a: pd.DataFrame, feat_b: pd.DataFrame, *, changes=(),
+                  n_bins: int = PSI_BINS, eps: float = PSI_EPS) -> pd.DataFrame:
+    """Rank every schema feature of two feature tables by how much it drifted.
+
+    Parameters
+    ----------
+    feat_a, feat_b : pandas.DataFrame
+        Feature tables (:func:`features.extract.extract_features`) of A and B.
+        Schema features missing from either table are skipped.
+    changes : list of InstrumentChange, optional
+        Used to fill ``explained_by``.
+    n_bins, eps
+        See :func:`population_stability_index`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per feature, most drifted first: ``rank``, ``feature``, ``unit``,
+        ``model`` (used by classifiers), ``psi``, ``band``, ``ks_statistic``,
+        ``ks_pvalue`` (two-sided, on the non-missing values; NaN if either side
+        has none), ``missing_a``, ``missing_b`` (fractions), ``missing_change``,
+        ``median_a``, ``median_b`` (in the feature's unit), ``n_a``, ``n_b``
+        (non-missing values), ``explained_by`` (``;``-joined settings among
+        ``changes`` expected to move it). Sorted by PSI, then KS statistic.
+    """
+    names = [f.name for f in schema.FEATURES if f.group != "id"
+             and f.name in feat_a.columns and f.name in feat_b.columns]
+    if not names:
+        raise ValueError("the feature tables share no schema feature column")
+    rows = []
+    for name in names:
+        a, b = _numeric(feat_a[name]), _numeric(feat_b[name])
+        fa, fb = a[~np.isnan(a)], b[~np.isnan(b)]
+        if fa.size and fb.size:
+            ks = stats.ks_2samp(fa, fb)
+            ks_d, ks_p = float(ks.statistic), float(ks.pvalue)
+        else:
+            ks_d = ks_p = np.nan
+        psi = population_stability_index(a, b, n_bins, eps) if a.size and b.size else np.nan
+        meta = schema.get(name)
+        rows.append({
+            "feature": name, "unit": meta.unit, "model": meta.model, "psi": psi,
+            "band": psi_band(psi), "ks_statistic": ks_d, "ks_pvalue": ks_p,
+            "missing_a": 1 - fa.size / a.size if a.size else np.nan,
+            "missing_b": 1 - fb.size / b.size if b.size else np.nan,
+            "median_a": float(np.median(fa)) if fa.size else np.nan,
+            "median_b": float(np.median(fb)) if fb.size else np.nan,
+            "n_a": int(fa.size), "n_b": int(fb.size),
+            "explained_by": ";".join(c.setting for c in changes if name in c.affects),
+        })
+    table = pd.DataFrame(rows)
+    table["missing_change"] = table["missing_b"] - table["missing_a"]
+    table = table.sort_values(["psi", "ks_statistic"], ascending=False, na_position="last",
+                              kind="stable").reset_index(drop=True)
+    table.insert(0, "rank", np.arange(1, len(table) + 1))
+    cols = ["rank", "feature", "unit", "model", "psi", "band", "ks_statistic", "ks_pvalue",
+            "missing_a", "missing_b", "missing_change", "median_a", "median_b", "n_a", "n_b",
+            "explained_by"]
+    return table[cols]
+
+
+@dataclass
+class DriftResult:
+    """Everything :func:`compare_catalogs` found; see :mod:`classify.drift_report`."""
+
+    catalog_a: str
+    catalog_b: str
+    n_a: int
+    n_b: int
+    changes: list[InstrumentChange]
+    table: pd.DataFrame
+    settings_a: dict = field(default_factory=dict)
+    settings_b: dict = field(default_factory=dict)
+    priors: PriorShift | None = None
+    calibration: Calibration | None = None
+    model_version: str | None = None
+
+
+def compare_catalogs(cat_a, cat_b, feat_a: pd.DataFrame, feat_b: pd.DataFrame, *,
+                     n_bins: int = PSI_BINS, eps: float = PSI_EPS) -> DriftResult:
+    """Instrument changes and ranked feature drift of catalog B against catalog A.
+
+    Parameters
+    ----------
+    cat_a, cat_b : features.Catalog
+    feat_a, feat_b : pandas.DataFrame
+        Their feature tables (computed, or from :func:`read_feature_table`).
+
+    Returns
+    -------
+    DriftResult
+        ``priors`` and ``calibration`` are left None (see
+        :func:`classify.priors.prior_shift`,
+        :func:`classify.drift_report.champion_calibration`).
+    """
+    changes = instrument_changes(cat_a, cat_b)
+    table = feature_drift(feat_a, feat_b, changes=changes, n_bins=n_bins, eps=eps)
+    return DriftResult(cat_a.catalog_id, cat_b.catalog_id, len(feat_a), len(feat_b), changes,
+                       table, instrument_settings(cat_a), instrument_settings(cat_b))
+
+
+def read_feature_table(path, catalog) -> pd.DataFrame:
+    """Read a features CSV (or Parquet) written by ``pulsesort features`` for ``catalog``.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    catalog : features.Catalog
+        The catalog it was computed from; its event ids must match exactly.
+
+    Returns
+    -------
+    pandas.DataFrame
+        In the catalog's event order; booleans parsed, features as float.
+
+    Raises
+    ------
+    FileNotFoundError
+        If ``path`` does not exist.
+    ValueError
+        Naming the file and the column, line or event id that is wrong.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise FileNotFoundError(f"{path}: no such features file")
+    if path.suffix == ".parquet":
+        try:
+            df = pd.read_parquet(path)
+        except ImportError as exc:
+            raise ValueError(f"{path}: reading Parquet needs pyarrow "
+                             "(pip install 'pulsesort[parquet]')") from exc
+    else:
+        try:
+            df = pd.read_csv(path, dtype={"event_id": str, "flash_id": str},
+                             keep_default_na=False, na_values=[""], low_memory=False)
+        except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+            raise ValueError(f"{path}: not a readable features CSV ({exc})") from None
+    names = [f.name for f in schema.FEATURES]
+    missing = [c for c in names if c not in df.columns]
+    if missing:
+        raise ValueError(f"{path}: missing feature column(s) {missing[:8]}"
+                         f"{' ...' if len(missing) > 8 else ''}; write it with "
+                         "`pulsesort features` of this pulsesort version")
+    ids = df["event_id"].astype(str)
+    dup = ids[ids.duplicated()]
+    if len(dup):
+        raise ValueError(f"{path}: event_id {dup.iloc[0]!r} appears more than once")
+    want = pd.Index(catalog.event_ids.astype(str))
+    extra, lacking = ids[~ids.isin(want)], want[~want.isin(ids)]
+    if len(extra) or len(lacking):
+        raise ValueError(
+            f"{path}: its event ids do not match catalog {catalog.catalog_id!r}: "
+            f"{len(lacking)} of the catalog's missing"
+            f"{f' (first {lacking[0]!r})' if len(lacking) else ''}, {len(extra)} unknown"
+            f"{f' (first {extra.iloc[0]!r})' if len(extra) else ''}; was it computed from "
+            "another catalog?")
+    df = df.set_index(ids).loc[want].reset_index(drop=True)
+    for f in schema.FEATURES[1:]:
+        col = df[f.name]
+        if f.unit == "bool":
+            if col.dtype == bool:
+                continue
+            text = col.astype(str).str.strip().str.lower()
+            bad = ~text.isin(["true", "false"])
+            if bad.any():
+                i = int(np.flatnonzero(bad.to_numpy())[0])
+                raise ValueError(f"{path}: column {f.name!r} must be true/false, got "
+                                 f"{col.iloc[i]!r} (event {df['event_id'].iloc[i]!r})")
+            df[f.name] = text.eq("true")
+        else:
+            num = pd.to_numeric(col, errors="coerce")
+            bad = num.isna() & col.notna()
+            if bad.any():
+                i = int(np.flatnonzero(bad.to_numpy())[0])
+                raise ValueError(f"{path}: column {f.name!r} must be a number, got "
+                                 f"{col.iloc[i]!r} (event {df['event_id'].iloc[i]!r})")
+            df[f.name] = num.astype(np.float64)
+    return df
