@@ -22,7 +22,7 @@ from html import escape
 import numpy as np
 
 __all__ = ["PALETTE", "nice_ticks", "line_chart", "scatter_chart", "bar_chart",
-           "histogram_chart", "time_colour"]
+           "hbar_chart", "histogram_chart", "time_colour"]
 
 #: Colour-blind-safe palette (Okabe & Ito 2008).
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442",
@@ -59,7 +59,7 @@ def _fmt(v: float) -> str:
 
 class _Frame:
     def __init__(self, width, height, xlim, ylim, x_label, y_label, title=None,
-                 margin=(46, 14, 34, 58), xticks=True):
+                 margin=(46, 14, 34, 58), xticks=True, yticks=True):
         self.w, self.h = width, height
         self.top, self.right, self.bottom, self.left = margin
         if title:
@@ -70,7 +70,7 @@ class _Frame:
         if title:
             self.parts.append(f'<text x="{self.left}" y="14" {_FONT} font-weight="600">'
                               f"{escape(title)}</text>")
-        self._axes(x_label, y_label, xticks)
+        self._axes(x_label, y_label, xticks, yticks)
 
     def x(self, v):
         lo, hi = self.xlim
@@ -81,7 +81,7 @@ class _Frame:
         return self.h - self.bottom - (v - lo) / (hi - lo or 1) * (self.h - self.top
                                                                      - self.bottom)
 
-    def _axes(self, x_label, y_label, xticks=True):
+    def _axes(self, x_label, y_label, xticks=True, yticks=True):
         x0, x1 = self.left, self.w - self.right
         y0, y1 = self.h - self.bottom, self.top
         p = self.parts
@@ -92,7 +92,7 @@ class _Frame:
             p.append(f'<line x1="{xx:.1f}" y1="{y0}" x2="{xx:.1f}" y2="{y0 + 4}" stroke="#444"/>'
                      f'<text x="{xx:.1f}" y="{y0 + 15}" text-anchor="middle" {_FONT}>'
                      f"{_fmt(t)}</text>")
-        for t in nice_ticks(*self.ylim):
+        for t in nice_ticks(*self.ylim) if yticks else []:
             yy = self.y(t)
             p.append(f'<line x1="{x0 - 4}" y1="{yy:.1f}" x2="{x0}" y2="{yy:.1f}" stroke="#444"/>'
                      f'<text x="{x0 - 6}" y="{yy + 3.5:.1f}" text-anchor="end" {_FONT}>'
@@ -230,6 +230,36 @@ def bar_chart(labels, values, *, y_label, x_label="", width=480, height=220, tit
                        f'height="{abs(y1 - y0):.1f}" fill="{c}"/>')
         f.parts.append(f'<text x="{(x0 + x1) / 2:.1f}" y="{f.h - f.bottom + 14}" '
                        f'text-anchor="middle" {_FONT}>{escape(str(lab))}</text>')
+    return f.svg()
+
+
+def hbar_chart(labels, values, *, x_label, width=420, height=None, title=None, colours=None,
+               xlim=None, label_width=130, value_format="{:.2f}"):
+    """Horizontal bars, one row per category (long category names stay readable).
+
+    Each bar is labelled on its left with its category and on its right with
+    its value (``value_format``); ``xlim`` fixes the value axis (e.g. (0, 1)).
+    """
+    values = np.asarray(values, float)
+    n = len(values)
+    row = 22
+    height = height or (46 + 34 + row * max(n, 1) + (14 if title else 0))
+    lim = _limits([values, [0.0]], 0.05, xlim)
+    f = _Frame(width, height, lim, (0, max(n, 1)), x_label, "", title,
+               margin=(46, 40, 34, label_width), yticks=False)
+    for i, (lab, v) in enumerate(zip(labels, values)):
+        y0, y1 = f.y(n - i - 0.2), f.y(n - i - 0.8)
+        x0 = f.x(max(lim[0], 0.0))
+        x1 = f.x(v if math.isfinite(v) else 0.0)
+        c = (colours[i] if colours is not None else PALETTE[i % len(PALETTE)])
+        f.parts.append(f'<rect x="{min(x0, x1):.1f}" y="{y0:.1f}" width="{abs(x1 - x0):.1f}" '
+                       f'height="{y1 - y0:.1f}" fill="{c}"/>')
+        ym = (y0 + y1) / 2 + 3.5
+        f.parts.append(f'<text x="{f.left - 6}" y="{ym:.1f}" text-anchor="end" {_FONT}>'
+                       f"{escape(str(lab))}</text>")
+        shown = value_format.format(v) if math.isfinite(v) else "n/a"
+        f.parts.append(f'<text x="{max(x0, x1) + 4:.1f}" y="{ym:.1f}" {_FONT}>'
+                       f"{escape(shown)}</text>")
     return f.svg()
 
 

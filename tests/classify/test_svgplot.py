@@ -79,3 +79,14 @@ def test_time_colour_runs_from_blue_to_yellow():
     assert svgplot.time_colour(1.0) == "#f0c81e"
     assert svgplot.time_colour(-1) == svgplot.time_colour(0)
     assert svgplot.time_colour(float("nan")) == svgplot.time_colour(0)
+
+
+def test_hbar_chart_bar_lengths_are_proportional_to_the_values():
+    """Horizontal bars on a fixed (0, 1) axis: lengths in the ratio of the values."""
+    svg = svgplot.hbar_chart(["energetic_in_cloud", "<x>"], [0.25, 0.75],
+                             x_label="probability", xlim=(0, 1))
+    root = _parse(svg)
+    widths = [float(r.get("width")) for r in root.iter("{http://www.w3.org/2000/svg}rect")]
+    assert widths[1] == pytest.approx(3 * widths[0], rel=1e-2)
+    texts = [t.text for t in root.iter("{http://www.w3.org/2000/svg}text")]
+    assert "energetic_in_cloud" in texts and "<x>" in texts and "0.75" in texts
