@@ -22,7 +22,7 @@ from html import escape
 import numpy as np
 
 __all__ = ["PALETTE", "nice_ticks", "line_chart", "scatter_chart", "bar_chart",
-           "hbar_chart", "histogram_chart", "time_colour"]
+           "hbar_chart", "stacked_bar_chart", "histogram_chart", "time_colour"]
 
 #: Colour-blind-safe palette (Okabe & Ito 2008).
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442",
@@ -260,6 +260,36 @@ def hbar_chart(labels, values, *, x_label, width=420, height=None, title=None, c
         shown = value_format.format(v) if math.isfinite(v) else "n/a"
         f.parts.append(f'<text x="{max(x0, x1) + 4:.1f}" y="{ym:.1f}" {_FONT}>'
                        f"{escape(shown)}</text>")
+    return f.svg()
+
+
+def stacked_bar_chart(x, stacks, *, x_label, y_label, width=640, height=240, title=None,
+                      bar_width=1.0):
+    """Bars at positions ``x`` stacked from ``stacks = [(values, name), ...]``, bottom first.
+
+    Counts per time bin by class, for instance: ``x`` are the bin starts and
+    each bar spans ``[x, x + bar_width]``. Empty segments are not drawn, so a
+    long, mostly quiet axis stays small.
+    """
+    x = np.asarray(x, float)
+    vals = np.array([np.nan_to_num(np.asarray(v, float)) for v, _ in stacks]).reshape(
+        len(stacks), len(x))
+    total = vals.sum(axis=0) if len(stacks) else np.zeros(len(x))
+    xlim = (float(x.min()), float(x.max()) + bar_width) if len(x) else (0.0, 1.0)
+    f = _Frame(width, height, xlim, (0.0, float(total.max()) * 1.08 if total.size and
+                                     total.max() > 0 else 1.0), x_label, y_label, title)
+    gap = 0.1 * bar_width
+    bottom = np.zeros(len(x))
+    for k, row in enumerate(vals):
+        colour = PALETTE[k % len(PALETTE)]
+        for i in np.flatnonzero(row > 0):
+            x0, x1 = f.x(x[i] + gap), f.x(x[i] + bar_width - gap)
+            y0, y1 = f.y(bottom[i]), f.y(bottom[i] + row[i])
+            f.parts.append(f'<rect x="{x0:.1f}" y="{y1:.1f}" width="{max(x1 - x0, 0.8):.1f}" '
+                           f'height="{y0 - y1:.1f}" fill="{colour}"/>')
+        bottom += row
+    if len(stacks) > 1:
+        f.legend([name for _, name in stacks], PALETTE)
     return f.svg()
 
 

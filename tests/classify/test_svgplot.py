@@ -90,3 +90,15 @@ def test_hbar_chart_bar_lengths_are_proportional_to_the_values():
     assert widths[1] == pytest.approx(3 * widths[0], rel=1e-2)
     texts = [t.text for t in root.iter("{http://www.w3.org/2000/svg}text")]
     assert "energetic_in_cloud" in texts and "<x>" in texts and "0.75" in texts
+
+
+def test_stacked_bar_chart_heights_add_up():
+    """Two stacked segments: their heights add to the bar total, empty ones are not drawn."""
+    svg = svgplot.stacked_bar_chart([0, 1, 2], [([1, 0, 2], "a"), ([3, 0, 0], "b")],
+                                    x_label="hours", y_label="pulses")
+    rects = [r for r in _parse(svg).iter("{http://www.w3.org/2000/svg}rect")
+             if r.get("height") != "3"]                    # legend swatches are 3 px high
+    heights = [float(r.get("height")) for r in rects]
+    assert len(heights) == 3                                # a@0, a@2, b@0
+    assert heights[0] + heights[2] == pytest.approx(2 * heights[1], rel=1e-2)
+    assert heights[0] * 3 == pytest.approx(heights[2], rel=1e-2)
