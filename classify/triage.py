@@ -309,7 +309,8 @@ def read_results(path) -> pd.DataFrame:
         raise ValueError(f"{path}: not a pulsesort triage results file (missing columns "
                          f"{missing})")
     for c in BOOL_COLUMNS:
-        if c in df.columns:
+        if c in df.columns and df[c].dtype != bool:   # pandas reads true/false itself
+            df[c] = df[c].astype(str)
             bad = ~df[c].isin(["true", "false"])
             if bad.any():
                 raise ValueError(f"{path}: column {c!r} must be true/false; line "

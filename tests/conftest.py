@@ -8,12 +8,18 @@ independent writers.
 
 from __future__ import annotations
 
-import json
-from pathlib import Path
+import os
 
-import numpy as np
-import pandas as pd
-import pytest
+# One OpenMP thread per test process: the tree models spin-wait badly when the
+# machine's cores are shared, and the test data are small (common practice).
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+
+import json  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import pytest  # noqa: E402
 
 
 def write_catalog(folder, field, *, field_meta=None, vhf=None, vhf_meta=None, events=None,
@@ -85,3 +91,47 @@ def make_catalog(tmp_path):
     def _make(name, field, **kw):
         return write_catalog(tmp_path / name, field, **kw)
     return _make
+
+
+def two_class_catalog(folder, n=200, seed=0, *, fs=20e6, window_s=200e-6, pre=50e-6,
+                      counts_scale=None, atmospheric=False, clip_rows=()):
+    """A small invented catalog of two pulse kinds, with its true labels.
+
+    Even rows: bipolar pulses (NBE-like); odd rows: narrow unipolar pulses
+    (leader-like). For self-consistency tests only, not physics.
+
+    Returns
+    -------
+    (path, labels DataFrame)
+    """
+    m = int(round(window_s * fs))
+    t = np.arange(m) / fs - pre
+    rng = np.random.default_rng(seed)
+    rows, labels = [], []
+    for i in range(n):
+        if i % 2 == 0:
+            rows.append(bipolar_field(t, 0, 0.5e-6, 2e-6, 0.4, 10e-6, rng.uniform(2, 10)))
+            labels.append("narrow_bipolar")
+        else:
+            rows.append(np.exp(-0.5 * (t / 0.3e-6) ** 2) * rng.uniform(0.5, 2))
+            labels.append("stepped_leader")
+    x = np.array(rows) + rng.normal(0, 0.01, (n, m))
+    meta = {"sample_rate_hz": fs, "pretrigger_s": pre, "full_scale": 50.0}
+    for r in clip_rows:
+        x[r, m // 2] = 60.0
+    if atmospheric:
+        x = -x
+        meta["sign_convention"] = "atmospheric"
+    if counts_scale:
+        x = np.clip(np.round(x / counts_scale), -32768, 32767).astype(np.int16)
+        meta.update(units="counts", scale=counts_scale)
+    else:
+        x = x.astype(np.float32)
+    t0 = pd.Timestamp("2040-07-01T10:00:00Z")
+    ev = {"event_id": [f"p{i}" for i in range(n)],
+          "time_utc": [(t0 + pd.Timedelta(milliseconds=7 * i)).strftime(
+              "%Y-%m-%dT%H:%M:%S.%fZ") for i in range(n)],
+          "flash_id": [f"f{i // 10}" for i in range(n)],
+          "range_m": rng.uniform(2e4, 1e5, n)}
+    path = write_catalog(folder, x, events=ev, field_meta=meta)
+    return path, pd.DataFrame({"event_id": ev["event_id"], "label": labels})
