@@ -114,8 +114,9 @@ class _Frame:
             self.parts.append(f'<text x="{xx + 3:.1f}" y="{self.top + 10 + 12 * row}" {_FONT} '
                               f'fill="{colour}">{escape(label)}</text>')
 
-    def legend(self, names, colours):
-        xx = self.left + 8
+    def legend(self, names, colours, outside=False):
+        """Colour key at the top left inside the axes, or right of them (``outside``)."""
+        xx = self.w - self.right + 10 if outside else self.left + 8
         for i, (name, col) in enumerate(zip(names, colours)):
             yy = self.top + 12 + 13 * i
             self.parts.append(f'<rect x="{xx}" y="{yy - 8}" width="10" height="3" '
@@ -276,8 +277,11 @@ def stacked_bar_chart(x, stacks, *, x_label, y_label, width=640, height=240, tit
         len(stacks), len(x))
     total = vals.sum(axis=0) if len(stacks) else np.zeros(len(x))
     xlim = (float(x.min()), float(x.max()) + bar_width) if len(x) else (0.0, 1.0)
+    right = 14 + (10 + 7 * max((len(str(n)) for _, n in stacks), default=0) + 14
+                  if len(stacks) > 1 else 0)
     f = _Frame(width, height, xlim, (0.0, float(total.max()) * 1.08 if total.size and
-                                     total.max() > 0 else 1.0), x_label, y_label, title)
+                                     total.max() > 0 else 1.0), x_label, y_label, title,
+               margin=(46, right, 34, 58))
     gap = 0.1 * bar_width
     bottom = np.zeros(len(x))
     for k, row in enumerate(vals):
@@ -289,7 +293,7 @@ def stacked_bar_chart(x, stacks, *, x_label, y_label, width=640, height=240, tit
                            f'height="{y0 - y1:.1f}" fill="{colour}"/>')
         bottom += row
     if len(stacks) > 1:
-        f.legend([name for _, name in stacks], PALETTE)
+        f.legend([name for _, name in stacks], PALETTE, outside=True)
     return f.svg()
 
 
