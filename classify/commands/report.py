@@ -1,0 +1,24 @@
+"""``pulsesort report``: a self-contained HTML summary of a triage, for a group meeting."""
+
+from __future__ import annotations
+
+NAME = "report"
+HELP = "write a self-contained HTML summary of a triage (counts per hour, confidence, " \
+       "review load, example waveforms)"
+
+
+def add_arguments(parser):
+    parser.add_argument("results", metavar="RESULTS.csv", help="a 'pulsesort triage' output")
+    parser.add_argument("--out", "-o", required=True, metavar="REPORT.html",
+                        help="HTML file to write (replaced atomically)")
+    parser.add_argument("--catalog", metavar="CATALOG", default=None,
+                        help="the catalog folder, for example waveforms per class")
+    parser.add_argument("--title", default=None, help="report title")
+
+
+def run(args) -> int:
+    from classify.report import write_report
+
+    out = write_report(args.results, args.out, catalog=args.catalog, title=args.title)
+    print(f"wrote {out}")
+    return 0

@@ -1,0 +1,291 @@
+"""A self-contained HTML summary of a triage, for a group meeting.
+
+One file, no scripts, no external resources: inline CSS and inline SVG charts
+(:mod:`classify.svgplot`). Sections: what was triaged, class counts per hour
+of the season (``time_utc``, UTC hours), the confidence histogram per
+predicted class, the review load (how many pulses need review and why), and,
+with the catalog, a few example field changes per class (the most confident
+pulses that need no review; field change as on the review page). Every text
+from the data is HTML-escaped.
+
+Examples
+--------
+>>> from classify.report import write_report
+>>> write_report("results.csv", "report.html", catalog="hollowmere-2031")  # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import tempfile
+from datetime import datetime, timezone
+from html import escape
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import svgplot
+from .review._queue import probability_columns
+
+logger = logging.getLogger("pulsesort")
+
+__all__ = ["hourly_counts", "review_load", "build_report", "write_report"]
+
+#: Review reasons, in the order the triage checks them.
+REASONS = ("low_confidence", "ambiguous_set", "empty_set", "novel", "clipped", "no_vhf",
+           "field_unusable")
+MAX_HOUR_ROWS = 200
+_REQUIRED = ("event_id", "label", "confidence", "needs_review", "time_utc")
+
+
+def _classes(results: pd.DataFrame) -> list[str]:
+    """The model's classes (``p_`` columns), then any other label seen."""
+    classes = [c[2:] for c in probability_columns(results)]
+    return classes + sorted(set(results["label"].astype(str)) - set(classes))
+
+
+def hourly_counts(results: pd.DataFrame) -> pd.DataFrame:
+    """Pulses per predicted class in every UTC hour from the first to the last pulse.
+
+    Parameters
+    ----------
+    results : pandas.DataFrame
+        Triage results with ``time_utc`` (datetime64 UTC) and ``label``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index: hour start (UTC), every hour of the span (quiet hours are 0);
+        one int64 column per class, in the model's class order.
+    """
+    t = pd.to_datetime(results["time_utc"], utc=True)
+    hours = t.dt.floor("h")
+    classes = _classes(results)
+    if len(results) == 0:
+        return pd.DataFrame(columns=classes, dtype="int64")
+    table = pd.crosstab(hours, results["label"].astype(str))
+    span = pd.date_range(hours.min(), hours.max(), freq="h")
+    table = table.reindex(index=span, columns=classes, fill_value=0).astype("int64")
+    table.index.name = "hour_utc"
+    table.columns.name = None
+    return table
+
+
+def review_load(results: pd.DataFrame) -> pd.DataFrame:
+    """How many pulses need review for each reason (a pulse may have several).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index: reason; columns ``n`` (pulses with that reason) and ``share``
+        (of all pulses, in [0, 1]).
+    """
+    reasons = results.get("review_reason", pd.Series([""] * len(results))).fillna("")
+    sets = reasons.astype(str).str.split(";")
+    found = sorted({r for s in sets for r in s if r} - set(REASONS))
+    rows = []
+    for r in list(REASONS) + found:
+        n = int(sets.map(lambda s, r=r: r in s).sum())
+        rows.append((r, n, n / len(results) if len(results) else 0.0))
+    return pd.DataFrame(rows, columns=["reason", "n", "share"]).set_index("reason")
+
+
+def _table(header, rows, cls=""):
+    head = "".join(f"<th>{escape(str(h))}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{escape(str(v))}</td>" for v in r) + "</tr>"
+                   for r in rows)
+    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+
+
+def _examples(results, catalog, classes, per_class):
+    from .review._pulse import field_trace
+
+    rows = {e: i for i, e in enumerate(map(str, catalog.event_ids))}
+    parts = []
+    for c in classes:
+        mine = results[results["label"].astype(str) == c]
+        if mine.empty:
+            continue
+        sure = mine.sort_values(["needs_review", "confidence"], ascending=[True, False],
+                                kind="stable")
+        figs = []
+        for _, r in sure.head(per_class).iterrows():
+            eid = str(r["event_id"])
+            if eid not in rows:
+                continue
+            t_us, e, _ = field_trace(catalog, rows[eid])
+            svg = svgplot.line_chart([(t_us, e, "E")], x_label="time from trigger (µs)",
+                                     y_label="E (V/m), + = field up", width=300, height=170,
+                                     zero_line=True)
+            cap = (f"{escape(eid)}<br>confidence {float(r['confidence']):.2f}"
+                   f"{' (needs review)' if r['needs_review'] else ''}")
+            figs.append(f'<figure>{svg}<figcaption>{cap}</figcaption></figure>')
+        if figs:
+            parts.append(f"<h3>{escape(c)}</h3><div class=\"examples\">{''.join(figs)}</div>")
+    return "".join(parts)
+
+
+def build_report(results: pd.DataFrame, *, catalog=None, title=None,
+                 examples_per_class: int = 3) -> str:
+    """The report as one HTML string (see the module docstring for its sections).
+
+    Parameters
+    ----------
+    results : pandas.DataFrame
+        Triage results as :func:`classify.triage.read_results` returns them.
+    catalog : features.catalog.Catalog, optional
+        The catalog of the results, for example waveforms.
+    title : str, optional
+    examples_per_class : int, default=3
+    """
+    missing = [c for c in _REQUIRED if c not in results.columns]
+    if missing:
+        raise ValueError(f"the results table lacks column(s) {missing}; is it a "
+                         "'pulsesort triage' output?")
+    n = len(results)
+    needs = results["needs_review"].astype(bool)
+    classes = _classes(results)
+    cids = sorted(set(results.get("catalog_id", pd.Series([], dtype=str)).dropna()
+                      .astype(str)))
+    versions = sorted(set(results.get("model_version", pd.Series([], dtype=str)).dropna()
+                          .astype(str)))
+    if catalog is not None and cids and cids != [catalog.catalog_id]:
+        raise ValueError(f"the results are of catalog(s) {', '.join(cids)}, not of "
+                         f"{catalog.catalog_id} at {catalog.path}")
+    title = title or f"Triage of {', '.join(cids) or 'a catalog'}"
+    t = pd.to_datetime(results["time_utc"], utc=True)
+    now = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    facts = [("pulses", f"{n:,}"),
+             ("model", ", ".join(versions) or "n/a"),
+             ("first pulse (UTC)", f"{t.min():%Y-%m-%d %H:%M:%S}" if n else "n/a"),
+             ("last pulse (UTC)", f"{t.max():%Y-%m-%d %H:%M:%S}" if n else "n/a"),
+             ("need review", f"{int(needs.sum()):,} ({needs.mean() * 100 if n else 0:.1f} %)"),
+             ("report written", now)]
+    if catalog is not None:
+        facts[1:1] = [("station", catalog.station or "n/a"), ("season", catalog.season or "n/a")]
+    if versions and all(v.startswith("rules-") for v in versions):
+        facts.append(("note", "physics rules (no trained model): the confidences are not "
+                              "calibrated probabilities"))
+    out = [f"<h1>{escape(title)}</h1>", _table(["", ""], facts, "facts")]
+
+    counts = results["label"].astype(str).value_counts()
+    conf = results.groupby(results["label"].astype(str))["confidence"].mean()
+    rev = needs.groupby(results["label"].astype(str)).sum()
+    out.append("<h2>Classes</h2>")
+    out.append(_table(["class", "pulses", "share", "mean confidence", "need review"],
+                      [(c, int(counts.get(c, 0)),
+                        f"{counts.get(c, 0) / n * 100 if n else 0:.1f} %",
+                        f"{conf.get(c, np.nan):.2f}" if c in conf else "n/a",
+                        int(rev.get(c, 0))) for c in classes], "num"))
+
+    hours = hourly_counts(results)
+    out.append("<h2>Class counts per hour of the season</h2>")
+    if len(hours):
+        start = hours.index[0]
+        x = (hours.index - start) / pd.Timedelta(hours=1)
+        stacks = [(hours[c].to_numpy(float), c) for c in classes]
+        out.append(svgplot.stacked_bar_chart(
+            np.asarray(x, float), stacks, x_label=f"hours since {start:%Y-%m-%d %H:%M} UTC",
+            y_label="pulses per hour", width=900, height=280))
+        active = hours[hours.sum(axis=1) > 0]
+        rows = [(f"{h:%Y-%m-%d %H:00}", *map(int, active.loc[h]), int(active.loc[h].sum()))
+                for h in active.index[:MAX_HOUR_ROWS]]
+        out.append(f"<p>{len(active)} hour(s) with pulses out of {len(hours)}"
+                   f"{f'; the first {MAX_HOUR_ROWS} are listed' if len(active) > MAX_HOUR_ROWS else ''}"
+                   ".</p>")
+        out.append(_table(["hour (UTC)", *classes, "total"], rows, "num hours"))
+
+    out.append("<h2>Confidence</h2>")
+    samples = [results.loc[results["label"].astype(str) == c, "confidence"] for c in classes]
+    out.append(svgplot.histogram_chart(samples, bins=20,  # every class: same colours as above
+                                       x_label="confidence of the predicted class",
+                                       y_label="pulses", names=classes,
+                                       range_=(0.0, 1.0), width=640, height=260))
+
+    load = review_load(results)
+    out.append("<h2>Review load</h2>")
+    out.append(f"<p>{int(needs.sum()):,} of {n:,} pulses need review; "
+               f"{int(results.get('novel', pd.Series(False, index=results.index)).sum()):,} "
+               "are novel (unlike the training pulses). A pulse may have several reasons.</p>")
+    shown = load[load["n"] > 0]
+    if len(shown):
+        out.append(svgplot.hbar_chart(list(shown.index), shown["n"].to_numpy(float),
+                                      x_label="pulses", width=640, value_format="{:.0f}"))
+    out.append(_table(["reason", "pulses", "share"],
+                      [(r, int(v["n"]), f"{v['share'] * 100:.1f} %") for r, v in load.iterrows()],
+                      "num"))
+
+    out.append("<h2>Example waveforms</h2>")
+    if catalog is None:
+        out.append("<p>Give the catalog (<code>--catalog</code>) to see example field "
+                   "changes.</p>")
+    else:
+        out.append("<p>The most confident pulses of each class that need no review; field "
+                   "change, physics convention (+ = field vector up).</p>")
+        out.append(_examples(results, catalog, classes, examples_per_class))
+    body = "\n".join(out)
+    return (f'<!doctype html>\n<html lang="en"><head><meta charset="utf-8">'
+            f"<title>{escape(title)}</title><style>{_CSS}</style></head>"
+            f"<body>\n{body}\n</body></html>\n")
+
+
+_CSS = """
+body{font:14px/1.45 system-ui,sans-serif;color:#222;max-width:1000px;margin:1.5em auto;
+padding:0 1em}h1{font-size:1.4em}h2{font-size:1.15em;margin-top:1.6em;border-bottom:1px solid
+#ddd}h3{font-size:1em}table{border-collapse:collapse;margin:.5em 0}th,td{padding:.15em .6em;
+border-bottom:1px solid #eee;text-align:left}table.num td+td{text-align:right;
+font-variant-numeric:tabular-nums}table.facts th{display:none}.examples{display:flex;
+flex-wrap:wrap;gap:.6em}figure{margin:0}figcaption{font-size:.85em;color:#555;
+overflow-wrap:anywhere;max-width:300px}
+""".strip()
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def write_report(results_path, out, *, catalog=None, title=None) -> Path:
+    """Read a results file and write its HTML report atomically (temp file + rename).
+
+    Parameters
+    ----------
+    results_path : path
+        A ``pulsesort triage`` output.
+    out : path
+        The HTML file to write (its folder must exist).
+    catalog : path or Catalog, optional
+        The catalog folder, for example waveforms.
+
+    Returns
+    -------
+    pathlib.Path
+        ``out``.
+    """
+    from features import open_catalog
+
+    from .triage import read_results
+
+    out = Path(out)
+    if not out.parent.is_dir():
+        raise FileNotFoundError(f"{out.parent}: no such folder for the report")
+    results = read_results(results_path)
+    if catalog is not None and not hasattr(catalog, "catalog_id"):
+        catalog = open_catalog(catalog)
+    html = build_report(results, catalog=catalog, title=title)
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=out.parent)
+    try:
+        os.chmod(tmp, 0o666 & ~_umask())   # mkstemp makes it private; a report is not
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(html)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, out)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    logger.info("report of %d pulses written to %s", len(results), out)
+    return out
