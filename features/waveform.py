@@ -136,18 +136,24 @@ def _index_range(n_samples, sample_rate_hz, pretrigger_s, window_s):
     return max(i0, 0), min(max(i1, 0), n_samples)
 
 
+def _row_median(a):
+    """Median of each row ignoring NaN; vectorised for rows without NaN."""
+    out = np.empty(a.shape[0])
+    nan_rows = np.isnan(a).any(axis=1)
+    if (~nan_rows).any():
+        out[~nan_rows] = np.median(a[~nan_rows], axis=1)
+    if nan_rows.any():
+        with warnings.catch_warnings():  # all-NaN rows give NaN, which is what we want
+            warnings.simplefilter("ignore", RuntimeWarning)
+            out[nan_rows] = np.nanmedian(a[nan_rows], axis=1)
+    return out
+
+
 def _baseline_noise(field, i0, quantum):
     """Median and robust sigma of the pre-window record (or the whole row)."""
-    n, m = field.shape
-    if i0 >= 16:
-        base = field[:, :i0]
-    else:  # no usable pre-trigger: the whole row (a pulse fills little of it)
-        base = field
-    with warnings.catch_warnings():  # all-NaN rows give NaN, which is what we want
-        warnings.simplefilter("ignore", RuntimeWarning)
-        med = np.nanmedian(base, axis=1)
-        mad = np.nanmedian(np.abs(base - med[:, None]), axis=1)
-    sigma = 1.4826 * mad
+    base = field[:, :i0] if i0 >= 16 else field  # no pre-trigger: the whole row
+    med = _row_median(base)
+    sigma = 1.4826 * _row_median(np.abs(base - med[:, None]))
     if quantum > 0:
         sigma = np.maximum(sigma, quantum / np.sqrt(12.0))
     return med, sigma
