@@ -193,19 +193,28 @@ def create(con: sqlite3.Connection) -> None:
                     [(n, d, now) for n, d in STANDARD_CLASSES])
 
 
-def upgrade(con: sqlite3.Connection, path: Path, version: int) -> None:
-    """Back up, then migrate a store from ``version`` to :data:`SCHEMA_VERSION`.
+def backup(con: sqlite3.Connection, path: Path, version: int) -> Path:
+    """Write a consistent copy of the store to ``<store>.v<version>.bak``; return its path.
 
-    The caller holds a write transaction (``BEGIN IMMEDIATE``) on ``con``, so
-    no other process writes while the copy is made and the schema changes.
+    Call it outside any transaction on ``con`` (the backup takes its own
+    snapshot); an existing backup is never overwritten.
     """
-    backup = _backup_path(path, version)
-    dst = sqlite3.connect(str(backup))
+    target = _backup_path(path, version)
+    dst = sqlite3.connect(str(target))
     try:
         con.backup(dst)
     finally:
         dst.close()
-    logger.info("label store %s: schema v%d backed up to %s", path, version, backup)
+    logger.info("label store %s: schema v%d backed up to %s", path, version, target)
+    return target
+
+
+def migrate(con: sqlite3.Connection, path: Path, version: int) -> None:
+    """Migrate a store from ``version`` to :data:`SCHEMA_VERSION`.
+
+    The caller holds a write transaction (``BEGIN IMMEDIATE``) on ``con``: the
+    whole upgrade is applied or none of it.
+    """
     now = utc_now()
     for v in range(version, SCHEMA_VERSION):
         for stmt in _statements(MIGRATIONS[v]):

@@ -68,7 +68,7 @@ class LabelStore:
             with self._read():
                 version = _schema.current_version(self._con, self.path)
             if version != _schema.SCHEMA_VERSION:
-                self._prepare()
+                self._prepare(version)
         except sqlite3.DatabaseError as exc:
             self._con.close()
             raise ValueError(f"{self.path}: not a usable pulsesort label store ({exc})") from None
@@ -76,20 +76,22 @@ class LabelStore:
             self._con.close()
             raise
 
-    def _prepare(self) -> None:
+    def _prepare(self, version: int | None) -> None:
         """Create or upgrade the schema, under the write lock (another process may race)."""
+        if version is not None and version > _schema.SCHEMA_VERSION:
+            raise ValueError(
+                f"{self.path}: written by a newer pulsesort (schema v{version}; "
+                f"this one knows up to v{_schema.SCHEMA_VERSION}); upgrade pulsesort")
+        if version is not None:  # older: copy it first, outside the write transaction
+            _schema.backup(self._con, self.path, version)
         with self._write():
             version = _schema.current_version(self._con, self.path)
             if version is None:
                 _schema.create(self._con)
                 logger.info("label store %s: created (schema v%d)", self.path,
                             _schema.SCHEMA_VERSION)
-            elif version > _schema.SCHEMA_VERSION:
-                raise ValueError(
-                    f"{self.path}: written by a newer pulsesort (schema v{version}; "
-                    f"this one knows up to v{_schema.SCHEMA_VERSION}); upgrade pulsesort")
             elif version < _schema.SCHEMA_VERSION:
-                _schema.upgrade(self._con, self.path, version)
+                _schema.migrate(self._con, self.path, version)
 
     # ------------------------------------------------------------------ plumbing
 
