@@ -46,7 +46,7 @@ So a new decision by any analyst after a resolution reopens the question if
 it disagrees, and the resolver withdraws a resolution by retracting it.
 """
 
-from ._importer import EXPORT_COLUMNS
+from ._importer import EXPORT_COLUMNS, check_labels_file
 from ._query import STATUSES
 from ._schema import SCHEMA_VERSION
 from ._store import DEFAULT_STORE, DIRECT_ORIGINS, STORE_ENV, LabelStore, default_store_path
@@ -63,6 +63,7 @@ __all__ = [
     "STATUSES",
     "STORE_ENV",
     "ImportReport",
+    "check_labels_file",
     "LabelStore",
     "default_store_path",
 ]

@@ -20,10 +20,11 @@ import io
 from dataclasses import dataclass
 from pathlib import Path
 
-from features._checks import CatalogError, Problems
+from features._checks import Problems
 
 from ._values import (
     ORIGINS,
+    STANDARD_CLASSES,
     check_confidence,
     check_name,
     check_text,
@@ -88,8 +89,8 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
     ------
     FileNotFoundError
         If the file does not exist.
-    features.CatalogError
-        (a ``ValueError``) listing every bad row as ``FILE:LINE: problem``.
+    ValueError
+        Listing every bad row as ``FILE:LINE: problem``, one per line.
     """
     path = Path(path)
     if not path.is_file():
@@ -108,14 +109,14 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
     try:
         header = next(reader)
     except StopIteration:
-        raise CatalogError([f"{where}: the file is empty; expected a header row "
-                            f"with at least {', '.join(REQUIRED_COLUMNS)}"]) from None
+        raise ValueError(f"{where}: the file is empty; expected a header row "
+                         f"with at least {', '.join(REQUIRED_COLUMNS)}") from None
     except csv.Error as exc:
-        raise CatalogError([f"{where}:1: cannot read the header row: {exc}"]) from None
+        raise ValueError(f"{where}:1: cannot read the header row: {exc}") from None
     columns = [h.strip() for h in header]
     _check_header(columns, where, problems)
     if problems:
-        raise CatalogError(problems.items)
+        raise ValueError("\n".join(problems.items))
     col = {name: i for i, name in enumerate(columns)}
     classes = set(classes)
 
@@ -154,8 +155,22 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
         problems.summarise()
         head = (f"{where}: {n_bad} bad row(s); nothing was imported "
                 f"(fix every row listed and import again):")
-        raise CatalogError([head, *problems.items])
+        raise ValueError("\n".join([head, *problems.items]))
     return LabelsFile(path=path, sha256=sha, rows=tuple(rows))
+
+
+def check_labels_file(path, catalog, *, classes=None, analyst=None) -> LabelsFile:
+    """Validate a labels file for ``catalog`` without touching any store.
+
+    ``classes`` defaults to the four standard classes (those of a new store).
+    Raises ``ValueError`` listing every bad row, like
+    :meth:`LabelStore.import_labels`.
+    """
+    if classes is None:
+        classes = [name for name, _ in STANDARD_CLASSES]
+    return read_labels_file(path, catalog_id=catalog.catalog_id,
+                            event_ids=set(map(str, catalog.event_ids)), classes=classes,
+                            analyst=analyst)
 
 
 def _check_header(columns, where, problems) -> None:

@@ -396,7 +396,7 @@ class LabelStore:
 
         Every row is checked first (unknown event_id or label, malformed time,
         duplicate rows, missing analyst, non-UTF-8 text); any problem raises a
-        ``ValueError`` (:class:`features.CatalogError`) listing every bad row
+        ``ValueError`` listing every bad row
         and the store is left unchanged. Rows already in the store are
         skipped, so importing the same file twice adds nothing the second time
         (rows without ``decided_at`` get the time of the file's first import).
@@ -424,7 +424,7 @@ class LabelStore:
         with self._write() as con:
             registered = _writes.register(con, self.path, catalog)
             report = _writes.import_rows(con, parsed, catalog.catalog_id, analyst, registered)
-        logger.info("%s: %d rows, %d added, %d already in the store", path, report.n_rows,
+        logger.debug("%s: %d rows, %d added, %d already in the store", path, report.n_rows,
                     report.n_added, report.n_present)
         return report
 

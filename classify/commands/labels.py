@@ -1,0 +1,218 @@
+"""``pulsesort labels``: the labelled-set manager (import, export, stats, conflicts...)."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+import pandas as pd
+
+NAME = "labels"
+HELP = ("manage analysts' labels in the label store: import, export, stats, conflicts, "
+        "resolve, history, retract, classes")
+
+EPILOG = """\
+label store:
+  An SQLite file: --store PATH, else $PULSESORT_STORE, else labels.sqlite in the
+  working folder. Decisions are never changed or deleted: a retraction or a
+  resolution is a new decision.
+
+current-label rule (for each event of a catalog):
+  1. take every analyst's latest decision; a retraction as the latest one means
+     that analyst has no label on the event;
+  2. if a resolution ('labels resolve') is newer than every analyst's latest
+     decision, its label is the current label;
+  3. otherwise, if the analysts' standing labels agree, that is the label
+     (status labelled); if they disagree the event is in conflict (no training
+     label until resolved); if nobody has a standing label it is unlabelled.
+"""
+
+
+def _store_arg(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--store", metavar="PATH", default=None,
+                   help="label store file (default: $PULSESORT_STORE, else ./labels.sqlite)")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
+    parser.epilog = EPILOG
+    sub = parser.add_subparsers(dest="labels_action", metavar="ACTION")
+
+    def add(name, func, help_):
+        p = sub.add_parser(name, help=help_, description=help_, epilog=EPILOG,
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        p.set_defaults(_labels_run=func)
+        return p
+
+    p = add("import", _import, "import a labels file (CSV: event_id,label[,analyst,"
+            "decided_at,note]) for a catalog; all rows or none")
+    p.add_argument("file", metavar="FILE", help="the labels CSV file")
+    p.add_argument("--catalog", metavar="CATALOG_DIR", required=True,
+                   help="the catalog folder the labels are for")
+    p.add_argument("--analyst", metavar="NAME",
+                   help="analyst of rows without an 'analyst' value")
+    _store_arg(p)
+
+    p = add("export", _export, "write current labels (or the full history) as a labels "
+            "file that imports back")
+    p.add_argument("--out", metavar="FILE", required=True, help="CSV file to write")
+    p.add_argument("--catalog", metavar="ID", help="catalog id (needed if the store holds "
+                   "several catalogs)")
+    p.add_argument("--history", action="store_true",
+                   help="every decision (retractions and resolutions included)")
+    _store_arg(p)
+
+    p = add("stats", _stats, "counts per catalog/season, per class and per analyst: "
+            "labelled, in conflict, unlabelled")
+    p.add_argument("--catalog", metavar="ID", action="append",
+                   help="only this catalog id (repeatable)")
+    _store_arg(p)
+
+    p = add("conflicts", _conflicts, "events on which analysts disagree, and agreement "
+            "(Cohen's kappa) between analyst pairs")
+    p.add_argument("--catalog", metavar="ID", action="append",
+                   help="only this catalog id (repeatable)")
+    _store_arg(p)
+
+    p = add("resolve", _resolve, "settle an event in conflict with a label")
+    p.add_argument("catalog_id", metavar="CATALOG_ID")
+    p.add_argument("event_id", metavar="EVENT_ID")
+    p.add_argument("label", metavar="LABEL")
+    p.add_argument("--analyst", metavar="NAME", required=True, help="who resolves")
+    p.add_argument("--note", metavar="TEXT", help="why")
+    _store_arg(p)
+
+    p = add("history", _history, "every decision on an event: who decided what, when, why")
+    p.add_argument("event_id", metavar="EVENT_ID")
+    p.add_argument("--catalog", metavar="ID", help="only in this catalog")
+    _store_arg(p)
+
+    p = add("retract", _retract, "withdraw an analyst's label on an event")
+    p.add_argument("catalog_id", metavar="CATALOG_ID")
+    p.add_argument("event_id", metavar="EVENT_ID")
+    p.add_argument("--analyst", metavar="NAME", required=True, help="whose label")
+    p.add_argument("--note", metavar="TEXT", help="why")
+    _store_arg(p)
+
+    p = add("classes", _classes, "list the classes, or add one")
+    p.add_argument("--add", metavar="NAME", help="new class name (a-z, 0-9, _)")
+    p.add_argument("--description", metavar="TEXT", help="what the new class means")
+    _store_arg(p)
+    parser.set_defaults(_labels_parser=parser)
+
+
+def run(args) -> int:
+    func = getattr(args, "_labels_run", None)
+    if func is None:
+        args._labels_parser.print_help()
+        return 2
+    return func(args)
+
+
+def _open(args, *, create=False):
+    from classify.labels import LabelStore
+
+    return LabelStore(args.store, create=create)
+
+
+def _show(df: pd.DataFrame) -> str:
+    return df.to_string(index=False)
+
+
+def _import(args) -> int:
+    from classify.labels import check_labels_file, default_store_path
+    from features import open_catalog
+
+    cat = open_catalog(args.catalog)
+    path = Path(args.store) if args.store else default_store_path()
+    if not path.exists():  # check the file before creating a store for it
+        check_labels_file(args.file, cat, analyst=args.analyst)
+    with _open(args, create=True) as store:
+        rep = store.import_labels(args.file, cat, analyst=args.analyst)
+    print(f"{rep.path}: {rep.n_rows} rows for catalog {rep.catalog_id}: "
+          f"{rep.n_added} added, {rep.n_present} already in {path}"
+          + (f" (batch {rep.batch_id})" if rep.batch_id is not None else ""))
+    return 0
+
+
+def _export(args) -> int:
+    with _open(args) as store:
+        n = store.export_labels(args.out, args.catalog, history=args.history)
+    what = "decisions" if args.history else "label rows"
+    print(f"{args.out}: {n} {what} written")
+    return 0
+
+
+def _stats(args) -> int:
+    with _open(args) as store:
+        st = store.stats(args.catalog)
+    if st["catalogs"].empty:
+        print("no catalogs in the store yet")
+        return 0
+    print("Events by status, per catalog:")
+    print(st["catalogs"].reset_index().to_string(index=False))
+    print("\nCurrent labels per class:")
+    print(st["classes"].reset_index().to_string(index=False))
+    print("\nStanding labels per analyst:")
+    if st["analysts"].empty:
+        print("(no decisions yet)")
+    else:
+        print(st["analysts"].reset_index().to_string(index=False))
+    return 0
+
+
+def _conflicts(args) -> int:
+    with _open(args) as store:
+        conf = store.conflicts(args.catalog)
+        agree = store.agreement(args.catalog)
+    n = conf.groupby(["catalog_id", "event_id"]).ngroups if len(conf) else 0
+    print(f"Events in conflict: {n}")
+    if n:
+        print(_show(conf.drop(columns="decision_id")))
+    print("\nAgreement between analysts (events both labelled; Cohen's kappa):")
+    print(_show(agree) if len(agree) else "(fewer than two analysts)")
+    return 0
+
+
+def _resolve(args) -> int:
+    with _open(args) as store:
+        did = store.resolve(args.catalog_id, args.event_id, args.label,
+                            analyst=args.analyst, note=args.note)
+    print(f"decision #{did}: {args.catalog_id} {args.event_id} resolved as {args.label}")
+    return 0
+
+
+def _history(args) -> int:
+    with _open(args) as store:
+        h = store.history(args.event_id, args.catalog)
+    if h.empty:
+        print(f"no decisions on event {args.event_id!r}")
+        return 0
+    cols = ["decision_id", "catalog_id", "decided_at", "analyst", "label", "origin", "note",
+            "model_version", "confidence", "source_file"]
+    h = h[cols].astype(object)
+    h["label"] = h["label"].where(h["label"].notna(), "(retracted)")
+    print(_show(h.where(h.notna(), "")))
+    return 0
+
+
+def _retract(args) -> int:
+    with _open(args) as store:
+        did = store.retract(args.catalog_id, args.event_id, analyst=args.analyst,
+                            note=args.note)
+    print(f"decision #{did}: label of {args.analyst} on {args.catalog_id} "
+          f"{args.event_id} retracted")
+    return 0
+
+
+def _classes(args) -> int:
+    if args.description is not None and args.add is None:
+        raise ValueError("--description goes with --add NAME")
+    with _open(args, create=args.add is not None) as store:
+        if args.add is not None:
+            if args.description is None:
+                raise ValueError(f"--add {args.add}: give a --description of the class")
+            store.add_class(args.add, args.description)
+            print(f"class {args.add!r} added")
+        print(_show(store.class_table()))
+    return 0
