@@ -163,9 +163,9 @@ def _stats(args) -> int:
 
 def _conflicts(args) -> int:
     with _open(args) as store:
-        conf = store.conflicts(args.catalog)
+        conf = store.conflicts(args.catalog, long=True)
         agree = store.agreement(args.catalog)
-    n = conf.groupby(["catalog_id", "event_id"]).ngroups if len(conf) else 0
+    n = len(conf.drop_duplicates(["catalog_id", "event_id"]))
     print(f"Events in conflict: {n}")
     if n:
         print(_show(conf.drop(columns="decision_id")))

@@ -165,8 +165,14 @@ def current_labels(con, catalog_ids=None, status=None) -> pd.DataFrame:
     return df.reset_index(drop=True)
 
 
-def conflicts(con, catalog_ids=None) -> pd.DataFrame:
-    """Long form: one row per analyst's live label on each event in conflict."""
+def conflicts(con, catalog_ids=None, long: bool = False) -> pd.DataFrame:
+    """Events in conflict, one row each (or, ``long``, one row per analyst's label).
+
+    One row per event: catalog_id, event_id, n_analysts, labels (tuple of the
+    distinct standing labels, sorted), votes (tuple of ``(analyst, label)``
+    sorted by analyst), decided_at (the latest of them). Long form:
+    catalog_id, event_id, analyst, label, decided_at, decision_id.
+    """
     lat = latest(con, catalog_ids)
     cur = rule(lat)
     bad = cur.loc[cur["status"] == "conflict", ["catalog_id", "event_id"]]
@@ -176,7 +182,25 @@ def conflicts(con, catalog_ids=None) -> pd.DataFrame:
     out = out[["catalog_id", "event_id", "analyst", "label", "decided_at", "decision_id"]]
     out = out.reset_index(drop=True)
     out["decided_at"] = _times(out["decided_at"])
-    return out
+    if long:
+        return out
+    g = out.groupby(["catalog_id", "event_id"], sort=True)
+    per = pd.DataFrame({
+        "n_analysts": g["analyst"].size(),
+        "labels": g["label"].agg(lambda s: tuple(sorted(set(s)))),
+        "decided_at": g["decided_at"].max(),
+    }).reset_index()
+    pairs = pd.Series(list(zip(out["analyst"], out["label"], strict=True)), index=out.index,
+                      dtype=object)
+    votes = pairs.groupby([out["catalog_id"], out["event_id"]], sort=True).agg(tuple)
+    per.insert(4, "votes", votes.to_numpy(dtype=object) if len(per) else [])
+    if per.empty:
+        per = pd.DataFrame({c: pd.Series(dtype=object) for c in
+                            ["catalog_id", "event_id", "n_analysts", "labels", "votes",
+                             "decided_at"]})
+        per["n_analysts"] = per["n_analysts"].astype("int64")
+        per["decided_at"] = pd.to_datetime(per["decided_at"], utc=True)
+    return per
 
 
 def agreement(con, catalog_ids=None) -> pd.DataFrame:

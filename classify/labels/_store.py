@@ -474,10 +474,14 @@ class LabelStore:
             return _query.decisions(con, None if catalog_id is None else [catalog_id],
                                     event_id=event_id)
 
-    def conflicts(self, catalog_ids=None) -> pd.DataFrame:
-        """Events in conflict: one row per analyst's standing label on each."""
+    def conflicts(self, catalog_ids=None, *, long: bool = False) -> pd.DataFrame:
+        """Events in conflict, one row each: n_analysts, labels, votes, decided_at.
+
+        With ``long=True``, one row per analyst's standing label on each such
+        event (catalog_id, event_id, analyst, label, decided_at, decision_id).
+        """
         with self._read() as con:
-            return _query.conflicts(con, catalog_ids)
+            return _query.conflicts(con, catalog_ids, long)
 
     def agreement(self, catalog_ids=None) -> pd.DataFrame:
         """Analyst pairs: n_common, n_agree, agreement, Cohen's kappa."""

@@ -121,13 +121,19 @@ def test_disagreement_is_a_conflict_until_resolved(store):
     store.record_decision(CID, "ev002", "narrow_bipolar", analyst="tamsin", origin="review")
     assert _label(store, "ev002") == (None, "conflict")
     conf = store.conflicts([CID])
-    assert conf[["analyst", "label"]].values.tolist() == [["tamsin", "narrow_bipolar"],
-                                                          ["wren", "recoil"]]
+    assert conf["event_id"].tolist() == ["ev002"] and conf["n_analysts"].tolist() == [2]
+    assert conf["labels"].iat[0] == ("narrow_bipolar", "recoil")
+    assert conf["votes"].iat[0] == (("tamsin", "narrow_bipolar"), ("wren", "recoil"))
+    votes = store.conflicts([CID], long=True)
+    assert votes[["analyst", "label"]].values.tolist() == [["tamsin", "narrow_bipolar"],
+                                                           ["wren", "recoil"]]
     store.resolve(CID, "ev002", "recoil", analyst="analyst_a", note="VHF shows a recoil")
     cur = store.current_labels([CID]).set_index("event_id").loc["ev002"]
     assert (cur["label"], cur["status"], cur["resolved"]) == ("recoil", "labelled", True)
     assert cur["resolved_by"] == "analyst_a"
-    assert store.conflicts([CID]).empty
+    assert store.conflicts([CID]).empty and store.conflicts([CID], long=True).empty
+    assert list(store.conflicts([CID]).columns) == ["catalog_id", "event_id", "n_analysts",
+                                                    "labels", "votes", "decided_at"]
     # a newer disagreeing decision reopens it; an agreeing one keeps the label
     store.record_decision(CID, "ev002", "narrow_bipolar", analyst="wren", origin="review")
     assert _label(store, "ev002") == ("narrow_bipolar", "labelled")
