@@ -206,6 +206,16 @@ def render_drift_html(result: DriftResult, feat_a: pd.DataFrame, feat_b: pd.Data
         parts.append(_table(["setting", "A", "B", "features expected to move", "why"], rows))
     else:
         parts.append("<p>None: both manifests declare the same settings.</p>")
+    keys = list(dict.fromkeys([*result.settings_a, *result.settings_b]))
+    if keys:
+        changed = {c.setting for c in result.changes}
+        rows = [(escape(k) + (" (changed)" if k in changed else ""),
+                 escape(format_value(k, result.settings_a.get(k))) if k in result.settings_a
+                 else "-",
+                 escape(format_value(k, result.settings_b.get(k))) if k in result.settings_b
+                 else "-") for k in keys]
+        parts.append("<details><summary>All settings compared</summary>"
+                     + _table(["setting", "A", "B"], rows) + "</details>")
     if result.priors is not None:
         p = result.priors
         parts.append(f"<h2>Class-prior shift</h2><p class=\"note\">EM estimate (Saerens, "
