@@ -49,11 +49,7 @@ def write_csv(out: Path, dec: pd.DataFrame) -> None:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             w = csv.writer(fh, lineterminator="\n")
             w.writerow(EXPORT_COLUMNS)
-            for r in dec.itertuples(index=False):
-                w.writerow([r.catalog_id, r.event_id, r.label or "", r.analyst,
-                            r.decided_at.strftime("%Y-%m-%dT%H:%M:%S.%fZ"), r.note or "",
-                            r.origin, r.model_version or "",
-                            "" if pd.isna(r.confidence) else repr(float(r.confidence))])
+            w.writerows(zip(*_columns(dec), strict=True))
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, out)
@@ -61,3 +57,18 @@ def write_csv(out: Path, dec: pd.DataFrame) -> None:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+def _columns(dec: pd.DataFrame) -> list[list[str]]:
+    """The export columns of ``dec`` as lists of text (empty for missing values)."""
+    def text(c):
+        v = dec[c]
+        return v.where(v.notna(), "").astype(str).tolist()
+
+    conf = dec["confidence"]
+    at = dec["decided_at"].dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    cols = {c: text(c) for c in ("catalog_id", "event_id", "label", "analyst", "note",
+                                 "origin", "model_version")}
+    cols["decided_at"] = at.tolist()
+    cols["confidence"] = ["" if pd.isna(x) else repr(float(x)) for x in conf]
+    return [cols[c] for c in EXPORT_COLUMNS]

@@ -85,68 +85,100 @@ def latest(con, catalog_ids=None, event=None) -> pd.DataFrame:
     return df
 
 
+def _last_per_group(code: np.ndarray, mask: np.ndarray):
+    """Positions of the last ``mask`` row of each group (rows sorted by group) and the groups."""
+    idx = np.flatnonzero(mask)
+    g = code[idx]
+    last = np.r_[g[1:] != g[:-1], True] if len(g) else np.zeros(0, dtype=bool)
+    return idx[last], g[last]
+
+
 def rule(lat: pd.DataFrame) -> pd.DataFrame:
-    """Apply the current-label rule to :func:`latest` rows: one row per decided event."""
-    key = ["catalog_id", "event_id"]
-    ana = lat[~lat["is_resolve"]].sort_values(["decided_at", "decision_id"])
-    res = lat[lat["is_resolve"]]
-    # the newest analyst decision of each event (retractions included)
-    newest = ana.groupby(key, sort=False).tail(1)[key + ["decided_at", "decision_id"]]
-    live = ana[ana["label"].notna()]
-    g = live.groupby(key, sort=False)
-    summary = pd.DataFrame({
-        "n_labels": g["label"].nunique(),
-        "first_label": g["label"].first(),
-        "n_analysts": g["analyst"].size(),
-        "analysts": g["analyst"].agg(lambda s: tuple(sorted(s))),
-        "live_at": g["decided_at"].max(),
-    }).reset_index()
-    out = newest.rename(columns={"decided_at": "ana_at", "decision_id": "ana_id"})
-    out = out.merge(summary, on=key, how="outer")
-    out = out.merge(res[key + ["label", "analyst", "decided_at", "decision_id"]].rename(
-        columns={"label": "res_label", "analyst": "resolved_by", "decided_at": "res_at",
-                 "decision_id": "res_id"}), on=key, how="outer")
-    has_res = out["res_at"].notna().to_numpy()
-    no_ana = out["ana_at"].isna().to_numpy()
-    res_at = out["res_at"].fillna("").to_numpy(dtype=object)
-    ana_at = out["ana_at"].fillna("").to_numpy(dtype=object)
-    res_id = out["res_id"].fillna(-1).to_numpy(dtype=np.int64)
-    ana_id = out["ana_id"].fillna(-1).to_numpy(dtype=np.int64)
+    """Apply the current-label rule to :func:`latest` rows: one row per decided event.
+
+    Vectorised over events (a season has up to millions): rows are sorted by
+    event, then time, then decision id, and each event's newest analyst
+    decision, newest standing label and resolution are picked by position.
+    """
+    lat = lat.sort_values(["catalog_id", "event_id", "decided_at", "decision_id"],
+                          kind="stable")
+    cat = lat["catalog_id"].to_numpy(dtype=object)
+    ev = lat["event_id"].to_numpy(dtype=object)
+    n = len(lat)
+    new_group = np.ones(n, dtype=bool)
+    if n > 1:
+        new_group[1:] = (cat[1:] != cat[:-1]) | (ev[1:] != ev[:-1])
+    code = np.cumsum(new_group) - 1
+    n_groups = int(new_group.sum())
+    first = np.flatnonzero(new_group)
+    at = lat["decided_at"].to_numpy(dtype=object)
+    did = lat["decision_id"].to_numpy(dtype=np.int64)
+    label = lat["label"].to_numpy(dtype=object)
+    analyst = lat["analyst"].to_numpy(dtype=object)
+    is_res = lat["is_resolve"].to_numpy(dtype=bool)
+    has_label = pd.notna(label)
+
+    def spread(pos, groups, values, fill):
+        out = np.full(n_groups, fill, dtype=object if not isinstance(fill, int) else np.int64)
+        out[groups] = values[pos]
+        return out
+
+    # each event's newest analyst decision (retractions included) and its resolution
+    pos, grp = _last_per_group(code, ~is_res)
+    ana_at, ana_id = spread(pos, grp, at, ""), spread(pos, grp, did, -1)
+    pos, grp = _last_per_group(code, is_res)
+    res_at, res_id = spread(pos, grp, at, ""), spread(pos, grp, did, -1)
+    res_label, res_by = spread(pos, grp, label, None), spread(pos, grp, analyst, None)
+    # standing labels: analysts' latest decisions that are not retractions
+    live = ~is_res & has_label
+    pos, grp = _last_per_group(code, live)
+    live_at, any_label = spread(pos, grp, at, ""), spread(pos, grp, label, None)
+    lc = code[live]
+    n_analysts = np.bincount(lc, minlength=n_groups)
+    lab_codes, lab_names = pd.factorize(label[live])
+    pairs = np.unique(lc * max(len(lab_names), 1) + lab_codes)
+    n_labels = np.bincount(pairs // max(len(lab_names), 1), minlength=n_groups)
+    ana_codes, _ = pd.factorize(analyst[live], sort=True)
+    order = np.lexsort((ana_codes, lc))
+    names = analyst[live][order].tolist()
+    bounds = np.r_[0, np.cumsum(n_analysts)]
+    analysts = np.empty(n_groups, dtype=object)
+    analysts[:] = [tuple(names[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+    has_res = res_id >= 0
     newer = (res_at > ana_at) | ((res_at == ana_at) & (res_id > ana_id))
-    wins = has_res & (no_ana | newer)
-    n_labels = out["n_labels"].fillna(0).to_numpy(dtype=np.int64)
+    wins = has_res & ((ana_id < 0) | newer)
     status = np.where(wins | (n_labels == 1), "labelled",
                       np.where(n_labels > 1, "conflict", "unlabelled"))
-    label = np.where(wins, out["res_label"].to_numpy(dtype=object),
-                     np.where(n_labels == 1, out["first_label"].to_numpy(dtype=object), None))
-    decided = np.where(wins, res_at, np.where(n_labels > 0,
-                                              out["live_at"].fillna("").to_numpy(dtype=object),
-                                              ana_at))
-    analysts = out["analysts"].to_numpy(dtype=object)
-    analysts = pd.Series([a if isinstance(a, tuple) else () for a in analysts], dtype=object,
-                         index=out.index)
+    out_label = np.where(wins, res_label, np.where(n_labels == 1, any_label, None))
+    decided = np.where(wins, res_at, np.where(n_labels > 0, live_at, ana_at))
     return pd.DataFrame({
-        "catalog_id": out["catalog_id"].to_numpy(dtype=object),
-        "event_id": out["event_id"].to_numpy(dtype=object),
-        "label": label.astype(object),
+        "catalog_id": cat[first],
+        "event_id": ev[first],
+        "label": out_label.astype(object),
         "status": status.astype(object),
         "resolved": wins,
-        "resolved_by": np.where(wins, out["resolved_by"].to_numpy(dtype=object), None),
-        "n_analysts": out["n_analysts"].fillna(0).to_numpy(dtype=np.int64),
+        "resolved_by": np.where(wins, res_by, None).astype(object),
+        "n_analysts": n_analysts.astype(np.int64),
         "analysts": analysts,
         "decided_at": decided.astype(object),
         "winning_id": np.where(wins, res_id, -1),
     })
 
 
-def current_labels(con, catalog_ids=None, status=None) -> pd.DataFrame:
-    """The current label of every registered event of ``catalog_ids`` (all if None)."""
+def current_labels(con, catalog_ids=None, status=None, lat=None) -> pd.DataFrame:
+    """The current label of every registered event of ``catalog_ids`` (all if None).
+
+    ``lat`` may pass in :func:`latest` of the same catalogs, already computed.
+    """
     where, params = _in("catalog_id", catalog_ids)
     events = pd.DataFrame(con.execute(
         f"SELECT catalog_id, event_id FROM events WHERE {where}"
         " ORDER BY catalog_id, row_index", params).fetchall(),
         columns=["catalog_id", "event_id"], dtype=object)
-    decided = rule(latest(con, catalog_ids)).drop(columns="winning_id")
+    if lat is None:
+        lat = latest(con, catalog_ids)
+    decided = rule(lat).drop(columns="winning_id")
     df = events.merge(decided, on=["catalog_id", "event_id"], how="left", sort=False)
     df["status"] = df["status"].fillna("unlabelled")
     df["resolved"] = df["resolved"].fillna(False).astype(bool)
@@ -241,8 +273,9 @@ def stats(con, classes, catalog_ids=None) -> dict[str, pd.DataFrame]:
         f"SELECT catalog_id, station, season, n_events FROM catalogs WHERE {where}"
         " ORDER BY catalog_id", params).fetchall(),
         columns=["catalog_id", "station", "season", "n_events"])
-    cur = current_labels(con, catalog_ids)
-    status = pd.crosstab(cur["catalog_id"], cur["status"]).reindex(
+    lat = latest(con, catalog_ids)
+    cur = current_labels(con, catalog_ids, lat=lat)
+    status = _count(cur, ["catalog_id"], "status").reindex(
         index=cats["catalog_id"], columns=list(STATUSES), fill_value=0)
     n_dec = pd.DataFrame(con.execute(
         f"SELECT catalog_id, COUNT(*), COUNT(DISTINCT analyst) FROM decisions WHERE {where}"
@@ -253,14 +286,13 @@ def stats(con, classes, catalog_ids=None) -> dict[str, pd.DataFrame]:
     per_cat[["n_decisions", "n_analysts"]] = per_cat[["n_decisions", "n_analysts"]].fillna(
         0).astype("int64")
     lab = cur[cur["status"] == "labelled"]
-    per_class = pd.crosstab(lab["catalog_id"], lab["label"]).reindex(
+    per_class = _count(lab, ["catalog_id"], "label").reindex(
         index=cats["catalog_id"], columns=list(classes), fill_value=0)
     per_class.columns.name = None
     per_class.insert(0, "season", cats.set_index("catalog_id")["season"])
     per_class["total"] = per_class[list(classes)].sum(axis=1)
-    lat = latest(con, catalog_ids)
     live = lat[~lat["is_resolve"] & lat["label"].notna()]
-    per_analyst = pd.crosstab([live["catalog_id"], live["analyst"]], live["label"]).reindex(
+    per_analyst = _count(live, ["catalog_id", "analyst"], "label").reindex(
         columns=list(classes), fill_value=0)
     per_analyst.columns.name = None
     per_analyst["total"] = per_analyst.sum(axis=1)
@@ -273,3 +305,12 @@ def stats(con, classes, catalog_ids=None) -> dict[str, pd.DataFrame]:
     per_analyst = per_analyst[list(classes) + ["total", "n_decisions", "n_retractions",
                                                "n_resolutions"]]
     return {"catalogs": per_cat, "classes": per_class, "analysts": per_analyst.sort_index()}
+
+
+def _count(df: pd.DataFrame, rows: list[str], column: str) -> pd.DataFrame:
+    """Counts of ``column`` values per ``rows`` group, one column per value."""
+    if df.empty:
+        index = pd.MultiIndex.from_arrays([[]] * len(rows), names=rows) if len(rows) > 1 \
+            else pd.Index([], name=rows[0])
+        return pd.DataFrame(index=index, dtype="int64")
+    return df.groupby([*rows, column], sort=True).size().unstack(column, fill_value=0)
