@@ -17,7 +17,8 @@ so several processes can write at once. Tables: ``catalogs`` (id, station,
 season, path, content hash of manifest + events table, event count, when
 registered), ``events`` (the event ids of each catalog), ``classes`` (name,
 description, when added), ``import_batches`` (file, SHA-256, when) and
-``decisions``. Decisions are append-only: triggers refuse UPDATE and DELETE,
+``decisions`` (plus ``review_marks``, the review page's "unsure"/"skip" marks,
+created on first use). Decisions are append-only: triggers refuse UPDATE and DELETE,
 a retraction is a new row whose label is NULL. ``schema_version`` records the
 schema; an older store is upgraded in place after a backup (see
 :mod:`classify.labels._schema`).

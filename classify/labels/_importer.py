@@ -7,8 +7,16 @@ by ``pulsesort labels export`` also carry ``catalog_id``, ``origin``,
 accepted too. Any other column is refused (a misspelt ``analyst`` or
 ``decided_at`` would otherwise be silently dropped).
 
+Rules: every problem in the file is reported at once (file and line) and
+nothing is imported unless every row is good. Two rows for the same event and
+analyst are a duplicate unless both give different ``decided_at`` times (a
+history file may hold an analyst's label and its later retraction). An empty
+``analyst`` cell takes ``--analyst``; an empty ``decided_at`` takes the time
+of the file's first import (so a re-import adds nothing). A row with origin
+``retract`` has an empty label.
+
 Every cell is read as text, exactly as written: ids such as ``NA`` or ``007``
-stay as they are. The file is read with the standard :mod:`csv` module so that
+stay as they are. A UTF-8 byte-order mark and Windows line ends are accepted. The file is read with the standard :mod:`csv` module so that
 every problem can name its true line, even where a quoted note spans lines.
 """
 

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from . import _export, _query, _schema, _writes
+from . import _export, _marks, _query, _schema, _writes
 from ._importer import read_labels_file
 from ._values import (
     check_class_name,
@@ -328,33 +328,10 @@ class LabelStore:
             The mark id. Marks are append-only (never a label: the current
             labels do not change); see :meth:`review_marks`.
         """
-        if mark not in _schema.REVIEW_MARKS:
-            raise ValueError(f"mark must be one of {', '.join(_schema.REVIEW_MARKS)}, "
-                             f"got {mark!r}")
-        check_name(analyst, "analyst")
-        if note is not None:
-            check_text(note, "note", allow_newlines=True)
-        if model_version is not None:
-            check_name(model_version, "model_version")
-        confidence = check_confidence(confidence)
         with self._write() as con:
-            _writes.check_event(con, self.path, catalog_id, event_id)
-            for stmt in _schema._statements(_schema.REVIEW_MARKS_DDL):
-                con.execute(stmt)
-            if mark == "withdrawn":
-                last = con.execute(
-                    "SELECT mark FROM review_marks WHERE catalog_id = ? AND event_id = ?"
-                    " AND analyst = ? ORDER BY mark_id DESC LIMIT 1",
-                    (catalog_id, event_id, analyst)).fetchone()
-                if last is None or last[0] == "withdrawn":
-                    raise ValueError(f"analyst {analyst!r} has no review mark on event "
-                                     f"{event_id!r} of catalog {catalog_id!r} to withdraw")
-            cur = con.execute(
-                "INSERT INTO review_marks (catalog_id, event_id, analyst, mark, note,"
-                " model_version, confidence, marked_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                (catalog_id, event_id, analyst, mark, note, model_version, confidence,
-                 utc_now()))
-            return int(cur.lastrowid)
+            return _marks.record(con, self.path, catalog_id, event_id, mark, analyst=analyst,
+                                 note=note, model_version=model_version,
+                                 confidence=confidence)
 
     def review_marks(self, catalog_ids=None, *, analyst=None, history=False) -> pd.DataFrame:
         """Review marks: each analyst's standing one per event, or every mark (``history``).
@@ -363,31 +340,8 @@ class LabelStore:
         ``withdrawn``. Columns: mark_id, catalog_id, event_id, analyst, mark,
         note, model_version, confidence, marked_at (UTC); in recorded order.
         """
-        cols = ["mark_id", "catalog_id", "event_id", "analyst", "mark", "note",
-                "model_version", "confidence", "marked_at"]
-        where, params = _query._in("catalog_id", catalog_ids)
-        if analyst is not None:
-            where += " AND analyst = ?"
-            params.append(analyst)
         with self._read() as con:
-            if not con.execute("SELECT 1 FROM sqlite_master WHERE type = 'table'"
-                               " AND name = 'review_marks'").fetchone():
-                rows = []
-            elif history:
-                rows = con.execute(f"SELECT {', '.join(cols)} FROM review_marks WHERE {where}"
-                                   " ORDER BY mark_id", params).fetchall()
-            else:
-                rows = con.execute(
-                    f"SELECT {', '.join(cols)} FROM review_marks m WHERE {where}"
-                    " AND mark != 'withdrawn' AND mark_id = (SELECT MAX(mark_id) FROM"
-                    " review_marks l WHERE l.catalog_id = m.catalog_id"
-                    " AND l.event_id = m.event_id AND l.analyst = m.analyst)"
-                    " ORDER BY mark_id", params).fetchall()
-        df = pd.DataFrame(rows, columns=cols, dtype=object)
-        df["mark_id"] = df["mark_id"].astype("int64")
-        df["confidence"] = df["confidence"].astype("float64")
-        df["marked_at"] = pd.to_datetime(df["marked_at"], utc=True, format="ISO8601")
-        return df
+            return _marks.marks(con, catalog_ids, analyst=analyst, history=history)
 
     # ------------------------------------------------------------------ import / export
 

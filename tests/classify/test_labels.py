@@ -306,6 +306,32 @@ def test_import_refuses_unknown_columns_and_missing_required(store, cat, tmp_pat
         store.import_labels(tmp_path / "absent.csv", cat, analyst="wren")
 
 
+def test_import_accepts_a_spreadsheet_export(store, cat, tmp_path):
+    """A UTF-8 byte-order mark and CRLF line ends (spreadsheet CSV) import fine."""
+    f = tmp_path / "sheet.csv"
+    f.write_bytes(b"\xef\xbb\xbfevent_id,label,analyst\r\nev000,recoil,wren\r\n"
+                  b"007,stepped_leader,wren\r\n")
+    assert store.import_labels(f, cat).n_added == 2
+    assert store.decisions()["event_id"].tolist() == ["ev000", "007"]
+
+
+def test_history_file_may_hold_a_label_and_its_retraction(store, cat, tmp_path):
+    """Same event and analyst twice is fine with two times; a retraction has no label."""
+    f = write_labels(tmp_path / "h.csv", [
+        ["ev000", "recoil", "wren", "2031-08-01T10:00:00Z", "", "import"],
+        ["ev000", "", "wren", "2031-08-02T10:00:00Z", "second look", "retract"],
+        ["ev001", "recoil", "wren", "", "", "retract"]],
+        header=("event_id", "label", "analyst", "decided_at", "note", "origin"))
+    with pytest.raises(ValueError, match="h.csv:4: a retraction .* has an empty label"):
+        store.import_labels(f, cat)
+    f = write_labels(tmp_path / "h2.csv", [
+        ["ev000", "recoil", "wren", "2031-08-01T10:00:00Z", "", "import"],
+        ["ev000", "", "wren", "2031-08-02T10:00:00Z", "second look", "retract"]],
+        header=("event_id", "label", "analyst", "decided_at", "note", "origin"))
+    assert store.import_labels(f, cat).n_added == 2
+    assert _label(store, "ev000") == (None, "unlabelled")
+
+
 def test_import_refuses_rows_of_another_catalog(store, cat, tmp_path):
     """An exported file of another catalog cannot be imported into this one."""
     f = write_labels(tmp_path / "x.csv", [["hollowmere-2030", "ev000", "recoil", "wren"]],
