@@ -160,7 +160,7 @@ def connect(path: Path, timeout_s: float) -> sqlite3.Connection:
         con.execute("PRAGMA synchronous = FULL")
     except sqlite3.DatabaseError as exc:
         con.close()
-        raise ValueError(f"{path}: not a pulsesort label store ({exc})") from None
+        raise ValueError(f"{path}: cannot be opened as a pulsesort label store ({exc})") from None
     except BaseException:
         con.close()
         raise

@@ -71,7 +71,7 @@ class LabelStore:
                 self._prepare(version)
         except sqlite3.DatabaseError as exc:
             self._con.close()
-            raise ValueError(f"{self.path}: not a usable pulsesort label store ({exc})") from None
+            raise ValueError(f"{self.path}: cannot be used as a pulsesort label store ({exc})") from None
         except BaseException:
             self._con.close()
             raise
