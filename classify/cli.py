@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import logging
+import os
 import pkgutil
 import sqlite3
 import sys
@@ -83,6 +84,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("pulsesort: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # e.g. `pulsesort labels conflicts | head`: the reader left
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return EXIT_OK
     except BAD_INPUT_ERRORS as exc:
         if args.debug:
             raise
