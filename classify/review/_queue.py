@@ -33,10 +33,14 @@ Order (the rule)
        mmr = lam * priority - (1 - lam) * max(similarity to the pulses already taken)
 
    so ten near-identical pulses do not fill the first page. The pass orders
-   the first ``diversity_window`` places (default 300, or the budget if
-   smaller), choosing among the ``4 * diversity_window`` highest priorities;
-   the rest follow by priority (the pass is quadratic, a season is large).
-   Ties are broken by catalog order.
+   the first ``W = min(diversity_window, budget)`` places (``diversity_window``
+   defaults to 300), choosing among the ``4 W`` highest priorities; the rest
+   follow by priority (the pass is quadratic, a season is large). Ties are
+   broken by catalog order. Pulses that need review but were decided already
+   (labelled, in conflict, or marked by the analyst; the ``4 W`` of highest
+   priority among them) count as taken before the first pick, so a queue
+   rebuilt after some decisions goes on as the first one would have, and no
+   near-twin of a reviewed pulse jumps to the front.
 3. ``budget`` keeps the first ``budget`` pulses.
 
 The weights (``novelty_weight=0.5``, ``lam=0.7``) are common practice, no source.
@@ -45,7 +49,6 @@ The weights (``novelty_weight=0.5``, ``lam=0.7``) are common practice, no source
 from __future__ import annotations
 
 import logging
-import warnings
 
 import numpy as np
 import pandas as pd
@@ -54,8 +57,8 @@ from features import schema
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["build_queue", "probability_columns", "priority_scores", "standardised_features",
-           "diversity_order"]
+__all__ = ["build_queue", "probability_columns", "priority_scores", "feature_stats",
+           "standardised_features", "diversity_order"]
 
 NOVELTY_WEIGHT = 0.5
 MMR_LAMBDA = 0.7
@@ -109,36 +112,61 @@ def priority_scores(results: pd.DataFrame, *, novelty_weight: float = NOVELTY_WE
     return uncertainty, novelty, uncertainty + novelty_weight * novelty
 
 
-def standardised_features(results: pd.DataFrame, columns=None) -> np.ndarray:
-    """The model features of every row, standardised; missing values at 0 (the mean).
+def feature_stats(results: pd.DataFrame, columns=None):
+    """Mean and standard deviation of each model feature over all rows (NaN ignored).
+
+    Returns
+    -------
+    columns : list of str
+        Default: the schema's model features present in ``results``.
+    mean, std : ndarray of float64, shape (n_features,)
+        ``std`` is 0 for a constant or empty column (it is then left out).
+    """
+    if columns is None:
+        columns = [c for c in schema.model_feature_names() if c in results.columns]
+    mean, std = np.zeros(len(columns)), np.zeros(len(columns))
+    for j, name in enumerate(columns):  # column by column: a season is large
+        x = pd.to_numeric(results[name], errors="coerce").to_numpy(dtype=np.float64)
+        x = x[np.isfinite(x)]
+        if x.size:
+            mean[j], std[j] = x.mean(), x.std()
+    return list(columns), mean, np.where(np.isfinite(std), std, 0.0)
+
+
+def standardised_features(results: pd.DataFrame, columns=None, rows=None, stats=None
+                          ) -> np.ndarray:
+    """Model features standardised over all rows; missing values at 0 (the mean).
 
     Parameters
     ----------
     results : pandas.DataFrame
     columns : list of str, optional
         Default: the schema's model features present in ``results``.
+    rows : array of int, optional
+        Positions of the rows to return (default all); the mean and standard
+        deviation are always those of every row.
+    stats : tuple, optional
+        :func:`feature_stats` of ``results``, if already computed.
 
     Returns
     -------
     ndarray of float64, shape (n_rows, n_features)
-        ``(x - mean) / std`` per column over the rows (a constant column is 0).
+        ``(x - mean) / std`` per column (a constant column is 0).
     """
-    if columns is None:
-        columns = [c for c in schema.model_feature_names() if c in results.columns]
-    if not columns:
-        return np.zeros((len(results), 0))
-    x = results[columns].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=np.float64)
-    x = np.where(np.isfinite(x), x, np.nan)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        mean = np.nanmean(x, axis=0)
-        std = np.nanstd(x, axis=0)
-    std = np.where(np.isfinite(std) & (std > 0), std, 1.0)
-    z = (x - np.nan_to_num(mean)) / std
-    return np.nan_to_num(z, nan=0.0, posinf=0.0, neginf=0.0)
+    columns, mean, std = stats if stats is not None else feature_stats(results, columns)
+    rows = np.arange(len(results)) if rows is None else np.asarray(rows, dtype=np.int64)
+    z = np.zeros((len(rows), len(columns)))
+    sub = results.iloc[rows]
+    for j, name in enumerate(columns):
+        if std[j] > 0:
+            x = pd.to_numeric(sub[name], errors="coerce").to_numpy(dtype=np.float64)
+            z[:, j] = np.nan_to_num((x - mean[j]) / std[j], nan=0.0, posinf=0.0,
+                                    neginf=0.0)
+    return z
 
 
-def diversity_order(priority, z, *, lam: float = MMR_LAMBDA, n_take=None) -> np.ndarray:
+def diversity_order(priority, z, *, lam: float = MMR_LAMBDA, n_take=None, taken=None
+                    ) -> np.ndarray:
     """Greedy maximal-marginal-relevance order of candidates.
 
     Parameters
@@ -151,6 +179,9 @@ def diversity_order(priority, z, *, lam: float = MMR_LAMBDA, n_take=None) -> np.
         Weight of the priority against the similarity penalty, in [0, 1].
     n_take : int, optional
         How many to order (default all).
+    taken : ndarray, shape (n_taken, n_features), optional
+        Standardised features of pulses already reviewed: they count as taken
+        before the first pick.
 
     Returns
     -------
@@ -164,6 +195,8 @@ def diversity_order(priority, z, *, lam: float = MMR_LAMBDA, n_take=None) -> np.
         return np.zeros(0, dtype=np.int64)
     n_feat = max(z.shape[1], 1)
     max_sim = np.zeros(n)
+    for t in [] if taken is None else np.asarray(taken, dtype=np.float64):
+        max_sim = np.maximum(max_sim, np.exp(-((z - t) ** 2).sum(axis=1) / n_feat))
     free = np.ones(n, dtype=bool)
     order = []
     for _ in range(n_take):
@@ -246,7 +279,6 @@ def build_queue(results: pd.DataFrame, store=None, catalog_id=None, budget=None,
     elif catalog_id is None and store is not None:
         raise ValueError("the results have no catalog_id column: pass catalog_id")
     uncertainty, novelty, priority = priority_scores(results, novelty_weight=novelty_weight)
-    z_all = standardised_features(results)
     needs = results["needs_review"].map(_as_bool).to_numpy(dtype=bool)
     taken = _unavailable(store, catalog_id, analyst, revisit)
     ok = needs & ~results["event_id"].astype(str).isin(taken).to_numpy()
@@ -255,7 +287,14 @@ def build_queue(results: pd.DataFrame, store=None, catalog_id=None, budget=None,
     by_priority = cand[np.argsort(-priority[cand], kind="stable")]
     window = min(diversity_window, len(by_priority) if budget is None else int(budget))
     pool = by_priority[: max(window * POOL_FACTOR, window)]
-    head = pool[diversity_order(priority[pool], z_all[pool], lam=lam, n_take=window)]
+    stats = feature_stats(results)
+    z_pool = standardised_features(results, rows=pool, stats=stats)
+    # pulses that need review but were decided already count as taken (capped)
+    done = np.flatnonzero(needs & ~ok)
+    done = done[np.argsort(-priority[done], kind="stable")][: POOL_FACTOR * max(window, 1)]
+    z_done = standardised_features(results, rows=done, stats=stats)
+    head = pool[diversity_order(priority[pool], z_pool, lam=lam, n_take=window,
+                                taken=z_done)]
     rest = by_priority[~np.isin(by_priority, head)]
     order = np.concatenate([head, rest]).astype(np.int64)
     if budget is not None:

@@ -96,6 +96,25 @@ def test_diversity_order_by_hand():
     assert diversity_order(np.zeros(0), np.zeros((0, 2))).tolist() == []
 
 
+def test_reviewed_pulses_count_as_taken_in_the_diversity_pass(cat, store):
+    """A twin of an already-labelled pulse drops behind; the rebuilt queue continues the first."""
+    priority = np.array([1.0, 0.95, 0.8])
+    z = np.array([[0.0, 0.0], [0.0, 0.0], [3.0, 3.0]])
+    # taken twin of 0: mmr(0) = .7 - .3 = .4, mmr(1) = .365, mmr(2) = .56 - .3 exp(-9)
+    assert diversity_order(priority, z, taken=z[:1]).tolist() == [2, 0, 1]
+    ids = list(map(str, cat.event_ids[:6]))
+    p = [[0.5, 0.5], [0.51, 0.49], [0.6, 0.4], [0.62, 0.38], [0.7, 0.3], [0.75, 0.25]]
+    feats = {"width_s": [1e-6, 1.1e-6, 9e-6, 9.2e-6, 30e-6, 31e-6],
+             "bipolarity": [0.1, 0.1, 0.5, 0.5, 0.9, 0.9]}
+    res = _results(ids, p, feats=feats)
+    first = build_queue(res, store, CID)["event_id"].tolist()
+    assert sorted(first[:3]) == [ids[0], ids[2], ids[4]]   # one of each twin pair first
+    store.record_decision(CID, first[0], "recoil", analyst="wren", origin="review")
+    store.record_review_mark(CID, first[1], "skip", analyst="wren")
+    again = build_queue(res, store, CID, analyst="wren")["event_id"].tolist()
+    assert again == first[2:]
+
+
 def test_standardised_features_mean_zero_unit_sd_missing_at_mean():
     """Model features are z-scored per column; NaN becomes 0; constant columns 0."""
     df = pd.DataFrame({"width_s": [1.0, 2.0, 3.0, np.nan], "bipolarity": [5.0] * 4,
