@@ -72,11 +72,11 @@ def run(args) -> int:
               "machines that can reach it may open the page (they still need the token in "
               "the address). Use the default --host 127.0.0.1 unless you mean it.",
               file=sys.stderr)
-    print(f"{session.n_queued} pulse(s) of {cat.catalog_id} queued for {args.analyst}; "
-          f"decisions go to {store}")
-    print(f"open {server.url}")
-    print("(Ctrl-C to stop; every decision is already saved)", flush=True)
-    try:
+    try:  # from here on, Ctrl-C stops the server cleanly
+        print(f"{session.n_queued} pulse(s) of {cat.catalog_id} queued for {args.analyst}; "
+              f"decisions go to {store}")
+        print(f"open {server.url}")
+        print("(Ctrl-C to stop; every decision is already saved)", flush=True)
         server.serve_forever()
     except KeyboardInterrupt:
         pass

@@ -21,7 +21,7 @@ import pandas as pd
 from features import open_catalog
 
 from ._pulse import thumbnail_svg
-from ._queue import standardised_features
+from ._queue import feature_stats, standardised_features
 
 logger = logging.getLogger("pulsesort")
 
@@ -54,7 +54,8 @@ class LookAlikes:
         self._catalogs = {catalog.catalog_id: catalog}
         self._rows = {catalog.catalog_id: _row_map(catalog)}
         self._res_row = {e: i for i, e in enumerate(self.results["event_id"].astype(str))}
-        self._z = standardised_features(self.results)
+        self._stats = feature_stats(self.results)
+        self._z = {}  # results row -> standardised features, filled as needed
         mine = labels[labels["catalog_id"].astype(str) == catalog.catalog_id]
         mine = mine[mine["label"].notna()]
         self._labels = dict(zip(mine["event_id"].astype(str), mine["label"].astype(str)))
@@ -96,6 +97,14 @@ class LookAlikes:
         row = self._rows[catalog_id].get(event_id)
         return None if row is None else thumbnail_svg(cat, row)
 
+    def _standardised(self, rows):
+        missing = [r for r in rows if r not in self._z]
+        if missing:
+            for r, z in zip(missing, standardised_features(self.results, rows=missing,
+                                                                stats=self._stats)):
+                self._z[r] = z
+        return np.array([self._z[r] for r in rows])
+
     def find(self, event_id: str) -> list[dict]:
         """The look-alikes of ``event_id``: dicts of catalog_id, event_id, label, distance, thumb.
 
@@ -105,7 +114,9 @@ class LookAlikes:
         i = self._res_row[event_id]
         if self.model is not None:
             ref = self.model.reference_
-            idx, dist = self.model.nearest_labelled(self.results.iloc[[i]], k=self.k)
+            names = list(getattr(self.model, "feature_names_in_", self.results.columns))
+            X = self.results.iloc[[i]][names].apply(pd.to_numeric, errors="coerce")
+            idx, dist = self.model.nearest_labelled(X.astype(float), k=self.k)
             picks = [(str(ref["catalog_id"].iat[j]), str(ref["event_id"].iat[j]),
                       str(ref["label"].iat[j]), float(d))
                      for j, d in zip(np.asarray(idx)[0], np.asarray(dist)[0]) if j >= 0]
@@ -115,8 +126,8 @@ class LookAlikes:
             if not cand:
                 return []
             rows = np.array([r for _, r in cand])
-            n_feat = max(self._z.shape[1], 1)
-            d = np.sqrt(((self._z[rows] - self._z[i]) ** 2).sum(axis=1) / n_feat)
+            z, zi = self._standardised(rows), self._standardised(np.array([i]))[0]
+            d = np.sqrt(((z - zi) ** 2).sum(axis=1) / max(z.shape[1], 1))
             order = np.argsort(d, kind="stable")[: self.k]
             cid = self.catalog.catalog_id
             picks = [(cid, cand[j][0], self._labels[cand[j][0]], float(d[j])) for j in order]
