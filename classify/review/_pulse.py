@@ -7,7 +7,9 @@ scaled for display (microseconds, kilometres, 10^6 m/s), by the table
 Conventions of the plots
 ------------------------
 * Time axis: physical arrival time at the antenna relative to the trigger
-  (channel delay removed), in microseconds, the same for the field and the VHF.
+  (channel delay removed), in microseconds, the same for the field and the VHF;
+  they show the pulse itself (:func:`zoom_window_s`), a third plot the field
+  over the whole analysis window (neighbouring pulses).
 * Field change: baseline (median of the record before the analysis window)
   removed, decay-compensated (:func:`features.waveform.decay_compensate`),
   in V/m, physics convention (+ = field vector up).
@@ -32,7 +34,7 @@ from .. import svgplot
 from ._queue import probability_columns
 
 __all__ = ["DISPLAY_FEATURES", "FIELD_AXIS_LABEL", "field_trace", "vhf_trace",
-           "source_track", "field_peak_time_s", "pulse_plots", "pulse_view",
+           "source_track", "field_peak_time_s", "zoom_window_s", "pulse_plots", "pulse_view",
            "thumbnail_svg", "display_value"]
 
 #: Key features shown beside the plots: column, label, display unit, factor from SI.
@@ -160,6 +162,20 @@ def field_peak_time_s(catalog, row: int, range_m=None):
     return t if math.isfinite(t) else None
 
 
+def zoom_window_s(peak_time_s, fwhm_s=None, width_s=None):
+    """The time window around a pulse for the detailed plots, in seconds from the trigger.
+
+    From ``max(10 us, 4 FWHM)`` before the field peak to ``max(30 us, 1.2 width)``
+    after it (the whole analysis window when the peak is unknown); common
+    practice, no source.
+    """
+    if peak_time_s is None:
+        return VIEW_WINDOW_S
+    pre = max(10e-6, 4.0 * fwhm_s) if fwhm_s is not None and fwhm_s > 0 else 10e-6
+    post = max(30e-6, 1.2 * width_s) if width_s is not None and width_s > 0 else 30e-6
+    return (peak_time_s - pre, peak_time_s + post)
+
+
 def _lag_text(lag_s):
     if lag_s is None:
         return "VHF-to-field lag: n/a"
@@ -168,7 +184,11 @@ def _lag_text(lag_s):
 
 
 def pulse_plots(catalog, row: int, result=None, *, width=620):
-    """SVG strings of one pulse: ``field``, ``vhf``, ``elevation``, ``sky`` (None if no data).
+    """SVG strings of one pulse (None where there is no data).
+
+    ``field`` and ``vhf`` share the time axis of :func:`zoom_window_s`;
+    ``field_context`` is the whole analysis window; ``elevation`` (sources vs
+    time) and ``sky`` (azimuth/elevation) are coloured by time.
 
     Parameters
     ----------
@@ -181,19 +201,32 @@ def pulse_plots(catalog, row: int, result=None, *, width=620):
     result = {} if result is None else result
     lag = _finite(result.get("vhf_field_lag_s"))
     t_us, e, clipped = field_trace(catalog, row)
-    xlim = (float(np.nanmin(t_us)), float(np.nanmax(t_us)))
+    full = (float(np.nanmin(t_us)), float(np.nanmax(t_us)))
     t_peak = field_peak_time_s(catalog, row, _finite(result.get("range_m")))
     markers = []
     if t_peak is not None:
         markers.append((t_peak * 1e6, "field peak", "#D55E00"))
         if lag is not None:
             markers.append(((t_peak - lag) * 1e6, "VHF peak", "#009E73"))
-    title = "Field change" + (" (clipped)" if clipped else "")
-    plots = {"field": svgplot.line_chart([(t_us, e, "E")], x_label=TIME_AXIS_LABEL,
+    lo, hi = zoom_window_s(t_peak, _finite(result.get("fwhm_s")),
+                           _finite(result.get("width_s")))
+    xlim = (max(full[0], lo * 1e6), min(full[1], hi * 1e6))
+    if not xlim[1] > xlim[0]:
+        xlim = full
+    keep = (t_us >= xlim[0]) & (t_us <= xlim[1])
+    title = "Field change around the pulse" + (" (clipped)" if clipped else "")
+    plots = {"field": svgplot.line_chart([(t_us[keep], e[keep], "E")], x_label=TIME_AXIS_LABEL,
                                          y_label=FIELD_AXIS_LABEL, width=width, height=330,
                                          title=title, xlim=xlim, markers=markers,
                                          zero_line=True)}
+    plots["field_context"] = svgplot.line_chart(
+        [(t_us, e, "E")], x_label=TIME_AXIS_LABEL, y_label="E (V/m)", width=width,
+        height=150, title="Whole analysis window (grey dashes: the part shown above)", xlim=full,
+        markers=[(xlim[0], None, "#888"), (xlim[1], None, "#888")], zero_line=True)
     vt = vhf_trace(catalog, row)
+    if vt is not None:
+        vk = (vt[0] >= xlim[0]) & (vt[0] <= xlim[1])
+        vt = (vt[0][vk], vt[1][vk]) if vk.sum() >= 2 else None
     plots["vhf"] = None if vt is None else svgplot.line_chart(
         [(vt[0], vt[1], "VHF")], x_label=TIME_AXIS_LABEL, y_label="VHF power (dB)",
         width=width, height=200, title=f"VHF power; {_lag_text(lag)}", xlim=xlim,
@@ -271,7 +304,7 @@ def pulse_view(catalog, row: int, result: pd.Series, *, classes=None) -> dict:
         plots["probabilities"] = svgplot.hbar_chart(
             [p["class"] for p in probs], [p["p"] or 0.0 for p in probs],
             x_label="probability", width=340, xlim=(0.0, 1.0),
-            title="Model probabilities (dark: in the prediction set)",
+            title="Probabilities (dark: in set)",
             colours=[svgplot.PALETTE[0] if s else "#9db7cc" for s in in_set])
     else:
         plots["probabilities"] = None

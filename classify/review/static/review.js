@@ -139,6 +139,7 @@
       setText($("review-reason"), m.review_reason.join(", ") || "n/a");
       setPlot("plot-field", p.plots.field);
       setPlot("plot-vhf", p.plots.vhf);
+      setPlot("plot-field-context", p.plots.field_context);
       setPlot("plot-elevation", p.plots.elevation);
       setPlot("plot-sky", p.plots.sky);
       setPlot("plot-probabilities", p.plots.probabilities);
