@@ -75,6 +75,9 @@ def run(args) -> int:
     try:  # from here on, Ctrl-C stops the server cleanly
         print(f"{session.n_queued} pulse(s) of {cat.catalog_id} queued for {args.analyst}; "
               f"decisions go to {store}")
+        print("look-alikes: " + (f"the labelled training pulses of model {card['version']}"
+                                 if model is not None else
+                                 "the labelled pulses of this catalog in the store"))
         print(f"open {server.url}")
         print("(Ctrl-C to stop; every decision is already saved)", flush=True)
         server.serve_forever()
