@@ -1,0 +1,227 @@
+"""Season simulator: a physical forward model that writes catalog v1 folders.
+
+Each catalogued pulse is a Heidler current launched as a TL/MTLE wave on a short vertical
+channel; its vertical field at the ground (electrostatic, induction and radiation terms,
+ground image included; :mod:`features.dipole`) passes through the fast antenna's RC
+decay and a digitizer (noise, quantisation, clipping). Its VHF power is tied to the
+breakdown (``|di/dt|``, plus a plateau while a fast front moves) and the mapped VHF
+sources lie along the moving front, with angular (and optionally 3-D) noise. Pulses come
+in flashes (:mod:`._season`) and every record window holds the field of the neighbouring
+pulses of its flash that fall in it. Class parameters and their sources:
+:mod:`._classes`.
+
+Public API: :func:`simulate_season` (write a catalog), :func:`draw_season` (the truth
+table of the same season, without waveforms), :func:`pulse_fields` (one pulse's physical
+field and current moment), :data:`PRESETS`, :func:`resolve_settings`.
+"""
+
+from __future__ import annotations
+
+import logging
+import shutil
+from numbers import Integral
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..dipole import HeidlerCurrent, current_moment_a_m, sampled_channel_field_terms
+from ._classes import CLASSES, MARGIN, MARGIN_FRACTION, PARAMS
+from ._settings import PRESETS, Settings, resolve_settings
+from ._writer import event_order, event_table, iter_blocks, replace_atomically, write_season
+
+__all__ = ["CLASSES", "MARGIN", "MARGIN_FRACTION", "PARAMS", "PRESETS", "Settings",
+           "draw_season", "labels_path", "pulse_fields", "resolve_settings",
+           "simulate_season"]
+
+logger = logging.getLogger("pulsesort")
+
+
+def _check_counts(n_events, seed):
+    if not isinstance(n_events, Integral) or isinstance(n_events, bool) or n_events < 1:
+        raise ValueError(f"n_events must be an integer >= 1, got {n_events!r}")
+    if not isinstance(seed, Integral) or isinstance(seed, bool) or seed < 0:
+        raise ValueError(f"seed must be an integer >= 0, got {seed!r}")
+    return int(n_events), int(seed)
+
+
+def labels_path(out_dir) -> Path:
+    """Path of the truth labels written next to a simulated catalog folder."""
+    return Path(str(out_dir) + ".labels.csv")
+
+
+def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=False,
+                    **settings) -> Path:
+    """Simulate a season and write it as a catalog v1 folder plus its truth labels.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        Catalog folder to create. The labels go to ``str(out_dir) + ".labels.csv"``
+        (columns ``event_id,label,analyst,decided_at,note``; analyst ``"truth"``).
+    n_events : int
+        Number of catalogued pulses (rows), >= 1.
+    seed : int
+        Random seed (>= 0); the same seed and settings give byte-identical files.
+    preset : {"reference", "next", "hard"}, default="reference"
+        Defaults to start from (:data:`PRESETS`); explicit settings override it.
+    overwrite : bool, default=False
+        Replace an existing non-empty ``out_dir`` (otherwise ``FileExistsError``).
+    **settings
+        Any of (reference defaults in brackets):
+
+        - ``station`` ["hollowmere"], ``season`` ["2031"], ``catalog_id``
+          [``f"{station}-{season}"``];
+        - ``field_rate_hz`` [20e6], ``field_samples`` [8000], ``pretrigger_s`` [1e-4];
+        - ``vhf_kind`` ["power"; or "voltage": band-limited carrier], ``vhf_rate_hz``
+          [25e6; 250e6 for "voltage", which needs > 2 x band top], ``vhf_samples``
+          [10000; 25000 for "voltage"], ``vhf_pretrigger_s`` [``pretrigger_s``, at most
+          half the VHF record], ``band_hz`` [(25e6, 85e6)];
+        - ``units`` ["V/m" float32; or "counts" int16], ``scale`` [V/m per count,
+          2**-7 for counts], ``field_bits`` [16: a "V/m" file is quantised to
+          ``full_scale / 2**(field_bits - 1)``], ``sign_convention`` ["physics" or
+          "atmospheric"];
+        - ``decay_time_s`` [1e-3; None: DC-coupled], ``field_delay_s`` [0.0],
+          ``vhf_delay_s`` [4e-7];
+        - ``field_noise_v_per_m`` [0.01, rms], ``vhf_noise_floor`` [0.1, VHF file units],
+          ``vhf_gain`` [1.0, instrument gain of the VHF power];
+        - ``full_scale`` [250.0 V/m clip level] or ``clip_fraction`` [None: the clip
+          level is set so about this fraction of rows clip];
+        - ``with_vhf``, ``with_sources``, ``with_xyz``, ``with_range`` [all True];
+        - ``class_mix`` [{"narrow_bipolar": 0.15, "stepped_leader": 0.45, "recoil":
+          0.30, "energetic_in_cloud": 0.10}, normalised], ``range_km`` [(10, 150)];
+        - ``missing_vhf_fraction`` [0.0, rows whose VHF is all NaN],
+          ``sources_per_event`` [20.0, mean], ``angle_noise_deg`` [0.2],
+          ``xyz_noise_m`` [10.0], ``chunk_size`` [1024, rows per write at most].
+
+    Returns
+    -------
+    Path
+        The catalog folder.
+
+    Raises
+    ------
+    ValueError
+        A bad setting (the message names it).
+    FileExistsError
+        ``out_dir`` exists, is not empty and ``overwrite`` is False.
+    """
+    s = resolve_settings(preset, **settings)
+    n_events, seed = _check_counts(n_events, seed)
+    out = Path(out_dir)
+    labels = labels_path(out)
+    if out.exists() and not out.is_dir():
+        raise FileExistsError(f"{out}: exists and is not a folder")
+    if out.exists() and any(out.iterdir()) and not overwrite:
+        raise FileExistsError(f"{out}: folder exists and is not empty (pass overwrite=True, "
+                              "or --overwrite on the command line, to replace it)")
+    if labels.exists() and not overwrite:
+        raise FileExistsError(f"{labels}: labels file exists (pass overwrite=True, or "
+                              "--overwrite on the command line, to replace it)")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.parent / f".{out.name}.partial"
+    labels_tmp = out.parent / f".{labels.name}.partial"
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    try:
+        summary = write_season(tmp, labels_tmp, s, n_events, seed)
+        replace_atomically(tmp, out, labels_tmp, labels)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        labels_tmp.unlink(missing_ok=True)
+        raise
+    logger.info("simulate: wrote %d events in %d flashes to %s", n_events,
+                summary["n_flashes"], out)
+    return out
+
+
+_TRUTH = {  # truth column -> pulse column
+    "altitude_start_m": "z0_m", "channel_direction": "zdir", "channel_length_m": "length_m",
+    "wave_speed_m_per_s": "speed_m_per_s", "decay_length_m": "lambda_m",
+    "peak_current_a": "peak_a", "rise_s": "rise_s", "decay_s": "decay_s",
+    "vhf_peak_db": "vhf_db", "front_speed_m_per_s": "fv",
+    "front_x0_m": "f0x", "front_y0_m": "f0y", "front_z0_m": "f0z",
+    "front_ux": "fux", "front_uy": "fuy", "front_uz": "fuz",
+}
+
+
+def draw_season(n_events, seed, *, preset="reference", **settings) -> pd.DataFrame:
+    """The truth of the season :func:`simulate_season` writes, one row per event.
+
+    Same arguments as :func:`simulate_season` (no files are written). Columns: the
+    events.csv columns, ``label``, ``margin`` (drawn from the class margins), the
+    channel and current parameters (``altitude_start_m``, ``channel_direction`` +1 up /
+    -1 down, ``channel_length_m``, ``wave_speed_m_per_s``, ``decay_length_m`` (MTLE),
+    ``peak_current_a`` (signed, positive upward-directed), ``rise_s``, ``decay_s``),
+    ``vhf_peak_db`` (at 100 km, gain 1) and the sources' front: ``front_speed_m_per_s``,
+    its position ``front_{x,y,z}0_m`` at ``front_t0_s`` and unit direction
+    ``front_u{x,y,z}``, active over ``front_t0_s``..``front_t1_s`` (source times
+    relative to the trigger), plus ``distance_m`` (horizontal) and ``slant_m``.
+    """
+    s = resolve_settings(preset, **settings)
+    n_events, seed = _check_counts(n_events, seed)
+    frames = []
+    row0 = 0
+    for _, p, starts, first_flash, _ in iter_blocks(s, n_events, seed):
+        ev = event_order(p)
+        df = event_table(s, p, ev, starts, first_flash, row0, n_events)
+        df["label"] = [CLASSES[c] for c in p["cls"][ev]]
+        df["margin"] = p["margin"][ev]
+        for name, col in _TRUTH.items():
+            df[name] = p[col][ev]
+        df["front_t0_s"] = p["ft0"][ev] - p["trigger_s"][ev]
+        df["front_t1_s"] = p["ft1"][ev] - p["trigger_s"][ev]
+        df["distance_m"] = np.hypot(p["x_m"][ev], p["y_m"][ev])
+        df["slant_m"] = p["slant_m"][ev]
+        frames.append(df)
+        row0 += ev.size
+    return pd.concat(frames, ignore_index=True)
+
+
+def pulse_fields(truth: pd.DataFrame, sample_rate_hz=100e6, n_samples=4000,
+                 distance_m=None, with_moment=True):
+    """Physical field terms and current moment of pulses from :func:`draw_season` rows.
+
+    No instrument: no RC decay, filter, noise or neighbouring pulses.
+
+    Parameters
+    ----------
+    truth : DataFrame
+        Rows of :func:`draw_season`.
+    sample_rate_hz : float, default=100e6
+        Sample rate in Hz.
+    n_samples : int, default=4000
+        Samples per pulse.
+    distance_m : float or None
+        Horizontal distance to use instead of each pulse's own, in m.
+    with_moment : bool, default=True
+        Also integrate the current moment (slow for long records).
+
+    Returns
+    -------
+    time_s : ndarray, shape (n_samples,)
+        ``k / sample_rate_hz``: source time since the front started for the moment,
+        observer time since the first field arrival for the terms.
+    terms : FieldTerms
+        Electrostatic, induction and radiation terms in V/m, shape (n, n_samples).
+    moment_a_m : ndarray, shape (n, n_samples), or None
+        Current moment ``integral i dz`` in A m (direct integration over the channel).
+    """
+    t = np.arange(int(n_samples)) / float(sample_rate_hz)
+    peak = truth["peak_current_a"].to_numpy()
+    rise, decay = truth["rise_s"].to_numpy(), truth["decay_s"].to_numpy()
+    cur = HeidlerCurrent(peak[:, None], rise[:, None], decay[:, None])
+    z0 = truth["altitude_start_m"].to_numpy()
+    z1 = z0 + truth["channel_direction"].to_numpy() * truth["channel_length_m"].to_numpy()
+    d = (truth["distance_m"].to_numpy() if distance_m is None
+         else np.full(len(truth), float(distance_m)))
+    v, lam = truth["wave_speed_m_per_s"].to_numpy(), truth["decay_length_m"].to_numpy()
+    terms = sampled_channel_field_terms(*cur.current_and_derivative(t), sample_rate_hz, d,
+                                        z0, z1, v, lam)
+    if not with_moment:
+        return t, terms, None
+    moment = np.stack([
+        current_moment_a_m(t, HeidlerCurrent(peak[k], rise[k], decay[k]), z0[k], z1[k],
+                           v[k], lam[k]) for k in range(len(truth))])
+    return t, terms, moment
