@@ -32,27 +32,24 @@ from __future__ import annotations
 import numpy as np
 
 from ..dipole import SPEED_OF_LIGHT_M_PER_S, HeidlerCurrent
-from ._classes import (
-    CLASSES,
-    EIP_LEADER_SPEED,
-    MARGIN_FRACTION,
-    draw_class_params,
-    leader_speed_m_per_s,
+from ._classes import CLASSES, MARGIN_FRACTION
+from ._flashes import (
+    EIP,
+    NBE,
+    PULSE_COLUMNS,
+    REC,
+    SL,
+    SOURCE_WEIGHT,
+    cg_flash,
+    concat,
+    flash_xy,
+    ic_flash,
+    nbe_pulse,
 )
 
 __all__ = ["BLOCK_EVENTS", "PULSE_COLUMNS", "SeasonClock", "block_quotas", "generate_block"]
 
 BLOCK_EVENTS = 1000
-NBE, SL, REC, EIP = range(4)
-#: Relative number of mapped sources per catalogued pulse, by class.
-SOURCE_WEIGHT = np.array([0.15, 1.25, 1.2, 1.0])
-
-PULSE_COLUMNS = (
-    "flash", "cls", "cat", "margin", "t_s", "x_m", "y_m", "z0_m", "zdir", "length_m",
-    "speed_m_per_s", "lambda_m", "peak_a", "rise_s", "decay_s", "vhf_db", "plateau_db",
-    "plateau_s", "f0x", "f0y", "f0z", "fux", "fuy", "fuz", "fv", "ft0", "ft1",
-    "b0x", "b0y", "b0z", "bux", "buy", "buz", "bv", "bt0", "bt1", "b_share", "src_weight",
-)
 
 
 class SeasonClock:
@@ -98,346 +95,6 @@ def block_quotas(n_events: int, class_mix: dict) -> list[np.ndarray]:
 
 
 # --------------------------------------------------------------------- geometry
-def _unit(theta, phi):
-    """Unit vector at polar angle ``theta`` from +z and azimuth ``phi`` (radians)."""
-    return np.array([np.sin(theta) * np.sin(phi), np.sin(theta) * np.cos(phi), np.cos(theta)])
-
-
-class _Track:
-    """A leader track: a polyline traversed at constant speed from time ``t0``."""
-
-    def __init__(self, vertices, speed, t0):
-        self.v = np.asarray(vertices, float)
-        seg = np.linalg.norm(np.diff(self.v, axis=0), axis=1)
-        self.s = np.concatenate([[0.0], np.cumsum(seg)])
-        self.speed = float(speed)
-        self.t0 = float(t0)
-
-    @property
-    def t_end(self):
-        return self.t0 + self.s[-1] / self.speed
-
-    def at(self, arc):
-        arc = np.clip(arc, 0.0, self.s[-1])
-        return np.stack([np.interp(arc, self.s, self.v[:, k]) for k in range(3)], axis=-1)
-
-    def leg(self, arc):
-        """Index of the leg holding each arc length, its direction and arc interval."""
-        j = np.clip(np.searchsorted(self.s, arc, side="right") - 1, 0, len(self.s) - 2)
-        d = self.v[j + 1] - self.v[j]
-        return j, d / np.linalg.norm(d, axis=-1, keepdims=True)
-
-
-def _trains(rng, t_start, t_end, mean_gap_s=1.0e-3):
-    """Pulse times of leader trains between two times (s); returns (times, train index)."""
-    times, ids = [], []
-    t, k = t_start, 0
-    while True:
-        t += 0.2e-3 + rng.exponential(mean_gap_s)
-        if t >= t_end:
-            break
-        n = int(rng.integers(5, 21))
-        tt = t + np.concatenate([[0.0], np.cumsum(rng.uniform(10e-6, 30e-6, n - 1))])
-        tt = tt[tt < t_end]
-        times.append(tt)
-        ids.append(np.full(tt.size, k))
-        t, k = tt[-1], k + 1
-    if not times:
-        return np.zeros(0), np.zeros(0, int)
-    return np.concatenate(times), np.concatenate(ids)
-
-
-def _choose_catalogued(rng, ids, k):
-    """Catalogue ``k`` pulses, train by train (about 60 % of a chosen train's pulses)."""
-    cat = np.zeros(ids.size, bool)
-    if k <= 0 or ids.size == 0:
-        return cat
-    for train in rng.permutation(np.unique(ids)):
-        idx = np.flatnonzero(ids == train)
-        pick = idx[rng.random(idx.size) < 0.6]
-        if pick.size == 0:
-            pick = idx[:1]
-        pick = pick[: k - cat.sum()]
-        cat[pick] = True
-        if cat.sum() >= k:
-            break
-    if cat.sum() < k:  # short leader: take the rest in time order
-        rest = np.flatnonzero(~cat)[: k - cat.sum()]
-        cat[rest] = True
-    return cat
-
-
-# ------------------------------------------------------------------ pulse rows
-def _rows(n, cls, rng, margin=None, **cols):
-    """Pulse rows of one class: class parameters drawn, then the given columns set."""
-    p = draw_class_params(CLASSES[cls], n, rng, margin)
-    out = {name: np.full(n, np.nan) for name in PULSE_COLUMNS}
-    out["cls"] = np.full(n, cls, np.int8)
-    out["cat"] = np.zeros(n, bool)
-    out["margin"] = p["margin"]
-    for key in ("rise_s", "decay_s", "length_m", "speed_m_per_s", "vhf_db"):
-        out[key] = p[key]
-    out["lambda_m"] = p["length_m"] * p["decay_ratio"]
-    out["peak_a"] = p["peak_a"]
-    if "plateau_db" in p:
-        out["plateau_db"] = p["plateau_db"]
-    out["plateau_s"] = np.zeros(n)
-    out["b_share"] = np.full(n, 0.3)  # share of sources on the second front, if any
-    out["src_weight"] = np.full(n, SOURCE_WEIGHT[cls])
-    extra = {k: p[k] for k in ("front_speed_m_per_s", "path_m") if k in p}
-    for key, val in cols.items():
-        out[key] = np.broadcast_to(val, (n,)).copy() if np.ndim(val) < 2 else val
-    return out, extra
-
-
-def _set_front(rows, idx, start, unit, speed, t0, t1, prefix="f"):
-    names = ("0x", "0y", "0z", "ux", "uy", "uz")
-    vals = (start[..., 0], start[..., 1], start[..., 2], unit[..., 0], unit[..., 1],
-            unit[..., 2])
-    for name, val in zip(names, vals, strict=True):
-        rows[prefix + name][idx] = val
-    if speed is not None:
-        rows[prefix + "v"][idx] = speed
-    rows[prefix + "t0"][idx] = t0
-    rows[prefix + "t1"][idx] = t1
-
-
-def _leader_pulses(rng, cls, track, times, zdir_rule, branches=(), margin=None):
-    """Pulses at a leader tip at ``times``: field channel at the tip, front = the leg."""
-    n = times.size
-    arc = (times - track.t0) * track.speed
-    tip = track.at(arc)
-    j, unit = track.leg(arc)
-    rows, _ = _rows(n, cls, rng, margin=margin, t_s=times)
-    if zdir_rule == "up-channel":  # the wave runs back along the channel behind the tip
-        zdir = np.where(unit[:, 2] < -0.2, 1.0, np.where(unit[:, 2] > 0.2, -1.0, 0.0))
-        zdir = np.where(zdir == 0, np.where(rng.random(n) < 0.5, 1.0, -1.0), zdir)
-    else:
-        zdir = np.full(n, float(zdir_rule))
-    zdir = np.where(tip[:, 2] - rows["length_m"] < 100.0, 1.0, zdir)  # stay above ground
-    rows.update(x_m=tip[:, 0], y_m=tip[:, 1], z0_m=tip[:, 2], zdir=zdir)
-    rows["peak_a"] = rows["peak_a"] * zdir  # negative leader: current back along channel
-    leg_t0 = track.t0 + track.s[j] / track.speed
-    leg_t1 = track.t0 + track.s[j + 1] / track.speed
-    _set_front(rows, np.arange(n), tip, unit, track.speed, times,
-               np.minimum(leg_t1, times + 1e-3))
-    rows["ft0"] = np.maximum(leg_t0, times - 1e-3)
-    rows["f0x"], rows["f0y"], rows["f0z"] = (tip - unit * (times - rows["ft0"])[:, None]
-                                             * track.speed).T
-    for btrack in branches:  # an active branch tip at the same time
-        on = (times > btrack.t0) & (times < btrack.t_end) & np.isnan(rows["bt0"])
-        if on.any():
-            b_arc = (times[on] - btrack.t0) * btrack.speed
-            _, b_unit = btrack.leg(b_arc)
-            b_tip = btrack.at(b_arc)
-            t0 = np.maximum(btrack.t0, times[on] - 1e-3)
-            start = b_tip - b_unit * ((times[on] - t0) * btrack.speed)[:, None]
-            _set_front(rows, np.flatnonzero(on), start, b_unit, btrack.speed, t0,
-                       np.minimum(btrack.t_end, times[on] + 1e-3), prefix="b")
-    return rows
-
-
-def _nbe_pulse(rng, xy, t, positive, margin=False, zc=None):
-    rows, _ = _rows(1, NBE, rng, margin=margin, t_s=t)
-    length = rows["length_m"][0]
-    if positive:  # lower, downward fast positive breakdown, downward current
-        zc, zdir = (rng.uniform(7e3, 15e3) if zc is None else zc), -1.0
-    else:
-        zc, zdir = rng.uniform(14e3, 20e3), 1.0
-    z0 = zc - zdir * length / 2
-    rows.update(x_m=np.array([xy[0]]), y_m=np.array([xy[1]]), z0_m=np.array([z0]),
-                zdir=np.array([zdir]))
-    rows["peak_a"] = rows["peak_a"] * zdir
-    v = rows["speed_m_per_s"][0]
-    rows["plateau_s"] = np.array([length / v])
-    _set_front(rows, [0], np.array([[xy[0], xy[1], z0]]), np.array([[0.0, 0.0, zdir]]),
-               v, t, t + length / v)
-    return rows
-
-
-def _flash_xy(rng, range_km):
-    r1, r2 = range_km
-    r = 1e3 * np.sqrt(rng.uniform(r1 * r1, r2 * r2))
-    phi = rng.uniform(0, 2 * np.pi)
-    return np.array([r * np.sin(phi), r * np.cos(phi)])
-
-
-def _recoils(rng, track, times, anchors_arc, margin):
-    """Recoil pulses at ``times`` retracing straight pieces of ``track``'s legs.
-
-    Margin recoils come with a regular train of uncatalogued pulses 5-25 us apart along
-    the same front (returned after the catalogued pulses, ``cat`` False).
-    """
-    n = times.size
-    rows, extra = _rows(n, REC, rng, margin=margin, t_s=times)
-    total = track.s[-1]
-    if anchors_arc.size:
-        arc = rng.choice(anchors_arc, n) + rng.normal(0, 200.0, n)
-    else:
-        arc = rng.uniform(0.1, 0.9, n) * total
-    arc = np.clip(arc, 0.0, total)
-    j, unit = track.leg(arc)
-    back = rng.random(n) < 0.7  # mostly back towards the flash origin
-    room_back, room_fwd = arc - track.s[j], track.s[j + 1] - arc
-    back = np.where(back & (room_back < 100), False, back)
-    back = np.where(~back & (room_fwd < 100), room_back >= room_fwd, back)
-    sign = np.where(back, -1.0, 1.0)
-    path = np.minimum(extra["path_m"], np.where(back, room_back, room_fwd))
-    path = np.maximum(path, 50.0)
-    u = unit * sign[:, None]
-    start = track.at(arc)
-    vf = extra["front_speed_m_per_s"]
-    zdir = np.where(np.abs(u[:, 2]) > 0.3, np.sign(u[:, 2]),
-                    np.where(rng.random(n) < 0.5, 1.0, -1.0))
-    zdir = np.where(start[:, 2] - rows["length_m"] < 100.0, 1.0, zdir)
-    rows.update(x_m=start[:, 0], y_m=start[:, 1], z0_m=start[:, 2], zdir=zdir)
-    rows["peak_a"] = -rows["peak_a"] * zdir  # negative recoil leader: current opposes it
-    rows["plateau_s"] = np.minimum(path / vf, 300e-6)
-    _set_front(rows, np.arange(n), start, u, vf, times, times + path / vf)
-    rows["cat"][:] = True
-    trains = [rows]
-    for k in np.flatnonzero(rows["margin"]):
-        gaps = rng.uniform(5e-6, 25e-6, int(rng.integers(4, 15)))
-        dt = np.cumsum(gaps) - gaps.sum() * rng.uniform(0.2, 0.8)
-        dt = dt[(np.abs(dt) > 1e-6) & (times[k] + dt - times[k] < path[k] / vf[k])
-                & (dt > -1e-3)]
-        if dt.size == 0:
-            continue
-        more, _ = _rows(dt.size, REC, rng, margin=True, t_s=times[k] + dt)
-        pos = start[k] + u[k] * (vf[k] * dt)[:, None]
-        more.update(x_m=pos[:, 0], y_m=pos[:, 1], z0_m=pos[:, 2], zdir=np.full(dt.size, zdir[k]))
-        more["z0_m"] = np.maximum(more["z0_m"], more["length_m"] + 100.0)
-        more["peak_a"] = np.sign(rows["peak_a"][k]) * more["peak_a"]
-        for key in ("f0x", "f0y", "f0z", "fux", "fuy", "fuz", "fv", "ft0", "ft1"):
-            more[key][:] = rows[key][k]
-        trains.append(more)
-    return _concat(trains)
-
-
-def _recoil_times(rng, n, lo, hi):
-    t = np.sort(rng.uniform(lo, hi, n))
-    return t + 1e-3 * np.arange(n)  # at least 1 ms apart
-
-
-def _embedded_nbe(rng, track, t):
-    """A margin narrow bipolar event at the tip of an upward leader at time ``t``."""
-    arc = (t - track.t0) * track.speed
-    tip = track.at(arc)
-    j, unit = track.leg(np.array([arc]))
-    xy = tip[:2] + rng.uniform(-300.0, 300.0, 2)
-    rows = _nbe_pulse(rng, xy, t, positive=True, margin=True, zc=float(tip[2]))
-    t0 = max(track.t0 + track.s[j[0]] / track.speed, t - 1e-3)
-    t1 = min(track.t0 + track.s[j[0] + 1] / track.speed, t + 1e-3)
-    start = tip - unit[0] * (t - t0) * track.speed
-    _set_front(rows, [0], start[None], unit, None, t0, t1, prefix="b")
-    rows["bv"][:] = track.speed
-    rows["b_share"][:] = 0.8  # the leader's sources dominate the window
-    rows["src_weight"][:] = SOURCE_WEIGHT[EIP]
-    return rows
-
-
-def _ic_flash(rng, s, sp):
-    """An intracloud flash holding the catalogued pulses asked for in ``sp``."""
-    xy = _flash_xy(rng, s.range_km)
-    pieces = []
-    t_lead = 0.0
-    if sp["nbe_first"]:
-        nbe = _nbe_pulse(rng, xy, 0.0, positive=True, margin=False)
-        nbe["cat"][:] = True
-        pieces.append(nbe)
-        t_lead = rng.uniform(0.5e-3, 2e-3)
-    v = float(EIP_LEADER_SPEED.draw(rng, 1)[0])
-    tilt, az = np.radians(rng.uniform(0, 25)), rng.uniform(0, 2 * np.pi)
-    up = _unit(tilt, az)
-    inner = np.array([EIP] * sp["n_eip"] + [NBE] * sp["n_nbe_in"])
-    if inner.size:  # the first of them at 8-13 km, 0.5-5 ms into the leader
-        z_e, tau_e = rng.uniform(8e3, 13e3), rng.uniform(0.5e-3, 5e-3)
-        tau_e = min(tau_e, (z_e - 5e3) / (up[2] * v))
-        z0 = z_e - up[2] * v * tau_e
-    elif sp["nbe_first"]:
-        z0 = pieces[0]["z0_m"][0] - pieces[0]["length_m"][0]
-    else:
-        z0 = rng.uniform(6e3, 9.5e3)
-    z_top = max(rng.uniform(11e3, 14e3), z0 + 1.5e3)
-    p0 = np.array([xy[0], xy[1], z0])
-    p1 = p0 + up * (z_top - z0) / up[2]
-    horiz = _unit(np.pi / 2, rng.uniform(0, 2 * np.pi))
-    t_total = rng.uniform(30e-3, 150e-3)
-    p2 = p1 + horiz * max(v * t_total - (z_top - z0) / up[2], 500.0)
-    track = _Track([p0, p1, p2], v, t_lead)
-    t_up = (z_top - z0) / up[2] / v
-    times, ids = _trains(rng, t_lead + 0.2e-3, t_lead + min(t_up + 5e-3, 15e-3), 2.0e-3)
-    if times.size:
-        sl = _leader_pulses(rng, SL, track, times, "up-channel")
-        sl["cat"] = _choose_catalogued(rng, ids, sp["k_sl"])
-        pieces.append(sl)
-    if inner.size:
-        inner = rng.permutation(inner)
-        t_max = (min(z_top, 13.5e3) - z0) / up[2] / v  # stay below ~13.5 km
-        later = tau_e + np.cumsum(rng.uniform(0.3e-3, 2e-3, inner.size - 1))
-        te = t_lead + np.minimum(np.concatenate([[tau_e], later]), t_max)
-        if (inner == EIP).any():
-            eip = _leader_pulses(rng, EIP, track, te[inner == EIP], -1.0)
-            eip["cat"][:] = True
-            pieces.append(eip)
-        for t in te[inner == NBE]:
-            nbe = _embedded_nbe(rng, track, t)
-            nbe["cat"][:] = True
-            pieces.append(nbe)
-    anchors = [(p["t_s"][p["cat"] & (p["cls"] != NBE)] - t_lead) * v for p in pieces]
-    n_rec = sp["n_rec"] + sp["n_rec_margin"]
-    if n_rec:
-        margin = rng.permutation(np.arange(n_rec) < sp["n_rec_margin"])
-        pieces.append(_recoils(rng, track, _recoil_times(rng, n_rec, 30e-3, 400e-3),
-                               np.concatenate(anchors) if anchors else np.zeros(0), margin))
-    return pieces
-
-
-def _cg_flash(rng, s, sp):
-    """A cloud-to-ground flash holding the catalogued pulses asked for in ``sp``."""
-    xy = _flash_xy(rng, s.range_km)
-    v = float(leader_speed_m_per_s(rng, 1)[0])
-    z0 = rng.uniform(4e3, 7e3)
-    down = _unit(np.pi - np.radians(rng.uniform(0, 30)), rng.uniform(0, 2 * np.pi))
-    p0 = np.array([xy[0], xy[1], z0])
-    track = _Track([p0, p0 + down * z0 / -down[2]], v, 0.0)
-    branches = []
-    for _ in range(int(rng.integers(1, 3))):
-        frac = rng.uniform(0.2, 0.7)
-        start = track.at(frac * track.s[-1])
-        bdir = _unit(np.pi - np.radians(rng.uniform(30, 65)), rng.uniform(0, 2 * np.pi))
-        blen = max((start[2] - 200.0) / -bdir[2] * rng.uniform(0.3, 0.9), 100.0)
-        t0 = frac * track.s[-1] / v + rng.uniform(0, 0.5e-3)
-        branches.append(_Track([start, start + bdir * blen], v, t0))
-    times, ids = _trains(rng, 0.2e-3, track.t_end - 0.3e-3)
-    pieces = []
-    if times.size:
-        sl = _leader_pulses(rng, SL, track, times, "up-channel", branches)
-        sl["cat"] = _choose_catalogued(rng, ids, sp["k_sl"])
-        pieces.append(sl)
-    t_rs = track.t_end
-    if sp["k_sl_dart"]:  # a dart-stepped leader down the old channel before a later stroke
-        v_d = float(np.exp(rng.uniform(np.log(6e5), np.log(2e6))))
-        dart = _Track(track.v, v_d, t_rs + rng.uniform(20e-3, 150e-3))
-        times, ids = _trains(rng, dart.t0 + 0.05e-3, dart.t_end - 0.1e-3, 0.3e-3)
-        k = min(sp["k_sl_dart"], times.size)
-        if k:
-            margin = np.ones(times.size, bool)
-            dsl = _leader_pulses(rng, SL, dart, times, "up-channel", margin=margin)
-            dsl["cat"] = _choose_catalogued(rng, ids, k)
-            pieces.append(dsl)
-    n_rec = sp["n_rec"] + sp["n_rec_margin"]
-    if n_rec:
-        anchors = (pieces[0]["t_s"][pieces[0]["cat"]] * v) if pieces else np.zeros(0)
-        margin = rng.permutation(np.arange(n_rec) < sp["n_rec_margin"])
-        pieces.append(_recoils(rng, track,
-                               _recoil_times(rng, n_rec, t_rs + 20e-3, t_rs + 300e-3),
-                               anchors, margin))
-    return pieces
-
-
-def _concat(pieces):
-    return {k: np.concatenate([p[k] for p in pieces]) for k in PULSE_COLUMNS}
 
 
 def generate_block(s, quotas, rng, clock: SeasonClock):
@@ -511,22 +168,22 @@ def generate_block(s, quotas, rng, clock: SeasonClock):
     for i in rng.permutation(len(specs)):
         sp = specs[i]
         if sp["kind"] == "nbe":
-            rows = _nbe_pulse(rng, _flash_xy(rng, s.range_km), 0.0, rng.random() < 0.7,
+            rows = nbe_pulse(rng, flash_xy(rng, s.range_km), 0.0, rng.random() < 0.7,
                               margin=False)
             rows["cat"][:] = True
             got = [rows]
         elif sp["kind"] == "ic":
-            got = _ic_flash(rng, s, sp)
+            got = ic_flash(rng, s, sp)
         else:
-            got = _cg_flash(rng, s, sp)
+            got = cg_flash(rng, s, sp)
         n_sl = sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
         sl_short += sp["k_sl"] + sp["k_sl_dart"] - n_sl
         _append_flash(got, pieces, starts, clock)
     while sl_short > 0:  # leaders too short for their share: more CG flashes
-        got = _cg_flash(rng, s, spec("cg", k_sl=sl_short))
+        got = cg_flash(rng, s, spec("cg", k_sl=sl_short))
         sl_short -= sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
         _append_flash(got, pieces, starts, clock)
-    pulses = _concat(pieces)
+    pulses = concat(pieces)
     order = np.lexsort((pulses["t_s"], pulses["flash"]))
     pulses = {k: v[order] for k, v in pulses.items()}
     _add_timing(pulses, s)
