@@ -6,20 +6,25 @@
    pulses of one flash never sit in both the training and the held-out fold;
    :class:`~sklearn.model_selection.StratifiedGroupKFold`);
 2. fits one :class:`~sklearn.ensemble.HistGradientBoostingClassifier` per fold
-   (class weights "balanced"; missing values handled natively). Training rows
+   (missing values handled natively; optional class weights). Training rows
    are augmented with copies in which whole groups of columns that a catalog
    may lack (range, VHF, sources, flash ids; ``missing_groups``) are set to
    NaN, so the trees learn what to do when a station records less;
 3. calibrates by temperature scaling (Guo et al. 2017) fitted on the
    out-of-fold predictions: p = softmax(log p_raw / T). The deployed model
    averages the fold models' probabilities and applies T (cross-fitted
-   calibration, equivalent to ``CalibratedClassifierCV(ensemble=True)`` with one
-   shared temperature);
-4. sets split-conformal thresholds per class (Mondrian / class-conditional
-   conformal prediction; Vovk et al. 2005) on the out-of-fold calibrated
-   probabilities: with score s = 1 - p_true, class k's threshold q_k is the
+   calibration, in the spirit of ``CalibratedClassifierCV(ensemble=True)``).
+   Calibration is conditional on what the catalog holds: every held-out fold
+   is also predicted with each combination of the missing groups removed, and
+   each pattern of missing groups (no range, no VHF, ...) gets its own
+   temperature (falling back to the pooled one below ``MIN_CALIBRATION_ROWS``);
+4. sets split-conformal thresholds per pattern and class (Mondrian conformal
+   prediction; Vovk et al. 2005) on those out-of-fold calibrated probabilities:
+   with score s = 1 - p_true, class k's threshold q_k is the
    ceil((n_k + 1)(1 - alpha)) / n_k empirical quantile of the scores of class-k
-   pulses, and a pulse's prediction set is {k : 1 - p_k <= q_k};
+   pulses of that pattern (the pooled threshold below
+   ``MIN_CONFORMAL_PER_CLASS`` pulses), and a pulse's prediction set is
+   {k : 1 - p_k <= q_k};
 5. fits a novelty score: mean Euclidean distance (NaN-aware,
    :func:`~sklearn.metrics.pairwise.nan_euclidean_distances`) to the
    ``novelty_k`` nearest of up to ``n_reference`` labelled training pulses in a
@@ -44,9 +49,13 @@ from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-__all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature"]
+__all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "season_thresholds"]
 
 _EPS = 1e-12
+#: Fewest calibration rows of a pattern of missing column groups for its own temperature.
+MIN_CALIBRATION_ROWS = 200
+#: Fewest calibration pulses of a class (in a pattern) for its own conformal threshold.
+MIN_CONFORMAL_PER_CLASS = 30
 #: Joins catalog_id and event_id in ``sample_ids`` (a character no CSV id contains).
 ID_SEPARATOR = "\x1f"
 
@@ -79,8 +88,12 @@ def fit_temperature(proba, y_index, sample_weight=None):
 
 
 def _apply_temperature(proba, temperature):
+    """softmax(log(proba) / T); ``temperature`` a scalar or one value per row."""
     logp = np.log(np.clip(proba, _EPS, 1.0))
-    return np.exp(log_softmax(logp / temperature, axis=1))
+    t = np.asarray(temperature, dtype=np.float64)
+    if t.ndim == 1:
+        t = t[:, None]
+    return np.exp(log_softmax(logp / t, axis=1))
 
 
 def conformal_thresholds(proba, y_index, n_classes, coverage):
@@ -104,6 +117,46 @@ def conformal_thresholds(proba, y_index, n_classes, coverage):
     return q
 
 
+def season_thresholds(proba, coverage, fallback):
+    """Conformal thresholds adapted to a new season from calibrated probabilities.
+
+    Split-conformal thresholds hold on data like the calibration data; on a
+    season whose pulses differ (noisier, other instrument), the scores shift and
+    coverage drops. If the probabilities remain calibrated there (which the
+    drift and retrain reports check), the expected class-conditional coverage of
+    a threshold q on the season's own unlabelled pulses is
+
+        cov_k(q) = sum_x p_k(x) [1 - p_k(x) <= q] / sum_x p_k(x),
+
+    and q_k is the smallest score with cov_k(q_k) >= coverage (a plug-in
+    estimate, not a finite-sample guarantee).
+
+    Parameters
+    ----------
+    proba : ndarray, shape (n_pulses, n_classes)
+        Calibrated probabilities of (a sample of) the season's pulses.
+    coverage : float
+    fallback : ndarray, shape (n_classes,)
+        Used for a class with less than 20 pulses' worth of probability.
+
+    Returns
+    -------
+    ndarray, shape (n_classes,)
+    """
+    p = np.asarray(proba, dtype=np.float64)
+    q = np.asarray(fallback, dtype=np.float64).copy()
+    for k in range(p.shape[1]):
+        w = p[:, k]
+        if w.sum() < 20:
+            continue
+        s = 1.0 - w
+        order = np.argsort(s, kind="stable")
+        cum = np.cumsum(w[order])
+        i = int(np.searchsorted(cum, coverage * cum[-1], side="left"))
+        q[k] = s[order][min(i, len(s) - 1)]
+    return q
+
+
 class PulseClassifier(ClassifierMixin, BaseEstimator):
     """Calibrated gradient-boosted classifier with conformal sets and a novelty score.
 
@@ -114,22 +167,25 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
     n_splits : int, default=5
         Folds (grouped by ``groups``) for out-of-fold calibration; fewer are
         used when a class has fewer members.
-    max_iter : int, default=150
+    max_iter : int, default=80
         Boosting iterations of each fold model.
-    learning_rate : float, default=0.1
+    learning_rate : float, default=0.15
     max_leaf_nodes : int, default=31
     l2_regularization : float, default=1.0
-    class_weight : {"balanced"} or None, default="balanced"
+    class_weight : {"balanced"}, dict or None, default=None
+        None by default: scikit-learn bins weighted data far more slowly, and
+        calibrated probabilities should reflect the training class mix (the
+        pulse classes of a season are imbalanced by at most ~10:1).
     missing_groups : list of list of int, optional
         Column-index groups that a catalog may lack together; training rows
         are augmented with copies in which each group is masked (NaN) with
         probability 1/2.
     augment_fraction : float, default=0.5
         Number of augmented copies as a fraction of the training rows.
-    novelty_quantile : float, default=0.995
+    novelty_quantile : float, default=0.999
         Quantile of the training pulses' novelty scores used as the threshold.
     novelty_k : int, default=5
-    n_reference : int, default=2000
+    n_reference : int, default=1000
         Labelled pulses kept for the novelty score and look-alikes.
     random_state : int, default=0
 
@@ -144,7 +200,14 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
     estimators_ : list of HistGradientBoostingClassifier
         One per fold.
     temperature_ : float
+        Temperature of pulses with every column group present.
     conformal_thresholds_ : ndarray of shape (n_classes,)
+        Thresholds of pulses with every column group present.
+    pattern_temperature_ : ndarray of shape (2 ** n_groups,)
+        Temperature per pattern of missing column groups (bit j: group j missing).
+    pattern_thresholds_ : ndarray of shape (2 ** n_groups, n_classes)
+        Conformal thresholds per pattern and class.
+    oof_pattern_ : ndarray of int, shape (n_samples,)
     class_priors_ : ndarray of shape (n_classes,)
         Class frequencies of the training labels (weights included).
     oof_proba_ : ndarray of shape (n_samples, n_classes)
@@ -163,10 +226,10 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
     novelty_threshold_ : float
     """
 
-    def __init__(self, *, coverage=0.95, n_splits=5, max_iter=150, learning_rate=0.1,
-                 max_leaf_nodes=31, l2_regularization=1.0, class_weight="balanced",
-                 missing_groups=None, augment_fraction=0.5, novelty_quantile=0.995,
-                 novelty_k=5, n_reference=2000, random_state=0):
+    def __init__(self, *, coverage=0.95, n_splits=5, max_iter=80, learning_rate=0.15,
+                 max_leaf_nodes=31, l2_regularization=1.0, class_weight=None,
+                 missing_groups=None, augment_fraction=0.5, novelty_quantile=0.999,
+                 novelty_k=5, n_reference=1000, random_state=0):
         self.coverage = coverage
         self.n_splits = n_splits
         self.max_iter = max_iter
@@ -219,10 +282,34 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         if empty.any():
             X = X.copy()
             X[:, empty] = 0.0
+        # integer weights are repeated rows: scikit-learn bins weighted data one
+        # percentile at a time, which is ~100x slower than unweighted binning
+        if np.all(w == 1):
+            w = None
+        elif np.all(w == np.round(w)):
+            reps = w.astype(np.intp)
+            X, y, w = np.repeat(X, reps, axis=0), np.repeat(y, reps), None
         return self._new_tree_model(seed).fit(X, y, sample_weight=w)
 
+    def _group_columns(self):
+        return [np.asarray(g, dtype=np.intp) for g in (self.missing_groups or []) if len(g)]
+
+    def _patterns(self, X):
+        """Bit j set where column group j is entirely missing (NaN) in a row."""
+        code = np.zeros(len(X), dtype=np.intp)
+        for j, g in enumerate(self._group_columns()):
+            code |= np.isnan(X[:, g]).all(axis=1).astype(np.intp) << j
+        return code
+
+    def _mask(self, X, code):
+        Xm = X.copy()
+        for j, g in enumerate(self._group_columns()):
+            if code >> j & 1:
+                Xm[:, g] = np.nan
+        return Xm
+
     def _augment(self, X, y, w, rng):
-        groups = [np.asarray(g, dtype=np.intp) for g in (self.missing_groups or []) if len(g)]
+        groups = self._group_columns()
         n_aug = int(round(self.augment_fraction * len(X))) if groups else 0
         if n_aug == 0:
             return X, y, w
@@ -284,6 +371,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
              else np.asarray(sample_weight, dtype=np.float64).reshape(-1))
         if w.shape != (n,) or not np.all(np.isfinite(w)) or (w < 0).any():
             raise ValueError(f"sample_weight must be {n} finite non-negative numbers")
+        if not w.any():
+            raise ValueError("Sample weights must contain at least one non-zero number.")
         if groups is not None:
             groups = np.asarray(groups)
             if groups.shape != (n,):
@@ -295,32 +384,39 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
 
         oof_raw = np.zeros((n, n_classes))
         oof_fold = np.full(n, -1)
-        cal_raw, cal_y, cal_w = [], [], []
+        n_patterns = 2 ** len(self._group_columns())
+        natural = self._patterns(X)
+        cal_raw, cal_y, cal_w, cal_pat = [], [], [], []
         self.estimators_ = []
         if splits is None:  # too little data to cross-validate: one model, T = 1
             Xa, ya, wa = self._augment(X, y_idx, w, rng)
             est = self._fit_tree_model(seed, Xa, ya, wa)
             self.estimators_.append(est)
             oof_raw = self._expand(est, est.predict_proba(X))
-            self.temperature_ = 1.0
+            cal_raw, cal_y, cal_w, cal_pat = [oof_raw], [y_idx], [w], [natural]
         else:
             for fold, (tr, te) in enumerate(splits):
                 Xa, ya, wa = self._augment(X[tr], y_idx[tr], w[tr], rng)
                 est = self._fit_tree_model(seed + fold, Xa, ya, wa)
                 self.estimators_.append(est)
-                oof_raw[te] = self._expand(est, est.predict_proba(X[te]))
                 oof_fold[te] = fold
-                # calibrate on the held-out rows and on masked copies of them
-                Xt, yt, wt = self._augment(X[te], y_idx[te], w[te], rng)
-                cal_raw.append(self._expand(est, est.predict_proba(Xt)))
-                cal_y.append(yt)
-                cal_w.append(wt)
-            self.temperature_ = fit_temperature(np.vstack(cal_raw), np.concatenate(cal_y),
-                                                np.concatenate(cal_w))
-        self.oof_proba_ = _apply_temperature(oof_raw, self.temperature_)
+                # held-out rows as they are and with every combination of column
+                # groups removed: calibration conditional on what a catalog has
+                for code in range(n_patterns):
+                    raw = self._expand(est, est.predict_proba(self._mask(X[te], code)))
+                    if code == 0:
+                        oof_raw[te] = raw
+                    cal_raw.append(raw)
+                    cal_y.append(y_idx[te])
+                    cal_w.append(w[te])
+                    cal_pat.append(natural[te] | code)
+        cal_raw, cal_y = np.vstack(cal_raw), np.concatenate(cal_y)
+        cal_w, cal_pat = np.concatenate(cal_w), np.concatenate(cal_pat)
+        self._fit_pattern_calibration(cal_raw, cal_y, cal_w, cal_pat, n_patterns,
+                                      cross_fitted=splits is not None)
+        self.oof_proba_ = self._calibrate(oof_raw, natural)
+        self.oof_pattern_ = natural
         self.oof_fold_ = oof_fold
-        self.conformal_thresholds_ = conformal_thresholds(self.oof_proba_, y_idx, n_classes,
-                                                          self.coverage)
         self.n_iter_ = max(int(e.n_iter_) for e in self.estimators_)
         self.class_priors_ = np.bincount(y_idx, weights=w, minlength=n_classes) / w.sum()
         self._fit_novelty(X, y_idx, rng)
@@ -330,6 +426,34 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
             raise ValueError(f"sample_ids must have one entry per row ({n}), got {ids.shape}")
         self.reference_ids_ = ids[self.reference_index_]
         return self
+
+    def _fit_pattern_calibration(self, raw, y, w, pattern, n_patterns, cross_fitted):
+        """Temperature and conformal thresholds for every pattern of missing groups."""
+        k = len(self.classes_)
+        pooled_t = fit_temperature(raw, y, w) if cross_fitted else 1.0
+        temps = np.full(n_patterns, pooled_t)
+        for p in range(n_patterns):
+            sel = pattern == p
+            if cross_fitted and sel.sum() >= MIN_CALIBRATION_ROWS and len(np.unique(y[sel])) > 1:
+                temps[p] = fit_temperature(raw[sel], y[sel], w[sel])
+        cal = _apply_temperature(raw, temps[pattern])
+        pooled_q = conformal_thresholds(cal, y, k, self.coverage)
+        qs = np.tile(pooled_q, (n_patterns, 1))
+        for p in range(n_patterns):
+            sel = pattern == p
+            if not sel.any():
+                continue
+            q = conformal_thresholds(cal[sel], y[sel], k, self.coverage)
+            counts = np.bincount(y[sel], minlength=k)
+            enough = counts >= MIN_CONFORMAL_PER_CLASS
+            qs[p, enough] = q[enough]
+        self.pattern_temperature_ = temps
+        self.pattern_thresholds_ = qs
+        self.temperature_ = float(temps[0])
+        self.conformal_thresholds_ = qs[0]
+
+    def _calibrate(self, raw, pattern):
+        return _apply_temperature(raw, self.pattern_temperature_[pattern])
 
     def _expand(self, est, proba):
         """Probabilities over all classes_ even if a fold lacked some class."""
@@ -407,17 +531,34 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         """Calibrated class probabilities, shape (n_samples, n_classes)."""
         X = self._validate(X)
         raw = np.mean([self._expand(e, e.predict_proba(X)) for e in self.estimators_], axis=0)
-        return _apply_temperature(raw, self.temperature_)
+        return self._calibrate(raw, self._patterns(X))
 
     def predict(self, X):
         """Most probable class of every row."""
         proba = self.predict_proba(X)
         return self.classes_[np.argmax(proba, axis=1)]
 
-    def predict_set(self, X, proba=None):
-        """Conformal prediction sets: bool array (n_samples, n_classes)."""
-        p = self.predict_proba(X) if proba is None else np.asarray(proba)
-        return (1.0 - p) <= self.conformal_thresholds_[None, :] + 1e-12
+    def predict_set(self, X, proba=None, thresholds=None):
+        """Conformal prediction sets: bool array (n_samples, n_classes).
+
+        Parameters
+        ----------
+        X : array-like, shape (n_samples, n_features)
+            The pulses (their missing column groups choose the thresholds).
+        proba : ndarray, shape (n_samples, n_classes), optional
+            Probabilities to use instead of ``predict_proba(X)`` (e.g. after a
+            prior adjustment).
+        thresholds : ndarray, shape (n_classes,), optional
+            Season-adapted thresholds (:func:`season_thresholds`) instead of the
+            training ones.
+        """
+        Xv = self._validate(X)
+        p = self.predict_proba(Xv) if proba is None else np.asarray(proba)
+        if thresholds is None:
+            q = self.pattern_thresholds_[self._patterns(Xv)]
+        else:
+            q = np.asarray(thresholds, dtype=np.float64)[None, :]
+        return (1.0 - p) <= q + 1e-12
 
     def novelty_score(self, X):
         """Mean distance to the nearest reference pulses (larger = less familiar)."""

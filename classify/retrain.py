@@ -89,7 +89,7 @@ def metric_vector(y, proba, sets, novel, review_below):
 
 def _scores(model, X, proba=None):
     proba = model.predict_proba(X) if proba is None else proba
-    sets = model.predict_set(None, proba=proba)
+    sets = model.predict_set(X, proba=proba)
     novel = model.is_novel(X)
     return proba, sets, novel
 

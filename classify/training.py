@@ -99,7 +99,7 @@ def cv_metrics(model: PulseClassifier, y) -> dict:
     pred = classes[np.argmax(proba, axis=1)]
     p, r, f, s = metrics.precision_recall_fscore_support(y, pred, labels=classes,
                                                          zero_division=0)
-    sets = model.predict_set(None, proba=proba)
+    sets = (1.0 - proba) <= model.pattern_thresholds_[model.oof_pattern_] + 1e-12
     per_cov = {c: float(np.mean(sets[y == c, k])) if (y == c).any() else None
                for k, c in enumerate(classes)}
     return {

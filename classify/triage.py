@@ -33,13 +33,8 @@ import numpy as np
 import pandas as pd
 
 from features import schema
-from features.extract import (
-    DEFAULT_CHUNK_SIZE,
-    compute_chunk,
-    format_for_csv,
-    plan_chunks,
-    run_jobs,
-)
+from features.csvio import csv_text
+from features.extract import DEFAULT_CHUNK_SIZE, compute_chunk, plan_chunks, run_jobs
 
 from . import rules
 from .registry import load_model
@@ -53,6 +48,9 @@ RESULT_COLUMNS = ("event_id", "label", "confidence", "needs_review", "novel",
 TAIL_COLUMNS = ("review_reason", "novelty_score", "model_version", "catalog_id")
 BOOL_COLUMNS = ("needs_review", "novel", "clipped", "has_vhf", "field_ok")
 RULES_SET_LEVEL = 0.2   # rules mode: classes with pseudo-probability >= this are in the set
+#: Pulses (at most) sampled to adapt class priors and set thresholds to a season.
+SAMPLE_PULSES = 20_000
+SAMPLE_BLOCK = 500
 
 
 @dataclass(frozen=True)
@@ -62,6 +60,7 @@ class TriageSettings:
     model_dir: str | None
     review_below: float = 0.8
     priors: tuple | None = None          # adjusted class priors (--adapt-priors)
+    thresholds: tuple | None = None      # season-adapted conformal thresholds
     catalog_has_vhf: bool = True
     catalog_id: str = ""
     extra: dict = field(default_factory=dict)
@@ -89,7 +88,7 @@ def _classify(feats: pd.DataFrame, settings: TriageSettings):
         from .priors import adjust_priors
 
         proba = adjust_priors(proba, model.class_priors_, np.asarray(settings.priors))
-    sets = model.predict_set(None, proba=proba)
+    sets = model.predict_set(X, proba=proba, thresholds=settings.thresholds)
     novelty = model.novelty_score(X)
     novel = ~(novelty <= model.novelty_threshold_)
     return model.classes_.astype(str), proba, sets, novelty, novel, card["version"]
@@ -133,8 +132,7 @@ def triage_chunk(job, settings: TriageSettings, proba_only: bool = False):
     out["catalog_id"] = settings.catalog_id
     feats = feats.reset_index(drop=True)
     out = pd.concat([out, feats.drop(columns=["event_id"])], axis=1)
-    text = format_for_csv(out).to_csv(index=False, header=False, float_format="%.10g",
-                                      na_rep="", lineterminator="\n")
+    text = csv_text(out, header=False)
     counts = {"n": len(out), "n_review": int(out["needs_review"].sum()),
               "n_novel": int(novel.sum()),
               "per_class": pd.Series(classes[top]).value_counts().to_dict(),
@@ -149,6 +147,7 @@ def _journal_key(cat, settings: TriageSettings, chunk_size: int) -> str:
         model_hash = hashlib.sha256(sums.read_bytes()).hexdigest() if sums.is_file() else None
     key = {"catalog": cat.content_hash, "model": model_hash, "chunk_size": chunk_size,
            "review_below": settings.review_below, "priors": settings.priors,
+           "thresholds": settings.thresholds,
            "schema": schema.SCHEMA_VERSION, "rules": rules.RULES_VERSION}
     return hashlib.sha256(json.dumps(key, sort_keys=True).encode()).hexdigest()
 
@@ -172,25 +171,57 @@ def _merge_counts(total: dict, part: dict) -> None:
         total["reasons"][k] = total["reasons"].get(k, 0) + v
 
 
-def estimate_season_priors(cat, model_dir, *, chunk_size=DEFAULT_CHUNK_SIZE, n_jobs=1,
-                           dask_address=None):
-    """EM estimate of the catalog's class priors from the model's probabilities."""
-    from .priors import estimate_priors_em
+def sample_bounds(n_events: int, max_pulses: int = SAMPLE_PULSES,
+                  block: int = SAMPLE_BLOCK) -> list[tuple[int, int]]:
+    """Row blocks spread evenly over a catalog, at most ``max_pulses`` rows in all.
+
+    Fixed by the catalog size alone (not by --chunk-size or --jobs), so the
+    season adaptation is the same however the triage is run.
+    """
+    if n_events <= max_pulses:
+        return [(s, min(s + block, n_events)) for s in range(0, n_events, block)]
+    n_blocks = max_pulses // block
+    starts = np.linspace(0, n_events - block, n_blocks).astype(np.int64)
+    return [(int(s), int(s) + block) for s in starts]
+
+
+def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_jobs=1,
+                      dask_address=None):
+    """Class priors (EM) and conformal thresholds of a season, from a sample of it.
+
+    Returns
+    -------
+    dict
+        ``priors`` (tuple or None), ``thresholds`` (tuple or None), ``n_sample``,
+        ``em_iterations``.
+    """
+    from .models import season_thresholds
+    from .priors import adjust_priors, estimate_priors_em
 
     model, _card = _cached_model(str(model_dir))
+    out = {"priors": None, "thresholds": None, "n_sample": 0, "em_iterations": None}
+    if not (adapt_priors or adapt_sets) or cat.n_events == 0:
+        return out
     settings = TriageSettings(model_dir=str(model_dir), catalog_id=cat.catalog_id,
                               catalog_has_vhf=cat.vhf is not None)
-    jobs = plan_chunks(cat, chunk_size)
+    jobs = plan_chunks(cat, bounds=sample_bounds(cat.n_events))
     proba = np.vstack(list(run_jobs(triage_chunk, jobs, n_jobs=n_jobs,
-                                    dask_address=dask_address,
-                                    extra_args=(settings, True))))
-    new_priors, _adjusted, n_iter = estimate_priors_em(proba, model.class_priors_)
-    return dict(zip(model.classes_.astype(str), map(float, new_priors))), n_iter
+                                    dask_address=dask_address, extra_args=(settings, True))))
+    out["n_sample"] = len(proba)
+    if adapt_priors:
+        new_priors, proba, n_iter = estimate_priors_em(proba, model.class_priors_)
+        out["priors"] = tuple(round(float(p), 12) for p in new_priors)
+        out["em_iterations"] = int(n_iter)
+        proba = adjust_priors(proba, model.class_priors_, np.asarray(out["priors"]))
+    if adapt_sets:
+        q = season_thresholds(proba, model.coverage, model.conformal_thresholds_)
+        out["thresholds"] = tuple(round(float(v), 12) for v in q)
+    return out
 
 
 def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEFAULT_CHUNK_SIZE,
                    n_jobs=1, dask_address=None, resume=False, progress=None,
-                   adapt_priors=False, stop_after_chunks=None):
+                   adapt_priors=False, adapt_sets=True, stop_after_chunks=None):
     """Triage every pulse of ``cat`` into the CSV file ``out``.
 
     Parameters
@@ -208,6 +239,11 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     adapt_priors : bool, default=False
         Estimate the season's class priors by EM (Saerens et al. 2002) and
         re-weight the probabilities before deciding (model mode only).
+    adapt_sets : bool, default=True
+        Adapt the conformal thresholds to the season
+        (:func:`classify.models.season_thresholds`) from a sample of up to
+        :data:`SAMPLE_PULSES` of its pulses (model mode only); False uses the
+        training split-conformal thresholds.
     stop_after_chunks : int, optional
         Stop (as if killed) after writing this many chunks; for testing resume.
 
@@ -223,18 +259,18 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     if not 0 <= review_below <= 1:
         raise ValueError(f"review_below must be in [0, 1], got {review_below}")
     t0 = time.perf_counter()
-    priors = None
-    if adapt_priors:
-        if model_dir is None:
+    adapted = {"priors": None, "thresholds": None, "n_sample": 0}
+    if model_dir is None:
+        if adapt_priors:
             raise ValueError("--adapt-priors needs a model (--model), not --rules")
-        est, n_iter = estimate_season_priors(cat, model_dir, chunk_size=chunk_size,
-                                             n_jobs=n_jobs, dask_address=dask_address)
-        classes = list(_cached_model(str(model_dir))[0].classes_.astype(str))
-        priors = tuple(round(est[c], 12) for c in classes)
-        logger.info("estimated class priors of %s (EM, %d iterations): %s", cat.catalog_id,
-                    n_iter, ", ".join(f"{c} {p:.3f}" for c, p in zip(classes, priors)))
+    else:
+        adapted = season_adaptation(cat, model_dir, adapt_priors=adapt_priors,
+                                    adapt_sets=adapt_sets, n_jobs=n_jobs,
+                                    dask_address=dask_address)
+    priors = adapted["priors"]
     settings = TriageSettings(model_dir=None if model_dir is None else str(model_dir),
                               review_below=float(review_below), priors=priors,
+                              thresholds=adapted["thresholds"],
                               catalog_has_vhf=cat.vhf is not None, catalog_id=cat.catalog_id)
     key = _journal_key(cat, settings, chunk_size)
     jobs = plan_chunks(cat, chunk_size)
@@ -287,9 +323,13 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
         "version"]
     summary = dict(totals, seconds=seconds, out=str(out), model_version=version,
                    pulses_per_s=totals["n"] / seconds if seconds > 0 else float("inf"))
-    if priors is not None:
+    if model_dir is not None:
         classes = list(_cached_model(str(model_dir))[0].classes_.astype(str))
-        summary["priors"] = dict(zip(classes, priors))
+        if priors is not None:
+            summary["priors"] = dict(zip(classes, priors))
+        if adapted["thresholds"] is not None:
+            summary["set_thresholds"] = dict(zip(classes, adapted["thresholds"]))
+            summary["n_adaptation_sample"] = adapted["n_sample"]
     return summary
 
 
@@ -342,4 +382,8 @@ def print_summary(summary: dict, file=sys.stdout) -> None:
     if "priors" in summary:
         print("  adapted class priors: " + ", ".join(f"{c} {p:.3f}" for c, p in
                                                      summary["priors"].items()), file=file)
+    if "set_thresholds" in summary:
+        print(f"  prediction sets adapted to this season on {summary['n_adaptation_sample']:,} "
+              "pulses (thresholds on 1 - p: " + ", ".join(
+                  f"{c} {q:.2g}" for c, q in summary["set_thresholds"].items()) + ")", file=file)
     print(f"results: {summary['out']}", file=file)

@@ -25,6 +25,7 @@ from . import schema
 from ._tables import SourceTable
 from .catalog import Catalog, Channel
 from .context import flash_context
+from .csvio import csv_text, format_for_csv
 from .mapping import source_features
 from .vhf import VHF_NOISE_MAX_S, VHF_WINDOW_S, vhf_features
 from .waveform import (
@@ -139,13 +140,18 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     return out
 
 
-def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE) -> list[ChunkJob]:
-    """Split ``catalog`` into :class:`ChunkJob` objects (flash context computed here)."""
+def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE,
+                bounds: list[tuple[int, int]] | None = None) -> list[ChunkJob]:
+    """Split ``catalog`` into :class:`ChunkJob` objects (flash context computed here).
+
+    ``bounds`` gives explicit ``(start, stop)`` row ranges instead of consecutive
+    chunks of ``chunk_size`` rows.
+    """
     ctx = flash_context(catalog.events, catalog.time_ns, catalog.sources)
     extras = catalog.events.drop(columns=["event_id", "range_m"])
     ids = catalog.event_ids
     jobs = []
-    for start, stop in catalog.chunk_bounds(chunk_size):
+    for start, stop in (catalog.chunk_bounds(chunk_size) if bounds is None else bounds):
         jobs.append(ChunkJob(
             start=start, stop=stop, field=catalog.field, vhf=catalog.vhf,
             event_id=ids[start:stop], range_m=catalog.range_m[start:stop].copy(),
@@ -243,24 +249,9 @@ def extract_features(catalog: Catalog, **kwargs) -> pd.DataFrame:
     return pd.concat(parts)
 
 
-def format_for_csv(df: pd.DataFrame) -> pd.DataFrame:
-    """Booleans as ``true``/``false`` and times in ISO-8601 Z, for CSV output."""
-    out = df.copy()
-    for col in out.columns:
-        s = out[col]
-        if s.dtype == bool:
-            out[col] = np.where(s.to_numpy(), "true", "false")
-        elif isinstance(s.dtype, pd.DatetimeTZDtype):
-            ns = (s.astype("int64") % 1_000_000_000).astype(str).str.zfill(9)
-            text = s.dt.strftime("%Y-%m-%dT%H:%M:%S") + "." + ns + "Z"
-            out[col] = text.where(s.notna(), "")
-    return out
-
-
 def write_csv_rows(df: pd.DataFrame, handle, header: bool) -> None:
     """Append ``df`` to an open text handle in pulsesort's CSV dialect."""
-    format_for_csv(df).to_csv(handle, index=False, header=header, float_format="%.10g",
-                              na_rep="", lineterminator="\n")
+    handle.write(csv_text(df, header=header))
 
 
 def write_features(catalog: Catalog, out_path, **kwargs) -> Path:

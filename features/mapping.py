@@ -177,7 +177,8 @@ def source_features(sources, range_m, n_events):
     -------
     dict of str -> ndarray, shape (n_events,)
         ``n_sources``, ``speed_m_per_s``, ``vertical_speed_m_per_s`` (+ up),
-        ``motion_elevation_deg`` (angle of the motion above the horizontal),
+        ``motion_elevation_deg`` (angle of the apparent motion on the sky above
+        the horizontal: tangential vs vertical, from angles),
         ``angular_rate_deg_per_s``, ``net_to_path``, ``altitude_m``,
         ``elevation_median_deg``, ``source_duration_s``, ``source_range_m``
         (median horizontal distance of the sources, xyz only).
@@ -212,18 +213,18 @@ def source_features(sources, range_m, n_events):
     el_med = grouped_median(el, g, n_events)
     coslat = np.cos(np.radians(el_med))
     ang_rate = np.sqrt((ang[:, 0] * coslat) ** 2 + ang[:, 1] ** 2)
+    # direction and straightness are measured on the sky for every catalog (the
+    # interferometer's own measurement), so they mean the same with or without xyz
+    sec2 = 1.0 / np.cos(np.radians(np.minimum(el_med, MAX_ELEVATION_DEG))) ** 2
+    mot_el = np.degrees(np.arctan2(np.radians(ang[:, 1]) * sec2,
+                                   np.abs(np.radians(ang[:, 0]))))
     if xyz is not None:
-        mot_el = np.degrees(np.arctan2(vel[:, 2], np.hypot(vel[:, 0], vel[:, 1])))
         alt = grouped_median(xyz[:, 2], g, n_events)
         src_range = grouped_median(np.hypot(xyz[:, 0], xyz[:, 1]), g, n_events)
-        track = xyz
     else:
-        sec2 = 1.0 / np.cos(np.radians(np.minimum(el_med, MAX_ELEVATION_DEG))) ** 2
-        mot_el = np.degrees(np.arctan2(np.radians(ang[:, 1]) * sec2,
-                                       np.abs(np.radians(ang[:, 0]))))
         alt = grouped_median(pos[:, 2], g, n_events)
         src_range = nan.copy()
-        track = _sky_unit(az, el)
+    track = _sky_unit(az, el)
     t_first = np.full(n_events, np.nan)
     t_last = np.full(n_events, np.nan)
     t_first[has] = t[starts[has]]

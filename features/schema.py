@@ -18,7 +18,7 @@ __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "feature_names", "model_feat
            "missing_groups", "format_table"]
 
 #: Bump when a definition changes in a way that changes values.
-SCHEMA_VERSION = "1.0"
+SCHEMA_VERSION = "1.1"
 
 
 @dataclass(frozen=True)
@@ -113,14 +113,16 @@ FEATURES: tuple[Feature, ...] = (
     Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity, "
             "+ upward", "mapping",
             requires=frozenset({"range", "sources"})),
-    Feature("motion_elevation_deg", "deg", "angle of the motion above the horizontal "
-            "(+90 straight up); from angles alone when there is no xyz", "mapping",
+    Feature("motion_elevation_deg", "deg", "direction of the apparent motion on the sky "
+            "above the horizontal (+90 straight up, 0 sideways), from the fitted azimuth and "
+            "elevation rates (elevation rate x sec^2(el) vs azimuth rate)", "mapping",
             requires=frozenset({"sources"})),
     Feature("angular_rate_deg_per_s", "deg/s", "angular speed on the sky from a robust fit "
             "of azimuth and elevation vs time", "mapping",
             requires=frozenset({"sources"})),
     Feature("net_to_path", "1", "net displacement / path length of the time-ordered source "
-            "track (1 = straight, near 0 = back and forth); on the sky without xyz",
+            "track on the sky (1 = straight, near 0 = back and forth); angles only, so the "
+            "same with or without xyz",
             "mapping",
             requires=frozenset({"sources"})),
     Feature("altitude_m", "m", "median source altitude (z, or range x tan(elevation))",

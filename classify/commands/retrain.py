@@ -33,7 +33,8 @@ def add_arguments(parser):
                         help="bootstrap resamples over flashes (default 1000)")
     parser.add_argument("--force", action="store_true",
                         help="promote the challenger even if it is worse")
-    parser.add_argument("--max-iter", type=int, default=150)
+    parser.add_argument("--max-iter", type=int, default=80,
+                        help="boosting iterations per fold model (default 80)")
     add_parallel_arguments(parser)
 
 

@@ -21,8 +21,8 @@ def add_arguments(parser):
     parser.add_argument("--coverage", type=fraction, default=0.95,
                         help="target coverage of the conformal prediction sets (default 0.95)")
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    parser.add_argument("--max-iter", type=int, default=150,
-                        help="boosting iterations per fold model (default 150)")
+    parser.add_argument("--max-iter", type=int, default=80,
+                        help="boosting iterations per fold model (default 80)")
     parser.add_argument("--promote", action="store_true",
                         help="make the new model the registry's current one")
     add_parallel_arguments(parser)

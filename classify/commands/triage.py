@@ -37,6 +37,9 @@ def add_arguments(parser):
                         help="continue an interrupted run (same catalog, model, settings)")
     parser.add_argument("--adapt-priors", action="store_true",
                         help="estimate the season's class mix (EM) and adjust for it")
+    parser.add_argument("--training-sets", action="store_true",
+                        help="use the training split-conformal thresholds instead of adapting "
+                             "them to this season")
     add_parallel_arguments(parser)
 
 
@@ -49,6 +52,7 @@ def run(args) -> int:
     summary = triage_catalog(cat, args.out, model_dir=model_dir,
                              review_below=args.review_below, chunk_size=args.chunk_size,
                              n_jobs=args.jobs, dask_address=args.dask, resume=args.resume,
-                             progress=args.progress, adapt_priors=args.adapt_priors)
+                             progress=args.progress, adapt_priors=args.adapt_priors,
+                             adapt_sets=not args.training_sets)
     print_summary(summary, file=sys.stdout)
     return 0
