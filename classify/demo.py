@@ -74,8 +74,10 @@ def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo
          "opinion on 300 pulses)")
     store = LabelStore(store_path)
     cat_a = open_catalog(season_a)
-    store.import_labels(labels_a, cat_a, analyst="wren")
     truth_a = pd.read_csv(labels_a, dtype=str, keep_default_na=False)
+    first = folder / "wren-2031.labels.csv"
+    truth_a.assign(analyst="wren", decided_at="2031-10-28T14:00:00Z").to_csv(first, index=False)
+    store.import_labels(first, cat_a)
     second = folder / "tamsin-2031.labels.csv"
     _second_opinion(truth_a, 300, 12, seed).to_csv(second, index=False)
     store.import_labels(second, cat_a)
@@ -110,9 +112,15 @@ def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo
 
     echo("[6/6] writing the data card of the labelled season")
     card_path = write_data_card(cat_a, store, folder / "data_cards")
+    # a few hundred labels of the new season, as an analyst would make them, for retrain
+    sample = truth_b.sample(n=min(300, len(truth_b)), random_state=seed)
+    sample = sample.assign(analyst="ines", decided_at="2032-10-20T15:00:00Z", note="")
+    new_labels = folder / f"{STATION}-2032.sample300.labels.csv"
+    sample[["event_id", "label", "analyst", "decided_at", "note"]].to_csv(new_labels,
+                                                                         index=False)
     seconds = time.perf_counter() - t0
     return {"folder": folder, "season_a": season_a, "season_b": season_b,
             "store": store_path, "model_dir": model_dir, "results": results,
-            "card": card_path, "triage": summary, "macro_f1_vs_truth": float(f1),
+            "card": card_path, "triage": summary, "new_labels": new_labels, "macro_f1_vs_truth": float(f1),
             "accuracy_not_reviewed": acc_auto, "n_conflicts": len(conflicts),
             "seconds": seconds}

@@ -42,6 +42,8 @@ def run(args) -> int:
     print(f"  pulsesort report {s['results']} --catalog {s['season_b']} --out {d}/report.html")
     print(f"  pulsesort drift {s['season_a']} {s['season_b']} --model {s['model_dir']} "
           f"--out {d}/drift.html")
+    print(f"  pulsesort labels import {s['new_labels']} --catalog {s['season_b']} "
+          f"--store {store}")
     print(f"  pulsesort retrain --store {store} --new {s['season_b']} --with {s['season_a']} "
           f"--current {s['model_dir']} --out {d}/models/hollowmere-2032-v1")
     print(f"  pulsesort models --registry {d}/models list")
