@@ -21,12 +21,13 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
 from features.catalog import scan_quality
+
+from ._atomic import atomic_write
 
 __all__ = ["render_data_card", "write_data_card"]
 
@@ -59,14 +60,7 @@ def write_data_card(cat, store, out_dir="data_cards") -> Path:
     text = render_data_card(cat, store, out_dir=out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     out = out_dir / f"{_file_name(cat.catalog_id)}.md"
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=out_dir)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(tmp, out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    atomic_write(out, text)
     return out
 
 

@@ -11,8 +11,6 @@ renamed, so a reader never sees half a report.
 
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass
 from html import escape
 from pathlib import Path
@@ -22,6 +20,7 @@ import pandas as pd
 
 from . import __version__, svgplot
 from . import stats as _stats
+from ._atomic import atomic_write
 from .drift import PSI_BANDS, DriftResult, _numeric
 from .priors import _model_inputs
 
@@ -268,14 +267,5 @@ def write_drift_html(result: DriftResult, feat_a: pd.DataFrame, feat_b: pd.DataF
     if not path.parent.is_dir():
         raise FileNotFoundError(f"{path.parent}: no such folder for the report")
     html = render_drift_html(result, feat_a, feat_b, top=top)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".partial", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(html)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    atomic_write(path, html)
     return path

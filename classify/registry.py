@@ -31,6 +31,8 @@ from pathlib import Path
 
 import skops.io as sio
 
+from ._atomic import _umask, atomic_write
+
 __all__ = ["ALLOWED_TYPES", "ModelRegistry", "save_model", "load_model", "verify_model_dir",
            "file_sha256", "write_card_files"]
 
@@ -54,24 +56,10 @@ def file_sha256(path) -> str:
     return h.hexdigest()
 
 
-def _atomic_write(path: Path, data: bytes) -> None:
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-
-
 def _write_sums(folder: Path) -> None:
     lines = [f"{file_sha256(p)}  {p.name}\n" for p in sorted(folder.iterdir())
              if p.is_file() and p.name != SUMS_FILE and not p.name.startswith(".")]
-    _atomic_write(folder / SUMS_FILE, "".join(lines).encode())
+    atomic_write(folder / SUMS_FILE, "".join(lines).encode())
 
 
 def verify_model_dir(folder) -> dict[str, str]:
@@ -114,9 +102,9 @@ def verify_model_dir(folder) -> dict[str, str]:
 def write_card_files(folder, card: dict, markdown: str) -> None:
     """(Re)write card.json and card.md of a model folder and refresh SHA256SUMS."""
     folder = Path(folder)
-    _atomic_write(folder / "card.json", (json.dumps(card, indent=2, sort_keys=True,
+    atomic_write(folder / "card.json", (json.dumps(card, indent=2, sort_keys=True,
                                                     default=str) + "\n").encode())
-    _atomic_write(folder / "card.md", markdown.encode())
+    atomic_write(folder / "card.md", markdown.encode())
     _write_sums(folder)
 
 
@@ -132,6 +120,7 @@ def save_model(model, folder, card: dict, markdown: str, *, overwrite: bool = Fa
                               "folders are immutable versions)")
     folder.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(dir=folder.parent, prefix=f".{folder.name}.tmp-"))
+    os.chmod(tmp, 0o777 & ~_umask())
     try:
         sio.dump(model, tmp / MODEL_FILE)
         write_card_files(tmp, card, markdown)
@@ -204,7 +193,7 @@ class ModelRegistry:
         return data
 
     def _write(self, data: dict) -> None:
-        _atomic_write(self.path, (json.dumps(data, indent=2) + "\n").encode())
+        atomic_write(self.path, (json.dumps(data, indent=2) + "\n").encode())
 
     def register(self, folder, *, make_current: bool | None = None) -> str:
         """Add a saved model folder (inside ``root``); return its version.

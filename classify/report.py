@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import logging
 import os
-import tempfile
 from datetime import datetime, timezone
 from html import escape
 from pathlib import Path
@@ -27,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from . import svgplot
+from ._atomic import atomic_write
 from .review._queue import probability_columns
 
 logger = logging.getLogger("pulsesort")
@@ -276,16 +276,6 @@ def write_report(results_path, out, *, catalog=None, title=None) -> Path:
     if catalog is not None and not hasattr(catalog, "catalog_id"):
         catalog = open_catalog(catalog)
     html = build_report(results, catalog=catalog, title=title)
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=out.parent)
-    try:
-        os.chmod(tmp, 0o666 & ~_umask())   # mkstemp makes it private; a report is not
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(html)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    atomic_write(out, html)
     logger.info("report of %d pulses written to %s", len(results), out)
     return out

@@ -2,14 +2,12 @@
 
 from __future__ import annotations
 
-import contextlib
 import csv
-import os
-import tempfile
 from pathlib import Path
 
 import pandas as pd
 
+from .._atomic import atomic_open
 from . import _query
 from ._importer import EXPORT_COLUMNS
 
@@ -44,19 +42,10 @@ def export_frame(con, store_path, catalog_id, history: bool) -> pd.DataFrame:
 def write_csv(out: Path, dec: pd.DataFrame) -> None:
     """Write ``dec`` (decisions) as a labels file: to a temporary name, then renamed."""
     out.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=out.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            w = csv.writer(fh, lineterminator="\n")
-            w.writerow(EXPORT_COLUMNS)
-            w.writerows(zip(*_columns(dec), strict=True))
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, out)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
+    with atomic_open(out, "w", newline="") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(EXPORT_COLUMNS)
+        w.writerows(zip(*_columns(dec), strict=True))
 
 
 def _columns(dec: pd.DataFrame) -> list[list[str]]:
