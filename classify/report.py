@@ -17,7 +17,6 @@ Examples
 from __future__ import annotations
 
 import logging
-import os
 from datetime import datetime, timezone
 from html import escape
 from pathlib import Path
@@ -240,12 +239,6 @@ font-variant-numeric:tabular-nums}table.facts th{display:none}.examples{display:
 flex-wrap:wrap;gap:.6em}figure{margin:0}figcaption{font-size:.85em;color:#555;
 overflow-wrap:anywhere;max-width:300px}
 """.strip()
-
-
-def _umask() -> int:
-    mask = os.umask(0o022)
-    os.umask(mask)
-    return mask
 
 
 def write_report(results_path, out, *, catalog=None, title=None) -> Path:
