@@ -76,37 +76,50 @@ def _channel_reuse(flash_code, time_ns, sources):
         az = np.asarray(sources.azimuth_deg, dtype=np.float64)
         pos = np.column_stack([az * np.cos(np.radians(el)), el]) / REUSE_CELL_DEG
     keep &= np.isfinite(pos).all(axis=1)
-    # source time in ns since the flash's own epoch (event trigger + t_s)
+    # absolute source time in seconds (event trigger + t_s); float64 keeps ~0.5 us
     t_abs = time_ns[ev].astype(np.float64) * 1e-9 + np.asarray(sources.t_s, np.float64)
     cell = np.floor(np.where(np.isfinite(pos), pos, 0.0)).astype(np.int64)
-    dim = cell.shape[1]
-    # earliest time per (flash, cell)
-    key_cols = [fl[keep]] + [cell[keep, i] for i in range(dim)]
-    df = pd.DataFrame({f"k{i}": c for i, c in enumerate(key_cols)})
-    df["t"] = t_abs[keep]
-    first = df.groupby([f"k{i}" for i in range(dim + 1)], sort=False)["t"].min()
-    # a source is reused when any neighbouring cell was first hit early enough
     limit = time_ns[ev].astype(np.float64) * 1e-9 - REUSE_MIN_AGE_S
     reused = np.zeros(len(ev), dtype=bool)
-    base = np.column_stack(key_cols)
-    lim_k = limit[keep]
-    hit = np.zeros(int(keep.sum()), dtype=bool)
-    offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
-    index = first.index
-    values = first.to_numpy()
-    for off in offsets:
-        probe = base.copy()
-        probe[:, 1:] += off
-        loc = index.get_indexer(pd.MultiIndex.from_arrays(probe.T))
-        found = loc >= 0
-        hit[found] |= values[loc[found]] <= lim_k[found]
-    reused[keep] = hit
+    # flashes in blocks so that (flash, cell) always packs into one int64 key
+    block = 1 << 20
+    for lo in range(0, int(fl.max()) + 1 if keep.any() else 0, block):
+        sel = keep & (fl >= lo) & (fl < lo + block)
+        if sel.any():
+            reused[sel] = _reused_in_cells(fl[sel] - lo, cell[sel], t_abs[sel], limit[sel])
     n_src = np.bincount(ev, minlength=n)
     n_reused = np.bincount(ev, reused, minlength=n)
     has = n_src > 0
     out[has] = n_reused[has] / n_src[has]
     # pulses with sources but no flash: nothing earlier to reuse
     return out
+
+
+def _reused_in_cells(fl, cell, t_abs, limit):
+    """Whether a source's own or an adjacent cell of its flash was hit before ``limit``."""
+    dim = cell.shape[1]
+    # one int64 key per (flash, cell): the flash (< 2**20) in the top bits, each
+    # cell index (offset to be positive, clipped to its bit range) below
+    bits = 42 // dim
+    cell = np.clip(cell + (1 << (bits - 1)), 1, (1 << bits) - 2)
+
+    def pack(cells):
+        key = fl.astype(np.int64)
+        for i in range(dim):
+            key = (key << bits) | cells[:, i]
+        return key
+
+    uniq, inverse = np.unique(pack(cell), return_inverse=True)
+    first = np.full(len(uniq), np.inf)
+    np.minimum.at(first, inverse, t_abs)       # earliest source time per (flash, cell)
+    hit = np.zeros(len(fl), dtype=bool)
+    offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
+    for off in offsets:
+        probe = pack(cell + off)
+        loc = np.minimum(np.searchsorted(uniq, probe), len(uniq) - 1)
+        found = uniq[loc] == probe
+        hit[found] |= first[loc[found]] <= limit[found]
+    return hit
 
 
 def flash_context(events, time_ns, sources=None):
