@@ -25,8 +25,9 @@ Definitions (the contract of :mod:`features.schema`):
 * **FWHM**: the contiguous interval around the peak where u >= P / 2.
 * **zero crossing**: the first time after the peak where u <= 0 (before the
   field rises again above 60 % of P, i.e. before a following pulse).
-* **overshoot**: the largest -u from the zero crossing to the earliest of
-  10 initial half-cycles later, the next rise above 50 % of P, or the window end.
+* **overshoot**: the largest -u in the opposite-polarity lobe after the zero
+  crossing, up to the field's return through zero (at most 10 initial
+  half-cycles later, never past a following rise above 50 % of P).
 * **width**: from the 10 % point of the leading edge to the point where the
   pulse (or its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
 * **current moment** (radiation term, far field over a perfectly conducting
@@ -36,6 +37,9 @@ Definitions (the contract of :mod:`features.schema`):
   Positive M is an upward-directed current moment.
 * **charge moment change**: int M dt from the onset to the end of the
   overshoot lobe (or of the pulse).
+* **windows**: every pulse is first measured within -25..+50 us of the trigger;
+  a pulse that reaches that window's edge (a wide pulse) is measured again on
+  the full ``ANALYSIS_WINDOW_S``.
 * **peak current**: transmission-line model I = -2 pi eps0 c^2 D E_peak / v with
   v = ``TL_SPEED_M_PER_S``.
 
@@ -198,13 +202,39 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         raise ValueError(f"field_v_per_m must be 2-D (n_pulses, n_samples), got {x.shape}")
     n, m = x.shape
     fs = float(sample_rate_hz)
-    dt = 1.0 / fs
     rng = np.full(n, np.nan) if range_m is None else np.asarray(range_m, dtype=np.float64)
     i0, i1 = _index_range(m, fs, pretrigger_s, analysis_window_s)
     if i1 - i0 < 8:
         raise ValueError(f"the analysis window {analysis_window_s} s holds fewer than 8 samples "
                          f"of a {m}-sample record at {fs:g} Hz")
     base, sigma = _baseline_noise(x, i0, quantum_v_per_m)
+    kw = dict(pretrigger_s=pretrigger_s, delay_s=delay_s, decay_time_s=decay_time_s,
+              peak_search_s=peak_search_s, tl_speed_m_per_s=tl_speed_m_per_s)
+    # Most pulses are over within tens of microseconds: measure every row on a
+    # short window first, and again on the full window only where a crossing or
+    # the overshoot lobe runs to the short window's edge (wide pulses).
+    short = (max(analysis_window_s[0], peak_search_s[0] - 5e-6),
+             min(analysis_window_s[1], peak_search_s[1] + 10e-6))
+    out, longer = _field_window(x, fs, base, sigma, rng, window_s=short, **kw)
+    if longer.any() and short != tuple(analysis_window_s):
+        rows = np.flatnonzero(longer)
+        full, _ = _field_window(x[rows], fs, base[rows], sigma[rows], rng[rows],
+                                window_s=analysis_window_s, **kw)
+        for key, val in full.items():
+            out[key][rows] = val
+    return out
+
+
+def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, decay_time_s,
+                  peak_search_s, tl_speed_m_per_s):
+    """Field features of every row measured within ``window_s`` of the trigger.
+
+    Returns the feature dict and a bool array marking rows whose pulse reaches
+    the window's edge (to be measured again on a longer window).
+    """
+    n, m = x.shape
+    dt = 1.0 / fs
+    i0, i1 = _index_range(m, fs, pretrigger_s, window_s)
     y = x[:, i0:i1] - base[:, None]
     missing = np.isnan(y)
     miss_frac = missing.mean(axis=1)
@@ -250,12 +280,16 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     has_zc = np.isfinite(zc)
     ihc = zc - onset                                   # samples
 
-    # overshoot lobe
+    # overshoot lobe: from the zero crossing to the field's return through zero, at
+    # most 10 initial half-cycles and never past a following pulse (> 50 % of P)
     jz = np.where(has_zc, np.ceil(np.nan_to_num(zc)), w).astype(np.intp)
     os_end = np.minimum(jz + np.ceil(10 * np.nan_to_num(ihc, nan=0.0)).astype(np.intp) + 1, w)
     nxt, has_nxt = first_true((u >= lvl(0.5)[:, None]) & (cols > jz[:, None]))
     os_end = np.where(has_nxt, np.minimum(os_end, nxt), os_end)
-    in_lobe = (cols >= jz[:, None]) & (cols < os_end[:, None])
+    lobe_back = crossing_after(-u, jz, np.zeros(n), stop=os_end, inclusive=True)
+    lobe_closed = np.isfinite(lobe_back)
+    lobe_end = np.where(lobe_closed, np.ceil(np.nan_to_num(lobe_back)), os_end).astype(np.intp)
+    in_lobe = (cols >= jz[:, None]) & (cols < np.maximum(lobe_end, jz + 1)[:, None])
     neg = np.where(in_lobe, -u, -np.inf)
     j_os = neg.argmax(axis=1)
     overshoot = np.where(has_zc, np.maximum(take_rows(neg, j_os), 0.0), 0.0)
@@ -263,12 +297,14 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
 
     # end of the pulse for the width (overshoot counted when it exceeds 10 % of P)
     big_os = has_zc & (overshoot >= lvl(0.1))
-    os_fall = crossing_after(-u, j_os, lvl(0.1), stop=os_end)
-    end_width = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, os_end - 1.0), f10)
+    os_fall = crossing_after(-u, j_os, lvl(0.1), stop=lobe_end + 1)
+    end_width = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end - 1.0), f10)
     # end of the overshoot lobe for the charge moment: its return through zero
-    lobe_back = crossing_after(-u, j_os, np.zeros(n), stop=os_end, inclusive=True)
-    end_charge = np.where(has_zc, np.where(np.isfinite(lobe_back), lobe_back, os_end - 1.0),
+    end_charge = np.where(has_zc, np.where(lobe_closed, lobe_back, os_end - 1.0),
                           np.where(np.isfinite(f10), f10, w - 1.0))
+    # rows whose pulse reaches this window's edge: measure them on a longer one
+    longer = ok & ((valley <= 1) | ~np.isfinite(f10) | (~has_zc & ~has_next)
+                   | (has_zc & ~lobe_closed & ~has_nxt & (os_end >= w)))
 
     # moments: M(t) = -2 pi eps0 c^2 D int_onset^t E dt
     k = moment_factor_a_per_v(rng)
@@ -310,4 +346,4 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         if key != "field_ok" and val.dtype.kind == "f":
             out[key] = np.where(ok, val, np.nan)
     out["snr_db"] = np.where(ok, out["snr_db"], np.nan)
-    return out
+    return out, longer
