@@ -10,6 +10,8 @@
 * :func:`floor_pass`: the floor of a catalog pass (memory-mapped read of the arrays
   plus one analytic-signal envelope per VHF row); ``python benchmarks/_common.py floor
   CATALOG --jobs N`` runs it as a subprocess so it can be sampled like the commands.
+* :class:`Cluster`: a ``distributed.LocalCluster`` of worker processes on 127.0.0.1, in
+  its own process tree (``python benchmarks/_common.py cluster``).
 * :func:`machine_info`, :func:`print_table`, :func:`write_json`, :class:`Workdir`,
   :func:`check_disk`, :func:`catalog_bytes`, :func:`warm_cache`.
 
@@ -35,10 +37,9 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["TreeRSSSampler", "Measurement", "run_measured", "pulsesort", "reported_rate",
-           "floor_pass",
-           "run_floor", "simulate", "simulate_args", "machine_info", "print_table", "write_json", "Workdir",
-           "check_disk", "catalog_bytes", "warm_cache", "base_parser", "fmt_bytes",
-           "Timer", "MB"]
+           "floor_pass", "run_floor", "simulate", "simulate_args", "machine_info",
+           "print_table", "write_json", "Workdir", "Cluster", "check_disk", "catalog_bytes",
+           "warm_cache", "base_parser", "fmt_bytes", "Timer", "MB"]
 
 MB = 1024 * 1024
 POLL_S = 0.02
@@ -535,10 +536,54 @@ def _main(argv=None) -> int:
     f.add_argument("catalog")
     f.add_argument("--jobs", type=int, default=1)
     f.add_argument("--chunk-size", type=int, default=512)
+    k = sub.add_parser("cluster", help="run a dask.distributed LocalCluster on 127.0.0.1; "
+                       "print its address; stop when standard input closes")
+    k.add_argument("--workers", type=int, default=2)
     args = p.parse_args(argv)
+    if args.what == "cluster":
+        from distributed import LocalCluster
+
+        with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
+                          host="127.0.0.1", dashboard_address=None,
+                          worker_dashboard_address=None) as cluster:
+            print(cluster.scheduler_address, flush=True)
+            sys.stdin.read()
+        return 0
     res = floor_pass(args.catalog, n_jobs=args.jobs, chunk_size=args.chunk_size)
     print(json.dumps(res))
     return 0
+
+
+class Cluster:
+    """A LocalCluster of ``workers`` processes on loopback, in its own process tree.
+
+    ``with Cluster(2) as cl: run_measured(cmd + ["--dask", cl.address],
+    extra_roots=[cl.pid])`` counts the scheduler's and workers' memory with the command's.
+    """
+
+    def __init__(self, workers: int = 2):
+        self.workers = workers
+
+    def __enter__(self):
+        cmd = [sys.executable, str(Path(__file__).resolve()), "cluster", "--workers",
+               str(self.workers)]
+        self.proc = subprocess.Popen(cmd, stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                                     text=True)
+        self.address = self.proc.stdout.readline().strip()
+        if not self.address.startswith("tcp://"):
+            self.proc.kill()
+            raise RuntimeError(f"the LocalCluster did not start (got {self.address!r})")
+        self.pid = self.proc.pid
+        print(f"LocalCluster of {self.workers} worker processes at {self.address}", flush=True)
+        return self
+
+    def __exit__(self, *exc):
+        self.proc.stdin.close()
+        try:
+            self.proc.wait(timeout=60)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            self.proc.wait()
 
 
 if __name__ == "__main__":
