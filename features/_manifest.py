@@ -180,7 +180,8 @@ def _open_array(path: Path, problems: Problems, n_events: int | None):
     return arr
 
 
-def _channel(name: str, folder: Path, spec, problems: Problems, n_events: int | None):
+def _channel(name: str, folder: Path, spec, problems: Problems, n_events: int | None,
+             notes: list[str] | None = None):
     where = name
     if not isinstance(spec, dict):
         problems.add(f"catalog.json: '{name}' must be an object, got {type(spec).__name__}")
@@ -232,6 +233,11 @@ def _channel(name: str, folder: Path, spec, problems: Problems, n_events: int | 
                                  "record")
         kw.update(kind=kind, band_hz=band_t)
     arr = _open_array(path, problems, n_events) if path is not None else None
+    if arr is not None and rate and pre is not None and pre >= arr.shape[1] / rate and notes \
+            is not None:
+        notes.append(f"catalog.json: '{where}.pretrigger_s' is {pre:g} s but a record lasts "
+                     f"{arr.shape[1] / rate:g} s: the trigger lies after the record's end, so "
+                     "pulses are searched over the whole record")
     if len(problems) > n0 or arr is None:
         return None
     return Channel(name=name, file=path, sample_rate_hz=rate, pretrigger_s=pre, delay_s=delay,

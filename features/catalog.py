@@ -278,11 +278,11 @@ def open_catalog(path) -> Catalog:
     if "field" not in manifest:
         problems.add("catalog.json: key 'field' is required (the fast-antenna channel)")
     else:
-        fld = _channel("field", folder, manifest["field"], problems, n_events)
+        fld = _channel("field", folder, manifest["field"], problems, n_events, notes)
 
     vhf = None
     if manifest.get("vhf") is not None:
-        vhf = _channel("vhf", folder, manifest["vhf"], problems, n_events)
+        vhf = _channel("vhf", folder, manifest["vhf"], problems, n_events, notes)
     elif (folder / "vhf.npy").exists():
         notes.append("vhf.npy is present but catalog.json declares no 'vhf' channel; ignored")
 

@@ -204,9 +204,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     fs = float(sample_rate_hz)
     rng = np.full(n, np.nan) if range_m is None else np.asarray(range_m, dtype=np.float64)
     i0, i1 = _index_range(m, fs, pretrigger_s, analysis_window_s)
-    if i1 - i0 < 8:
-        raise ValueError(f"the analysis window {analysis_window_s} s holds fewer than 8 samples "
-                         f"of a {m}-sample record at {fs:g} Hz")
+    if i1 - i0 < 8:  # the trigger lies outside the record: use all of it
+        analysis_window_s = peak_search_s = (-pretrigger_s, m / fs - pretrigger_s)
+        i0 = 0
     base, sigma = _baseline_noise(x, i0, quantum_v_per_m)
     kw = dict(pretrigger_s=pretrigger_s, delay_s=delay_s, decay_time_s=decay_time_s,
               peak_search_s=peak_search_s, tl_speed_m_per_s=tl_speed_m_per_s)
@@ -246,7 +246,9 @@ def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, d
 
     # initial peak inside the search window
     p0, p1 = _index_range(m, fs, pretrigger_s, peak_search_s)
-    p0, p1 = max(p0 - i0, 0), max(min(p1 - i0, w), 1)
+    p0, p1 = max(p0 - i0, 0), min(p1 - i0, w)
+    if p1 <= p0:  # the search window lies outside this window: search all of it
+        p0, p1 = 0, w
     absw = np.abs(e[:, p0:p1])
     s = p0 + absw.argmax(axis=1)
     polarity = np.where(take_rows(e, s) >= 0, 1.0, -1.0)

@@ -288,3 +288,14 @@ def test_check_prints_summary(make_catalog, capsys):
     out = capsys.readouterr().out
     assert "events      6" in out and "sources     24 (4.0 per event" in out
     assert "ok: the catalog follows catalog v1" in out
+
+
+def test_trigger_outside_the_record_is_noted(make_catalog):
+    """A pre-trigger longer than the record is allowed but noted (pulses searched everywhere)."""
+    path = make_catalog("pre", _field(), field_meta={"pretrigger_s": 1e-3})
+    notes = " ".join(open_catalog(path).notes)
+    assert "'field.pretrigger_s' is 0.001 s but a record lasts 2e-05 s" in notes
+    from features.extract import extract_features
+
+    df = extract_features(open_catalog(path))
+    assert len(df) == N and df["field_ok"].all()

@@ -99,3 +99,35 @@ def test_nan_samples_do_not_break_a_row(make_catalog, decay):
     df = extract_features(open_catalog(path))
     assert df["field_ok"].all()
     assert np.isfinite(df.loc[0, SHAPE_COLS].astype(float)).all()
+
+
+def test_spec_literal_catalog_with_unusual_settings(make_catalog):
+    """A catalog written to the letter with valid but unusual choices still works.
+
+    5 MS/s int16 counts, atmospheric sign, no pre-trigger, VHF as a band-limited
+    voltage at 200 MS/s with a 1 us delay, no sources, no flash ids, no range.
+    The pulse (invented, for self-consistency) is a half-sine of 6 us.
+    """
+    fs, m = 5e6, 1000
+    t = np.arange(m) / fs
+    rng = np.random.default_rng(3)
+    half = 6e-6
+    x = np.where((t >= 2e-6) & (t < 2e-6 + half), np.sin(np.pi * (t - 2e-6) / half), 0.0)
+    field = np.stack([-np.round((4.0 * x + rng.normal(0, 0.01, m)) / 0.01)] * 3).astype(np.int16)
+    tv = np.arange(40000) / 200e6
+    env = 0.01 + np.exp(-0.5 * ((tv - 3e-6 - 1e-6) / 0.3e-6) ** 2)
+    vhf = np.stack([np.sqrt(env) * np.cos(2 * np.pi * 55e6 * tv)] * 3).astype(np.float32)
+    ev = {"event_id": ["a", "b", "c"], "time_utc": ["2040-01-01T00:00:00.000000000Z"] * 3}
+    path = make_catalog("odd", field, events=ev, vhf=vhf,
+                        field_meta={"sample_rate_hz": fs, "pretrigger_s": 0.0, "units": "counts",
+                                    "scale": 0.01, "sign_convention": "atmospheric"},
+                        vhf_meta={"sample_rate_hz": 200e6, "pretrigger_s": 0.0,
+                                  "kind": "voltage", "band_hz": [30e6, 80e6], "delay_s": 1e-6})
+    df = extract_features(open_catalog(path))
+    assert (df["polarity"] == 1).all()              # stored atmospheric, read physics
+    assert_allclose(df["peak_field_v_per_m"], 4.0, rtol=0.02)
+    assert_allclose(df["zero_crossing_s"], half / 2, atol=1 / fs)
+    # field peak at 5 us, VHF peak at 3 us physical (recorded 4 us minus 1 us delay)
+    assert_allclose(df["vhf_field_lag_s"], 2e-6, atol=0.1e-6)
+    assert df["n_sources"].isna().all() and df["isolation_s"].isna().all()
+    assert df["has_vhf"].all() and not df["clipped"].any()
