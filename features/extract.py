@@ -63,10 +63,17 @@ class ChunkJob:
 
 
 def _column_span(ch: Channel, before_s: float, after_s: float) -> tuple[int, int]:
+    """Samples of a record from ``before_s`` to ``after_s`` around the trigger.
+
+    The whole record when that span holds fewer than 16 samples (a trigger
+    outside the record).
+    """
     i0 = int(np.floor((ch.pretrigger_s + before_s) * ch.sample_rate_hz))
     i1 = int(np.ceil((ch.pretrigger_s + after_s) * ch.sample_rate_hz)) + 1
-    i0 = min(max(i0, 0), ch.n_samples)
-    return i0, min(max(i1, i0 + 1), ch.n_samples)
+    i0, i1 = max(i0, 0), min(i1, ch.n_samples)
+    if i1 - i0 < 16:
+        return 0, ch.n_samples
+    return i0, i1
 
 
 def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
