@@ -45,6 +45,11 @@ logger = logging.getLogger("pulsesort")
 #: reference shape (8,000 field + 10,000 VHF samples per row).
 DEFAULT_CHUNK_SIZE = 512
 EVENT_PASS_THROUGH = ("time_utc", "flash_id")
+#: Names of triage output columns; an events.csv column of the same name (or
+#: starting with ``p_``) is carried through as ``events_<name>``.
+RESERVED_COLUMNS = frozenset({"catalog_id", "label", "confidence", "needs_review", "novel",
+                              "prediction_set", "review_reason", "novelty_score",
+                              "model_version", "group", "season", "station"})
 
 
 @dataclass(frozen=True)
@@ -141,8 +146,8 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
             out.insert(1 + EVENT_PASS_THROUGH.index(name), name, job.extras[name].to_numpy())
     for name in job.extras.columns:
         if name not in EVENT_PASS_THROUGH:
-            col = name if name not in out.columns else f"events_{name}"
-            out[col] = job.extras[name].to_numpy()
+            taken = name in out.columns or name in RESERVED_COLUMNS or name.startswith("p_")
+            out[f"events_{name}" if taken else name] = job.extras[name].to_numpy()
     out.index = pd.RangeIndex(job.start, job.stop)
     return out
 

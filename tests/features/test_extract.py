@@ -131,3 +131,16 @@ def test_spec_literal_catalog_with_unusual_settings(make_catalog):
     assert_allclose(df["vhf_field_lag_s"], 2e-6, atol=0.1e-6)
     assert df["n_sources"].isna().all() and df["isolation_s"].isna().all()
     assert df["has_vhf"].all() and not df["clipped"].any()
+
+
+def test_extra_event_columns_are_carried_and_never_clash(make_catalog):
+    """Other events.csv columns come through unchanged; names used by outputs get a prefix."""
+    ev = _events()
+    ev["operator_note"] = ["ok"] * N
+    ev["label"] = ["station-tag"] * N
+    ev["bipolarity"] = ["x"] * N
+    df = extract_features(open_catalog(make_catalog("extra", _pulses(20e6), events=ev)))
+    assert (df["operator_note"] == "ok").all()
+    assert (df["events_label"] == "station-tag").all() and "label" not in df
+    assert (df["events_bipolarity"] == "x").all()
+    assert df["bipolarity"].dtype.kind == "f"
