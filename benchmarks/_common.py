@@ -405,7 +405,7 @@ def _cell(v) -> str:
             return f"{v:,.0f}"
         if abs(v) >= 100:
             return f"{v:.0f}"
-        if abs(v) >= 1:
+        if abs(v) > 1:
             return f"{v:.2f}"
         return f"{v:.4f}"
     if isinstance(v, int):
