@@ -18,7 +18,7 @@ __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "feature_names", "model_feat
            "missing_groups", "format_table"]
 
 #: Bump when a definition changes in a way that changes values.
-SCHEMA_VERSION = "1.1"
+SCHEMA_VERSION = "1.2"
 
 
 @dataclass(frozen=True)
@@ -55,8 +55,9 @@ FEATURES: tuple[Feature, ...] = (
     Feature("event_id", "-", "from events.csv", "id", model=False),
     # ---------------------------------------------------------------- field
     Feature("peak_field_v_per_m", "V/m", "signed initial peak of the field change (physics "
-            "convention, baseline removed, decay-compensated); largest |E| within -20..+40 us "
-            "of the trigger", "field"),
+            "convention, baseline removed, decay-compensated): the first local maximum of |E| "
+            "from 3 us before the trigger that reaches 15 % of the largest |E| within 40 us "
+            "after it", "field"),
     Feature("polarity", "1", "+1 / -1: sign of the initial peak", "field"),
     Feature("rise_time_s", "s", "10 % to 90 % of the initial peak on its leading edge",
             "field"),

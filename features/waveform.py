@@ -12,8 +12,10 @@ Definitions (the contract of :mod:`features.schema`):
 * **decay compensation**: a fast antenna with RC constant tau records
   y with dy/dt + y/tau = dE/dt, so E(t) = y(t) + (1/tau) int y dt
   (first-order high-pass inverted; common practice for fast antennas).
-* **initial peak**: the largest |E| within ``PEAK_SEARCH_S`` of the trigger,
-  refined by a parabola through three samples. Its sign is the polarity; below,
+* **initial peak**: within ``PEAK_SEARCH_S`` of the trigger, the first local
+  maximum of |E| (over +-0.5 us) that reaches ``PEAK_FRACTION`` of the largest
+  |E| there (and 4 noise sigmas), refined by a parabola through three samples:
+  the catalogued pulse, not a bigger neighbour later in its train. Its sign is the polarity; below,
   ``u = polarity * E`` so that the initial peak P is positive.
 * **valley**: the lowest u within four times the 50 %-to-peak time before the
   peak; leading-edge crossings are searched after it, so a pulse riding on its
@@ -55,7 +57,7 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from scipy import constants
+from scipy import constants, ndimage
 
 from ._rowops import (
     crossing_after,
@@ -80,7 +82,10 @@ __all__ = [
 #: Analysis window relative to the trigger (recorded time), in seconds.
 ANALYSIS_WINDOW_S = (-40e-6, 160e-6)
 #: Where the initial peak is searched, relative to the trigger, in seconds.
-PEAK_SEARCH_S = (-20e-6, 40e-6)
+PEAK_SEARCH_S = (-3e-6, 40e-6)
+#: The initial peak is the first local maximum reaching this fraction of the
+#: largest |E| of the search window (common practice, no source).
+PEAK_FRACTION = 0.15
 #: Longest stretch of pre-window record used for baseline and noise, in seconds.
 BASELINE_MAX_S = 60e-6
 #: Transmission-line return-stroke speed assumed for ``peak_current_a``, m/s.
@@ -213,8 +218,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     # Most pulses are over within tens of microseconds: measure every row on a
     # short window first, and again on the full window only where a crossing or
     # the overshoot lobe runs to the short window's edge (wide pulses).
-    short = (max(analysis_window_s[0], peak_search_s[0] - 5e-6),
-             min(analysis_window_s[1], peak_search_s[1] + 10e-6))
+    short = (max(analysis_window_s[0], -25e-6), min(analysis_window_s[1], 50e-6))
+    s0, s1 = _index_range(m, fs, pretrigger_s, short)
+    if s1 - s0 < 8:
+        short = tuple(analysis_window_s)
     out, longer = _field_window(x, fs, base, sigma, rng, window_s=short, **kw)
     if longer.any() and short != tuple(analysis_window_s):
         rows = np.flatnonzero(longer)
@@ -250,7 +257,15 @@ def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, d
     if p1 <= p0:  # the search window lies outside this window: search all of it
         p0, p1 = 0, w
     absw = np.abs(e[:, p0:p1])
-    s = p0 + absw.argmax(axis=1)
+    # the initial peak is the first local maximum of |E| (within +-0.5 us) that
+    # reaches PEAK_FRACTION of the largest |E| of the search window (and four
+    # noise sigmas): the catalogued pulse, not a bigger neighbour later in a train
+    half = max(int(round(0.5e-6 * fs)), 1)
+    local = absw >= ndimage.maximum_filter1d(absw, 2 * half + 1, axis=1, mode="nearest")
+    top = absw.max(axis=1)
+    level = np.maximum(PEAK_FRACTION * top, np.minimum(top, 4 * sigma))
+    first, found = first_true(local & (absw >= level[:, None]))
+    s = p0 + np.where(found, first, absw.argmax(axis=1))
     polarity = np.where(take_rows(e, s) >= 0, 1.0, -1.0)
     u = e * polarity[:, None]
     s_frac, peak = parabolic_peak(u, s)
