@@ -261,7 +261,10 @@ def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, d
     # reaches PEAK_FRACTION of the largest |E| of the search window (and four
     # noise sigmas): the catalogued pulse, not a bigger neighbour later in a train
     half = max(int(round(0.5e-6 * fs)), 1)
-    local = absw >= ndimage.maximum_filter1d(absw, 2 * half + 1, axis=1, mode="nearest")
+    ext = max(p0 - half, 0)      # look a little before the window: its first sample is
+    wide = np.abs(e[:, ext:p1])  # a peak only if the field was lower just before it
+    local = (absw >= ndimage.maximum_filter1d(wide, 2 * half + 1, axis=1,
+                                              mode="nearest")[:, p0 - ext:])
     top = absw.max(axis=1)
     level = np.maximum(PEAK_FRACTION * top, np.minimum(top, 4 * sigma))
     first, found = first_true(local & (absw >= level[:, None]))
