@@ -44,12 +44,12 @@ from scipy.optimize import minimize_scalar
 from scipy.special import log_softmax
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.ensemble import HistGradientBoostingClassifier
-from sklearn.metrics.pairwise import nan_euclidean_distances
 from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-__all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "season_thresholds"]
+__all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_euclidean",
+           "season_thresholds"]
 
 _EPS = 1e-12
 #: Fewest calibration rows of a pattern of missing column groups for its own temperature.
@@ -115,6 +115,24 @@ def conformal_thresholds(proba, y_index, n_classes, coverage):
         if n and rank <= n:
             q[k] = s[rank - 1]
     return q
+
+
+def nan_euclidean(A, B):
+    """NaN-aware Euclidean distances between the rows of ``A`` and ``B``.
+
+    The same definition as :func:`sklearn.metrics.pairwise.nan_euclidean_distances`
+    (coordinates missing in either row are left out and the sum is scaled by
+    n_features / n_present), computed with four float64 matrix products; NaN
+    where two rows share no coordinate.
+    """
+    ma, mb = ~np.isnan(A), ~np.isnan(B)
+    a, b = np.where(ma, A, 0.0), np.where(mb, B, 0.0)
+    fa, fb = ma.astype(np.float64), mb.astype(np.float64)
+    sq = (a * a) @ fb.T + fa @ (b * b).T - 2.0 * (a @ b.T)
+    n = fa @ fb.T
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d2 = np.maximum(sq, 0.0) * (A.shape[1] / n)
+    return np.sqrt(np.where(n > 0, d2, np.nan))
 
 
 def season_thresholds(proba, coverage, fallback):
@@ -507,7 +525,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         k = min(self.novelty_k if k is None else k, len(self.reference_X_))
         out = np.empty(len(Z))
         for s in range(0, len(Z), 1024):
-            d = nan_euclidean_distances(Z[s:s + 1024], self.reference_X_)
+            d = nan_euclidean(Z[s:s + 1024], self.reference_X_)
             if exclude is not None:
                 rows = np.arange(d.shape[0])
                 ex = exclude[s:s + 1024]
@@ -573,7 +591,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
     def nearest_labelled(self, X, k=5):
         """Indices into the reference set and distances of the ``k`` nearest, each (n, k)."""
         Z = self._standardise(self._validate(X))
-        d = nan_euclidean_distances(Z, self.reference_X_)
+        d = nan_euclidean(Z, self.reference_X_)
         d = np.where(np.isfinite(d), d, np.inf)
         k = min(k, d.shape[1])
         idx = np.argsort(d, axis=1, kind="stable")[:, :k]

@@ -113,3 +113,16 @@ def test_bad_parameters_are_named():
     X, y, _ = _blobs(60)
     with pytest.raises(ValueError, match="'coverage' must be a float in \\(0, 1\\), got 1.5"):
         PulseClassifier(coverage=1.5).fit(X, y)
+
+
+def test_nan_euclidean_matches_scikit_learn():
+    """Our NaN-aware distance equals sklearn's nan_euclidean_distances (reference)."""
+    from sklearn.metrics.pairwise import nan_euclidean_distances
+
+    from classify.models import nan_euclidean
+
+    rng = np.random.default_rng(0)
+    A, B = rng.normal(size=(40, 6)), rng.normal(size=(25, 6))
+    A[rng.random(A.shape) < 0.2] = np.nan
+    B[rng.random(B.shape) < 0.2] = np.nan
+    assert_allclose(nan_euclidean(A, B), nan_euclidean_distances(A, B), rtol=1e-9, atol=1e-9)
