@@ -10,9 +10,12 @@ and the output says so (``model_version = "rules-<n>"``).
 The thresholds, with their sources (values recalled from memory unless stated):
 
 narrow_bipolar (NBE; compact intracloud discharge)
-    initial half-cycle 1.5-10 us (2-8 us typical) and a clear overshoot
-    (bipolarity > 0.15): Smith et al. (1999, JGR 104, 4189); Rakov & Uman
-    (2003, ch. 9); isolated in time: no other catalogued pulse within about
+    initial half-cycle 1.5-10 us (2-8 us typical), a full width of 8 us or more
+    (10-30 us typical) and a clear overshoot (bipolarity > 0.15): Smith et al.
+    (1999, JGR 104, 4189); Rakov & Uman (2003, ch. 9); at the start of an
+    intracloud flash or alone (they often initiate one), not on an old channel
+    (time in flash < 5-50 ms, channel reuse < 0.2-0.5: common practice, no
+    source); isolated in time: no other catalogued pulse within about
     100 us (isolation criterion of NBE studies; the exact window varies,
     common practice); VHF far stronger than other in-cloud pulses (10-30 dB):
     here a VHF peak 20-30 dB over the noise floor (common practice, no
@@ -41,7 +44,7 @@ import pandas as pd
 
 __all__ = ["RULES_VERSION", "CLASSES", "rule_scores", "rule_proba"]
 
-RULES_VERSION = "rules-1"
+RULES_VERSION = "rules-2"
 CLASSES = ("energetic_in_cloud", "narrow_bipolar", "recoil", "stepped_leader")
 SHARPNESS = 3.0
 _FLOOR = 0.02
@@ -107,10 +110,13 @@ def rule_scores(df: pd.DataFrame, vhf_reference_db=None) -> pd.DataFrame:
     scores = {
         "narrow_bipolar": _combine(
             _band(ihc, 1.0e-6, 1.5e-6, 8e-6, 12e-6),
+            _ramp_up(f["width_s"], 4e-6, 8e-6),
             _ramp_up(bip, 0.08, 0.15),
             _ramp_up(iso_any, 30e-6, 100e-6),
             strong_vhf,
             _ramp_down(current, 120e3, 200e3),
+            _ramp_down(t_in, 5e-3, 50e-3),
+            _ramp_down(reuse, 0.2, 0.5, log=False),
         ),
         "stepped_leader": _combine(
             _ramp_down(f["width_s"], 3e-6, 6e-6),

@@ -122,7 +122,7 @@ def test_rules_mode_needs_no_labels(tmp_path):
     out = tmp_path / "r.csv"
     assert main(["triage", str(cat), "--rules", "--out", str(out)]) == 0
     df = read_results(out)
-    assert df["model_version"].eq("rules-1").all()
+    assert df["model_version"].eq("rules-2").all()
     assert {"p_narrow_bipolar", "p_stepped_leader", "p_recoil",
             "p_energetic_in_cloud"} <= set(df.columns)
 
