@@ -205,9 +205,17 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
     if "units" in given and given["units"] == "V/m" and "scale" not in given:
         s["scale"] = None
     s.update(given)
-    # "none" from a command line means: no RC decay (DC-coupled record)
-    if isinstance(s["decay_time_s"], str) and s["decay_time_s"].lower() in ("none", "null"):
-        s["decay_time_s"] = None
+    # from a command line the decay is text: "none" (a DC-coupled record) or a number
+    if isinstance(s["decay_time_s"], str):
+        text = s["decay_time_s"].strip()
+        if text.lower() in ("none", "null"):
+            s["decay_time_s"] = None
+        else:
+            try:
+                s["decay_time_s"] = float(text)
+            except ValueError:
+                raise ValueError(f"setting 'decay_time_s' must be a number of seconds or "
+                                 f"'none', got {text!r}") from None
 
     for name in ("station", "season"):
         if not isinstance(s[name], str) or not s[name].strip():

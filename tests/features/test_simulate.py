@@ -397,3 +397,19 @@ def test_cli_bad_option_exits_2_naming_it(tmp_path, capsys):
     assert main(["simulate", str(tmp_path / "x"), "--events", "5", "--seed", "1",
                  "--class-mix", "recoil"]) == 2
     assert "--class-mix" in capsys.readouterr().err
+
+
+def test_cli_decay_time_as_number_or_none(tmp_path):
+    """`--decay-time-s 2e-4` and `--decay-time-s none` both work from the command line."""
+    import json
+
+    from classify.cli import main
+
+    for text, expected in (("2e-4", 2e-4), ("none", None)):
+        out = tmp_path / f"c{text}"
+        assert main(["simulate", str(out), "--events", "5", "--seed", "1", "--field-samples",
+                     "400", "--vhf-samples", "500", "--pretrigger-s", "1e-5",
+                     "--decay-time-s", text]) == 0
+        assert json.loads((out / "catalog.json").read_text())["field"]["decay_time_s"] == expected
+    assert main(["simulate", str(tmp_path / "bad"), "--events", "5", "--seed", "1",
+                 "--decay-time-s", "soon"]) == 2
