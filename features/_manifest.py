@@ -102,6 +102,12 @@ class Channel:
         """Memory-map the channel's array (read-only)."""
         return np.load(self.file, mmap_mode="r", allow_pickle=False)
 
+    def read_rows(self, start: int, stop: int) -> np.ndarray:
+        """Rows ``start:stop`` as stored (file units), read without a lasting memory map."""
+        from ._rowio import NpyRows
+
+        return NpyRows(self.file).read(start, stop)
+
     def clipped_rows(self, raw: np.ndarray) -> np.ndarray:
         """Rows of a raw (file-unit) block with any sample at or beyond full scale."""
         out = np.zeros(raw.shape[0], dtype=bool)

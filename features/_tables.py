@@ -8,6 +8,7 @@ Private to :mod:`features.catalog`. Every problem is collected in a
 from __future__ import annotations
 
 import os
+import shutil
 import tempfile
 import weakref
 from dataclasses import dataclass
@@ -188,49 +189,112 @@ class SourceTable:
         return np.diff(self.offsets)
 
     def rows(self, start: int, stop: int) -> SourceTable:
-        """The sources of events ``start:stop``, with ``event_index`` relative to ``start``."""
+        """The sources of events ``start:stop``, with ``event_index`` relative to ``start``.
+
+        Columns come back as float64 / int64 copies (a spilled table is read
+        with plain file reads, so memory stays flat).
+        """
         lo, hi = int(self.offsets[start]), int(self.offsets[stop])
         return SourceTable(
-            event_index=np.asarray(self.event_index[lo:hi]) - start,
-            t_s=np.asarray(self.t_s[lo:hi]),
-            azimuth_deg=np.asarray(self.azimuth_deg[lo:hi]),
-            elevation_deg=np.asarray(self.elevation_deg[lo:hi]),
-            xyz_m=None if self.xyz_m is None else np.asarray(self.xyz_m[lo:hi]),
-            power_db=None if self.power_db is None else np.asarray(self.power_db[lo:hi]),
+            event_index=_take(self.event_index, lo, hi).astype(np.int64) - start,
+            t_s=_take(self.t_s, lo, hi).astype(np.float64),
+            azimuth_deg=_take(self.azimuth_deg, lo, hi).astype(np.float64),
+            elevation_deg=_take(self.elevation_deg, lo, hi).astype(np.float64),
+            xyz_m=None if self.xyz_m is None else _take(self.xyz_m, lo, hi).astype(np.float64),
+            power_db=(None if self.power_db is None
+                      else _take(self.power_db, lo, hi).astype(np.float64)),
             offsets=np.asarray(self.offsets[start:stop + 1]) - lo,
         )
 
 
+def _take(arr: np.ndarray, lo: int, hi: int) -> np.ndarray:
+    """``arr[lo:hi]`` as a new array; a memory-mapped column is read with ``os.pread``."""
+    if isinstance(arr, np.memmap) and arr.filename:
+        width = int(np.prod(arr.shape[1:], dtype=np.int64))
+        item = arr.dtype.itemsize * width
+        fd = os.open(arr.filename, os.O_RDONLY)
+        try:
+            data = os.pread(fd, (hi - lo) * item, arr.offset + lo * item)
+        finally:
+            os.close(fd)
+        return np.frombuffer(data, dtype=arr.dtype).reshape((hi - lo,) + arr.shape[1:]).copy()
+    return np.array(arr[lo:hi])
+
+
+#: Storage dtype of each source column (float32 keeps angles to ~1e-5 deg and
+#: positions to ~1 cm at 100 km; times stay float64).
+_SOURCE_DTYPES = {"event_index": np.int32, "t_s": np.float64, "azimuth_deg": np.float32,
+                  "elevation_deg": np.float32, "xyz_m": np.float32, "power_db": np.float32}
+
+
 class _Columns:
-    """Growable per-column storage: RAM for small tables, memory-mapped temp files beyond."""
+    """Per-column storage: RAM for small tables, raw files in a temporary folder beyond.
+
+    Spilled columns are appended chunk by chunk, so parsing a 20-million-source
+    table never holds more than one CSV chunk in memory.
+    """
 
     def __init__(self, spill: bool):
         self.parts: dict[str, list[np.ndarray]] = {}
         self.spill = spill
+        self.tmpdir = tempfile.mkdtemp(prefix="pulsesort-sources-") if spill else None
+        self.rows: dict[str, int] = {}
+        self.width: dict[str, tuple] = {}
+
+    def _file(self, key):
+        return os.path.join(self.tmpdir, f"{key}.bin")
 
     def append(self, **arrays: np.ndarray) -> None:
         for k, v in arrays.items():
-            self.parts.setdefault(k, []).append(v)
+            v = np.ascontiguousarray(v, dtype=_SOURCE_DTYPES[k])
+            if self.spill:
+                with open(self._file(k), "ab") as fh:
+                    v.tofile(fh)
+                self.rows[k] = self.rows.get(k, 0) + len(v)
+                self.width[k] = v.shape[1:]
+            else:
+                self.parts.setdefault(k, []).append(v)
+
+    def column(self, key) -> np.ndarray:
+        """The whole column (a read-only memory map when spilled)."""
+        if not self.spill:
+            parts = self.parts.get(key, [])
+            return np.concatenate(parts) if parts else np.empty(0, _SOURCE_DTYPES[key])
+        n = self.rows.get(key, 0)
+        if n == 0:
+            return np.empty((0,) + self.width.get(key, ()), _SOURCE_DTYPES[key])
+        return np.memmap(self._file(key), dtype=_SOURCE_DTYPES[key], mode="r",
+                         shape=(n,) + self.width[key])
 
     def finish(self, order: np.ndarray | None) -> dict[str, np.ndarray]:
+        """Every column, reordered by ``order`` when given."""
         out = {}
-        tmpdir = tempfile.mkdtemp(prefix="pulsesort-sources-") if self.spill else None
-        for k, parts in self.parts.items():
-            arr = np.concatenate(parts) if parts else np.empty(0)
-            self.parts[k] = []
+        for k in list(self.rows) if self.spill else list(self.parts):
+            col = self.column(k)
             if order is not None:
-                arr = arr[order]
-            if tmpdir is not None:
-                mm = np.lib.format.open_memmap(os.path.join(tmpdir, f"{k}.npy"), mode="w+",
-                                               dtype=arr.dtype, shape=arr.shape)
-                mm[...] = arr
-                mm.flush()
-                del arr
-                arr = np.load(os.path.join(tmpdir, f"{k}.npy"), mmap_mode="r")
-            out[k] = arr
-        if tmpdir is not None:
-            out["_tmpdir"] = tmpdir
+                col = np.asarray(col)[order]          # unsorted input only: one column at once
+                if self.spill:
+                    col.tofile(self._file(k))
+                    col = self.column(k)
+            out[k] = col
+        self.parts = {}
         return out
+
+    def discard(self) -> None:
+        """Remove the temporary files (after a failed parse)."""
+        if self.tmpdir is not None:
+            shutil.rmtree(self.tmpdir, ignore_errors=True)
+
+
+def _decreases(ev: np.ndarray, block: int = 1 << 22) -> bool:
+    """Whether a (possibly memory-mapped) index column ever decreases, read in blocks."""
+    last = None
+    for lo in range(0, len(ev), block):
+        part = _take(ev, lo, min(lo + block, len(ev)))
+        if (np.diff(part) < 0).any() or (last is not None and part[0] < last):
+            return True
+        last = part[-1]
+    return False
 
 
 def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
@@ -260,6 +324,7 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
                 if missing:
                     problems.add(f"{fname}: required column(s) {missing} missing; header has "
                                  f"{list(chunk.columns)}")
+                    cols.discard()
                     return None
                 present = [c for c in SOURCE_XYZ if c in chunk.columns]
                 if 0 < len(present) < 3:
@@ -298,23 +363,31 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
             offset += len(chunk)
     except UnicodeDecodeError as exc:
         problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
+        cols.discard()
         return None
     except pd.errors.ParserError as exc:
         problems.add(f"{fname}: malformed CSV ({exc})")
+        cols.discard()
         return None
     if has_xyz is None:  # header only
         has_xyz, has_power = False, False
+    has_any = offset > 0
     if problems:
+        cols.discard()
         return None
-    ev = np.concatenate(cols.parts.get("event_index", [np.empty(0, np.int64)]))
+    ev = cols.column("event_index") if has_any else np.empty(0, np.int32)
     order = None
-    if ev.size and np.any(np.diff(ev) < 0):
-        order = np.argsort(ev, kind="stable")
+    if ev.size and _decreases(ev):
+        order = np.argsort(np.asarray(ev), kind="stable")
         notes.append(f"{fname}: rows are not in events.csv order; sorted on load")
     del ev
     arrays = cols.finish(order)
     event_index = arrays["event_index"]
-    offsets = np.searchsorted(event_index, np.arange(n_events + 1), side="left").astype(np.int64)
+    counts = np.zeros(n_events, dtype=np.int64)
+    for lo in range(0, len(event_index), 1 << 22):   # in blocks: no lasting memory map
+        part = _take(event_index, lo, min(lo + (1 << 22), len(event_index)))
+        counts += np.bincount(part, minlength=n_events)
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     table = SourceTable(
         event_index=event_index,
         t_s=arrays["t_s"],
@@ -324,8 +397,6 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
         power_db=arrays.get("power_db") if has_power else None,
         offsets=offsets,
     )
-    if "_tmpdir" in arrays:
-        import shutil
-
-        weakref.finalize(table, shutil.rmtree, arrays["_tmpdir"], True)
+    if cols.tmpdir is not None:
+        weakref.finalize(table, shutil.rmtree, cols.tmpdir, True)
     return table

@@ -135,17 +135,9 @@ class Catalog:
     def range_m(self) -> np.ndarray:
         return self.events["range_m"].to_numpy(dtype=np.float64)
 
-    @cached_property
-    def _field_array(self) -> np.ndarray:
-        return self.field.open()
-
-    @cached_property
-    def _vhf_array(self) -> np.ndarray | None:
-        return None if self.vhf is None else self.vhf.open()
-
     def read_field(self, start: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
         """Field rows ``start:stop`` in V/m (physics convention) and their clip flags."""
-        raw = np.asarray(self._field_array[start:stop])
+        raw = self.field.read_rows(start, stop)
         clipped = self.field.clipped_rows(raw)
         out = raw.astype(np.float64)
         out *= self.field.scale * self.field.sign
@@ -155,7 +147,7 @@ class Catalog:
         """VHF rows ``start:stop`` as stored (float64) and their clip flags."""
         if self.vhf is None:
             return None, np.zeros(stop - start, dtype=bool)
-        raw = np.asarray(self._vhf_array[start:stop])
+        raw = self.vhf.read_rows(start, stop)
         return raw.astype(np.float64), self.vhf.clipped_rows(raw)
 
     def chunk(self, start: int, stop: int) -> Chunk:
@@ -322,18 +314,17 @@ def scan_quality(catalog: Catalog, chunk_size: int = 4096) -> dict:
             "n_rows_field_clipped", "n_rows_vhf_clipped", "n_rows_with_vhf_nan",
             "n_rows_missing_vhf")
     out = dict.fromkeys(keys, 0)
-    field_arr = catalog._field_array
-    vhf_arr = catalog._vhf_array
+    has_vhf = catalog.vhf is not None
     for start, stop in catalog.chunk_bounds(chunk_size):
-        raw = np.asarray(field_arr[start:stop])
+        raw = catalog.field.read_rows(start, stop)
         fclip = catalog.field.clipped_rows(raw)
         if raw.dtype.kind == "f":
             nan = np.isnan(raw)
             out["n_rows_with_nan"] += int(nan.any(axis=1).sum())
             out["n_rows_missing_field"] += int(nan.all(axis=1).sum())
         vclip = np.zeros_like(fclip)
-        if vhf_arr is not None:
-            vraw = np.asarray(vhf_arr[start:stop])
+        if has_vhf:
+            vraw = catalog.vhf.read_rows(start, stop)
             vclip = catalog.vhf.clipped_rows(vraw)
             if vraw.dtype.kind == "f":
                 vnan = np.isnan(vraw)
@@ -342,6 +333,6 @@ def scan_quality(catalog: Catalog, chunk_size: int = 4096) -> dict:
         out["n_rows_field_clipped"] += int(fclip.sum())
         out["n_rows_vhf_clipped"] += int(vclip.sum())
         out["n_rows_clipped"] += int((fclip | vclip).sum())
-    if vhf_arr is None:
+    if not has_vhf:
         out["n_rows_missing_vhf"] = catalog.n_events
     return out

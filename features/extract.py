@@ -83,8 +83,7 @@ def _column_span(ch: Channel, before_s: float, after_s: float) -> tuple[int, int
 
 def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
     """Raw rows, their clip flags (whole row) and the column span as float64."""
-    arr = ch.open()
-    raw = np.asarray(arr[start:stop])
+    raw = ch.read_rows(start, stop)
     clipped = ch.clipped_rows(raw)
     seg = raw[:, cols[0]:cols[1]].astype(np.float64)
     return seg, clipped

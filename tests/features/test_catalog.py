@@ -299,3 +299,37 @@ def test_trigger_outside_the_record_is_noted(make_catalog):
 
     df = extract_features(open_catalog(path))
     assert len(df) == N and df["field_ok"].all()
+
+
+def test_large_source_tables_spill_to_disk(make_catalog, monkeypatch):
+    """Above the in-memory limit, sources live in temporary files, read per chunk."""
+    import features._tables as tables
+
+    monkeypatch.setattr(tables, "SOURCES_IN_MEMORY_MAX", 1)
+    ids = [f"e{i:04d}" for i in range(N)]
+    src = _sources(ids).assign(x_m=1.0, y_m=2.0, z_m=3.0).iloc[::-1]
+    cat = open_catalog(make_catalog("spill", _field(), sources=src))
+    assert isinstance(cat.sources.t_s, np.memmap)
+    part = cat.sources.rows(2, 4)
+    assert part.event_index.tolist() == [0] * 4 + [1] * 4
+    assert_allclose(part.t_s, [0, 1e-6, 2e-6, 3e-6] * 2)
+    assert_allclose(part.xyz_m, [[1.0, 2.0, 3.0]] * 8)
+    folder = cat.sources.t_s.filename.rsplit("/", 1)[0]
+    import gc
+    import os
+
+    del cat, part
+    gc.collect()
+    assert not os.path.exists(folder)  # temporary files go with the catalog
+
+
+@pytest.mark.parametrize("order,dtype", [("C", "<f4"), ("F", "<f8"), ("C", ">i2")])
+def test_row_reader_matches_numpy_load(tmp_path, order, dtype):
+    """NpyRows.read gives exactly numpy.load's rows, for C, Fortran and big-endian files."""
+    from features._rowio import NpyRows
+
+    a = np.asarray(np.random.default_rng(0).normal(0, 100, (37, 11)), dtype=dtype, order=order)
+    np.save(tmp_path / "a.npy", a)
+    rows = NpyRows(tmp_path / "a.npy")
+    np.testing.assert_array_equal(rows.read(5, 17), np.load(tmp_path / "a.npy")[5:17])
+    np.testing.assert_array_equal(rows.read(30, 99), a[30:])
