@@ -312,7 +312,7 @@ def test_large_source_tables_spill_to_disk(make_catalog, monkeypatch):
     assert isinstance(cat.sources.t_s, np.memmap)
     part = cat.sources.rows(2, 4)
     assert part.event_index.tolist() == [0] * 4 + [1] * 4
-    assert_allclose(part.t_s, [0, 1e-6, 2e-6, 3e-6] * 2)
+    assert_allclose(part.t_s, [3e-6, 2e-6, 1e-6, 0] * 2)  # file order kept within an event
     assert_allclose(part.xyz_m, [[1.0, 2.0, 3.0]] * 8)
     folder = cat.sources.t_s.filename.rsplit("/", 1)[0]
     import gc
