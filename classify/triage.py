@@ -204,8 +204,8 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
         return out
     settings = TriageSettings(model_dir=str(model_dir), catalog_id=cat.catalog_id,
                               catalog_has_vhf=cat.vhf is not None)
-    jobs = plan_chunks(cat, bounds=sample_bounds(cat.n_events))
-    proba = np.vstack(list(run_jobs(triage_chunk, jobs, n_jobs=n_jobs,
+    plan = plan_chunks(cat, bounds=sample_bounds(cat.n_events))
+    proba = np.vstack(list(run_jobs(triage_chunk, plan.jobs(), n_jobs=n_jobs,
                                     dask_address=dask_address, extra_args=(settings, True))))
     out["n_sample"] = len(proba)
     if adapt_priors:
@@ -273,7 +273,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
                               thresholds=adapted["thresholds"],
                               catalog_has_vhf=cat.vhf is not None, catalog_id=cat.catalog_id)
     key = _journal_key(cat, settings, chunk_size)
-    jobs = plan_chunks(cat, chunk_size)
+    plan = plan_chunks(cat, chunk_size)
     done, offset = 0, 0
     totals = {"n": 0, "n_review": 0, "n_novel": 0, "per_class": {}, "reasons": {}}
     if resume and journal.is_file() and partial.is_file():
@@ -285,19 +285,19 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
         totals = state["totals"]
         with open(partial, "r+b") as fh:
             fh.truncate(offset)
-        logger.info("resuming %s at chunk %d of %d", out, done, len(jobs))
+        logger.info("resuming %s at chunk %d of %d", out, done, len(plan))
     elif partial.exists():
         logger.info("%s: an unfinished run exists; starting again (use --resume to continue)",
                     partial)
     from features.extract import _progress
 
-    bar = _progress(sum(j.stop - j.start for j in jobs[done:]), progress, "triage")
+    bar = _progress(plan.n_pulses(done), progress, "triage")
     mode = "ab" if done else "wb"
     written = 0
     try:
         with open(partial, mode) as fh:
             for i, (columns, text, counts) in enumerate(
-                    run_jobs(triage_chunk, jobs[done:], n_jobs=n_jobs,
+                    run_jobs(triage_chunk, plan.jobs(done), n_jobs=n_jobs,
                              dask_address=dask_address, extra_args=(settings,)), start=done):
                 if i == 0:
                     fh.write((",".join(columns) + "\n").encode())
@@ -306,12 +306,12 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
                 os.fsync(fh.fileno())
                 _merge_counts(totals, counts)
                 _write_journal(journal, {"key": key, "chunks_done": i + 1, "bytes": fh.tell(),
-                                         "totals": totals, "n_chunks": len(jobs)})
+                                         "totals": totals, "n_chunks": len(plan)})
                 bar.update(counts["n"])
                 written += 1
                 if stop_after_chunks is not None and written >= stop_after_chunks:
                     return {"stopped": True, "chunks_done": i + 1}
-            if not jobs:
+            if not len(plan):
                 header = ["event_id"]
                 fh.write((",".join(header) + "\n").encode())
     finally:

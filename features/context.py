@@ -61,65 +61,79 @@ def _nearest_gap_s(time_ns, groups):
     return out
 
 
+#: Events per block when scanning the source table (memory stays flat).
+_BLOCK_EVENTS = 100_000
+
+
+def _block_cells(flash_code, time_ns, part, b0):
+    """Keys (flash, cell), absolute times and age limits of one block's sources."""
+    ev = part.event_index + b0
+    fl = flash_code[ev]
+    if part.xyz_m is not None:
+        pos = part.xyz_m / REUSE_CELL_M
+    else:
+        el, az = part.elevation_deg, part.azimuth_deg
+        pos = np.column_stack([az * np.cos(np.radians(el)), el]) / REUSE_CELL_DEG
+    keep = (fl >= 0) & np.isfinite(pos).all(axis=1)
+    cell = np.floor(np.where(np.isfinite(pos), pos, 0.0)).astype(np.int64)
+    # absolute source time in seconds (event trigger + t_s); float64 keeps ~0.5 us
+    t_abs = time_ns[ev].astype(np.float64) * 1e-9 + part.t_s
+    limit = time_ns[ev].astype(np.float64) * 1e-9 - REUSE_MIN_AGE_S
+    return ev, keep, fl, cell, t_abs, limit
+
+
+def _pack(fl, cells):
+    """One int64 key per (flash, cell): the flash in the top bits, cell indices below."""
+    dim = cells.shape[1]
+    bits = 39 // dim                       # 3-D: 13 bits per axis, 2-D: 19
+    cells = np.clip(cells + (1 << (bits - 1)), 1, (1 << bits) - 2)
+    key = fl.astype(np.int64)
+    for i in range(dim):
+        key = (key << bits) | cells[:, i]
+    return key
+
+
 def _channel_reuse(flash_code, time_ns, sources):
     n = len(flash_code)
     out = np.full(n, np.nan)
     if sources is None or sources.n_sources == 0:
         return out
-    ev = np.asarray(sources.event_index, dtype=np.int64)
-    fl = flash_code[ev]
-    keep = fl >= 0
-    if sources.xyz_m is not None:
-        pos = np.asarray(sources.xyz_m, dtype=np.float64) / REUSE_CELL_M
-    else:
-        el = np.asarray(sources.elevation_deg, dtype=np.float64)
-        az = np.asarray(sources.azimuth_deg, dtype=np.float64)
-        pos = np.column_stack([az * np.cos(np.radians(el)), el]) / REUSE_CELL_DEG
-    keep &= np.isfinite(pos).all(axis=1)
-    # absolute source time in seconds (event trigger + t_s); float64 keeps ~0.5 us
-    t_abs = time_ns[ev].astype(np.float64) * 1e-9 + np.asarray(sources.t_s, np.float64)
-    cell = np.floor(np.where(np.isfinite(pos), pos, 0.0)).astype(np.int64)
-    limit = time_ns[ev].astype(np.float64) * 1e-9 - REUSE_MIN_AGE_S
-    reused = np.zeros(len(ev), dtype=bool)
-    # flashes in blocks so that (flash, cell) always packs into one int64 key
-    block = 1 << 20
-    for lo in range(0, int(fl.max()) + 1 if keep.any() else 0, block):
-        sel = keep & (fl >= lo) & (fl < lo + block)
-        if sel.any():
-            reused[sel] = _reused_in_cells(fl[sel] - lo, cell[sel], t_abs[sel], limit[sel])
-    n_src = np.bincount(ev, minlength=n)
-    n_reused = np.bincount(ev, reused, minlength=n)
+    if flash_code.max(initial=0) >= 1 << 23:
+        raise ValueError("channel reuse supports up to 8 million flashes per catalog")
+    blocks = [(b0, min(b0 + _BLOCK_EVENTS, n)) for b0 in range(0, n, _BLOCK_EVENTS)]
+    # pass 1: earliest source time of every (flash, cell), block by block
+    keys, first = np.empty(0, np.int64), np.empty(0)
+    for b0, b1 in blocks:
+        _ev, keep, fl, cell, t_abs, _lim = _block_cells(flash_code, time_ns,
+                                                         sources.rows(b0, b1), b0)
+        k = np.concatenate([keys, _pack(fl[keep], cell[keep])])
+        t = np.concatenate([first, t_abs[keep]])
+        keys, inverse = np.unique(k, return_inverse=True)
+        first = np.full(len(keys), np.inf)
+        np.minimum.at(first, inverse, t)
+    # pass 2: a source is reused when its own or an adjacent cell was first hit
+    # early enough (at least REUSE_MIN_AGE_S before its pulse)
+    n_src = np.zeros(n)
+    n_reused = np.zeros(n)
+    for b0, b1 in blocks:
+        ev, keep, fl, cell, _t, limit = _block_cells(flash_code, time_ns,
+                                                     sources.rows(b0, b1), b0)
+        hit = np.zeros(int(keep.sum()), dtype=bool)
+        dim = cell.shape[1]
+        offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
+        fk, ck, lk = fl[keep], cell[keep], limit[keep]
+        for off in offsets:
+            probe = _pack(fk, ck + off)
+            loc = np.minimum(np.searchsorted(keys, probe), max(len(keys) - 1, 0))
+            found = (keys[loc] == probe) if len(keys) else np.zeros(len(probe), bool)
+            hit[found] |= first[loc[found]] <= lk[found]
+        reused = np.zeros(len(ev), dtype=bool)
+        reused[keep] = hit
+        n_src += np.bincount(ev, minlength=n)
+        n_reused += np.bincount(ev, reused, minlength=n)
     has = n_src > 0
-    out[has] = n_reused[has] / n_src[has]
-    # pulses with sources but no flash: nothing earlier to reuse
+    out[has] = n_reused[has] / n_src[has]  # pulses without a flash: nothing to reuse (0)
     return out
-
-
-def _reused_in_cells(fl, cell, t_abs, limit):
-    """Whether a source's own or an adjacent cell of its flash was hit before ``limit``."""
-    dim = cell.shape[1]
-    # one int64 key per (flash, cell): the flash (< 2**20) in the top bits, each
-    # cell index (offset to be positive, clipped to its bit range) below
-    bits = 42 // dim
-    cell = np.clip(cell + (1 << (bits - 1)), 1, (1 << bits) - 2)
-
-    def pack(cells):
-        key = fl.astype(np.int64)
-        for i in range(dim):
-            key = (key << bits) | cells[:, i]
-        return key
-
-    uniq, inverse = np.unique(pack(cell), return_inverse=True)
-    first = np.full(len(uniq), np.inf)
-    np.minimum.at(first, inverse, t_abs)       # earliest source time per (flash, cell)
-    hit = np.zeros(len(fl), dtype=bool)
-    offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
-    for off in offsets:
-        probe = pack(cell + off)
-        loc = np.minimum(np.searchsorted(uniq, probe), len(uniq) - 1)
-        found = uniq[loc] == probe
-        hit[found] |= first[loc[found]] <= limit[found]
-    return hit
 
 
 def flash_context(events, time_ns, sources=None):

@@ -14,7 +14,7 @@ from __future__ import annotations
 import logging
 import os
 import sys
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -36,7 +36,8 @@ from .waveform import (
     field_features,
 )
 
-__all__ = ["ChunkJob", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks", "iter_features",
+__all__ = ["ChunkJob", "ChunkPlan", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks",
+           "iter_features",
            "extract_features", "run_jobs", "write_csv_rows", "format_for_csv"]
 
 logger = logging.getLogger("pulsesort")
@@ -151,26 +152,52 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     return out
 
 
-def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE,
-                bounds: list[tuple[int, int]] | None = None) -> list[ChunkJob]:
-    """Split ``catalog`` into :class:`ChunkJob` objects (flash context computed here).
+class ChunkPlan(Sequence):
+    """The chunks of a catalog as a lazy sequence of :class:`ChunkJob` objects.
 
-    ``bounds`` gives explicit ``(start, stop)`` row ranges instead of consecutive
-    chunks of ``chunk_size`` rows.
+    Jobs are built when they are taken (``plan[i]``, iteration), so planning a
+    million-pulse season costs the flash context and nothing per chunk.
     """
-    ctx = flash_context(catalog.events, catalog.time_ns, catalog.sources)
-    extras = catalog.events.drop(columns=["event_id", "range_m"])
-    ids = catalog.event_ids
-    jobs = []
-    for start, stop in (catalog.chunk_bounds(chunk_size) if bounds is None else bounds):
-        jobs.append(ChunkJob(
-            start=start, stop=stop, field=catalog.field, vhf=catalog.vhf,
-            event_id=ids[start:stop], range_m=catalog.range_m[start:stop].copy(),
-            sources=None if catalog.sources is None else catalog.sources.rows(start, stop),
-            context={k: v[start:stop] for k, v in ctx.items()},
-            extras=extras.iloc[start:stop].reset_index(drop=True),
-        ))
-    return jobs
+
+    def __init__(self, catalog: Catalog, bounds: list[tuple[int, int]]):
+        self.catalog = catalog
+        self.bounds = list(bounds)
+        self.context = flash_context(catalog.events, catalog.time_ns, catalog.sources)
+        self._extra_columns = [c for c in catalog.events.columns
+                               if c not in ("event_id", "range_m")]
+
+    def __len__(self) -> int:
+        return len(self.bounds)
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return [self[j] for j in range(*i.indices(len(self)))]
+        start, stop = self.bounds[i]
+        cat = self.catalog
+        return ChunkJob(
+            start=start, stop=stop, field=cat.field, vhf=cat.vhf,
+            event_id=cat.event_ids[start:stop], range_m=cat.range_m[start:stop].copy(),
+            sources=None if cat.sources is None else cat.sources.rows(start, stop),
+            context={k: v[start:stop] for k, v in self.context.items()},
+            extras=cat.events.iloc[start:stop][self._extra_columns].reset_index(drop=True),
+        )
+
+    def n_pulses(self, first: int = 0) -> int:
+        """Pulses in the chunks from ``first`` on."""
+        return sum(b - a for a, b in self.bounds[first:])
+
+    def jobs(self, first: int = 0):
+        """Iterate the jobs from chunk ``first`` on, building each when it is needed."""
+        return (self[i] for i in range(first, len(self)))
+
+
+def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE,
+                bounds: list[tuple[int, int]] | None = None) -> ChunkPlan:
+    """Split ``catalog`` into chunks of ``chunk_size`` rows (or explicit ``bounds``).
+
+    Returns a lazy :class:`ChunkPlan`; the flash context is computed here, once.
+    """
+    return ChunkPlan(catalog, catalog.chunk_bounds(chunk_size) if bounds is None else bounds)
 
 
 def _progress(total: int, enabled: bool | None, desc: str):
@@ -213,7 +240,7 @@ def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None,
     """
     if dask_address:
         yield from _run_dask(func, jobs, dask_address, extra_args)
-    elif n_jobs == 1 or len(jobs) <= 1:
+    elif n_jobs == 1:
         for job in jobs:
             yield func(job, *extra_args)
     else:
@@ -242,8 +269,9 @@ def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_j
     start_chunk : int, default=0
         Skip the chunks before this one (to resume an interrupted run).
     """
-    jobs = plan_chunks(catalog, chunk_size)[start_chunk:]
-    bar = _progress(sum(j.stop - j.start for j in jobs), progress, "features")
+    plan = plan_chunks(catalog, chunk_size)
+    jobs = plan.jobs(start_chunk)
+    bar = _progress(plan.n_pulses(start_chunk), progress, "features")
     try:
         for df in run_jobs(compute_chunk, jobs, n_jobs=n_jobs, dask_address=dask_address):
             bar.update(len(df))
