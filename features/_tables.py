@@ -64,8 +64,51 @@ def _parse_float_column(values: pd.Series, fname: str, column: str, problems: Pr
     return out
 
 
+def _event_chunk(raw: pd.DataFrame, fname: str, offset: int, problems: Problems,
+                 counts: dict) -> pd.DataFrame:
+    """Parse and check one chunk of events.csv (rows ``offset`` on)."""
+    event_id = raw["event_id"].astype(str)
+    for i in np.flatnonzero(event_id.str.strip().eq("").to_numpy()):
+        problems.add(f"{fname} {_line(i + offset)}: column 'event_id' is empty",
+                     key=f"{fname}:id-empty")
+    text = raw["time_utc"].astype(str).str.strip()
+    times = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
+    bad_time = times.isna().to_numpy()
+    for i in np.flatnonzero(bad_time):
+        problems.add(f"{fname} {_line(i + offset)}: column 'time_utc' must be an ISO-8601 UTC "
+                     f"time like 2031-07-14T21:03:55.123456Z, got {raw['time_utc'].iloc[i]!r}",
+                     key=f"{fname}:time")
+    if len(text) and not bad_time.all():
+        has_zone = text.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
+        counts["no_zone"] += int((~has_zone).sum())
+        frac = text.str.extract(r"\.(\d+)", expand=False).str.len().fillna(0)
+        counts["coarse"] += int((frac < 6).sum())
+    out = pd.DataFrame({"event_id": event_id,
+                        "time_utc": times.astype("datetime64[ns, UTC]")})
+    if "flash_id" in raw.columns:
+        flash = raw["flash_id"].astype(str)
+        spaced = flash.str.len() != flash.str.strip().str.len()
+        out["flash_id"] = flash.str.strip() if spaced.any() else flash
+    else:
+        out["flash_id"] = ""
+    if "range_m" in raw.columns:
+        rng = _parse_float_column(raw["range_m"], fname, "range_m", problems, allow_empty=True,
+                                  line_offset=offset)
+        for i in np.flatnonzero(rng <= 0):
+            problems.add(f"{fname} {_line(i + offset)}: column 'range_m' must be > 0 (metres), "
+                         f"got {raw['range_m'].iloc[i]!r}", key=f"{fname}:range")
+        rng[rng <= 0] = np.nan
+        out["range_m"] = rng
+    else:
+        out["range_m"] = np.full(len(raw), np.nan)
+    for col in raw.columns:
+        if col not in EVENT_COLUMNS:
+            out[col] = raw[col]
+    return out
+
+
 def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFrame | None:
-    """Read and validate events.csv.
+    """Read and validate events.csv (in chunks, so only the parsed table stays in memory).
 
     Returns a DataFrame with ``event_id`` (str), ``time_utc`` (datetime64[ns, UTC]),
     ``flash_id`` (str, "" for none), ``range_m`` (float64 m, NaN unknown) and any
@@ -73,8 +116,26 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
     """
     fname = path.name
     try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                          encoding="utf-8", skipinitialspace=False)
+        reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
+                             encoding="utf-8", skipinitialspace=False,
+                             chunksize=_CSV_CHUNK_ROWS)
+        parts, offset, header = [], 0, None
+        counts = {"no_zone": 0, "coarse": 0}
+        for raw in reader:
+            raw.columns = [str(c).strip() for c in raw.columns]
+            if header is None:
+                header = list(raw.columns)
+                missing = [c for c in ("event_id", "time_utc") if c not in header]
+                if missing:
+                    problems.add(f"{fname}: required column(s) {missing} missing; header has "
+                                 f"{header}")
+                    return None
+                dup_cols = sorted({c for c in header if header.count(c) > 1})
+                if dup_cols:
+                    problems.add(f"{fname}: header repeats column(s) {dup_cols}")
+                    return None
+            parts.append(_event_chunk(raw, fname, offset, problems, counts))
+            offset += len(raw)
     except FileNotFoundError:
         problems.add(f"{fname}: file not found at {path}")
         return None
@@ -84,22 +145,20 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
         problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
         return None
-    raw.columns = [str(c).strip() for c in raw.columns]
-    missing = [c for c in ("event_id", "time_utc") if c not in raw.columns]
-    if missing:
-        problems.add(f"{fname}: required column(s) {missing} missing; header has "
-                     f"{list(raw.columns)}")
-        return None
-    dup_cols = raw.columns[raw.columns.duplicated()].tolist()
-    if dup_cols:
-        problems.add(f"{fname}: header repeats column(s) {dup_cols}")
-        return None
-    if len(raw) == 0:
+    if not parts:
         problems.add(f"{fname}: no event rows after the header")
-
-    event_id = raw["event_id"].astype(str)
-    for i in np.flatnonzero(event_id.str.strip().eq("").to_numpy()):
-        problems.add(f"{fname} {_line(i)}: column 'event_id' is empty", key=f"{fname}:id-empty")
+        return None
+    out = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
+    del parts
+    if len(out) == 0:
+        problems.add(f"{fname}: no event rows after the header")
+    if counts["no_zone"]:
+        notes.append(f"{fname}: {counts['no_zone']} time_utc value(s) carry no time zone; "
+                     "read as UTC")
+    if counts["coarse"]:
+        notes.append(f"{fname}: {counts['coarse']} time_utc value(s) have less than "
+                     "microsecond precision")
+    event_id = out["event_id"]
     dup = event_id.duplicated(keep="first").to_numpy()
     if dup.any():
         first = {}
@@ -109,42 +168,6 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
             problems.add(f"{fname} {_line(i)}: event_id {event_id.iloc[i]!r} is not unique "
                          f"(first seen on {_line(first[event_id.iloc[i]])})",
                          key=f"{fname}:id-dup")
-
-    text = raw["time_utc"].astype(str).str.strip()
-    times = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
-    bad_time = times.isna().to_numpy()
-    for i in np.flatnonzero(bad_time):
-        problems.add(f"{fname} {_line(i)}: column 'time_utc' must be an ISO-8601 UTC time "
-                     f"like 2031-07-14T21:03:55.123456Z, got {raw['time_utc'].iloc[i]!r}",
-                     key=f"{fname}:time")
-    if len(text) and not bad_time.all():
-        has_zone = text.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
-        if not has_zone.all():
-            notes.append(f"{fname}: {int((~has_zone).sum())} time_utc value(s) carry no time "
-                         "zone; read as UTC")
-        frac = text.str.extract(r"\.(\d+)", expand=False).str.len().fillna(0)
-        if (frac < 6).any():
-            notes.append(f"{fname}: {int((frac < 6).sum())} time_utc value(s) have less than "
-                         "microsecond precision")
-    times = times.astype("datetime64[ns, UTC]")
-
-    out = pd.DataFrame({"event_id": event_id, "time_utc": times})
-    if "flash_id" in raw.columns:
-        out["flash_id"] = raw["flash_id"].astype(str).str.strip()
-    else:
-        out["flash_id"] = ""
-    if "range_m" in raw.columns:
-        rng = _parse_float_column(raw["range_m"], fname, "range_m", problems, allow_empty=True)
-        for i in np.flatnonzero(rng <= 0):
-            problems.add(f"{fname} {_line(i)}: column 'range_m' must be > 0 (metres), got "
-                         f"{raw['range_m'].iloc[i]!r}", key=f"{fname}:range")
-        rng[rng <= 0] = np.nan
-        out["range_m"] = rng
-    else:
-        out["range_m"] = np.full(len(raw), np.nan)
-    for col in raw.columns:
-        if col not in EVENT_COLUMNS:
-            out[col] = raw[col]
     return out
 
 

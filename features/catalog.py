@@ -251,7 +251,6 @@ def open_catalog(path) -> Catalog:
 
     ev_name = manifest.get("events", "events.csv")
     events = None
-    ebytes = b""
     if not isinstance(ev_name, str) or not ev_name.strip():
         problems.add(f"catalog.json: 'events' must be the events file name, got {ev_name!r}")
     else:
@@ -262,7 +261,6 @@ def open_catalog(path) -> Catalog:
         elif not ev_path.is_file():
             problems.add(f"{ev_name}: file not found in {folder} (required)")
         else:
-            ebytes = ev_path.read_bytes()
             events = read_events(ev_path, problems, notes)
     n_events = None if events is None else len(events)
 
@@ -295,7 +293,9 @@ def open_catalog(path) -> Catalog:
     h = hashlib.sha256()
     h.update(mbytes)
     h.update(b"\0")
-    h.update(ebytes)
+    with open(folder / ev_name, "rb") as fh:  # in blocks: a big events table is not held
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
     return Catalog(path=folder, manifest=manifest, events=events, field=fld, vhf=vhf,
                    sources=sources, content_hash="sha256:" + h.hexdigest(), notes=tuple(notes))
 

@@ -333,3 +333,12 @@ def test_row_reader_matches_numpy_load(tmp_path, order, dtype):
     rows = NpyRows(tmp_path / "a.npy")
     np.testing.assert_array_equal(rows.read(5, 17), np.load(tmp_path / "a.npy")[5:17])
     np.testing.assert_array_equal(rows.read(30, 99), a[30:])
+
+
+def test_events_without_rows(make_catalog):
+    """A header-only events.csv is refused by name."""
+    path = make_catalog("empty", _field(1), events={"event_id": ["a"],
+                                                    "time_utc": ["2031-01-01T00:00:00Z"]})
+    (path / "events.csv").write_text("event_id,time_utc\n")
+    with pytest.raises(CatalogError, match="events.csv: no event rows after the header"):
+        open_catalog(path)
