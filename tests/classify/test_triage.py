@@ -8,6 +8,7 @@ import sys
 import time
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from classify.cli import main
@@ -146,3 +147,34 @@ def test_store_labels_are_used_for_training(tmp_path, trained):
     assert card["training_catalogs"][0]["content_hash"].startswith("sha256:")
     assert card["metrics"]["macro_f1"] > 0.95
     assert LabelStore  # the store module is the one the CLI used
+
+
+def test_adapt_priors_estimates_the_season_mix(tmp_path):
+    """`--adapt-priors`: the EM estimate of a shifted class mix is close to the truth.
+
+    Trained on a balanced simulated season, triaging one with 70 % leader pulses
+    (invented data; the EM itself is checked against hand-computed cases in
+    test_priors.py).
+    """
+    from features.simulate import labels_path, simulate_season
+
+    shape = dict(field_rate_hz=10e6, field_samples=2000, vhf_samples=2500)
+    a = simulate_season(tmp_path / "a", 500, 41, class_mix={
+        "narrow_bipolar": 0.25, "stepped_leader": 0.25, "recoil": 0.25,
+        "energetic_in_cloud": 0.25}, **shape)
+    mix = {"narrow_bipolar": 0.1, "stepped_leader": 0.7, "recoil": 0.1,
+           "energetic_in_cloud": 0.1}
+    b = simulate_season(tmp_path / "b", 400, 42, season="2032", class_mix=mix, **shape)
+    store = str(tmp_path / "s.sqlite")
+    assert main(["labels", "import", str(labels_path(a)), "--catalog", str(a), "--analyst",
+                 "wren", "--store", store]) == 0
+    model = tmp_path / "models" / "m"
+    assert main(["train", str(a), "--store", store, "--out", str(model), "--max-iter",
+                 "30"]) == 0
+    summary = triage_catalog(open_catalog(b), tmp_path / "r.csv", model_dir=model,
+                             adapt_priors=True)
+    truth = pd.read_csv(labels_path(b))["label"].value_counts(normalize=True)
+    for cls, p in summary["priors"].items():
+        assert abs(p - truth[cls]) < 0.03, (cls, p, truth[cls])
+    plain = triage_catalog(open_catalog(b), tmp_path / "r0.csv", model_dir=model)
+    assert "priors" not in plain
