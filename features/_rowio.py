@@ -47,7 +47,7 @@ class NpyRows:
         n = max(stop - start, 0)
         if self.fortran:
             return np.array(np.load(self.path, mmap_mode="r")[start:stop])
-        buf = bytearray(n * self.row_bytes)
+        buf = np.empty(n * self.row_bytes, dtype=np.uint8)   # no zero-fill: it is overwritten
         view = memoryview(buf)
         fd = os.open(self.path, os.O_RDONLY)
         try:
@@ -59,4 +59,4 @@ class NpyRows:
                 done += got
         finally:
             os.close(fd)
-        return np.frombuffer(buf, dtype=self.dtype).reshape(n, self.shape[1])
+        return buf.view(self.dtype).reshape(n, self.shape[1])
