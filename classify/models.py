@@ -135,7 +135,7 @@ def nan_euclidean(A, B):
     return np.sqrt(np.where(n > 0, d2, np.nan))
 
 
-def season_thresholds(proba, coverage, fallback):
+def season_thresholds(proba, coverage, fallback, exclude=None):
     """Conformal thresholds adapted to a new season from calibrated probabilities.
 
     Split-conformal thresholds hold on data like the calibration data; on a
@@ -156,6 +156,12 @@ def season_thresholds(proba, coverage, fallback):
     coverage : float
     fallback : ndarray, shape (n_classes,)
         Used for a class with less than 20 pulses' worth of probability.
+    exclude : ndarray of bool, shape (n_pulses,), optional
+        Pulses whose sets will be empty (:meth:`PulseClassifier.predict_set`):
+        their probability mass counts in the coverage but cannot be covered, so
+        the other pulses' thresholds make up for them. When they alone weigh
+        more than 1 - coverage, the others get q = 0.5 (a class is in the set
+        when its probability is at least one half).
 
     Returns
     -------
@@ -163,15 +169,21 @@ def season_thresholds(proba, coverage, fallback):
     """
     p = np.asarray(proba, dtype=np.float64)
     q = np.asarray(fallback, dtype=np.float64).copy()
+    keep = np.ones(len(p), bool) if exclude is None else ~np.asarray(exclude, dtype=bool)
     for k in range(p.shape[1]):
         w = p[:, k]
-        if w.sum() < 20:
+        total = w.sum()
+        if total < 20:
             continue
-        s = 1.0 - w
-        order = np.argsort(s, kind="stable")
-        cum = np.cumsum(w[order])
-        i = int(np.searchsorted(cum, coverage * cum[-1], side="left"))
-        q[k] = s[order][min(i, len(s) - 1)]
+        need = coverage * total               # mass the kept pulses' sets must hold
+        wk, sk = w[keep], 1.0 - w[keep]
+        if need >= wk.sum() * (1 - 1e-9):
+            q[k] = 0.5
+            continue
+        order = np.argsort(sk, kind="stable")
+        cum = np.cumsum(wk[order])
+        i = int(np.searchsorted(cum, need, side="left"))
+        q[k] = sk[order][min(i, len(sk) - 1)]
     return q
 
 
@@ -556,7 +568,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         proba = self.predict_proba(X)
         return self.classes_[np.argmax(proba, axis=1)]
 
-    def predict_set(self, X, proba=None, thresholds=None):
+    def predict_set(self, X, proba=None, thresholds=None, exclude=None):
         """Conformal prediction sets: bool array (n_samples, n_classes).
 
         Parameters
@@ -569,6 +581,9 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         thresholds : ndarray, shape (n_classes,), optional
             Season-adapted thresholds (:func:`season_thresholds`) instead of the
             training ones.
+        exclude : ndarray of bool, shape (n_samples,), optional
+            Pulses whose set is empty whatever their probabilities (e.g. records
+            with a quality problem, sent to review anyway).
         """
         Xv = self._validate(X)
         p = self.predict_proba(Xv) if proba is None else np.asarray(proba)
@@ -576,7 +591,10 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
             q = self.pattern_thresholds_[self._patterns(Xv)]
         else:
             q = np.asarray(thresholds, dtype=np.float64)[None, :]
-        return (1.0 - p) <= q + 1e-12
+        sets = (1.0 - p) <= q + 1e-12
+        if exclude is not None:
+            sets &= ~np.asarray(exclude, dtype=bool)[:, None]
+        return sets
 
     def novelty_score(self, X):
         """Mean distance to the nearest reference pulses (larger = less familiar)."""

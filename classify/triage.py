@@ -71,8 +71,23 @@ def _cached_model(model_dir: str):
     return load_model(model_dir)
 
 
-def _classify(feats: pd.DataFrame, settings: TriageSettings):
-    """Probabilities, sets, novelty and version for a chunk's features."""
+def _quality_flags(feats: pd.DataFrame, settings: TriageSettings) -> dict:
+    """Record-quality problems of each pulse of a chunk (bool arrays)."""
+    return {
+        "clipped": feats["clipped"].to_numpy(dtype=bool),
+        "no_vhf": (~feats["has_vhf"].to_numpy(dtype=bool)) & settings.catalog_has_vhf,
+        "field_unusable": ~feats["field_ok"].to_numpy(dtype=bool),
+    }
+
+
+def _classify(feats: pd.DataFrame, settings: TriageSettings, quality: dict):
+    """Probabilities, sets, novelty and version for a chunk's features.
+
+    Pulses with a quality problem get an empty set (they go to review anyway);
+    where a season's sets must leave some pulses out to keep the stated
+    coverage, these are the first, so confident pulses of good records are not
+    sent to review only to make up the numbers.
+    """
     if settings.model_dir is None:
         classes = np.array(rules.CLASSES)
         proba = rules.rule_proba(feats)
@@ -88,7 +103,8 @@ def _classify(feats: pd.DataFrame, settings: TriageSettings):
         from .priors import adjust_priors
 
         proba = adjust_priors(proba, model.class_priors_, np.asarray(settings.priors))
-    sets = model.predict_set(X, proba=proba, thresholds=settings.thresholds)
+    flagged = np.any(list(quality.values()), axis=0)
+    sets = model.predict_set(X, proba=proba, thresholds=settings.thresholds, exclude=flagged)
     novelty = model.novelty_score(X)
     novel = ~(novelty <= model.novelty_threshold_)
     return model.classes_.astype(str), proba, sets, novelty, novel, card["version"]
@@ -97,9 +113,10 @@ def _classify(feats: pd.DataFrame, settings: TriageSettings):
 def triage_chunk(job, settings: TriageSettings, proba_only: bool = False):
     """Features and triage rows of one chunk (a module-level function for workers)."""
     feats = compute_chunk(job)
-    classes, proba, sets, novelty, novel, version = _classify(feats, settings)
+    quality = _quality_flags(feats, settings)
+    classes, proba, sets, novelty, novel, version = _classify(feats, settings, quality)
     if proba_only:
-        return proba
+        return proba, np.any(list(quality.values()), axis=0)
     top = np.argmax(proba, axis=1)
     conf = proba[np.arange(len(top)), top]
     n_set = sets.sum(axis=1)
@@ -108,9 +125,7 @@ def triage_chunk(job, settings: TriageSettings, proba_only: bool = False):
         "ambiguous_set": n_set > 1,
         "empty_set": n_set == 0,
         "novel": novel,
-        "clipped": feats["clipped"].to_numpy(dtype=bool),
-        "no_vhf": (~feats["has_vhf"].to_numpy(dtype=bool)) & settings.catalog_has_vhf,
-        "field_unusable": ~feats["field_ok"].to_numpy(dtype=bool),
+        **quality,
     }
     flags = np.column_stack(list(reasons.values()))
     names = np.array(list(reasons))
@@ -205,8 +220,10 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
     settings = TriageSettings(model_dir=str(model_dir), catalog_id=cat.catalog_id,
                               catalog_has_vhf=cat.vhf is not None)
     plan = plan_chunks(cat, bounds=sample_bounds(cat.n_events))
-    proba = np.vstack(list(run_jobs(triage_chunk, plan.jobs(), n_jobs=n_jobs,
-                                    dask_address=dask_address, extra_args=(settings, True))))
+    parts = list(run_jobs(triage_chunk, plan.jobs(), n_jobs=n_jobs,
+                          dask_address=dask_address, extra_args=(settings, True)))
+    proba = np.vstack([p for p, _ in parts])
+    flagged = np.concatenate([q for _, q in parts])
     out["n_sample"] = len(proba)
     if adapt_priors:
         new_priors, proba, n_iter = estimate_priors_em(proba, model.class_priors_)
@@ -214,7 +231,8 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
         out["em_iterations"] = int(n_iter)
         proba = adjust_priors(proba, model.class_priors_, np.asarray(out["priors"]))
     if adapt_sets:
-        q = season_thresholds(proba, model.coverage, model.conformal_thresholds_)
+        q = season_thresholds(proba, model.coverage, model.conformal_thresholds_,
+                              exclude=flagged)
         out["thresholds"] = tuple(round(float(v), 12) for v in q)
     return out
 
