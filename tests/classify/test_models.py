@@ -126,3 +126,23 @@ def test_nan_euclidean_matches_scikit_learn():
     A[rng.random(A.shape) < 0.2] = np.nan
     B[rng.random(B.shape) < 0.2] = np.nan
     assert_allclose(nan_euclidean(A, B), nan_euclidean_distances(A, B), rtol=1e-9, atol=1e-9)
+
+
+def test_season_thresholds_hand_computed():
+    """Plug-in season thresholds: smallest q whose probability mass reaches the coverage."""
+    from classify.models import season_thresholds
+
+    # class 0 probabilities 0.99 (x50) and 0.6 (x50): mass 79.5; 95 % = 75.5 needs the
+    # 0.99 pulses (49.5) and 44 of the 0.6 ones -> q = 1 - 0.6 = 0.4
+    p0 = np.r_[np.full(50, 0.99), np.full(50, 0.6)]
+    proba = np.column_stack([p0, 1 - p0])
+    q = season_thresholds(proba, 0.95, fallback=np.array([0.01, 0.01]))
+    assert_allclose(q[0], 0.4)
+    # excluded (flagged) pulses count but cannot be covered: 10 of 100 certain pulses
+    certain = np.column_stack([np.ones(100), np.zeros(100)])
+    flagged = np.arange(100) < 10
+    assert season_thresholds(certain, 0.95, np.array([0.01, 0.01]), exclude=flagged)[0] == 0.5
+    few = np.arange(100) < 2
+    assert season_thresholds(certain, 0.95, np.array([0.01, 0.01]), exclude=few)[0] == 0.0
+    # a class with almost no mass keeps the training threshold
+    assert season_thresholds(certain, 0.95, np.array([0.01, 0.02]))[1] == 0.02
