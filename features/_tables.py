@@ -339,6 +339,7 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
     cols = _Columns(spill=size / 60 > SOURCES_IN_MEMORY_MAX)
     has_xyz = has_power = None
     offset = 0
+    wrapped = 0
     try:
         for chunk in reader:
             chunk.columns = [str(c).strip() for c in chunk.columns]
@@ -366,6 +367,10 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
                                      allow_empty=False, line_offset=offset)
             el = _parse_float_column(chunk["elevation_deg"], fname, "elevation_deg", problems,
                                      allow_empty=False, line_offset=offset)
+            full_turn = az == 360.0   # the same direction as 0 (a writer's rounding)
+            if full_turn.any():
+                az[full_turn] = 0.0
+                wrapped += int(full_turn.sum())
             for i in np.flatnonzero((az < 0) | (az >= 360)):
                 problems.add(f"{fname} {_line(i + offset)}: azimuth_deg must be in [0, 360), "
                              f"got {chunk['azimuth_deg'].iloc[i]!r}", key=f"{fname}:az")
@@ -395,6 +400,8 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
     if has_xyz is None:  # header only
         has_xyz, has_power = False, False
     has_any = offset > 0
+    if wrapped:
+        notes.append(f"{fname}: {wrapped} azimuth_deg value(s) of exactly 360 read as 0")
     if problems:
         cols.discard()
         return None

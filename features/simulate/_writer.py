@@ -163,7 +163,8 @@ def write_season(folder: Path, labels_path: Path, s, n_events: int, seed: int) -
             src = sources_table(p, ev_idx, s, misc_rng)
             cols = {"event_id": events["event_id"].to_numpy()[src["row"]],
                     "t_s": np.round(src["t_s"], 10),
-                    "azimuth_deg": np.round(src["azimuth_deg"], 4),
+                    # rounding can give 360.0: azimuth lives in [0, 360)
+                    "azimuth_deg": np.round(src["azimuth_deg"], 4) % 360.0,
                     "elevation_deg": np.round(src["elevation_deg"], 4)}
             if s.with_xyz:
                 for k in ("x_m", "y_m", "z_m"):

@@ -218,7 +218,7 @@ def test_sources_pointing_at_unknown_events(make_catalog):
 def test_source_angles_out_of_range(make_catalog):
     """azimuth in [0, 360) and elevation in [0, 90] are enforced."""
     src = _sources(["e0000"])
-    src.loc[1, "azimuth_deg"] = 360.0
+    src.loc[1, "azimuth_deg"] = 360.5
     src.loc[2, "elevation_deg"] = -1.0
     path = make_catalog("angles", _field(), sources=src)
     with pytest.raises(CatalogError) as info:
@@ -342,3 +342,12 @@ def test_events_without_rows(make_catalog):
     (path / "events.csv").write_text("event_id,time_utc\n")
     with pytest.raises(CatalogError, match="events.csv: no event rows after the header"):
         open_catalog(path)
+
+
+def test_azimuth_of_a_full_turn_is_north(make_catalog):
+    """azimuth 360 (a writer's rounding of 359.99996) is read as 0, with a note."""
+    src = _sources(["e0000"])
+    src.loc[0, "azimuth_deg"] = 360.0
+    cat = open_catalog(make_catalog("turn", _field(), sources=src))
+    assert cat.sources.azimuth_deg[0] == 0.0
+    assert any("exactly 360 read as 0" in n for n in cat.notes)
