@@ -52,6 +52,8 @@ __all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_eu
            "season_thresholds"]
 
 _EPS = 1e-12
+#: Held-out rows per fold masked for each pattern of missing column groups.
+MASKED_CALIBRATION_ROWS = 5000
 #: Fewest calibration rows of a pattern of missing column groups for its own temperature.
 MIN_CALIBRATION_ROWS = 200
 #: Fewest calibration pulses of a class (in a pattern) for its own conformal threshold.
@@ -432,14 +434,19 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
                 oof_fold[te] = fold
                 # held-out rows as they are and with every combination of column
                 # groups removed: calibration conditional on what a catalog has
+                oof_raw[te] = self._expand(est, est.predict_proba(X[te]))
+                # masked copies of at most MASKED_CALIBRATION_ROWS held-out rows per
+                # pattern and fold (enough for a temperature and class thresholds)
+                sub = te if len(te) <= MASKED_CALIBRATION_ROWS else np.sort(
+                    rng.choice(te, MASKED_CALIBRATION_ROWS, replace=False))
                 for code in range(n_patterns):
-                    raw = self._expand(est, est.predict_proba(self._mask(X[te], code)))
-                    if code == 0:
-                        oof_raw[te] = raw
+                    rows = te if code == 0 else sub
+                    raw = (oof_raw[te] if code == 0 else
+                           self._expand(est, est.predict_proba(self._mask(X[rows], code))))
                     cal_raw.append(raw)
-                    cal_y.append(y_idx[te])
-                    cal_w.append(w[te])
-                    cal_pat.append(natural[te] | code)
+                    cal_y.append(y_idx[rows])
+                    cal_w.append(w[rows])
+                    cal_pat.append(natural[rows] | code)
         cal_raw, cal_y = np.vstack(cal_raw), np.concatenate(cal_y)
         cal_w, cal_pat = np.concatenate(cal_w), np.concatenate(cal_pat)
         self._fit_pattern_calibration(cal_raw, cal_y, cal_w, cal_pat, n_patterns,
