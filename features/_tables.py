@@ -28,7 +28,7 @@ SOURCE_XYZ = ("x_m", "y_m", "z_m")
 #: Above this many sources the parsed table is kept in memory-mapped files in a
 #: temporary folder instead of RAM (about 40 bytes per source either way).
 SOURCES_IN_MEMORY_MAX = 2_000_000
-_CSV_CHUNK_ROWS = 500_000
+_CSV_CHUNK_ROWS = 100_000
 
 
 def _line(i) -> str:

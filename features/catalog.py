@@ -114,9 +114,12 @@ class Catalog:
     def n_events(self) -> int:
         return len(self.events)
 
-    @property
+    @cached_property
     def event_ids(self) -> np.ndarray:
-        return self.events["event_id"].to_numpy(dtype=object)
+        """Event ids in row order (object array, built once)."""
+        ids = self.events["event_id"].to_numpy(dtype=object)
+        ids.flags.writeable = False
+        return ids
 
     @property
     def has_sources(self) -> bool:
@@ -290,6 +293,7 @@ def open_catalog(path) -> Catalog:
             sources = read_sources(src_path, ids, problems, notes)
 
     problems.raise_if_any()
+    _return_freed_memory()
     h = hashlib.sha256()
     h.update(mbytes)
     h.update(b"\0")
@@ -298,6 +302,24 @@ def open_catalog(path) -> Catalog:
             h.update(block)
     return Catalog(path=folder, manifest=manifest, events=events, field=fld, vhf=vhf,
                    sources=sources, content_hash="sha256:" + h.hexdigest(), notes=tuple(notes))
+
+
+def _return_freed_memory() -> None:
+    """Give the heap freed by CSV parsing back to the operating system (glibc only).
+
+    Parsing a big events or sources table makes and drops millions of small
+    string objects; glibc keeps the freed heap for reuse, so the process would
+    carry the parse's peak for the rest of a long triage. ``malloc_trim``
+    returns it; elsewhere this does nothing.
+    """
+    import ctypes
+    import ctypes.util
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        libc.malloc_trim(0)
+    except (OSError, AttributeError):  # not glibc
+        pass
 
 
 def scan_quality(catalog: Catalog, chunk_size: int = 4096) -> dict:
