@@ -322,13 +322,41 @@ def _decreases(ev: np.ndarray, block: int = 1 << 22) -> bool:
 
 def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
                  notes: list[str]) -> SourceTable | None:
-    """Read and validate sources.csv in chunks; map event ids to event rows."""
+    """Read and validate sources.csv in chunks; map event ids to event rows.
+
+    A first pass lets the CSV parser read the number columns as numbers (fast);
+    if any cell is not a number, or any check fails, the file is read again as
+    text so that every problem is reported with its line and its exact text.
+    """
+    trial, trial_notes = Problems(), []
+    try:
+        table = _read_sources_pass(path, event_ids, trial, trial_notes, numeric=True)
+    except ValueError:          # a number column holds text: the careful pass says where
+        table = None
+    if table is not None and not trial:
+        notes.extend(trial_notes)
+        return table
+    return _read_sources_pass(path, event_ids, problems, notes, numeric=False)
+
+
+_SOURCE_NUMBERS = ("t_s", "azimuth_deg", "elevation_deg", "x_m", "y_m", "z_m", "power_db")
+
+
+def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
+                       notes: list[str], numeric: bool) -> SourceTable | None:
     fname = path.name
     n_events = len(event_ids)
     try:
         size = path.stat().st_size
-        reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                             encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
+        if numeric:
+            header = [str(c).strip() for c in pd.read_csv(path, nrows=0, encoding="utf-8")]
+            dtypes = {c: np.float64 for c in header if c in _SOURCE_NUMBERS}
+            reader = pd.read_csv(path, dtype={**{c: str for c in header}, **dtypes},
+                                 keep_default_na=False, na_values={c: [""] for c in dtypes},
+                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
+        else:
+            reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
+                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
     except FileNotFoundError:
         problems.add(f"{fname}: file not found at {path} (declared in catalog.json 'sources')")
         return None
@@ -397,6 +425,9 @@ def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
         problems.add(f"{fname}: malformed CSV ({exc})")
         cols.discard()
         return None
+    except ValueError:
+        cols.discard()
+        raise
     if has_xyz is None:  # header only
         has_xyz, has_power = False, False
     has_any = offset > 0

@@ -62,7 +62,7 @@ def _nearest_gap_s(time_ns, groups):
 
 
 #: Events per block when scanning the source table (memory stays flat).
-_BLOCK_EVENTS = 100_000
+_BLOCK_EVENTS = 25_000
 
 
 def _block_cells(flash_code, time_ns, part, b0):
@@ -93,6 +93,33 @@ def _pack(fl, cells):
     return key
 
 
+#: Sources per group of flashes handled at once (memory stays flat in catalog size).
+_GROUP_SOURCES = 500_000
+
+
+def _flash_groups(flash_code, counts):
+    """Groups of consecutive flash codes, each with about _GROUP_SOURCES sources.
+
+    Returns a list of (first code, end code, first row, end row): the event rows
+    that hold every pulse of the group's flashes.
+    """
+    n_codes = int(flash_code.max()) + 1
+    rows = np.arange(len(flash_code))
+    has = flash_code >= 0
+    first = np.full(n_codes, len(flash_code))
+    last = np.full(n_codes, -1)
+    np.minimum.at(first, flash_code[has], rows[has])
+    np.maximum.at(last, flash_code[has], rows[has])
+    per_code = np.bincount(flash_code[has], weights=counts[has], minlength=n_codes)
+    groups, c0, acc = [], 0, 0.0
+    for c in range(n_codes):
+        acc += per_code[c]
+        if acc >= _GROUP_SOURCES or c == n_codes - 1:
+            groups.append((c0, c + 1, int(first[c0:c + 1].min()), int(last[c0:c + 1].max()) + 1))
+            c0, acc = c + 1, 0.0
+    return groups
+
+
 def _channel_reuse(flash_code, time_ns, sources):
     n = len(flash_code)
     out = np.full(n, np.nan)
@@ -100,40 +127,42 @@ def _channel_reuse(flash_code, time_ns, sources):
         return out
     if flash_code.max(initial=0) >= 1 << 23:
         raise ValueError("channel reuse supports up to 8 million flashes per catalog")
-    blocks = [(b0, min(b0 + _BLOCK_EVENTS, n)) for b0 in range(0, n, _BLOCK_EVENTS)]
-    # pass 1: earliest source time of every (flash, cell), block by block
-    keys, first = np.empty(0, np.int64), np.empty(0)
-    for b0, b1 in blocks:
-        _ev, keep, fl, cell, t_abs, _lim = _block_cells(flash_code, time_ns,
-                                                         sources.rows(b0, b1), b0)
-        k = np.concatenate([keys, _pack(fl[keep], cell[keep])])
-        t = np.concatenate([first, t_abs[keep]])
-        keys, inverse = np.unique(k, return_inverse=True)
-        first = np.full(len(keys), np.inf)
-        np.minimum.at(first, inverse, t)
-    # pass 2: a source is reused when its own or an adjacent cell was first hit
-    # early enough (at least REUSE_MIN_AGE_S before its pulse)
-    n_src = np.zeros(n)
+    counts = sources.counts()
+    n_src = counts.astype(np.float64)
     n_reused = np.zeros(n)
-    for b0, b1 in blocks:
-        ev, keep, fl, cell, _t, limit = _block_cells(flash_code, time_ns,
-                                                     sources.rows(b0, b1), b0)
-        hit = np.zeros(int(keep.sum()), dtype=bool)
-        dim = cell.shape[1]
-        offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
-        fk, ck, lk = fl[keep], cell[keep], limit[keep]
-        for off in offsets:
-            probe = _pack(fk, ck + off)
-            loc = np.minimum(np.searchsorted(keys, probe), max(len(keys) - 1, 0))
-            found = (keys[loc] == probe) if len(keys) else np.zeros(len(probe), bool)
-            hit[found] |= first[loc[found]] <= lk[found]
-        reused = np.zeros(len(ev), dtype=bool)
-        reused[keep] = hit
-        n_src += np.bincount(ev, minlength=n)
-        n_reused += np.bincount(ev, reused, minlength=n)
+    if (flash_code >= 0).any():
+        for c0, c1, r0, r1 in _flash_groups(flash_code, counts):
+            parts = []
+            for b0 in range(r0, r1, _BLOCK_EVENTS):
+                b1 = min(b0 + _BLOCK_EVENTS, r1)
+                ev, keep, fl, cell, t_abs, limit = _block_cells(flash_code, time_ns,
+                                                                sources.rows(b0, b1), b0)
+                keep &= (fl >= c0) & (fl < c1)
+                parts.append((ev[keep], fl[keep], cell[keep], t_abs[keep], limit[keep]))
+            ev, fl, cell, t_abs, limit = (np.concatenate(x) for x in zip(*parts))
+            del parts
+            if len(ev):
+                hit = _reused_in_cells(fl, cell, t_abs, limit)
+                n_reused += np.bincount(ev, hit, minlength=n)
     has = n_src > 0
     out[has] = n_reused[has] / n_src[has]  # pulses without a flash: nothing to reuse (0)
     return out
+
+
+def _reused_in_cells(fl, cell, t_abs, limit):
+    """Whether a source's own or an adjacent cell of its flash was hit before ``limit``."""
+    keys, inverse = np.unique(_pack(fl, cell), return_inverse=True)
+    first = np.full(len(keys), np.inf)
+    np.minimum.at(first, inverse, t_abs)       # earliest source time per (flash, cell)
+    hit = np.zeros(len(fl), dtype=bool)
+    dim = cell.shape[1]
+    offsets = np.array(np.meshgrid(*([[-1, 0, 1]] * dim), indexing="ij")).reshape(dim, -1).T
+    for off in offsets:
+        probe = _pack(fl, cell + off)
+        loc = np.minimum(np.searchsorted(keys, probe), len(keys) - 1)
+        found = keys[loc] == probe
+        hit[found] |= first[loc[found]] <= limit[found]
+    return hit
 
 
 def flash_context(events, time_ns, sources=None):
