@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 from features import schema
+from features.catalog import return_freed_memory
 from features.csvio import csv_text
 from features.extract import DEFAULT_CHUNK_SIZE, compute_chunk, plan_chunks, run_jobs
 
@@ -201,7 +202,7 @@ def sample_bounds(n_events: int, max_pulses: int = SAMPLE_PULSES,
 
 
 def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_jobs=1,
-                      dask_address=None):
+                      dask_address=None, context=None):
     """Class priors (EM) and conformal thresholds of a season, from a sample of it.
 
     Returns
@@ -219,12 +220,14 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
         return out
     settings = TriageSettings(model_dir=str(model_dir), catalog_id=cat.catalog_id,
                               catalog_has_vhf=cat.vhf is not None)
-    plan = plan_chunks(cat, bounds=sample_bounds(cat.n_events))
+    plan = plan_chunks(cat, bounds=sample_bounds(cat.n_events), context=context)
     parts = list(run_jobs(triage_chunk, plan.jobs(), n_jobs=n_jobs,
                           dask_address=dask_address, extra_args=(settings, True)))
     proba = np.vstack([p for p, _ in parts])
     flagged = np.concatenate([q for _, q in parts])
     out["n_sample"] = len(proba)
+    del parts, plan
+    return_freed_memory()
     if adapt_priors:
         new_priors, proba, n_iter = estimate_priors_em(proba, model.class_priors_)
         out["priors"] = tuple(round(float(p), 12) for p in new_priors)
@@ -277,6 +280,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     if not 0 <= review_below <= 1:
         raise ValueError(f"review_below must be in [0, 1], got {review_below}")
     t0 = time.perf_counter()
+    plan = plan_chunks(cat, chunk_size)
     adapted = {"priors": None, "thresholds": None, "n_sample": 0}
     if model_dir is None:
         if adapt_priors:
@@ -284,14 +288,13 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     else:
         adapted = season_adaptation(cat, model_dir, adapt_priors=adapt_priors,
                                     adapt_sets=adapt_sets, n_jobs=n_jobs,
-                                    dask_address=dask_address)
+                                    dask_address=dask_address, context=plan.context)
     priors = adapted["priors"]
     settings = TriageSettings(model_dir=None if model_dir is None else str(model_dir),
                               review_below=float(review_below), priors=priors,
                               thresholds=adapted["thresholds"],
                               catalog_has_vhf=cat.vhf is not None, catalog_id=cat.catalog_id)
     key = _journal_key(cat, settings, chunk_size)
-    plan = plan_chunks(cat, chunk_size)
     done, offset = 0, 0
     totals = {"n": 0, "n_review": 0, "n_novel": 0, "per_class": {}, "reasons": {}}
     if resume and journal.is_file() and partial.is_file():

@@ -293,7 +293,7 @@ def open_catalog(path) -> Catalog:
             sources = read_sources(src_path, ids, problems, notes)
 
     problems.raise_if_any()
-    _return_freed_memory()
+    return_freed_memory()
     h = hashlib.sha256()
     h.update(mbytes)
     h.update(b"\0")
@@ -304,7 +304,7 @@ def open_catalog(path) -> Catalog:
                    sources=sources, content_hash="sha256:" + h.hexdigest(), notes=tuple(notes))
 
 
-def _return_freed_memory() -> None:
+def return_freed_memory() -> None:
     """Give the heap freed by CSV parsing back to the operating system (glibc only).
 
     Parsing a big events or sources table makes and drops millions of small

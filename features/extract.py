@@ -23,7 +23,7 @@ import pandas as pd
 
 from . import schema
 from ._tables import SourceTable
-from .catalog import Catalog, Channel
+from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import source_features
@@ -42,9 +42,10 @@ __all__ = ["ChunkJob", "ChunkPlan", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan
 
 logger = logging.getLogger("pulsesort")
 
-#: Rows per chunk: small enough that a worker stays well under 250 MB at the
-#: reference shape (8,000 field + 10,000 VHF samples per row).
-DEFAULT_CHUNK_SIZE = 512
+#: Rows per chunk: a worker's arrays stay in tens of MB at the reference shape
+#: (8,000 field + 10,000 VHF samples per row), so two workers and the main
+#: process triage a million-pulse season in under 1 GB.
+DEFAULT_CHUNK_SIZE = 256
 EVENT_PASS_THROUGH = ("time_utc", "flash_id")
 #: Names of triage output columns; an events.csv column of the same name (or
 #: starting with ``p_``) is carried through as ``events_<name>``.
@@ -116,7 +117,9 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         vseg, vclip = _read_rows(vch, job.start, job.stop, (v0, v1))
         v = vhf_features(vseg, vch.sample_rate_hz, vch.kind, f["peak_time_s"],
                          pretrigger_s=vch.pretrigger_s - v0 / vch.sample_rate_hz,
-                         delay_s=vch.delay_s)
+                         delay_s=vch.delay_s,
+                         centre_span_s=(PEAK_SEARCH_S[0] - fch.delay_s,
+                                        PEAK_SEARCH_S[1] - fch.delay_s))
         del vseg
     else:
         v = {k: np.full(n, np.nan) for k in ("vhf_peak_db", "vhf_peak_time_s", "vhf_snr_db",
@@ -159,10 +162,13 @@ class ChunkPlan(Sequence):
     million-pulse season costs the flash context and nothing per chunk.
     """
 
-    def __init__(self, catalog: Catalog, bounds: list[tuple[int, int]]):
+    def __init__(self, catalog: Catalog, bounds: list[tuple[int, int]], context=None):
         self.catalog = catalog
         self.bounds = list(bounds)
-        self.context = flash_context(catalog.events, catalog.time_ns, catalog.sources)
+        if context is None:
+            context = flash_context(catalog.events, catalog.time_ns, catalog.sources)
+            return_freed_memory()
+        self.context = context
         self._extra_columns = [c for c in catalog.events.columns
                                if c not in ("event_id", "range_m")]
 
@@ -192,12 +198,14 @@ class ChunkPlan(Sequence):
 
 
 def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE,
-                bounds: list[tuple[int, int]] | None = None) -> ChunkPlan:
+                bounds: list[tuple[int, int]] | None = None, context=None) -> ChunkPlan:
     """Split ``catalog`` into chunks of ``chunk_size`` rows (or explicit ``bounds``).
 
-    Returns a lazy :class:`ChunkPlan`; the flash context is computed here, once.
+    Returns a lazy :class:`ChunkPlan`; the flash context is computed here, once
+    (or taken from ``context``, e.g. another plan's ``.context``).
     """
-    return ChunkPlan(catalog, catalog.chunk_bounds(chunk_size) if bounds is None else bounds)
+    return ChunkPlan(catalog, catalog.chunk_bounds(chunk_size) if bounds is None else bounds,
+                     context)
 
 
 def _progress(total: int, enabled: bool | None, desc: str):

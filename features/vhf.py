@@ -70,7 +70,8 @@ def _moving_average(p, n):
 
 
 def vhf_features(vhf, sample_rate_hz, kind, field_peak_time_s, *, pretrigger_s=0.0,
-                 delay_s=0.0, window_s=VHF_WINDOW_S, smooth_s=VHF_SMOOTH_S):
+                 delay_s=0.0, window_s=VHF_WINDOW_S, smooth_s=VHF_SMOOTH_S,
+                 centre_span_s=None):
     """Compute the VHF features of a batch of pulses.
 
     Parameters
@@ -89,6 +90,9 @@ def vhf_features(vhf, sample_rate_hz, kind, field_peak_time_s, *, pretrigger_s=0
         Half-width of the search window around the field peak, seconds.
     smooth_s : float
         Moving-average length used for the duration, seconds.
+    centre_span_s : (float, float), optional
+        The range the field peak times can take (physical, s); the power is then
+        computed on a block fixed by it (widened only for a peak outside it).
 
     Returns
     -------
@@ -126,8 +130,12 @@ def vhf_features(vhf, sample_rate_hz, kind, field_peak_time_s, *, pretrigger_s=0
             noise = np.full(n, np.nan)
 
     # power in a window that covers every row's search window (one FFT block)
-    lo_t = np.nanmin(centre) - window_s + delay_s
-    hi_t = np.nanmax(centre) + window_s + delay_s
+    # one block for the whole batch; with ``centre_span_s`` its extent does not
+    # depend on which pulses share the batch (so results do not depend on chunks)
+    lo_c, hi_c = (np.nanmin(centre), np.nanmax(centre)) if centre_span_s is None else (
+        min(centre_span_s[0], np.nanmin(centre)), max(centre_span_s[1], np.nanmax(centre)))
+    lo_t = lo_c - window_s + delay_s
+    hi_t = hi_c + window_s + delay_s
     j0 = int(np.clip(np.floor((lo_t + pretrigger_s) * fs) - 64, 0, m))
     j1 = int(np.clip(np.ceil((hi_t + pretrigger_s) * fs) + 64, j0 + 1, m))
     p = vhf_power(v[:, j0:j1], kind)
