@@ -29,8 +29,6 @@ import shutil
 import tempfile
 from pathlib import Path
 
-import skops.io as sio
-
 from ._atomic import _umask, atomic_write
 
 __all__ = ["ALLOWED_TYPES", "ModelRegistry", "save_model", "load_model", "verify_model_dir",
@@ -122,6 +120,8 @@ def save_model(model, folder, card: dict, markdown: str, *, overwrite: bool = Fa
     tmp = Path(tempfile.mkdtemp(dir=folder.parent, prefix=f".{folder.name}.tmp-"))
     os.chmod(tmp, 0o777 & ~_umask())
     try:
+        import skops.io as sio
+
         sio.dump(model, tmp / MODEL_FILE)
         write_card_files(tmp, card, markdown)
         if folder.exists():
@@ -142,6 +142,8 @@ def load_model(folder):
         On a checksum mismatch or a type outside :data:`ALLOWED_TYPES`.
     """
     folder = Path(folder)
+    import skops.io as sio  # here, not at import: reading a card needs no scikit-learn
+
     verify_model_dir(folder)
     untrusted = sio.get_untrusted_types(file=folder / MODEL_FILE)
     refused = sorted(set(untrusted) - set(ALLOWED_TYPES))

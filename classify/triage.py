@@ -38,7 +38,7 @@ from features.csvio import csv_text
 from features.extract import DEFAULT_CHUNK_SIZE, compute_chunk, plan_chunks, run_jobs
 
 from . import rules
-from .registry import load_model
+from .registry import load_model, verify_model_dir
 
 __all__ = ["TriageSettings", "triage_catalog", "read_results", "RESULT_COLUMNS"]
 
@@ -70,6 +70,29 @@ class TriageSettings:
 @functools.lru_cache(maxsize=4)
 def _cached_model(model_dir: str):
     return load_model(model_dir)
+
+
+@functools.lru_cache(maxsize=4)
+def _model_summary(model_dir: str) -> dict:
+    """What the main process needs of a model, from its (verified) card.
+
+    The main process only plans, adapts and writes; the workers load the model.
+    Reading the card keeps scikit-learn and the model out of the main process's
+    memory. Older cards without these entries fall back to loading the model.
+    """
+    verify_model_dir(model_dir)
+    card = json.loads((Path(model_dir) / "card.json").read_text(encoding="utf-8"))
+    need = ("classes", "class_priors", "conformal_thresholds", "coverage", "version")
+    if all(k in card for k in need):
+        classes = list(card["classes"])
+        return {"classes": classes, "version": card["version"],
+                "coverage": float(card["coverage"]),
+                "class_priors": np.array([card["class_priors"][c] for c in classes]),
+                "thresholds": np.array([card["conformal_thresholds"][c] for c in classes])}
+    model, card = _cached_model(model_dir)
+    return {"classes": list(model.classes_.astype(str)), "version": card["version"],
+            "coverage": float(model.coverage), "class_priors": model.class_priors_,
+            "thresholds": model.conformal_thresholds_}
 
 
 def _quality_flags(feats: pd.DataFrame, settings: TriageSettings) -> dict:
@@ -211,10 +234,10 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
         ``priors`` (tuple or None), ``thresholds`` (tuple or None), ``n_sample``,
         ``em_iterations``.
     """
-    from .models import season_thresholds
+    from .conformal import season_thresholds
     from .priors import adjust_priors, estimate_priors_em
 
-    model, _card = _cached_model(str(model_dir))
+    meta = _model_summary(str(model_dir))
     out = {"priors": None, "thresholds": None, "n_sample": 0, "em_iterations": None}
     if not (adapt_priors or adapt_sets) or cat.n_events == 0:
         return out
@@ -229,13 +252,12 @@ def season_adaptation(cat, model_dir, *, adapt_priors=False, adapt_sets=True, n_
     del parts, plan
     return_freed_memory()
     if adapt_priors:
-        new_priors, proba, n_iter = estimate_priors_em(proba, model.class_priors_)
+        new_priors, proba, n_iter = estimate_priors_em(proba, meta["class_priors"])
         out["priors"] = tuple(round(float(p), 12) for p in new_priors)
         out["em_iterations"] = int(n_iter)
-        proba = adjust_priors(proba, model.class_priors_, np.asarray(out["priors"]))
+        proba = adjust_priors(proba, meta["class_priors"], np.asarray(out["priors"]))
     if adapt_sets:
-        q = season_thresholds(proba, model.coverage, model.conformal_thresholds_,
-                              exclude=flagged)
+        q = season_thresholds(proba, meta["coverage"], meta["thresholds"], exclude=flagged)
         out["thresholds"] = tuple(round(float(v), 12) for v in q)
     return out
 
@@ -340,12 +362,12 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     os.replace(partial, out)
     journal.unlink(missing_ok=True)
     seconds = time.perf_counter() - t0
-    version = rules.RULES_VERSION if model_dir is None else _cached_model(str(model_dir))[1][
-        "version"]
+    version = (rules.RULES_VERSION if model_dir is None
+               else _model_summary(str(model_dir))["version"])
     summary = dict(totals, seconds=seconds, out=str(out), model_version=version,
                    pulses_per_s=totals["n"] / seconds if seconds > 0 else float("inf"))
     if model_dir is not None:
-        classes = list(_cached_model(str(model_dir))[0].classes_.astype(str))
+        classes = _model_summary(str(model_dir))["classes"]
         if priors is not None:
             summary["priors"] = dict(zip(classes, priors))
         if adapted["thresholds"] is not None:

@@ -4,9 +4,6 @@ from __future__ import annotations
 
 import sys
 
-from classify.demo import run_demo
-from classify.triage import print_summary
-
 from ._common import jobs_int, positive_int
 
 NAME = "demo"
@@ -26,6 +23,9 @@ def add_arguments(parser):
 
 
 def run(args) -> int:
+    from classify.demo import run_demo
+    from classify.triage import print_summary
+
     s = run_demo(args.dir, events=args.events, next_events=args.next_events, seed=args.seed,
                  n_jobs=args.jobs, echo=lambda m: print(m, flush=True))
     print()

@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-from classify.labels import LabelStore
-from classify.retrain import NEW_WEIGHT, retrain
-
 from ._common import add_parallel_arguments, positive_int
 
 NAME = "retrain"
@@ -23,8 +20,9 @@ def add_arguments(parser):
                         help="folder for the challenger (its parent is the registry)")
     parser.add_argument("--registry", default=None,
                         help="registry folder (default: the parent of --out)")
-    parser.add_argument("--new-weight", type=float, default=NEW_WEIGHT,
-                        help=f"weight of a new-season label vs an old one (default {NEW_WEIGHT})")
+    parser.add_argument("--new-weight", type=float, default=None,
+                        help="weight of a new-season label vs an old one (default 2, "
+                             "classify.retrain.NEW_WEIGHT)")
     parser.add_argument("--tolerance", type=float, default=0.005,
                         help="largest macro-F1 loss still promoted (default 0.005)")
     parser.add_argument("--review-below", type=float, default=0.8,
@@ -43,6 +41,11 @@ def _fmt(v):
 
 
 def run(args) -> int:
+    from classify.labels import LabelStore
+    from classify.retrain import NEW_WEIGHT, retrain
+
+    if args.new_weight is None:
+        args.new_weight = NEW_WEIGHT
     if args.new_weight <= 0:
         raise ValueError(f"--new-weight must be > 0, got {args.new_weight}")
     res = retrain(LabelStore(args.store), args.new, args.old, args.current, args.out,

@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-from classify.labels import LabelStore
-from classify.training import train_from_store
-
 from ._common import add_parallel_arguments, fraction
 
 NAME = "train"
@@ -29,6 +26,9 @@ def add_arguments(parser):
 
 
 def run(args) -> int:
+    from classify.labels import LabelStore
+    from classify.training import train_from_store
+
     store = LabelStore(args.store)
     model_dir, card = train_from_store(
         args.catalogs, store, args.out, coverage=args.coverage, n_jobs=args.jobs,
