@@ -33,7 +33,7 @@ def main(argv=None) -> int:
     p.add_argument("--seed", type=int, default=3, help="seed of the catalog")
     p.add_argument("--train-seed", type=int, default=11, help="seed of the training season")
     p.add_argument("--max-iter", type=int, default=80, help="pulsesort train --max-iter")
-    p.add_argument("--chunk-size", type=int, default=512, help="rows per chunk")
+    p.add_argument("--chunk-size", type=int, default=256, help="rows per chunk (pulsesort's default)")
     p.add_argument("--workers", type=int, default=2, help="Dask worker processes (and "
                    "joblib --jobs)")
     args = p.parse_args(argv)

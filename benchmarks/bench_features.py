@@ -56,7 +56,7 @@ def main(argv=None) -> int:
     p.add_argument("--events", type=int, default=100_000, help="pulses to simulate")
     p.add_argument("--seed", type=int, default=1, help="simulator seed")
     p.add_argument("--jobs", default="1,2", help="comma-separated --jobs values")
-    p.add_argument("--chunk-size", type=int, default=512, help="rows per chunk (both passes)")
+    p.add_argument("--chunk-size", type=int, default=256, help="rows per chunk, both passes (pulsesort's default)")
     p.add_argument("--catalog", default=None,
                    help="use this existing catalog instead of simulating one")
     args = p.parse_args(argv)

@@ -86,7 +86,7 @@ def main(argv=None) -> int:
     p.add_argument("--train-seed", type=int, default=11, help="seed of the training season")
     p.add_argument("--max-iter", type=int, default=80, help="pulsesort train --max-iter")
     p.add_argument("--jobs", default="2", help="comma-separated --jobs values")
-    p.add_argument("--chunk-size", type=int, default=512, help="rows per chunk")
+    p.add_argument("--chunk-size", type=int, default=256, help="rows per chunk (pulsesort's default)")
     p.add_argument("--catalog", default=None,
                    help="triage this existing simulated catalog instead of simulating one")
     args = p.parse_args(argv)
