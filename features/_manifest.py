@@ -102,11 +102,18 @@ class Channel:
         """Memory-map the channel's array (read-only)."""
         return np.load(self.file, mmap_mode="r", allow_pickle=False)
 
-    def read_rows(self, start: int, stop: int) -> np.ndarray:
-        """Rows ``start:stop`` as stored (file units), read without a lasting memory map."""
+    def read_rows(self, start: int, stop: int, columns: tuple[int, int] | None = None
+                  ) -> np.ndarray:
+        """Rows ``start:stop`` as stored (file units), read without a lasting memory map.
+
+        ``columns=(c0, c1)`` reads only those samples of each row.
+        """
         from ._rowio import NpyRows
 
-        return NpyRows(self.file).read(start, stop)
+        rows = NpyRows(self.file)
+        if columns is None:
+            return rows.read(start, stop)
+        return rows.read_columns(start, stop, *columns)
 
     def clipped_rows(self, raw: np.ndarray) -> np.ndarray:
         """Rows of a raw (file-unit) block with any sample at or beyond full scale."""

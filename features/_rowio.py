@@ -60,3 +60,29 @@ class NpyRows:
         finally:
             os.close(fd)
         return buf.view(self.dtype).reshape(n, self.shape[1])
+
+    def read_columns(self, start: int, stop: int, c0: int, c1: int) -> np.ndarray:
+        """Columns ``c0:c1`` of rows ``start:stop``, reading only those bytes.
+
+        One ``os.pread`` per row; when the span is most of a row, whole rows are
+        read in one call instead.
+        """
+        start, stop = max(int(start), 0), min(int(stop), self.shape[0])
+        c0, c1 = max(int(c0), 0), min(int(c1), self.shape[1])
+        n, width = max(stop - start, 0), max(c1 - c0, 0)
+        if self.fortran or width >= 0.8 * self.shape[1]:
+            return np.ascontiguousarray(self.read(start, stop)[:, c0:c1])
+        item = self.dtype.itemsize
+        out = np.empty((n, width), dtype=self.dtype)
+        raw = out.view(np.uint8).reshape(n, width * item)
+        fd = os.open(self.path, os.O_RDONLY)
+        try:
+            base = self.offset + c0 * item
+            for i in range(n):
+                pos = base + (start + i) * self.row_bytes
+                got = os.preadv(fd, [raw[i]], pos)
+                if got != width * item:
+                    raise OSError(f"{self.path}: file ends before row {start + i} (truncated?)")
+        finally:
+            os.close(fd)
+        return out

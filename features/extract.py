@@ -84,11 +84,13 @@ def _column_span(ch: Channel, before_s: float, after_s: float) -> tuple[int, int
 
 
 def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
-    """Raw rows, their clip flags (whole row) and the column span as float64."""
-    raw = ch.read_rows(start, stop)
-    clipped = ch.clipped_rows(raw)
-    seg = raw[:, cols[0]:cols[1]].astype(np.float64)
-    return seg, clipped
+    """The analysed span of some rows as float64, and whether it has clipped samples.
+
+    Only that span is read: a clipped sample elsewhere in the record (a bigger
+    neighbour long after the pulse) does not touch this pulse's features.
+    """
+    raw = ch.read_rows(start, stop, columns=cols)
+    return raw.astype(np.float64), ch.clipped_rows(raw)
 
 
 def compute_chunk(job: ChunkJob) -> pd.DataFrame:

@@ -161,7 +161,8 @@ FEATURES: tuple[Feature, ...] = (
             "field)", "quality", model=False),
     Feature("field_noise_v_per_m", "V/m", "robust noise sigma of the pre-trigger field",
             "quality", model=False),
-    Feature("clipped", "bool", "any field or VHF sample at or beyond full scale",
+    Feature("clipped", "bool", "any field or VHF sample at or beyond full scale in the "
+            "analysed part of the record (baseline and analysis window)",
             "quality", model=False),
     Feature("has_vhf", "bool", "the pulse has a usable VHF record", "quality", model=False),
     Feature("field_ok", "bool", "the field record is usable (at most half of the analysis "

@@ -351,3 +351,15 @@ def test_azimuth_of_a_full_turn_is_north(make_catalog):
     cat = open_catalog(make_catalog("turn", _field(), sources=src))
     assert cat.sources.azimuth_deg[0] == 0.0
     assert any("exactly 360 read as 0" in n for n in cat.notes)
+
+
+@pytest.mark.parametrize("order", ["C", "F"])
+def test_row_reader_columns(tmp_path, order):
+    """NpyRows.read_columns reads exactly a column span of some rows."""
+    from features._rowio import NpyRows
+
+    a = np.asarray(np.arange(40 * 50).reshape(40, 50), dtype="<i2", order=order)
+    np.save(tmp_path / "a.npy", a)
+    rows = NpyRows(tmp_path / "a.npy")
+    np.testing.assert_array_equal(rows.read_columns(3, 9, 10, 20), a[3:9, 10:20])
+    np.testing.assert_array_equal(rows.read_columns(38, 45, 0, 50), a[38:, :])
