@@ -50,7 +50,7 @@ TAIL_COLUMNS = ("review_reason", "novelty_score", "model_version", "catalog_id")
 BOOL_COLUMNS = ("needs_review", "novel", "clipped", "has_vhf", "field_ok")
 RULES_SET_LEVEL = 0.2   # rules mode: classes with pseudo-probability >= this are in the set
 #: Pulses (at most) sampled to adapt class priors and set thresholds to a season.
-SAMPLE_PULSES = 20_000
+SAMPLE_PULSES = 10_000
 SAMPLE_BLOCK = 500
 
 

@@ -14,6 +14,7 @@ __all__ = [
     "last_true",
     "crossing_after",
     "crossing_before",
+    "integrate_rows",
     "interp_rows",
     "take_rows",
     "cumtrapz_rows",
@@ -55,21 +56,36 @@ def interp_rows(values: np.ndarray, frac_idx: np.ndarray) -> np.ndarray:
     return np.where(ok, out, np.nan)
 
 
+def _span(w, lo, hi):
+    """Column range [lo, hi) clipped to [0, w] (the part of a batch worth searching)."""
+    lo, hi = max(int(lo), 0), min(int(hi), w)
+    return lo, max(hi, lo)
+
+
 def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
                     start: np.ndarray | None = None) -> np.ndarray:
     """Fractional index where each row last rises through ``level`` before ``stop``.
 
     The crossing lies between the last sample ``j < stop`` with ``u[j] < level``
     and ``j + 1``; it is linearly interpolated. NaN where no sample in
-    ``[start, stop)`` is below the level.
+    ``[start, stop)`` is below the level. Only the columns between the smallest
+    start and the largest stop of the batch are searched.
     """
-    cols = np.arange(u.shape[1])
-    mask = (u < level[:, None]) & (cols < stop[:, None])
+    w = u.shape[1]
+    c0, c1 = _span(w, 0 if start is None else np.min(start, initial=w),
+                   np.max(stop, initial=0))
+    sub = u[:, c0:c1]
+    cols = np.arange(c0, c1)
+    mask = (sub < level[:, None]) & (cols < stop[:, None])
     if start is not None:
         mask &= cols >= start[:, None]
-    j, found = last_true(mask)
+    if c1 > c0:
+        j, found = last_true(mask)
+        j = j + c0
+    else:
+        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
     r = np.arange(u.shape[0])
-    j1 = np.minimum(j + 1, u.shape[1] - 1)
+    j1 = np.minimum(j + 1, w - 1)
     u0, u1 = u[r, j], u[r, j1]
     with np.errstate(divide="ignore", invalid="ignore"):
         a = np.clip((level - u0) / (u1 - u0), 0.0, 1.0)
@@ -83,14 +99,23 @@ def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
 
     The crossing lies between the first sample ``j > start`` with ``u[j] < level``
     (``<=`` when ``inclusive``) and ``j - 1``; linearly interpolated. NaN where
-    none is found in ``(start, stop)``.
+    none is found in ``(start, stop)``. Only the columns between the smallest
+    start and the largest stop of the batch are searched.
     """
-    cols = np.arange(u.shape[1])
-    below = (u <= level[:, None]) if inclusive else (u < level[:, None])
+    w = u.shape[1]
+    c0, c1 = _span(w, np.min(start, initial=w) + 1,
+                   w if stop is None else np.max(stop, initial=0))
+    sub = u[:, c0:c1]
+    cols = np.arange(c0, c1)
+    below = (sub <= level[:, None]) if inclusive else (sub < level[:, None])
     mask = below & (cols > start[:, None])
     if stop is not None:
         mask &= cols < stop[:, None]
-    j, found = first_true(mask)
+    if c1 > c0:
+        j, found = first_true(mask)
+        j = j + c0
+    else:
+        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
     r = np.arange(u.shape[0])
     j0 = np.maximum(j - 1, 0)
     u0, u1 = u[r, j0], u[r, j]
@@ -98,6 +123,37 @@ def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
         a = np.clip((u0 - level) / (u0 - u1), 0.0, 1.0)
     a = np.where(np.isfinite(a), a, 1.0)
     return np.where(found, j0 + a, np.nan)
+
+
+def integrate_rows(y: np.ndarray, a: np.ndarray, b: np.ndarray, dt: float) -> np.ndarray:
+    """Trapezoidal integral of each row from fractional index ``a`` to ``b`` (b >= a).
+
+    Equals ``interp_rows(cumtrapz_rows(y, dt), b) - interp_rows(..., a)``, in one
+    masked pass over the columns between them.
+    """
+    n, w = y.shape
+    ok = np.isfinite(a) & np.isfinite(b)
+    a = np.clip(np.where(ok, a, 0.0), 0, w - 1)
+    b = np.clip(np.where(ok, b, 0.0), a, w - 1)
+    ia, ib = np.floor(a).astype(np.intp), np.floor(b).astype(np.intp)
+    c0, c1 = _span(w, ia.min(initial=0), ib.max(initial=0) + 1)
+    cols = np.arange(c0, c1)
+    sub = y[:, c0:c1]
+    # whole trapezoids between samples ia .. ib (weights 1/2 at both ends)
+    inside = (cols >= ia[:, None]) & (cols <= ib[:, None])
+    whole = np.where(inside, sub, 0.0).sum(axis=1)
+    r = np.arange(n)
+    ya, yb = y[r, ia], y[r, ib]
+    whole = (whole - 0.5 * (ya + yb)) * dt
+    whole = np.where(ib > ia, whole, 0.0)
+    # from ia to a and from ib to b: the cumulative integral interpolated linearly
+    # between samples (what interp_rows(cumtrapz_rows(y), x) gives)
+    ya1 = y[r, np.minimum(ia + 1, w - 1)]
+    yb1 = y[r, np.minimum(ib + 1, w - 1)]
+    fa, fb = a - ia, b - ib
+    head = fa * dt * 0.5 * (ya + ya1)
+    tail = fb * dt * 0.5 * (yb + yb1)
+    return np.where(ok, whole - head + tail, np.nan)
 
 
 def cumtrapz_rows(y: np.ndarray, dt: float) -> np.ndarray:

@@ -64,6 +64,7 @@ from ._rowops import (
     crossing_before,
     cumtrapz_rows,
     first_true,
+    integrate_rows,
     interp_rows,
     parabolic_peak,
     take_rows,
@@ -87,7 +88,7 @@ PEAK_SEARCH_S = (-3e-6, 40e-6)
 #: largest |E| of the search window (common practice, no source).
 PEAK_FRACTION = 0.15
 #: Longest stretch of pre-window record used for baseline and noise, in seconds.
-BASELINE_MAX_S = 60e-6
+BASELINE_MAX_S = 40e-6
 #: Transmission-line return-stroke speed assumed for ``peak_current_a``, m/s.
 #: Half the speed of light: the middle of measured return-stroke speeds
 #: (about c/3 to 2c/3; Rakov & Uman 2003, ch. 4; from memory).
@@ -279,7 +280,10 @@ def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, d
     c50 = crossing_before(u, s, lvl(0.5))
     lookback = np.where(np.isfinite(c50), 4 * (s - np.nan_to_num(c50)) + 2, 1e-6 * fs)
     lo = np.maximum(s - np.ceil(lookback).astype(np.intp), 0)
-    valley = np.where((cols >= lo[:, None]) & (cols <= s[:, None]), u, np.inf).argmin(axis=1)
+    v0, v1 = int(lo.min(initial=0)), int(s.max(initial=0)) + 1
+    vc = cols[v0:v1]
+    valley = v0 + np.where((vc >= lo[:, None]) & (vc <= s[:, None]), u[:, v0:v1],
+                           np.inf).argmin(axis=1)
     # leading-edge levels are searched after the valley (a pulse riding on its
     # predecessor's tail has no 10 % point of its own: NaN)
     c10 = crossing_before(u, s, lvl(0.1), start=valley)
@@ -332,10 +336,9 @@ def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, d
     ie_on = interp_rows(ie, onset)
     m_end = np.where(has_zc, zc, np.where(np.isfinite(f10), f10, w - 1.0))
     current_moment = -k * (interp_rows(ie, m_end) - ie_on)
-    mom = ie - ie_on[:, None]                           # int_onset^t E dt, per sample
-    mom = np.where(cols >= np.floor(onset)[:, None], mom, 0.0)
-    iie = cumtrapz_rows(mom, dt)
-    charge_moment = -k * (interp_rows(iie, end_charge) - interp_rows(iie, onset))
+    # int_onset^T (int_onset^t E dt') dt  =  int_onset^T ie dt - ie(onset) (T - onset)
+    t_span = np.maximum(end_charge - onset, 0.0)
+    charge_moment = -k * (integrate_rows(ie, onset, onset + t_span, dt) - ie_on * t_span * dt)
 
     peak_signed = polarity * peak
     with np.errstate(divide="ignore", invalid="ignore"):
