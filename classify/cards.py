@@ -25,9 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
+from features.atomic import atomic_write
 from features.catalog import scan_quality
-
-from ._atomic import atomic_write
 
 __all__ = ["render_data_card", "write_data_card"]
 

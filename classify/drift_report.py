@@ -18,9 +18,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from features.atomic import atomic_write
+
 from . import __version__, svgplot
 from . import stats as _stats
-from ._atomic import atomic_write
 from .drift import PSI_BANDS, DriftResult, _numeric
 from .priors import _model_inputs
 

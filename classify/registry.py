@@ -29,7 +29,7 @@ import shutil
 import tempfile
 from pathlib import Path
 
-from ._atomic import _umask, atomic_write
+from features.atomic import _umask, atomic_write
 
 __all__ = ["ALLOWED_TYPES", "ModelRegistry", "save_model", "load_model", "verify_model_dir",
            "file_sha256", "write_card_files"]

@@ -24,8 +24,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from features.atomic import atomic_write
+
 from . import svgplot
-from ._atomic import atomic_write
 from .review._queue import probability_columns
 
 logger = logging.getLogger("pulsesort")

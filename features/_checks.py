@@ -11,6 +11,7 @@ from collections.abc import Iterable
 from numbers import Real
 
 __all__ = [
+    "InputError",
     "CatalogError",
     "Problems",
     "check_option",
@@ -19,21 +20,28 @@ __all__ = [
 ]
 
 
-class CatalogError(ValueError):
-    """A catalog (or other input file) breaks its contract.
+class InputError(ValueError):
+    """An input (catalog, station description, labels file, model folder, option)
+    breaks its contract: the one error type raised at pulsesort's boundaries.
+
+    The command line maps it to exit code 2; any other exception is a bug (exit 1).
 
     Parameters
     ----------
-    problems : list of str
+    problems : str or list of str
         Every problem found, each naming the file, row or key and what was
         expected. ``str(error)`` joins them one per line.
     """
 
-    def __init__(self, problems: Iterable[str]):
-        self.problems = list(problems)
+    def __init__(self, problems: str | Iterable[str]):
+        self.problems = [problems] if isinstance(problems, str) else list(problems)
         if not self.problems:
-            self.problems = ["unspecified catalog problem"]
+            self.problems = ["unspecified input problem"]
         super().__init__("\n".join(self.problems))
+
+
+#: The name used by the catalog reader; the same class as :class:`InputError`.
+CatalogError = InputError
 
 
 class Problems:

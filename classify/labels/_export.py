@@ -7,7 +7,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from .._atomic import atomic_open
+from features.atomic import atomic_open
+
 from . import _query
 from ._importer import EXPORT_COLUMNS
 
