@@ -19,6 +19,8 @@ __all__ = [
     "take_rows",
     "cumtrapz_rows",
     "parabolic_peak",
+    "moving_average_rows",
+    "nanmedian_rows",
 ]
 
 
@@ -182,3 +184,65 @@ def parabolic_peak(u: np.ndarray, j: np.ndarray) -> tuple[np.ndarray, np.ndarray
     h = y1 - 0.25 * (y0 - y2) * d
     h = np.where(np.isfinite(h), np.maximum(h, y1), y1)
     return j + d, h
+
+
+def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """Centred moving average of each row over ``k[i]`` samples (k >= 1; edges shortened).
+
+    Rows sharing a window length are averaged together (one cumulative sum per length).
+
+    Parameters
+    ----------
+    y : ndarray, shape (n, w)
+    k : ndarray of int, shape (n,)
+        Window length of each row, samples (1: the row unchanged).
+
+    Returns
+    -------
+    ndarray, shape (n, w)
+    """
+    n, w = y.shape
+    k = np.clip(np.asarray(k, dtype=np.intp), 1, max(w, 1))
+    out = y.copy()
+    if w == 0:
+        return out
+    for kk in np.unique(k):
+        if kk == 1:
+            continue
+        rows = np.flatnonzero(k == kk)
+        c = np.zeros((rows.size, w + 1))
+        np.cumsum(y[rows], axis=1, out=c[:, 1:])
+        lo_half = (kk - 1) // 2
+        a_idx = np.clip(np.arange(w) - lo_half, 0, w)
+        b_idx = np.clip(np.arange(w) + kk - lo_half, 0, w)
+        out[rows] = (c[:, b_idx] - c[:, a_idx]) / (b_idx - a_idx)
+    return out
+
+
+def nanmedian_rows(a: np.ndarray) -> np.ndarray:
+    """Median of each row ignoring NaN (NaN for an all-NaN or empty row); vectorised.
+
+    Rows without NaN use :func:`numpy.median`; rows with NaN are sorted (NaN last) and
+    the middle of their valid values taken, with no Python loop over rows (unlike
+    :func:`numpy.nanmedian` on 2-D input).
+    """
+    a = np.asarray(a, dtype=np.float64)
+    n, w = a.shape
+    out = np.full(n, np.nan)
+    if w == 0 or n == 0:
+        return out
+    nan = np.isnan(a)
+    has_nan = nan.any(axis=1)
+    clean = ~has_nan
+    if clean.all():
+        return np.median(a, axis=1)
+    if clean.any():
+        out[clean] = np.median(a[clean], axis=1)
+    sub = np.sort(a[has_nan], axis=1)
+    cnt = (~nan[has_nan]).sum(axis=1)
+    lo = np.clip((cnt - 1) // 2, 0, w - 1)
+    hi = np.clip(cnt // 2, 0, w - 1)
+    r = np.arange(sub.shape[0])
+    med = 0.5 * (sub[r, lo] + sub[r, hi])
+    out[has_nan] = np.where(cnt > 0, med, np.nan)
+    return out

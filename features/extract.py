@@ -27,14 +27,8 @@ from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import source_features
-from .vhf import VHF_NOISE_MAX_S, VHF_WINDOW_S, vhf_features
-from .waveform import (
-    ANALYSIS_WINDOW_S,
-    BASELINE_MAX_S,
-    PEAK_SEARCH_S,
-    REFERENCE_RANGE_M,
-    field_features,
-)
+from .vhf import VHF_LEAD_S, VHF_MAX_WINDOW_S, VHF_SPAN_S, VHF_TRAIL_S, vhf_features
+from .waveform import ANALYSIS_WINDOW_S, PEAK_SEARCH_S, field_features
 
 __all__ = ["ChunkJob", "ChunkPlan", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks",
            "iter_features",
@@ -93,6 +87,35 @@ def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
     return raw.astype(np.float64), ch.clipped_rows(raw)
 
 
+def clip_level(ch: Channel) -> float | None:
+    """The level (channel units after ``scale``) at which a channel's samples are clipped.
+
+    The smaller of the declared ``full_scale`` and, for int16 files, the largest count.
+    """
+    levels = [] if ch.full_scale is None else [float(ch.full_scale)]
+    if ch.dtype == np.int16:
+        levels.append(32767.0 * ch.scale)
+    return min(levels) if levels else None
+
+
+def vhf_window_s(f: dict, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Where each pulse's VHF peak is searched: its extent, widened, between neighbours.
+
+    Physical time relative to the trigger, s (see :mod:`features.vhf`). Rows without a
+    usable field pulse search around the trigger (``PEAK_SEARCH_S``).
+    """
+    onset, end = f["pulse_start_s"], f["pulse_end_s"]
+    prev_end, next_start = f["prev_end_s"], f["next_start_s"]
+    lo = onset - VHF_LEAD_S
+    lo = np.where(np.isfinite(prev_end), np.maximum(lo, 0.5 * (prev_end + onset)), lo)
+    hi = np.minimum(end + VHF_TRAIL_S, onset + VHF_MAX_WINDOW_S)
+    hi = np.where(np.isfinite(next_start), np.minimum(hi, 0.5 * (end + next_start)), hi)
+    ok = np.isfinite(lo) & np.isfinite(hi)
+    lo = np.where(ok, lo, PEAK_SEARCH_S[0] - VHF_LEAD_S)
+    hi = np.where(ok, hi, PEAK_SEARCH_S[1])
+    return lo, hi
+
+
 def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     """Features of the rows of one :class:`ChunkJob`, as a DataFrame in schema order."""
     n = job.stop - job.start
@@ -100,45 +123,45 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     mapping = source_features(job.sources, job.range_m, n)
     rng = np.where(np.isfinite(job.range_m), job.range_m, mapping["source_range_m"])
 
-    before = ANALYSIS_WINDOW_S[0] - BASELINE_MAX_S
-    c0, c1 = _column_span(fch, before, ANALYSIS_WINDOW_S[1])
+    c0, c1 = _column_span(fch, *ANALYSIS_WINDOW_S)
     seg, fclip = _read_rows(fch, job.start, job.stop, (c0, c1))
     seg *= fch.scale * fch.sign
     f = field_features(seg, fch.sample_rate_hz, pretrigger_s=fch.pretrigger_s - c0 /
                        fch.sample_rate_hz, delay_s=fch.delay_s,
                        decay_time_s=fch.decay_time_s, quantum_v_per_m=fch.quantum,
-                       range_m=rng)
+                       range_m=rng, altitude_m=mapping["altitude_m"],
+                       full_scale_v_per_m=clip_level(fch))
     del seg
     vclip = np.zeros(n, dtype=bool)
     if job.vhf is not None:
         vch = job.vhf
-        shift = vch.delay_s - fch.delay_s          # field physical -> VHF recorded time
-        lo = min(-VHF_WINDOW_S - VHF_NOISE_MAX_S, PEAK_SEARCH_S[0] + shift - VHF_WINDOW_S)
-        hi = PEAK_SEARCH_S[1] + shift + VHF_WINDOW_S
-        v0, v1 = _column_span(vch, lo - 2e-6, hi + 2e-6)
+        v0, v1 = _column_span(vch, VHF_SPAN_S[0] + vch.delay_s, VHF_SPAN_S[1] + vch.delay_s)
         vseg, vclip = _read_rows(vch, job.start, job.stop, (v0, v1))
-        v = vhf_features(vseg, vch.sample_rate_hz, vch.kind, f["peak_time_s"],
+        vseg *= vch.scale
+        level = clip_level(vch)
+        v = vhf_features(vseg, vch.sample_rate_hz, vch.kind, vhf_window_s(f, n),
                          pretrigger_s=vch.pretrigger_s - v0 / vch.sample_rate_hz,
-                         delay_s=vch.delay_s,
-                         centre_span_s=(PEAK_SEARCH_S[0] - fch.delay_s,
-                                        PEAK_SEARCH_S[1] - fch.delay_s))
+                         delay_s=vch.delay_s, full_scale=level)
         del vseg
     else:
         v = {k: np.full(n, np.nan) for k in ("vhf_peak_db", "vhf_peak_time_s", "vhf_snr_db",
                                              "vhf_width_s")}
         v["vhf_ok"] = np.zeros(n, dtype=bool)
+        v["vhf_censored"] = np.zeros(n, dtype=bool)
 
     with np.errstate(divide="ignore", invalid="ignore"):
-        norm_db = 20 * np.log10(np.abs(f["peak_field_v_per_m"]) * rng / REFERENCE_RANGE_M)
+        norm_db = 20 * np.log10(np.abs(f["range_normalized_peak_v_per_m"]))
     cols = {
         "event_id": job.event_id,
         **f,
         "vhf_peak_db": v["vhf_peak_db"],
         "vhf_field_lag_s": f["peak_time_s"] - v["vhf_peak_time_s"],
+        "vhf_lag_first_peak_s": f["first_peak_time_s"] - v["vhf_peak_time_s"],
         "vhf_to_field_db": v["vhf_peak_db"] - np.where(np.isfinite(norm_db), norm_db, np.nan),
         "vhf_field_ratio_db": v["vhf_snr_db"] - f["snr_db"],
         "vhf_snr_db": v["vhf_snr_db"],
         "vhf_width_s": v["vhf_width_s"],
+        "vhf_censored": v["vhf_censored"],
         **mapping,
         **job.context,
         "range_m": rng,

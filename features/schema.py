@@ -18,7 +18,7 @@ __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "feature_names", "model_feat
            "missing_groups", "format_table"]
 
 #: Bump when a definition changes in a way that changes values.
-SCHEMA_VERSION = "1.2"
+SCHEMA_VERSION = "2.0"
 
 
 @dataclass(frozen=True)
@@ -54,55 +54,85 @@ class Feature:
 FEATURES: tuple[Feature, ...] = (
     Feature("event_id", "-", "from events.csv", "id", model=False),
     # ---------------------------------------------------------------- field
-    Feature("peak_field_v_per_m", "V/m", "signed initial peak of the field change (physics "
-            "convention, baseline removed, decay-compensated): the first local maximum of |E| "
-            "from 3 us before the trigger that reaches 15 % of the largest |E| within 40 us "
-            "after it", "field"),
-    Feature("polarity", "1", "+1 / -1: sign of the initial peak", "field"),
-    Feature("rise_time_s", "s", "10 % to 90 % of the initial peak on its leading edge",
-            "field"),
-    Feature("fwhm_s", "s", "full width at half maximum of the initial peak", "field"),
-    Feature("initial_half_cycle_s", "s", "onset (last rise through 1 % of the peak or the "
-            "noise) to the first zero crossing after the peak", "field"),
-    Feature("zero_crossing_s", "s", "time from the initial peak to the first zero crossing "
-            "after it", "field"),
-    Feature("width_s", "s", "whole pulse duration above 10 % of the absolute peak, overshoot "
-            "included: leading-edge 10 % point to the last fall below 10 % of the pulse or, "
-            "when the overshoot exceeds 10 %, of the overshoot", "field"),
-    Feature("bipolarity", "1", "opposite-polarity overshoot peak / initial peak, absolute "
-            "ratio (0 = unipolar)", "field"),
-    Feature("range_normalized_peak_v_per_m", "V/m", "initial peak scaled to 100 km "
-            "(x range / 100 km); NaN without range", "field",
+    Feature("peak_field_v_per_m", "V/m", "signed peak of the catalogued pulse's initial "
+            "half-cycle (physics convention, baseline line removed, decay-compensated): the "
+            "largest |E| of the first lobe of the pulse at the trigger, measured within the "
+            "pulse's own extent", "field"),
+    Feature("polarity", "1", "+1 / -1: sign of the initial half-cycle", "field"),
+    Feature("rise_time_s", "s", "10 % to 90 % of the peak on its leading edge (searched back "
+            "from the peak, never before the previous pulse); NaN below 20 dB SNR or under one "
+            "sample", "field"),
+    Feature("fwhm_s", "s", "full width at half maximum of the initial half-cycle; NaN below "
+            "12 dB SNR or under two samples", "field"),
+    Feature("initial_half_cycle_s", "s", "onset (last rise through max(1 % of the peak, "
+            "3 sigma of the smoothed record)) to the zero crossing; NaN for a unipolar pulse "
+            "and below 20 dB SNR", "field"),
+    Feature("zero_crossing_s", "s", "peak to the zero crossing: the last fall through 0 "
+            "before the (smoothed) field goes below -max(3 sigma, 2 % of the peak); NaN for a "
+            "unipolar pulse and below 20 dB SNR", "field"),
+    Feature("width_s", "s", "whole pulse duration: leading-edge 10 % point to the last fall "
+            "of the (smoothed) pulse, or of its overshoot when that exceeds 10 %, below 10 % "
+            "of the peak; NaN where 10 % of the peak is under 2 sigma", "field"),
+    Feature("bipolarity", "1", "opposite-polarity overshoot peak (smoothed) / peak, 0 for a "
+            "unipolar pulse; NaN below 20 dB SNR and where noise could hide an overshoot of "
+            "15 %", "field"),
+    Feature("range_normalized_peak_v_per_m", "V/m", "peak scaled to a ground-level source at "
+            "100 km with the elevated-source geometry: x (R^3 / D^2) / 100 km, R = "
+            "sqrt(D^2 + H^2); NaN without range", "field",
             requires=frozenset({"range"})),
-    Feature("current_moment_peak_a_m", "A m", "peak current moment from the radiation term "
-            "M = -2 pi eps0 c^2 D int E dt (onset to zero crossing); + = upward-directed "
-            "current; NaN without range", "field",
+    Feature("current_moment_peak_a_m", "A m", "current moment M at the zero crossing (or the "
+            "end of a unipolar pulse), from the three-term inversion of the field of an "
+            "elevated source (radiation-only with the D^2/R^3 geometry where it does not "
+            "converge); + = upward-directed current; NaN without range", "field",
             requires=frozenset({"range"})),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "
-            "overshoot lobe; NaN without range", "field",
+            "overshoot lobe (or of the pulse), same inversion; NaN without range", "field",
             requires=frozenset({"range"})),
-    Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 D E / v "
-            "with v = 1.5e8 m/s; + = upward-directed current; NaN without range", "field",
-            requires=frozenset({"range"})),
+    Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 (R^3 / D^2) "
+            "E / v with v = 1.5e8 m/s; + = upward-directed current; NaN without range",
+            "field", requires=frozenset({"range"})),
+    Feature("pulse_start_s", "s", "the pulse's onset: physical time relative to the trigger",
+            "field", model=False),
+    Feature("pulse_end_s", "s", "end of the pulse (of its overshoot lobe when bipolar), "
+            "physical time relative to the trigger", "field", model=False),
+    Feature("neighbours_before", "1", "other pulses in the record within 100 us before the "
+            "peak, reaching max(5 sigma, 10 % of the peak)", "field"),
+    Feature("neighbours_after", "1", "the same within 100 us after the peak", "field"),
+    Feature("nearest_neighbour_s", "s", "time from the peak to the nearest such pulse in the "
+            "record (NaN: none)", "field"),
+    Feature("neighbour_interval_s", "s", "median interval between successive pulses of the "
+            "train holding the pulse (within 100 us; NaN without neighbour)", "field"),
+    Feature("largest_neighbour_ratio", "1", "largest other pulse within 100 us (any size "
+            "over 5 sigma) / the peak; 0: none", "field"),
+    Feature("pre_level_ratio", "1", "mean field in the 2 us before the onset / the peak "
+            "(a pulse riding on another's tail)", "field"),
+    Feature("baseline_slope_ratio", "1", "slope of the baseline line over 10 us / the peak, "
+            "in the pulse's polarity", "field"),
+    Feature("record_before_s", "s", "record before the peak", "field", model=False),
+    Feature("record_after_s", "s", "record after the peak", "field", model=False),
     # ---------------------------------------------------------------- vhf
-    Feature("vhf_peak_db", "dB", "10 log10 of the peak VHF power within 30 us of the field "
-            "peak, in the catalog's own power units", "vhf", model=False,
-            requires=frozenset({"vhf"})),
+    Feature("vhf_peak_db", "dB", "10 log10 of the peak of the smoothed VHF power envelope "
+            "(0.1 us bins, 0.5 us moving average) in the pulse's window, catalog units",
+            "vhf", model=False, requires=frozenset({"vhf"})),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
-            "power peak (positive: VHF leads); both channels delay-corrected", "vhf",
+            "envelope peak (positive: VHF leads); both channels delay-corrected", "vhf",
             requires=frozenset({"vhf"})),
+    Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
+            "the field's initial half-cycle (equal to the lag when it has none before the "
+            "peak)", "vhf", requires=frozenset({"vhf"})),
     Feature("vhf_to_field_db", "dB", "VHF peak power relative to the squared range-"
             "normalised field peak: vhf_peak_db - 20 log10(|range_normalized_peak|); in the "
             "catalog's VHF units", "vhf", model=False,
             requires=frozenset({"range", "vhf"})),
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
-            "field strength, each over its own noise floor (range and gain free)", "vhf", model=False,
-            requires=frozenset({"vhf"})),
-    Feature("vhf_snr_db", "dB", "peak VHF power over the mean pre-trigger VHF power", "vhf",
-            requires=frozenset({"vhf"})),
-    Feature("vhf_width_s", "s", "time the VHF power (0.25 us moving average) stays above "
-            "10 % of its peak around the peak", "vhf",
-            requires=frozenset({"vhf"})),
+            "field strength, each over its own noise floor (range and gain free)", "vhf",
+            model=False, requires=frozenset({"vhf"})),
+    Feature("vhf_snr_db", "dB", "smoothed VHF envelope peak over its noise floor (median "
+            "outside the window)", "vhf", requires=frozenset({"vhf"})),
+    Feature("vhf_width_s", "s", "time the smoothed envelope stays above 10 % of its peak "
+            "around it; NaN below 10 dB SNR", "vhf", requires=frozenset({"vhf"})),
+    Feature("vhf_censored", "bool", "a raw VHF sample of the window reaches full scale: the "
+            "VHF peak is a lower bound", "vhf", requires=frozenset({"vhf"})),
     # ---------------------------------------------------------------- mapping
     Feature("n_sources", "1", "mapped VHF sources of the pulse (NaN: catalog has no "
             "sources)", "mapping",
@@ -157,16 +187,25 @@ FEATURES: tuple[Feature, ...] = (
     # ---------------------------------------------------------------- quality
     Feature("range_m", "m", "horizontal range used (events.csv, else the sources' median "
             "horizontal distance)", "quality", model=False),
-    Feature("snr_db", "dB", "20 log10(|initial peak| / robust noise sigma of the pre-trigger "
-            "field)", "quality", model=False),
-    Feature("field_noise_v_per_m", "V/m", "robust noise sigma of the pre-trigger field",
+    Feature("snr_db", "dB", "20 log10(peak / noise sigma); sigma: 1.4826 MAD about the "
+            "baseline line, with step^2/12 of an integer digitizer in quadrature",
             "quality", model=False),
+    Feature("field_noise_v_per_m", "V/m", "that noise sigma", "quality", model=False),
+    Feature("field_censored", "bool", "a field sample of the pulse's extent reaches full scale "
+            "(the peak is a lower bound)", "quality"),
     Feature("clipped", "bool", "any field or VHF sample at or beyond full scale in the "
-            "analysed part of the record (baseline and analysis window)",
+            "analysed part of the record", "quality", model=False),
+    Feature("baseline_short", "bool", "under 10 us of record before the pulse for its "
+            "baseline (a level only, or none)", "quality", model=False),
+    Feature("altitude_assumed", "bool", "no source altitude: 8 km assumed for the geometry",
             "quality", model=False),
+    Feature("near_field", "bool", "range under 5 x the source altitude: the induction and "
+            "electrostatic terms matter", "quality", model=False),
+    Feature("moments_converged", "bool", "the three-term moment inversion converged "
+            "(otherwise radiation-only with the D^2/R^3 geometry)", "quality", model=False),
     Feature("has_vhf", "bool", "the pulse has a usable VHF record", "quality", model=False),
-    Feature("field_ok", "bool", "the field record is usable (at most half of the analysis "
-            "window missing and a non-zero peak)", "quality", model=False),
+    Feature("field_ok", "bool", "the field record is usable (at most half of the span "
+            "missing and a peak of at least 3 sigma)", "quality", model=False),
 )
 
 _BY_NAME = {f.name: f for f in FEATURES}

@@ -1,11 +1,34 @@
-"""Features of the VHF channel: power envelope, peak, lag to the field, duration.
+"""Features of the VHF channel: a smoothed power envelope, its peak, lag, width and SNR.
 
 The VHF record is either a band-limited antenna voltage (``kind="voltage"``,
 power = |analytic signal|^2, the analytic signal from :func:`scipy.signal.hilbert`)
 or an already detected linear power envelope (``kind="power"``). Power stays in
 the catalog's own units (V^2, counts^2, ...): absolute VHF levels are not
-comparable between stations, so the model uses the ratios (``vhf_snr_db``) and
-times, and ``vhf_peak_db`` is reported for the analyst.
+comparable between stations, so the models use ratios and times, and
+``vhf_peak_db`` is reported for the analyst.
+
+The raw power of a noise-like VHF signal is speckled (a detected Gaussian carrier has
+exponentially distributed power): its largest sample over a long record sits ~10 dB
+above the mean even with no signal, and the time of a single burst's largest sample
+jitters by its duration. Every VHF feature is therefore measured on a **smoothed
+envelope**: the power averaged into bins of :data:`VHF_BIN_S` and then over a moving
+window of :data:`VHF_SMOOTH_S` (0.5 us: about the duration of a leader step's VHF burst;
+common practice, no source).
+
+* **window**: the catalogued pulse's own extent in the field record, widened
+  :data:`VHF_LEAD_S` before its onset (an energetic in-cloud pulse's VHF leads its
+  largest field peak by ~10 us; common practice, no source) and :data:`VHF_TRAIL_S`
+  after its end, never beyond half-way to a neighbouring pulse, at most
+  :data:`VHF_MAX_WINDOW_S` long.
+* **noise floor**: the median of the smoothed envelope over :data:`VHF_NOISE_S` before
+  the window (after it when the record starts later): a quiet stretch, where bursts of
+  other pulses occupy a small part of the time.
+* **peak**, its time (parabola through three bins), **SNR** = peak / noise floor (dB),
+  **width**: the time the smoothed envelope stays above 10 % of its peak around it
+  (NaN below 10 dB SNR, where 10 % of the peak is under the noise floor).
+* **censored**: a raw sample of the window at or beyond the channel's full scale: the
+  peak is then a lower bound (NBEs, the strongest VHF emitters, saturate receivers set
+  sensitive enough for everything else).
 """
 
 from __future__ import annotations
@@ -16,17 +39,30 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import signal
 
-from ._rowops import crossing_after, crossing_before, take_rows
+from ._rowops import crossing_after, crossing_before, nanmedian_rows, parabolic_peak
 
-__all__ = ["VHF_WINDOW_S", "VHF_SMOOTH_S", "vhf_power", "vhf_features"]
+__all__ = ["VHF_BIN_S", "VHF_SMOOTH_S", "VHF_SPAN_S", "vhf_power", "vhf_envelope",
+           "vhf_features"]
 
-#: Half-width of the VHF search window around the field peak, seconds.
-VHF_WINDOW_S = 30e-6
-#: Moving-average length for the VHF duration, seconds (common practice, no source).
-VHF_SMOOTH_S = 0.25e-6
-#: Record before the trigger used for the VHF noise floor, seconds (at most).
-VHF_NOISE_MAX_S = 60e-6
+#: Bin of the power envelope, s.
+VHF_BIN_S = 0.1e-6
+#: Moving average of the binned envelope, s.
+VHF_SMOOTH_S = 0.5e-6
+#: The window opens this long before the field pulse's onset, s.
+VHF_LEAD_S = 15e-6
+#: ... and closes this long after its end, s.
+VHF_TRAIL_S = 2e-6
+#: Longest window, s.
+VHF_MAX_WINDOW_S = 80e-6
+#: Stretch of envelope before the window whose median is the noise floor, s.
+VHF_NOISE_S = 20e-6
+#: Span of the VHF record read around the trigger (field physical time), s.
+VHF_SPAN_S = (-60e-6, 100e-6)
 VHF_DB_CAP = 200.0
+#: SNR below which the width is not resolved, dB.
+MIN_SNR_WIDTH_DB = 10.0
+#: Rows of voltage records turned into power at once (bounds the memory of the FFT).
+_HILBERT_ROWS = 64
 
 
 def vhf_power(vhf, kind):
@@ -50,28 +86,72 @@ def vhf_power(vhf, kind):
         return np.clip(np.nan_to_num(v, nan=0.0), 0.0, None)
     if kind != "voltage":
         raise ValueError(f"kind must be 'voltage' or 'power', got {kind!r}")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        v = v - np.nanmean(v, axis=1, keepdims=True)
-    v = np.nan_to_num(v, nan=0.0)
+    out = np.empty_like(v)
+    if v.shape[1] == 0:
+        return out
     nfft = sp_fft.next_fast_len(v.shape[1], real=True)
-    z = signal.hilbert(v, N=nfft, axis=1)[:, : v.shape[1]]
-    return z.real ** 2 + z.imag ** 2
-
-
-def _moving_average(p, n):
-    if n <= 1:
-        return p
-    c = np.cumsum(p, axis=1)
-    out = np.empty_like(p)
-    out[:, :n] = c[:, :n] / np.arange(1, n + 1)
-    out[:, n:] = (c[:, n:] - c[:, :-n]) / n
+    for a in range(0, v.shape[0], _HILBERT_ROWS):
+        b = min(a + _HILBERT_ROWS, v.shape[0])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            block = v[a:b] - np.nanmean(v[a:b], axis=1, keepdims=True)
+        block = np.nan_to_num(block, nan=0.0)
+        z = signal.hilbert(block, N=nfft, axis=1)[:, : v.shape[1]]
+        out[a:b] = z.real ** 2 + z.imag ** 2
     return out
 
 
-def vhf_features(vhf, sample_rate_hz, kind, field_peak_time_s, *, pretrigger_s=0.0,
-                 delay_s=0.0, window_s=VHF_WINDOW_S, smooth_s=VHF_SMOOTH_S,
-                 centre_span_s=None):
+def vhf_envelope(power, sample_rate_hz, *, bin_s=VHF_BIN_S, smooth_s=VHF_SMOOTH_S):
+    """Bin and smooth a linear power envelope.
+
+    Parameters
+    ----------
+    power : ndarray, shape (n, m)
+        Linear power (:func:`vhf_power`).
+    sample_rate_hz : float
+    bin_s, smooth_s : float
+        Bin length and moving-average length, s.
+
+    Returns
+    -------
+    envelope : ndarray, shape (n, m // k)
+        Mean power per bin, then averaged over ``smooth_s`` (centred).
+    samples_per_bin : int
+        k, samples of the input per bin.
+    """
+    fs = float(sample_rate_hz)
+    k = max(int(round(bin_s * fs)), 1)
+    nb = power.shape[1] // k
+    binned = power[:, : nb * k].reshape(power.shape[0], nb, k).mean(axis=2)
+    w = max(int(round(smooth_s * fs / k)), 1)
+    if w > 1 and nb:
+        c = np.zeros((binned.shape[0], nb + 1))
+        np.cumsum(binned, axis=1, out=c[:, 1:])
+        lo = np.clip(np.arange(nb) - (w - 1) // 2, 0, nb)
+        hi = np.clip(np.arange(nb) + w - (w - 1) // 2, 0, nb)
+        binned = (c[:, hi] - c[:, lo]) / (hi - lo)
+    return binned, k
+
+
+def _noise_floor(env, inwin, n_bins):
+    """Median of the ``n_bins`` bins before each row's window (after it if too few)."""
+    n, nb = env.shape
+    n_bins = int(np.clip(n_bins, 8, nb))
+    first = np.where(inwin.any(axis=1), inwin.argmax(axis=1), nb)
+    last = np.where(inwin.any(axis=1), nb - 1 - inwin[:, ::-1].argmax(axis=1), -1)
+    before = first >= 8
+    start = np.where(before, np.maximum(first - n_bins, 0), np.minimum(last + 1, nb - 1))
+    stop = np.where(before, first, np.minimum(last + 1 + n_bins, nb))
+    width = int(max((stop - start).max(initial=0), 1))
+    cols = start[:, None] + np.arange(width)[None, :]
+    block = np.take_along_axis(env, np.clip(cols, 0, nb - 1), axis=1)
+    block = np.where(cols < stop[:, None], block, np.nan)
+    out = nanmedian_rows(block)
+    return np.where(np.isfinite(out), out, np.median(env, axis=1))
+
+
+def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay_s=0.0,
+                 full_scale=None):
     """Compute the VHF features of a batch of pulses.
 
     Parameters
@@ -81,92 +161,73 @@ def vhf_features(vhf, sample_rate_hz, kind, field_peak_time_s, *, pretrigger_s=0
     sample_rate_hz : float
         Samples per second of the VHF channel.
     kind : {"voltage", "power"}
-    field_peak_time_s : ndarray, shape (n_pulses,)
-        Physical time of the field's initial peak relative to the trigger, s
-        (NaN: the VHF peak is searched over the whole record).
+    window_s : (ndarray, ndarray), each shape (n_pulses,)
+        Start and end of each pulse's search window, physical time relative to the
+        trigger, s (NaN: the whole record).
     pretrigger_s, delay_s : float
-        The VHF channel's pre-trigger length and delay, seconds.
-    window_s : float
-        Half-width of the search window around the field peak, seconds.
-    smooth_s : float
-        Moving-average length used for the duration, seconds.
-    centre_span_s : (float, float), optional
-        The range the field peak times can take (physical, s); the power is then
-        computed on a block fixed by it (widened only for a peak outside it).
+        The VHF channel's pre-trigger length (of ``vhf``'s first column) and delay, s.
+    full_scale : float, optional
+        The channel's clip level in file units.
 
     Returns
     -------
     dict of str -> ndarray, shape (n_pulses,)
-        ``vhf_peak_db`` (10 log10 of the peak power, catalog units),
-        ``vhf_peak_time_s`` (physical time of that peak, s),
-        ``vhf_snr_db`` (peak over the mean pre-trigger power, dB),
-        ``vhf_width_s`` (time the smoothed power stays above 10 % of its peak
-        around the peak, s), ``vhf_ok`` (bool: the row has VHF samples).
+        ``vhf_peak_db`` (10 log10 of the smoothed peak power, catalog units),
+        ``vhf_peak_time_s`` (physical time of that peak, s), ``vhf_snr_db`` (peak over
+        the noise floor, dB), ``vhf_width_s`` (s), ``vhf_censored`` (bool),
+        ``vhf_ok`` (bool: the row has VHF samples).
     """
     v = np.asarray(vhf, dtype=np.float64)
     n, m = v.shape
     fs = float(sample_rate_hz)
+    nan = np.full(n, np.nan)
+    out = {"vhf_peak_db": nan.copy(), "vhf_peak_time_s": nan.copy(),
+           "vhf_snr_db": nan.copy(), "vhf_width_s": nan.copy(),
+           "vhf_censored": np.zeros(n, dtype=bool), "vhf_ok": np.zeros(n, dtype=bool)}
+    if m == 0:
+        return out
     missing = np.isnan(v)
     vhf_ok = missing.mean(axis=1) < 0.5
-    t_rec = np.arange(m) / fs - pretrigger_s
-    t_phys = t_rec - delay_s
-
-    # noise floor before the search window (mean power; for a voltage record the
-    # mean of |analytic|^2 equals twice the mean square voltage)
-    tp = np.asarray(field_peak_time_s, dtype=np.float64)
-    centre = np.where(np.isfinite(tp), tp, 0.0)
-    i_noise = int(np.clip(np.floor((pretrigger_s - window_s) * fs), 0, m))
-    i_noise0 = max(0, i_noise - int(VHF_NOISE_MAX_S * fs))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        if i_noise - i_noise0 >= 16:
-            seg = v[:, i_noise0:i_noise]
-            if kind == "voltage":
-                seg = seg - np.nanmean(seg, axis=1, keepdims=True)
-                noise = 2.0 * np.nanmean(seg ** 2, axis=1)
-            else:
-                noise = np.nanmean(np.clip(seg, 0, None), axis=1)
-        else:
-            noise = np.full(n, np.nan)
-
-    # power in a window that covers every row's search window (one FFT block)
-    # one block for the whole batch; with ``centre_span_s`` its extent does not
-    # depend on which pulses share the batch (so results do not depend on chunks)
-    lo_c, hi_c = (np.nanmin(centre), np.nanmax(centre)) if centre_span_s is None else (
-        min(centre_span_s[0], np.nanmin(centre)), max(centre_span_s[1], np.nanmax(centre)))
-    lo_t = lo_c - window_s + delay_s
-    hi_t = hi_c + window_s + delay_s
-    j0 = int(np.clip(np.floor((lo_t + pretrigger_s) * fs) - 64, 0, m))
-    j1 = int(np.clip(np.ceil((hi_t + pretrigger_s) * fs) + 64, j0 + 1, m))
-    p = vhf_power(v[:, j0:j1], kind)
-    tw = t_phys[j0:j1]
-    inwin = np.abs(tw[None, :] - centre[:, None]) <= window_s
-    pw = np.where(inwin, p, -np.inf)
-    jp = pw.argmax(axis=1)
-    peak = np.maximum(take_rows(p, jp), 0.0)
-    with np.errstate(divide="ignore"):
+    env, k = vhf_envelope(vhf_power(v, kind), fs)
+    nb = env.shape[1]
+    if nb < 3:
+        out["vhf_ok"] = vhf_ok
+        return out
+    t_bin = ((np.arange(nb) + 0.5) * k) / fs - pretrigger_s - delay_s   # physical, s
+    lo_s, hi_s = (np.asarray(w, dtype=np.float64) for w in window_s)
+    lo_s = np.where(np.isfinite(lo_s), lo_s, -np.inf)
+    hi_s = np.where(np.isfinite(hi_s), hi_s, np.inf)
+    inwin = (t_bin[None, :] >= lo_s[:, None]) & (t_bin[None, :] <= hi_s[:, None])
+    has_win = inwin.any(axis=1)
+    noise = _noise_floor(env, inwin, int(round(VHF_NOISE_S * fs / k)))
+    jp = np.where(inwin, env, -np.inf).argmax(axis=1)
+    frac, peak = parabolic_peak(env, jp)
+    peak = np.maximum(peak, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
         peak_db = 10 * np.log10(peak)
         snr_db = 10 * np.log10(peak / noise)
     peak_db = np.where(np.isfinite(peak_db), peak_db, np.nan)
     snr_db = np.where(np.isfinite(snr_db), np.clip(snr_db, -VHF_DB_CAP, VHF_DB_CAP),
                       np.where(peak > 0, VHF_DB_CAP, np.nan))
-
-    ps = _moving_average(p, int(round(smooth_s * fs)))
-    ps_in = np.where(inwin, ps, -np.inf)
-    js = ps_in.argmax(axis=1)
-    level = 0.1 * take_rows(ps, js)
-    a = crossing_before(ps, js, level)
-    b = crossing_after(ps, js, level)
-    width = (np.where(np.isfinite(b), b, ps.shape[1] - 1.0)
-             - np.where(np.isfinite(a), a, 0.0)) / fs
-
-    good = vhf_ok & (peak > 0)
-    out = {
-        "vhf_peak_db": peak_db,
-        "vhf_peak_time_s": tw[jp],
-        "vhf_snr_db": snr_db,
-        "vhf_width_s": width,
-    }
-    out = {k: np.where(good, val, np.nan) for k, val in out.items()}
-    out["vhf_ok"] = vhf_ok
+    level = 0.1 * peak
+    a = crossing_before(env, jp, level)
+    b = crossing_after(env, jp, level)
+    width = (np.where(np.isfinite(b), b, nb - 1.0) - np.where(np.isfinite(a), a, 0.0)) * k / fs
+    width = np.where(snr_db >= MIN_SNR_WIDTH_DB, width, np.nan)
+    t_peak = np.interp(frac, np.arange(nb), t_bin)
+    censored = np.zeros(n, dtype=bool)
+    if full_scale is not None:
+        t_raw = np.arange(m) / fs - pretrigger_s - delay_s
+        raw_in = (t_raw[None, :] >= lo_s[:, None]) & (t_raw[None, :] <= hi_s[:, None])
+        with np.errstate(invalid="ignore"):
+            censored = ((np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in).any(axis=1)
+    good = vhf_ok & has_win & (peak > 0)
+    out.update({
+        "vhf_peak_db": np.where(good, peak_db, np.nan),
+        "vhf_peak_time_s": np.where(good, t_peak, np.nan),
+        "vhf_snr_db": np.where(good, snr_db, np.nan),
+        "vhf_width_s": np.where(good, width, np.nan),
+        "vhf_censored": censored & good,
+        "vhf_ok": vhf_ok,
+    })
     return out

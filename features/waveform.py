@@ -1,49 +1,50 @@
-"""Features of the fast-antenna field change: shape, amplitude, moments, quality.
+"""Features of the fast-antenna field change: the catalogued pulse within its own extent.
 
 All functions take a batch of rows ``(n_pulses, n_samples)`` in V/m (physics
-convention, as :meth:`features.catalog.Catalog.read_field` returns them) and
-the channel's sample rate in Hz; they return one value per row, in SI units.
+convention, as :meth:`features.catalog.Catalog.read_field` returns them) and the
+channel's sample rate in Hz; they return one value per row, in SI units.
 
-Definitions (the contract of :mod:`features.schema`):
+Steps and definitions (the contract of :mod:`features.schema`):
 
-* **baseline** and **noise**: median and robust standard deviation
-  (1.4826 x MAD, floored at one digitizer step / sqrt(12)) of up to
-  ``BASELINE_MAX_S`` of record before the analysis window.
-* **decay compensation**: a fast antenna with RC constant tau records
-  y with dy/dt + y/tau = dE/dt, so E(t) = y(t) + (1/tau) int y dt
-  (first-order high-pass inverted; common practice for fast antennas).
-* **initial peak**: within ``PEAK_SEARCH_S`` of the trigger, the first local
-  maximum of |E| (over +-0.5 us) that reaches ``PEAK_FRACTION`` of the largest
-  |E| there (and 4 noise sigmas), refined by a parabola through three samples:
-  the catalogued pulse, not a bigger neighbour later in its train. Its sign is the polarity; below,
-  ``u = polarity * E`` so that the initial peak P is positive.
-* **valley**: the lowest u within four times the 50 %-to-peak time before the
-  peak; leading-edge crossings are searched after it, so a pulse riding on its
-  predecessor's tail is measured on its own edge.
-* **onset**: the last time before the peak where u rises through
-  max(1 % of P, noise), after the valley (the valley itself if u never gets
-  that low).
-* **rise time**: 10 % to 90 % of P on the leading edge.
-* **FWHM**: the contiguous interval around the peak where u >= P / 2.
-* **zero crossing**: the first time after the peak where u <= 0 (before the
-  field rises again above 60 % of P, i.e. before a following pulse).
-* **overshoot**: the largest -u in the opposite-polarity lobe after the zero
-  crossing, up to the field's return through zero (at most 10 initial
-  half-cycles later, never past a following rise above 50 % of P).
-* **width**: from the 10 % point of the leading edge to the point where the
-  pulse (or its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
-* **current moment** (radiation term, far field over a perfectly conducting
-  ground): E = -(1 / (2 pi eps0 c^2 D)) dM/dt, so M(t) = -2 pi eps0 c^2 D int E dt,
-  integrated from the onset; its peak is taken at the zero crossing (where
-  dM/dt = 0) or, for a pulse with no crossing, at the end of the pulse.
-  Positive M is an upward-directed current moment.
-* **charge moment change**: int M dt from the onset to the end of the
-  overshoot lobe (or of the pulse).
-* **windows**: every pulse is first measured within -25..+50 us of the trigger;
-  a pulse that reaches that window's edge (a wide pulse) is measured again on
-  the full ``ANALYSIS_WINDOW_S``.
-* **peak current**: transmission-line model I = -2 pi eps0 c^2 D E_peak / v with
-  v = ``TL_SPEED_M_PER_S``.
+1. **Decay compensation**: a fast antenna with RC constant tau records y with
+   dy/dt + y/tau = dE/dt, so E(t) = y(t) + (1/tau) int y dt (first-order high-pass
+   inverted; common practice for fast antennas).
+2. **Baseline and noise** from whatever precedes the pulse (:func:`features.pulses.
+   baseline_fit`): a robust straight line and the noise sigma with quantisation noise.
+3. **Every pulse in the record** (:mod:`features.pulses`): lobes with hysteresis
+   (2 and 5 sigma), grouped into pulses with their overshoots; the catalogued one is the
+   pulse at the trigger, and it is measured within its own extent: a neighbour
+   (a following leader step, a return stroke, the tail of an earlier pulse) never
+   lends it a peak, a width or a baseline.
+4. **Peak** P: the largest |E| of the pulse's initial half-cycle, refined by a parabola
+   through three samples; its sign is the polarity; below, ``u = polarity * E``.
+5. **Smoothing**: the measures below are taken on a copy smoothed by a centred moving
+   average just long enough to bring the noise to 1 % of P (at most a quarter of the
+   FWHM and 5 us; none at 40 dB and above), and P is that copy's peak: the top of a
+   slow pulse, not the largest noise sample on it. **Leading edge**: 10, 50 and 90 %
+   crossings searched back from the peak, never before the end of the previous pulse;
+   the **onset** is the last rise through max(1 % of P, 3 sigma_s); the initial half-cycle
+   (onset to zero crossing) is NaN below 20 dB, where the onset is lost in the noise.
+6. **Trailing measures with hysteresis**, so that noise near zero does not end a
+   lobe: the **zero
+   crossing** is the last fall of the smoothed u through 0 before it goes below -max(3 sigma_s, 2 % of P); a pulse that never does is unipolar (no zero
+   crossing, bipolarity 0). The **overshoot lobe** ends where it comes back through 0
+   before rising above max(3 sigma_s, 10 % of P) (hysteresis again), or
+   where the overshoot has decayed below max(2 sigma_s, 1 % of P), or at the next
+   pulse; its peak is taken on the smoothed copy.
+7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
+   its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
+8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
+   below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
+   samples; width shorter than two samples or with its 10 % level under 2 sigma_s;
+   bipolarity of a unipolar-looking pulse whose noise could hide an overshoot of 15 %.
+9. **Moments and currents** (:mod:`features.moments`): the D^2/R^3 geometry of an
+   elevated source (altitude from the mapped sources, else
+   :data:`features.moments.DEFAULT_ALTITUDE_M`, flagged), the three-term inversion for
+   M(t) and Q(t) where it converges. The current moment's peak is M at the zero crossing
+   (where dM/dt = 0) or at the end of a unipolar pulse; the charge moment change is Q at
+   the end of the overshoot lobe (or of the pulse). Transmission-line peak current
+   I = -2 pi eps0 c^2 (R^3/D^2) E / v with v = ``TL_SPEED_M_PER_S``.
 
 References
 ----------
@@ -59,15 +60,23 @@ import warnings
 import numpy as np
 from scipy import constants, ndimage
 
+from . import pulses as _pulses
 from ._rowops import (
     crossing_after,
     crossing_before,
     cumtrapz_rows,
     first_true,
-    integrate_rows,
     interp_rows,
+    last_true,
+    moving_average_rows,
     parabolic_peak,
     take_rows,
+)
+from .moments import (
+    DEFAULT_ALTITUDE_M,
+    NEAR_FIELD_RATIO,
+    geometry_factor_m,
+    invert_moments,
 )
 
 __all__ = [
@@ -80,29 +89,46 @@ __all__ = [
     "moment_factor_a_per_v",
 ]
 
-#: Analysis window relative to the trigger (recorded time), in seconds.
-ANALYSIS_WINDOW_S = (-40e-6, 160e-6)
-#: Where the initial peak is searched, relative to the trigger, in seconds.
+#: Span of record analysed around the trigger (recorded time), in seconds: the pulse,
+#: its neighbours within :data:`features.pulses.CONTEXT_S` and the baseline before it.
+ANALYSIS_WINDOW_S = (-140e-6, 170e-6)
+#: Where the peak is searched when no pulse stands out of the noise, s.
 PEAK_SEARCH_S = (-3e-6, 40e-6)
-#: The initial peak is the first local maximum reaching this fraction of the
-#: largest |E| of the search window (common practice, no source).
-PEAK_FRACTION = 0.15
-#: Longest stretch of pre-window record used for baseline and noise, in seconds.
-BASELINE_MAX_S = 40e-6
+#: Stretch just before the catalogued pulse through which its local baseline line is
+#: fitted (the tail of an earlier pulse is nearly straight over it), s.
+LOCAL_BASELINE_S = 5e-6
+#: The first baseline stretch ends this long before the trigger, s.
+TRIGGER_GUARD_S = 3e-6
 #: Transmission-line return-stroke speed assumed for ``peak_current_a``, m/s.
 #: Half the speed of light: the middle of measured return-stroke speeds
 #: (about c/3 to 2c/3; Rakov & Uman 2003, ch. 4; from memory).
 TL_SPEED_M_PER_S = 1.5e8
 #: Range to which peaks are normalised, m (the customary 100 km).
 REFERENCE_RANGE_M = 100e3
-#: Fraction of missing (NaN) samples in the window above which a row is unusable.
+#: Fraction of missing (NaN) samples in the span above which a row is unusable.
 MAX_MISSING_FRACTION = 0.5
 #: Cap of the signal-to-noise ratio for noiseless records, dB.
 SNR_CAP_DB = 200.0
+#: Peak-to-noise ratios below which a quantity is not resolved (amplitude ratios):
+#: the 10 % level must stand at 1 sigma for the rise time (20 dB), the 50 % level at
+#: 2 sigma for the FWHM (12 dB) (common practice, no source).
+MIN_PEAK_SIGMA_RISE = 10.0
+MIN_PEAK_SIGMA_FWHM = 4.0
+#: Smallest peak, in noise sigmas, for a usable field record.
+MIN_PEAK_SIGMA_OK = 3.0
+#: Longest smoothing of the trailing measures, s.
+MAX_SMOOTH_S = 5e-6
+#: Smallest noise sigma, as a fraction of the row's largest |E| (noiseless records).
+RELATIVE_SIGMA_FLOOR = 1e-7
+#: Half-width of the local-maximum test of the first sub-peak, s.
+SUBPEAK_HALF_S = 0.25e-6
 
 
 def moment_factor_a_per_v(range_m):
     """2 pi eps0 c^2 D: current-moment rate per unit radiation field, in A/(V s^-1).
+
+    The far-field (ground-level source) special case of
+    :func:`features.moments.radiation_factor_a_per_v`.
 
     Parameters
     ----------
@@ -123,7 +149,7 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     Parameters
     ----------
     y_v_per_m : ndarray, shape (n_pulses, n_samples)
-        Recorded field change, baseline removed, in V/m.
+        Recorded field change in V/m.
     sample_rate_hz : float
         Samples per second.
     decay_time_s : float or None
@@ -133,6 +159,14 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     -------
     ndarray, shape (n_pulses, n_samples)
         The compensated field change in V/m.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = np.arange(2000) / 1e6                       # 2 ms at 1 MS/s
+    >>> y = np.exp(-t / 1e-3)[None, :]                  # an RC-decayed unit step
+    >>> round(float(decay_compensate(y, 1e6, 1e-3)[0, -1]), 3)
+    1.0
     """
     y = np.asarray(y_v_per_m, dtype=np.float64)
     if decay_time_s is None:
@@ -140,39 +174,91 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     return y + cumtrapz_rows(y, 1.0 / sample_rate_hz) / decay_time_s
 
 
-def _index_range(n_samples, sample_rate_hz, pretrigger_s, window_s):
-    i0 = int(np.floor((pretrigger_s + window_s[0]) * sample_rate_hz))
-    i1 = int(np.ceil((pretrigger_s + window_s[1]) * sample_rate_hz)) + 1
-    return max(i0, 0), min(max(i1, 0), n_samples)
+def _fill_missing(x):
+    """NaN samples replaced by the row's median (0 for an all-NaN row); missing mask."""
+    missing = np.isnan(x)
+    if not missing.any():
+        return x, missing
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        med = np.nanmedian(x, axis=1)
+    med = np.where(np.isfinite(med), med, 0.0)
+    return np.where(missing, med[:, None], x), missing
 
 
-def _row_median(a):
-    """Median of each row ignoring NaN; vectorised for rows without NaN."""
-    out = np.empty(a.shape[0])
-    nan_rows = np.isnan(a).any(axis=1)
-    if (~nan_rows).any():
-        out[~nan_rows] = np.median(a[~nan_rows], axis=1)
-    if nan_rows.any():
-        with warnings.catch_warnings():  # all-NaN rows give NaN, which is what we want
-            warnings.simplefilter("ignore", RuntimeWarning)
-            out[nan_rows] = np.nanmedian(a[nan_rows], axis=1)
+def _masked_max(values, lo, hi):
+    """Largest value and its column within [lo, hi) of each row (-inf, lo if empty)."""
+    n, w = values.shape
+    c0 = int(np.clip(np.nanmin(lo, initial=w), 0, w))
+    c1 = int(np.clip(np.nanmax(hi, initial=0), c0, w))
+    if c1 <= c0:
+        return np.full(n, -np.inf), np.clip(np.nan_to_num(lo), 0, max(w - 1, 0)).astype(np.intp)
+    cols = np.arange(c0, c1)
+    v = np.where((cols >= lo[:, None]) & (cols < hi[:, None]), values[:, c0:c1], -np.inf)
+    j = v.argmax(axis=1)
+    return v[np.arange(n), j], (j + c0).astype(np.intp)
+
+
+def _mean_before(values, stop, width):
+    """Mean of the ``width`` columns before ``stop`` in each row (fewer at the record's
+    start; NaN with none), gathered per row so batches do not change the sum."""
+    n, w = values.shape
+    cols = stop[:, None] - width + np.arange(width)[None, :]
+    valid = (cols >= 0) & (cols < w)
+    block = np.take_along_axis(values, np.clip(cols, 0, max(w - 1, 0)), axis=1)
+    cnt = valid.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(cnt > 0, np.where(valid, block, 0.0).sum(axis=1) / cnt, np.nan)
+
+
+def _first_subpeak(u, s, c50, peak, sigma, fs):
+    """Column of the first prominent local maximum of the leading half-cycle.
+
+    A local maximum (over +-``SUBPEAK_HALF_S``) between the 50 % point and the peak that
+    reaches half the peak and drops by max(3 sigma, 10 %) before being exceeded; the
+    peak itself when there is none.
+    """
+    n, w = u.shape
+    out = s.astype(np.float64).copy()
+    lo = np.where(np.isfinite(c50), np.ceil(np.nan_to_num(c50)), s).astype(np.intp)
+    c0 = int(np.clip(lo.min(initial=w), 0, w))
+    c1 = int(np.clip(s.max(initial=0) + 1, c0, w))
+    if c1 - c0 < 3:
+        return out
+    half = max(int(round(SUBPEAK_HALF_S * fs)), 1)
+    # the local-maximum filter sees `half` columns beyond the batch's span, so a row's
+    # result does not depend on which rows share its batch
+    e0, e1 = max(c0 - half, 0), min(c1 + half, w)
+    local = (u[:, e0:e1] >= ndimage.maximum_filter1d(u[:, e0:e1], 2 * half + 1, axis=1,
+                                                      mode="nearest"))[:, c0 - e0:c1 - e0]
+    sub = u[:, c0:c1]
+    cols = np.arange(c0, c1)
+    cand = (local & (sub >= 0.5 * peak[:, None]) & (cols >= lo[:, None])
+            & (cols < s[:, None]))
+    rows = np.arange(n)
+    todo = np.ones(n, dtype=bool)
+    for _ in range(3):
+        j, found = first_true(cand)
+        found &= todo
+        if not found.any():
+            break
+        uj = sub[rows, j]
+        after = cols[None, :] > (j + c0)[:, None]
+        exceed, hit = first_true(after & (sub >= uj[:, None]) & (cols <= s[:, None]))
+        k = np.where(hit, exceed + c0, s)          # never beyond the row's own peak
+        between = after & (cols[None, :] < k[:, None])
+        dip = np.where(between, sub, np.inf).min(axis=1)
+        prominent = found & (uj - dip >= np.maximum(3 * sigma, 0.1 * uj))
+        out = np.where(prominent, j + c0, out)
+        todo &= ~prominent
+        cand[rows[found], j[found]] = False
     return out
 
 
-def _baseline_noise(field, i0, quantum):
-    """Median and robust sigma of the pre-window record (or the whole row)."""
-    base = field[:, :i0] if i0 >= 16 else field  # no pre-trigger: the whole row
-    med = _row_median(base)
-    sigma = 1.4826 * _row_median(np.abs(base - med[:, None]))
-    if quantum > 0:
-        sigma = np.maximum(sigma, quantum / np.sqrt(12.0))
-    return med, sigma
-
-
 def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0.0,
-                   decay_time_s=None, quantum_v_per_m=0.0, range_m=None,
-                   analysis_window_s=ANALYSIS_WINDOW_S, peak_search_s=PEAK_SEARCH_S,
-                   tl_speed_m_per_s=TL_SPEED_M_PER_S):
+                   decay_time_s=None, quantum_v_per_m=0.0, range_m=None, altitude_m=None,
+                   full_scale_v_per_m=None, tl_speed_m_per_s=TL_SPEED_M_PER_S,
+                   return_trace=False):
     """Compute every field-change feature of a batch of pulses.
 
     Parameters
@@ -182,191 +268,283 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     sample_rate_hz : float
         Samples per second of the field channel.
     pretrigger_s : float, default=0.0
-        Sample 0 lies this long before the trigger, in seconds.
+        Sample 0 lies this long before the trigger, in seconds (may exceed the record:
+        the trigger then lies after it, and the largest pulse is taken).
     delay_s : float, default=0.0
         Channel delay in seconds (physical time = recorded time - delay).
     decay_time_s : float or None, default=None
         Fast-antenna RC constant in seconds (None: DC-coupled).
     quantum_v_per_m : float, default=0.0
-        One digitizer step in V/m (0 for float records); floors the noise estimate.
-    range_m : ndarray, shape (n_pulses,), optional
-        Horizontal distance to the source in metres, NaN where unknown.
-    analysis_window_s, peak_search_s : (float, float)
-        Windows relative to the trigger, in seconds.
+        One digitizer step in V/m (0 for float records); its noise step/sqrt(12) is part
+        of the noise sigma.
+    range_m, altitude_m : ndarray, shape (n_pulses,), optional
+        Horizontal distance and source height in metres, NaN where unknown (an unknown
+        altitude takes :data:`features.moments.DEFAULT_ALTITUDE_M`).
+    full_scale_v_per_m : float, optional
+        Clip level of the digitizer in V/m; a pulse reaching it is censored.
     tl_speed_m_per_s : float
         Return-stroke speed assumed by the transmission-line peak current, m/s.
+    return_trace : bool, default=False
+        Also return the processed rows and the pulses found (for plots).
 
     Returns
     -------
     dict of str -> ndarray, shape (n_pulses,)
-        Keys as in :data:`features.schema.FEATURES` (``peak_field_v_per_m``,
-        ``rise_time_s``, ...), plus ``peak_time_s`` (physical time of the peak
-        relative to the trigger, s) and ``field_ok`` (bool).
+        Keys as in :data:`features.schema.FEATURES` for the field group, plus
+        ``peak_time_s``, ``first_peak_time_s``, ``onset_time_s`` (physical times
+        relative to the trigger, s), ``prev_end_s``, ``next_start_s`` (the neighbouring
+        pulses' extents, s, NaN: none) and ``field_ok`` (bool). With ``return_trace``,
+        a second dict: ``field_v_per_m`` (processed rows), ``time_s`` (physical time of
+        each column), ``pulses`` (the :class:`features.pulses.PulseTable`), ``own``.
     """
     x = np.asarray(field_v_per_m, dtype=np.float64)
     if x.ndim != 2:
         raise ValueError(f"field_v_per_m must be 2-D (n_pulses, n_samples), got {x.shape}")
     n, m = x.shape
     fs = float(sample_rate_hz)
-    rng = np.full(n, np.nan) if range_m is None else np.asarray(range_m, dtype=np.float64)
-    i0, i1 = _index_range(m, fs, pretrigger_s, analysis_window_s)
-    if i1 - i0 < 8:  # the trigger lies outside the record: use all of it
-        analysis_window_s = peak_search_s = (-pretrigger_s, m / fs - pretrigger_s)
-        i0 = 0
-    base, sigma = _baseline_noise(x, i0, quantum_v_per_m)
-    kw = dict(pretrigger_s=pretrigger_s, delay_s=delay_s, decay_time_s=decay_time_s,
-              peak_search_s=peak_search_s, tl_speed_m_per_s=tl_speed_m_per_s)
-    # Most pulses are over within tens of microseconds: measure every row on a
-    # short window first, and again on the full window only where a crossing or
-    # the overshoot lobe runs to the short window's edge (wide pulses).
-    short = (max(analysis_window_s[0], -25e-6), min(analysis_window_s[1], 50e-6))
-    s0, s1 = _index_range(m, fs, pretrigger_s, short)
-    if s1 - s0 < 8:
-        short = tuple(analysis_window_s)
-    out, longer = _field_window(x, fs, base, sigma, rng, window_s=short, **kw)
-    if longer.any() and short != tuple(analysis_window_s):
-        rows = np.flatnonzero(longer)
-        full, _ = _field_window(x[rows], fs, base[rows], sigma[rows], rng[rows],
-                                window_s=analysis_window_s, **kw)
-        for key, val in full.items():
-            out[key][rows] = val
-    return out
-
-
-def _field_window(x, fs, base, sigma, rng, *, window_s, pretrigger_s, delay_s, decay_time_s,
-                  peak_search_s, tl_speed_m_per_s):
-    """Field features of every row measured within ``window_s`` of the trigger.
-
-    Returns the feature dict and a bool array marking rows whose pulse reaches
-    the window's edge (to be measured again on a longer window).
-    """
-    n, m = x.shape
     dt = 1.0 / fs
-    i0, i1 = _index_range(m, fs, pretrigger_s, window_s)
-    y = x[:, i0:i1] - base[:, None]
-    missing = np.isnan(y)
-    miss_frac = missing.mean(axis=1)
-    y[missing] = 0.0
-    e = decay_compensate(y, fs, decay_time_s)
-    w = e.shape[1]
-    cols = np.arange(w)
-    t0 = i0 / fs - pretrigger_s - delay_s          # physical time of window sample 0
+    rows = np.arange(n)
+    cols = np.arange(m)
+    rng = np.full(n, np.nan) if range_m is None else np.asarray(range_m, dtype=np.float64)
+    alt_given = (np.full(n, np.nan) if altitude_m is None
+                 else np.asarray(altitude_m, dtype=np.float64))
+    x, missing = _fill_missing(x)
+    miss_frac = missing.mean(axis=1) if m else np.ones(n)
+    censor_mask = None
+    if full_scale_v_per_m is not None:
+        censor_mask = np.abs(x) >= float(full_scale_v_per_m) * (1 - 1e-9)
+    jt = pretrigger_s * fs                             # trigger column (fractional)
+    inside = 0 <= jt < m
+    q = float(quantum_v_per_m or 0.0)
+    stop_a = np.full(n, int(np.clip(np.floor(jt - TRIGGER_GUARD_S * fs), 0, m)))
+    # the digitizer's offset first (decay compensation would turn it into a ramp)
+    if decay_time_s is not None:
+        offset, _, _, _, _ = _pulses.baseline_fit(x, stop_a, fs, q, min_slope_s=np.inf,
+                                                  quiet_level=True)
+        x = x - offset[:, None]
+    e0 = decay_compensate(x, fs, decay_time_s)
 
-    # initial peak inside the search window
-    p0, p1 = _index_range(m, fs, pretrigger_s, peak_search_s)
-    p0, p1 = max(p0 - i0, 0), min(p1 - i0, w)
-    if p1 <= p0:  # the search window lies outside this window: search all of it
-        p0, p1 = 0, w
-    absw = np.abs(e[:, p0:p1])
-    # the initial peak is the first local maximum of |E| (within +-0.5 us) that
-    # reaches PEAK_FRACTION of the largest |E| of the search window (and four
-    # noise sigmas): the catalogued pulse, not a bigger neighbour later in a train
-    half = max(int(round(0.5e-6 * fs)), 1)
-    ext = max(p0 - half, 0)      # look a little before the window: its first sample is
-    wide = np.abs(e[:, ext:p1])  # a peak only if the field was lower just before it
-    local = (absw >= ndimage.maximum_filter1d(wide, 2 * half + 1, axis=1,
-                                              mode="nearest")[:, p0 - ext:])
-    top = absw.max(axis=1)
-    level = np.maximum(PEAK_FRACTION * top, np.minimum(top, 4 * sigma))
-    first, found = first_true(local & (absw >= level[:, None]))
-    s = p0 + np.where(found, first, absw.argmax(axis=1))
+    # baseline, stage A: the level of the quietest record before the trigger, and the noise
+    level, _, sigma, _, used = _pulses.baseline_fit(e0, stop_a, fs, q, min_slope_s=np.inf,
+                                                    quiet_level=True)
+    no_base = used == 0
+    if no_base.any():  # no pre-trigger: level 0 (the digitizer's zero), sigma from steps
+        sigma = np.where(no_base, _pulses._noise_floor(
+            _pulses.robust_sigma_diff(e0) if m > 2 else np.full(n, np.nan), q), sigma)
+    e_a = e0 - level[:, None]
+    # a noiseless record (a test, a model) still has a scale: 1e-7 of its largest value
+    floor = RELATIVE_SIGMA_FLOOR * (np.abs(e_a).max(axis=1) if m else np.zeros(n))
+    sigma = np.fmax(sigma, np.maximum(floor, np.finfo(float).tiny))
+    smooth = max(int(round(_pulses.DETECT_SMOOTH_S * fs)) | 1, 1)   # odd: centred
+    lobes = _pulses.find_lobes(e_a, sigma, smooth=smooth)
+    table, merged, lobe_pulse = _pulses.group_pulses(lobes, fs)
+    own = _pulses.catalogued_pulse(table, merged, lobe_pulse, n, jt if inside else np.nan, fs)
+    has = own >= 0
+    own_c = np.where(has, own, 0)
+
+    # baseline, stage B: a line through the LOCAL_BASELINE_S just before the catalogued
+    # pulse (the tail of an earlier pulse, if any), held constant outside that stretch
+    # and the pulse (never extrapolated further); the noise stays stage A's
+    slope = np.zeros(n)
+    line_lo, line_hi = np.zeros(n), np.zeros(n)
+    if len(table):
+        ext_start = np.where(has, table.start[own_c], -1)
+        guard = max(int(round(0.5e-6 * fs)), 2)
+        stop_b = np.where(has, np.minimum(stop_a, ext_start - guard), stop_a)
+        lev_b, slo_b, _, start_b, used_b = _pulses.baseline_fit(
+            e0, stop_b, fs, q, max_s=LOCAL_BASELINE_S, min_slope_s=0.5 * LOCAL_BASELINE_S)
+        use_b = has & (used_b >= _pulses.BASELINE_MIN_SAMPLES)
+        level = np.where(use_b, lev_b, level)
+        slope = np.where(use_b, slo_b, 0.0)
+        line_lo = np.where(use_b, start_b, 0)
+        line_hi = np.where(use_b, table.stop[own_c], 0)
+    baseline_short = used < _pulses.BASELINE_MIN_S * fs
+    clamped = np.clip(cols[None, :], line_lo[:, None], line_hi[:, None])
+    e = e0 - (level[:, None] + slope[:, None] * clamped)
+
+    # the peak: the catalogued pulse's initial half-cycle, else the largest |E| near the
+    # trigger (a pulse lost in the noise)
+    if inside:
+        p0 = int(np.clip(np.floor(jt + PEAK_SEARCH_S[0] * fs), 0, m - 1))
+        p1 = int(np.clip(np.ceil(jt + PEAK_SEARCH_S[1] * fs) + 1, p0 + 1, m))
+    else:
+        p0, p1 = 0, m
+    fallback = p0 + np.abs(e[:, p0:p1]).argmax(axis=1) if m else np.zeros(n, np.intp)
+    first = table.first_lobe[own_c] if len(table) else np.zeros(n, np.intp)
+    s = np.where(has, merged.peak_col[first] if len(table) else 0, fallback).astype(np.intp)
+    # the detector's peak is that of the smoothed record: the raw one lies within half
+    # its window (a one-sample spike keeps its height)
+    if smooth > 1 and m:
+        half = smooth // 2
+        _, s_raw = _masked_max(np.abs(e_a), s - half, s + half + 1)
+        s = np.where(has, s_raw, s).astype(np.intp)
     polarity = np.where(take_rows(e, s) >= 0, 1.0, -1.0)
+    if len(table):
+        polarity = np.where(has, merged.sign[first].astype(float), polarity)
     u = e * polarity[:, None]
-    s_frac, peak = parabolic_peak(u, s)
-    ok = (miss_frac <= MAX_MISSING_FRACTION) & (peak > 0)
+    _, peak = parabolic_peak(u, s)
 
+    # the pulse's neighbours in the record bound every search
+    if len(table):
+        prev_ok = has & (own_c > 0) & (table.row[np.maximum(own_c - 1, 0)] == rows)
+        prev_end = np.where(prev_ok, table.stop[np.maximum(own_c - 1, 0)], 0)
+        last = len(table) - 1
+        next_ok = has & (own_c < last) & (table.row[np.minimum(own_c + 1, last)] == rows)
+        next_start = np.where(next_ok, table.start[np.minimum(own_c + 1, last)], m)
+        run_start = np.where(has, table.start[own_c], s)
+        ext_stop = np.where(has, table.stop[own_c], s + 1)
+    else:
+        prev_ok = next_ok = np.zeros(n, dtype=bool)
+        prev_end, next_start = np.zeros(n, np.intp), np.full(n, m)
+        run_start, ext_stop = s.copy(), s + 1
+    edge_lo = np.maximum(prev_end, run_start - (s - run_start) - 2
+                         - int(round(0.5e-6 * fs))).astype(np.intp)
+    # smoothing: just enough to bring the noise to 1 % of the peak, at most a quarter of
+    # the FWHM and MAX_SMOOTH_S (a pulse at 40 dB and above is not smoothed at all)
+    c50 = crossing_before(u, s, 0.5 * peak, start=edge_lo)
+    f50 = crossing_after(u, s, 0.5 * peak, stop=next_start)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        need = np.ceil((100.0 * sigma / peak) ** 2)
+    k = np.fmin(np.nan_to_num(need, nan=1.0, posinf=1.0),
+                np.where(np.isfinite(f50 - c50), np.round((f50 - c50) / 4.0), 1.0))
+    k = np.clip(k, 1, max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
+    u_s = moving_average_rows(u, k)
+    sig_s = sigma / np.sqrt(k)
+    # the peak of the smoothed pulse near the raw one (the top of a slow pulse, not the
+    # largest noise sample on it)
+    _, s_top = _masked_max(u_s, np.where(np.isfinite(c50), np.floor(np.nan_to_num(c50)), s - k),
+                           np.where(np.isfinite(f50), np.ceil(np.nan_to_num(f50)) + 1, s + k + 1))
+    s = np.where(k > 1, s_top, s).astype(np.intp)
+    s_frac, peak = parabolic_peak(u_s, s)
+    ok = (miss_frac <= MAX_MISSING_FRACTION) & (peak > 0) & (peak >= MIN_PEAK_SIGMA_OK * sigma)
     lvl = lambda f: f * peak  # noqa: E731 - a level as a fraction of the peak
-    # the valley before the rise: lowest u within four 50 %-to-peak times before the peak
-    c50 = crossing_before(u, s, lvl(0.5))
-    lookback = np.where(np.isfinite(c50), 4 * (s - np.nan_to_num(c50)) + 2, 1e-6 * fs)
-    lo = np.maximum(s - np.ceil(lookback).astype(np.intp), 0)
-    v0, v1 = int(lo.min(initial=0)), int(s.max(initial=0)) + 1
-    vc = cols[v0:v1]
-    valley = v0 + np.where((vc >= lo[:, None]) & (vc <= s[:, None]), u[:, v0:v1],
-                           np.inf).argmin(axis=1)
-    # leading-edge levels are searched after the valley (a pulse riding on its
-    # predecessor's tail has no 10 % point of its own: NaN)
-    c10 = crossing_before(u, s, lvl(0.1), start=valley)
-    c50 = crossing_before(u, s, lvl(0.5), start=valley)
-    c90 = crossing_before(u, s, lvl(0.9), start=valley)
-    f50 = crossing_after(u, s, lvl(0.5))
-    f10 = crossing_after(u, s, lvl(0.1))
-    # onset: last rise through max(1 % of P, noise) after the valley, else the valley
-    onset_level = np.maximum(lvl(0.01), sigma)
-    onset = crossing_before(u, s, onset_level, start=valley)
-    onset = np.where(np.isfinite(onset), onset, valley.astype(float))
+    c10 = crossing_before(u_s, s, lvl(0.1), start=edge_lo)
+    c50 = crossing_before(u_s, s, lvl(0.5), start=edge_lo)
+    c90 = crossing_before(u_s, s, lvl(0.9), start=edge_lo)
+    onset = crossing_before(u_s, s, np.maximum(lvl(0.01), 3 * sig_s), start=edge_lo)
+    onset = np.where(np.isfinite(onset), onset, edge_lo.astype(float))
+    f50 = crossing_after(u_s, s, lvl(0.5), stop=next_start)
+    fwhm_samples = f50 - c50
+    h_zc = np.maximum(3 * sig_s, lvl(0.02))
+    zc_stop = np.minimum(next_start, ext_stop + 4 * np.maximum(ext_stop - onset, 1) + k)
+    conf = crossing_after(u_s, s, -h_zc, stop=np.minimum(zc_stop, m))
+    has_zc = np.isfinite(conf)
+    jc = np.where(has_zc, np.ceil(np.nan_to_num(conf)), s).astype(np.intp)
+    zc = crossing_before(-u_s, jc, np.zeros(n), start=s)
+    has_zc &= np.isfinite(zc)
+    ihc = zc - onset
+    lobe_stop = np.minimum(np.minimum(next_start, jc + np.ceil(10 * np.nan_to_num(ihc))
+                                      .astype(np.intp) + 1), m)
+    back = crossing_after(-u_s, jc, -np.maximum(3 * sig_s, lvl(0.1)), stop=lobe_stop)
+    has_back = np.isfinite(back)
+    jb = np.where(has_back, np.ceil(np.nan_to_num(back)), jc).astype(np.intp)
+    lobe_back = crossing_before(u_s, jb, np.zeros(n), start=jc)
+    tail = (-u_s >= np.maximum(2 * sig_s, lvl(0.01))[:, None])
+    tail &= (cols > jc[:, None]) & (cols < lobe_stop[:, None])
+    j_tail, has_tail = last_true(tail)
+    lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
+                        np.where(has_tail, j_tail + 1.0, jc.astype(float)))
+    lobe_end = np.minimum(lobe_end, m - 1.0)
+    lobe_end = np.where(has_zc, lobe_end, np.nan)
+    overshoot, j_os = _masked_max(-u_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
+                                  np.where(has_zc, np.nan_to_num(lobe_end) + 1, 0))
+    overshoot = np.where(has_zc, np.maximum(overshoot, 0.0), 0.0)
+    resolvable = peak >= 20.0 * sig_s
+    bipolarity = np.where(has_zc, overshoot / np.where(peak > 0, peak, 1.0),
+                          np.where(resolvable, 0.0, np.nan))
+    bipolarity = np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma, bipolarity, np.nan)
 
-    # zero crossing, bounded by a following pulse rising above 60 % of P
-    after50 = np.where(np.isfinite(f50), np.ceil(np.nan_to_num(f50)), w).astype(np.intp)
-    next_rise, has_next = first_true((u >= lvl(0.6)[:, None]) & (cols > after50[:, None]))
-    zc_stop = np.where(has_next, next_rise, w)
-    zc = crossing_after(u, s, np.zeros(n), stop=zc_stop, inclusive=True)
-    has_zc = np.isfinite(zc)
-    ihc = zc - onset                                   # samples
-
-    # overshoot lobe: from the zero crossing to the field's return through zero, at
-    # most 10 initial half-cycles and never past a following pulse (> 50 % of P)
-    jz = np.where(has_zc, np.ceil(np.nan_to_num(zc)), w).astype(np.intp)
-    os_end = np.minimum(jz + np.ceil(10 * np.nan_to_num(ihc, nan=0.0)).astype(np.intp) + 1, w)
-    nxt, has_nxt = first_true((u >= lvl(0.5)[:, None]) & (cols > jz[:, None]))
-    os_end = np.where(has_nxt, np.minimum(os_end, nxt), os_end)
-    lobe_back = crossing_after(-u, jz, np.zeros(n), stop=os_end, inclusive=True)
-    lobe_closed = np.isfinite(lobe_back)
-    lobe_end = np.where(lobe_closed, np.ceil(np.nan_to_num(lobe_back)), os_end).astype(np.intp)
-    in_lobe = (cols >= jz[:, None]) & (cols < np.maximum(lobe_end, jz + 1)[:, None])
-    neg = np.where(in_lobe, -u, -np.inf)
-    j_os = neg.argmax(axis=1)
-    overshoot = np.where(has_zc, np.maximum(take_rows(neg, j_os), 0.0), 0.0)
-    bipolarity = np.where(ok, overshoot / np.where(peak > 0, peak, 1.0), np.nan)
-
-    # end of the pulse for the width (overshoot counted when it exceeds 10 % of P)
+    f10 = crossing_after(u_s, s, lvl(0.1), stop=next_start)
     big_os = has_zc & (overshoot >= lvl(0.1))
-    os_fall = crossing_after(-u, j_os, lvl(0.1), stop=lobe_end + 1)
-    end_width = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end - 1.0), f10)
-    # end of the overshoot lobe for the charge moment: its return through zero
-    end_charge = np.where(has_zc, np.where(lobe_closed, lobe_back, os_end - 1.0),
-                          np.where(np.isfinite(f10), f10, w - 1.0))
-    # rows whose pulse reaches this window's edge: measure them on a longer one
-    longer = ok & ((valley <= 1) | ~np.isfinite(f10) | (~has_zc & ~has_next)
-                   | (has_zc & ~lobe_closed & ~has_nxt & (os_end >= w)))
+    os_fall = crossing_after(-u_s, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
+                             + 1)
+    end_w = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end), f10)
+    end_w = np.where(lvl(0.1) >= 2 * sig_s, end_w, np.nan)
+    width = end_w - c10
+    pulse_end = np.where(has_zc, lobe_end,
+                         np.where(np.isfinite(f10), f10, ext_stop - 1.0))
+    pulse_end = np.maximum(pulse_end, np.where(np.isfinite(end_w), end_w, -np.inf))
 
-    # moments: M(t) = -2 pi eps0 c^2 D int_onset^t E dt
-    k = moment_factor_a_per_v(rng)
-    ie = cumtrapz_rows(e, dt)                           # V s / m
-    ie_on = interp_rows(ie, onset)
-    m_end = np.where(has_zc, zc, np.where(np.isfinite(f10), f10, w - 1.0))
-    current_moment = -k * (interp_rows(ie, m_end) - ie_on)
-    # int_onset^T (int_onset^t E dt') dt  =  int_onset^T ie dt - ie(onset) (T - onset)
-    t_span = np.maximum(end_charge - onset, 0.0)
-    charge_moment = -k * (integrate_rows(ie, onset, onset + t_span, dt) - ie_on * t_span * dt)
-
+    # moments of the elevated source
+    known = np.isfinite(alt_given) & (alt_given >= 0)
+    altitude = np.where(known, alt_given, DEFAULT_ALTITUDE_M)
+    altitude_assumed = ~known
+    c0, mom, chg, converged = invert_moments(e, fs, np.where(ok, onset, np.nan),
+                                             np.where(ok, pulse_end, np.nan), rng, altitude)
+    m_at = np.where(has_zc, zc, pulse_end) - c0
+    current_moment = interp_rows(mom, m_at) if mom.shape[1] else np.full(n, np.nan)
+    charge_moment = interp_rows(chg, pulse_end - c0) if chg.shape[1] else np.full(n, np.nan)
+    geometry = geometry_factor_m(rng, altitude)
     peak_signed = polarity * peak
+    k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry
     with np.errstate(divide="ignore", invalid="ignore"):
         snr = 20 * np.log10(peak / sigma)
-    snr = np.where(np.isfinite(snr), np.minimum(snr, SNR_CAP_DB), np.where(peak > 0,
-                   SNR_CAP_DB, np.nan))
-    range_norm = peak_signed * rng / REFERENCE_RANGE_M
+    snr = np.where(np.isfinite(snr), np.minimum(snr, SNR_CAP_DB),
+                   np.where(peak > 0, SNR_CAP_DB, np.nan))
+
+    # the pulse among its neighbours
+    nb = _pulses.neighbour_features(table, own, peak, s, sigma, n, m, fs)
+    pre = _mean_before(u, np.floor(onset).astype(np.intp), max(int(round(2e-6 * fs)), 1))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pre_level_ratio = np.where(np.isfinite(pre), pre / peak, 0.0)
+        slope_ratio = polarity * slope * (10e-6 * fs) / peak
+    censored = np.zeros(n, dtype=bool)
+    if censor_mask is not None:
+        lo_c = np.floor(onset).astype(np.intp)
+        hi_c = np.ceil(np.nan_to_num(pulse_end, nan=s)).astype(np.intp) + 1
+        band = (cols[None, :] >= lo_c[:, None]) & (cols[None, :] < hi_c[:, None])
+        censored = (censor_mask & band).any(axis=1)
+
+    # resolution: NaN rather than a number the record cannot carry
+    rise = (c90 - c10) * dt
+    rise = np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma) & (c90 - c10 >= 1.0), rise, np.nan)
+    fwhm = np.where((peak >= MIN_PEAK_SIGMA_FWHM * sigma) & (fwhm_samples >= 2.0),
+                    fwhm_samples * dt, np.nan)
+    width = np.where(width >= 2.0, width * dt, np.nan)
+    sub = _first_subpeak(u, s, c50, peak, sigma, fs)
+
+    t0 = -pretrigger_s - delay_s            # physical time of column 0
+    tm = lambda c: t0 + c * dt  # noqa: E731 - column -> physical time
     out = {
         "peak_field_v_per_m": peak_signed,
         "polarity": polarity,
-        "rise_time_s": (c90 - c10) * dt,
-        "fwhm_s": (f50 - c50) * dt,
-        "initial_half_cycle_s": ihc * dt,
-        "zero_crossing_s": (zc - s_frac) * dt,
-        "width_s": (end_width - c10) * dt,
+        "rise_time_s": rise,
+        "fwhm_s": fwhm,
+        "initial_half_cycle_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma),
+                                         ihc * dt, np.nan),
+        "zero_crossing_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma),
+                                    (zc - s_frac) * dt, np.nan),
+        "width_s": width,
         "bipolarity": bipolarity,
-        "range_normalized_peak_v_per_m": range_norm,
+        "range_normalized_peak_v_per_m": peak_signed * geometry / REFERENCE_RANGE_M,
         "current_moment_peak_a_m": current_moment,
         "charge_moment_change_c_m": charge_moment,
-        "peak_current_a": -k * peak_signed / tl_speed_m_per_s,
+        "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
+        "pulse_start_s": tm(onset),
+        "pulse_end_s": tm(pulse_end),
+        **nb,
+        "pre_level_ratio": pre_level_ratio,
+        "baseline_slope_ratio": slope_ratio,
         "snr_db": snr,
-        "peak_time_s": t0 + s_frac * dt,
-        "onset_time_s": t0 + onset * dt,
-        "field_noise_v_per_m": sigma,
-        "field_ok": ok,
+        "field_noise_v_per_m": np.where(np.isfinite(sigma), sigma, np.nan),
+        "peak_time_s": tm(s_frac),
+        "first_peak_time_s": tm(sub),
+        "onset_time_s": tm(onset),
+        "prev_end_s": np.where(prev_ok, tm(prev_end - 1.0), np.nan),
+        "next_start_s": np.where(next_ok, tm(next_start.astype(float)), np.nan),
     }
     for key, val in out.items():
-        if key != "field_ok" and val.dtype.kind == "f":
-            out[key] = np.where(ok, val, np.nan)
-    out["snr_db"] = np.where(ok, out["snr_db"], np.nan)
-    return out, longer
+        out[key] = np.where(ok, val, np.nan)
+    out.update({
+        "field_ok": ok,
+        "field_censored": censored & ok,
+        "baseline_short": baseline_short,
+        "altitude_assumed": altitude_assumed,
+        "near_field": np.isfinite(rng) & (rng < NEAR_FIELD_RATIO * altitude),
+        "moments_converged": converged & ok,
+    })
+    if not return_trace:
+        return out
+    trace = {"field_v_per_m": e, "time_s": tm(cols.astype(float)), "pulses": table,
+             "own": own, "sigma": sigma}
+    return out, trace

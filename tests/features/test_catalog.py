@@ -292,13 +292,17 @@ def test_check_prints_summary(make_catalog, capsys):
 
 def test_trigger_outside_the_record_is_noted(make_catalog):
     """A pre-trigger longer than the record is allowed but noted (pulses searched everywhere)."""
-    path = make_catalog("pre", _field(), field_meta={"pretrigger_s": 1e-3})
+    field = _field()
+    field[:, M // 2] += 1.0  # one clear pulse in every record (invented, self-consistency)
+    path = make_catalog("pre", field, field_meta={"pretrigger_s": 1e-3})
     notes = " ".join(open_catalog(path).notes)
     assert "'field.pretrigger_s' is 0.001 s but a record lasts 2e-05 s" in notes
     from features.extract import extract_features
 
     df = extract_features(open_catalog(path))
     assert len(df) == N and df["field_ok"].all()
+    # the pulse was found wherever it is: its peak is the spike
+    assert np.allclose(df["peak_field_v_per_m"], 1.0, atol=0.05)
 
 
 def test_large_source_tables_spill_to_disk(make_catalog, monkeypatch):

@@ -126,7 +126,11 @@ def test_spec_literal_catalog_with_unusual_settings(make_catalog):
     df = extract_features(open_catalog(path))
     assert (df["polarity"] == 1).all()              # stored atmospheric, read physics
     assert_allclose(df["peak_field_v_per_m"], 4.0, rtol=0.02)
-    assert_allclose(df["zero_crossing_s"], half / 2, atol=1 / fs)
+    # a unipolar half-sine: no zero crossing; width = the span above 10 % of the peak,
+    # half x (1 - 2 asin(0.1) / pi) (closed form)
+    assert df["zero_crossing_s"].isna().all() and (df["bipolarity"] == 0).all()
+    assert_allclose(df["width_s"], half * (1 - 2 * np.arcsin(0.1) / np.pi), atol=1 / fs)
+    assert df["baseline_short"].all()           # no pre-trigger: no baseline stretch
     # field peak at 5 us, VHF peak at 3 us physical (recorded 4 us minus 1 us delay)
     assert_allclose(df["vhf_field_lag_s"], 2e-6, atol=0.1e-6)
     assert df["n_sources"].isna().all() and df["isolation_s"].isna().all()

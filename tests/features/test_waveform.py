@@ -112,27 +112,62 @@ def test_transmission_line_peak_current_worked_example():
                                          * constants.c ** 2 * 100e3)
     assert_allclose(e_peak, -9.0, atol=0.01)
     x = _gauss(_t(), 3e-6, 1e-6, e_peak)[None]
-    out = field_features(x, FS, pretrigger_s=PRE, range_m=np.array([100e3]))
+    out = field_features(x, FS, pretrigger_s=PRE, range_m=np.array([100e3]),
+                         altitude_m=np.array([0.0]))      # a channel at the ground
     assert_allclose(out["peak_current_a"], 30e3, rtol=2e-4)
     assert_allclose(out["range_normalized_peak_v_per_m"], e_peak, rtol=1e-4)
 
 
-def test_current_and_charge_moment_recovered_from_radiation_field():
-    """Radiation field of a known current moment M(t); recover peak M and int M dt.
+def _three_term_field(t, m0, tau, d, h):
+    """Field at the ground of a short vertical channel at height h, all three terms.
 
-    M(t) = M0 (e^2/4) (t/tau)^2 exp(-t/tau) peaks at M0 (t = 2 tau) and has
-    int M dt = M0 (e^2/2) tau. Far-field radiation term over a conducting ground:
-    E = -(1 / (2 pi eps0 c^2 D)) dM/dt (Rakov & Uman 2003, ch. 4; from memory).
+    M(t) = M0 (e^2/4) (x/tau)^2 exp(-x/tau) (x = t - 1 us) peaks at M0 (x = 2 tau); its
+    charge moment Q = int M dt = M0 (e^2/4) tau [2 - exp(-y) (y^2 + 2y + 2)], y = x/tau,
+    tends to M0 (e^2/2) tau. The field is (Uman, McLain & Krider 1975; Rakov & Uman 2003,
+    ch. 4; from memory)
+    E = 1/(2 pi eps0) [(2h^2 - d^2)/R^5 Q + (2h^2 - d^2)/(c R^4) M - d^2/(c^2 R^3) dM/dt].
     """
-    m0, tau, d = 2.0e7, 1.5e-6, 80e3
-    t = _t()
     x = np.clip(t - 1e-6, 0, None)
-    dmdt = m0 * np.e ** 2 / 4 * (x / tau ** 2) * (2 - x / tau) * np.exp(-x / tau)
-    e = -dmdt / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * d)
-    out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]))
+    y = x / tau
+    m = m0 * np.e ** 2 / 4 * y ** 2 * np.exp(-y)
+    dmdt = m0 * np.e ** 2 / 4 * (x / tau ** 2) * (2 - y) * np.exp(-y)
+    q = m0 * np.e ** 2 / 4 * tau * (2 - np.exp(-y) * (y * y + 2 * y + 2))
+    c = constants.c
+    r = np.hypot(d, h)
+    k = 1 / (2 * np.pi * constants.epsilon_0)
+    return k * ((2 * h * h - d * d) / r ** 5 * q + (2 * h * h - d * d) / (c * r ** 4) * m
+                - d * d / (c * c * r ** 3) * dmdt)
+
+
+def test_current_and_charge_moment_recovered_from_the_three_term_field():
+    """A known current moment far away (80 km, 8 km up): M peak and int M dt recovered.
+
+    Far away the radiation term dominates: E ~ -(1 / (2 pi eps0 c^2 D)) dM/dt (Rakov &
+    Uman 2003, ch. 4; from memory); the other two terms are inverted too.
+    """
+    m0, tau, d, h = 2.0e7, 1.5e-6, 80e3, 8e3
+    e = _three_term_field(_t(), m0, tau, d, h)
+    out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]),
+                         altitude_m=np.array([h]))
     assert_allclose(out["current_moment_peak_a_m"], m0, rtol=0.02)
     assert_allclose(out["charge_moment_change_c_m"], m0 * np.e ** 2 / 2 * tau, rtol=0.02)
     assert out["polarity"][0] == -1          # upward current moment -> negative E
+    assert out["moments_converged"][0] and not out["near_field"][0]
+
+
+def test_elevated_nbe_seen_from_close_by():
+    """An NBE 12 km up seen from 10 km: the D^2/R^3 geometry gives its current within 10 %.
+
+    With 1/D instead (the far-field law) the current would be read 3.8 times too small
+    (R^3/D^2 = 38.1 km for D = 10 km): the radiation field of an elevated source at the
+    ground scales as D^2/R^3 (Uman, McLain & Krider 1975; from memory).
+    """
+    m0, tau, d, h = 5.0e8, 1.0e-6, 10e3, 12e3
+    e = _three_term_field(_t(), m0, tau, d, h)
+    out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]),
+                         altitude_m=np.array([h]))
+    assert_allclose(out["current_moment_peak_a_m"], m0, rtol=0.10)
+    assert out["near_field"][0]
 
 
 def test_decay_compensation_inverts_rc_high_pass():
