@@ -117,7 +117,8 @@ FEATURES: tuple[Feature, ...] = (
             "sources); depends on the instrument's position noise", "mapping", model=False,
             requires=frozenset({"range", "sources"})),
     Feature("speed_snr", "1", "speed_m_per_s / speed_se_m_per_s: how far the speed stands "
-            "above its noise (0 when the motion is within the noise)", "mapping",
+            "above its noise (0 when the motion is within the noise; the SE has n_sources - 2 "
+            "degrees of freedom, so with few sources large values happen by chance)", "mapping",
             requires=frozenset({"range", "sources"})),
     Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity "
             "(rate of change of altitude above the curved Earth), + upward", "mapping",

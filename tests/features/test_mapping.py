@@ -479,6 +479,20 @@ def test_downward_positive_breakdown_from_the_transmission_line_field():
     assert e > 0 and labels[0] == "positive"
 
 
+def test_breakdown_polarity_reads_few_sources_with_students_t():
+    """With n_sources, |v_z| / SE is read under Student's t with n - 2 dof and given as
+    the normal z of the same one-sided tail (checked against scipy.stats): 3 sources at
+    a ratio of 20 are not significant (t with 1 dof is Cauchy-tailed), 22 sources at 4
+    are; under 3 sources there is no significance at all."""
+    labels, snr = breakdown_polarity([1, 1, 1], [-2e7, -4e6, -4e6], [1e6, 1e6, 1e6],
+                                     [False] * 3, n_sources=[3, 22, 2])
+    assert labels.tolist() == ["undetermined", "positive", "undetermined"]
+    assert_allclose(snr[:2], [stats.norm.isf(stats.t.sf(20.0, 1)),
+                              stats.norm.isf(stats.t.sf(4.0, 20))], rtol=1e-9)
+    assert_allclose(snr[0], 2.1469, atol=1e-4)
+    assert 3 < snr[1] < 4 and np.isnan(snr[2])
+
+
 @pytest.mark.parametrize("kwargs, match", [
     (dict(min_snr=0.0), "'min_snr' must be a finite number > 0, got 0.0"),
     (dict(min_snr=np.nan), "'min_snr' must be a finite number > 0"),
