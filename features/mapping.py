@@ -31,7 +31,7 @@ from scipy import special
 from ._checks import InputError, is_real_number
 from ._trackfit import MIN_SOURCES_FOR_SPEED, debiased_norm, grouped_median, robust_velocity
 
-__all__ = ["EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M", "MIN_SOURCES_FOR_SPEED",
+__all__ = ["COLUMNS", "EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M", "MIN_SOURCES_FOR_SPEED",
            "altitude_from_enu_m", "altitude_from_range_elevation_m", "breakdown_polarity",
            "grouped_median", "source_features"]
 
