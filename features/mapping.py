@@ -2,137 +2,135 @@
 
 Sources of many pulses are handled at once: a batch is a flat table of sources
 with the row (pulse) each belongs to, and every statistic is a grouped sum or a
-grouped median over that table (no Python loop over pulses).
+grouped median over that table (no Python loop over pulses; the fits live in
+:mod:`features._trackfit`).
 
-Positions are the catalog's x, y, z (east, north, up from the station) where
-given. Otherwise, with the horizontal range D of events.csv, a source at
-azimuth az and elevation el sits at (D sin az, D cos az, D tan el): every
-source of a pulse is then at the same horizontal distance, so the track is its
-tangential and vertical motion (speed = D times the angular rate, corrected for
-elevation). Without either, only angular quantities exist.
+Positions. With the catalog's x, y, z (east, north, up in the station's local
+tangent frame) a source sits at (x, y, h) with ``h`` its altitude above the
+curved Earth (:func:`altitude_from_enu_m`). Otherwise, with the horizontal
+range D of events.csv, a source at azimuth az and elevation el sits at
+(D sin az, D cos az, h(D, el)) with ``h`` from a straight ray over a 4/3 Earth
+(:func:`altitude_from_range_elevation_m`): every source of a pulse is then at
+the same horizontal distance, so the track is its tangential and vertical
+motion, and a radial motion leaks into the vertical one (``vertical_confounded``).
+Without either, only angular quantities exist.
 
-Velocities come from a robust straight-line fit of position against time: least
-squares re-weighted with Huber weights (c = 1.345 robust sigmas, sigma from the
-median absolute residual), four iterations (Huber 1964; common practice for
-robust regression).
+Velocities come from a robust (Huber) straight-line fit of position against
+time, with Huber's covariance of the slopes. A speed is the length of the
+fitted velocity less its noise bias, ``sqrt(max(|v|^2 - trace(Cov), 0))``:
+the plain length reads high when the track is short against the position
+noise (a 2.5e5 m/s leader at 100 km with 0.2 deg angle noise read about
+2.9 times too fast). Each speed comes with its standard error.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from scipy import special
 
-__all__ = ["MIN_SOURCES_FOR_SPEED", "source_features", "grouped_median"]
+from ._checks import InputError, is_real_number
+from ._trackfit import MIN_SOURCES_FOR_SPEED, debiased_norm, grouped_median, robust_velocity
 
-#: Fewest sources for a speed, an angular rate or a track shape.
-MIN_SOURCES_FOR_SPEED = 3
-HUBER_C = 1.345
-IRLS_ITERATIONS = 4
+__all__ = ["COLUMNS", "EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M", "MIN_SOURCES_FOR_SPEED",
+           "altitude_from_enu_m", "altitude_from_range_elevation_m", "breakdown_polarity",
+           "grouped_median", "source_features"]
+
+#: Mean Earth radius in metres (the IUGG mean radius rounded; from memory).
+EARTH_RADIUS_M = 6.371e6
+#: Effective Earth radius for rays bent by a standard atmosphere: 4/3 of the true
+#: one, so that rays can be drawn straight (common radar practice for refraction;
+#: Skolnik, Introduction to Radar Systems, from memory).
+EFFECTIVE_EARTH_RADIUS_M = 4.0 / 3.0 * EARTH_RADIUS_M
 MAX_ELEVATION_DEG = 89.9
 
+#: Columns returned by :func:`source_features`, in schema order.
+COLUMNS = ("n_sources", "speed_m_per_s", "speed_se_m_per_s", "speed_snr",
+           "vertical_speed_m_per_s", "vertical_speed_se_m_per_s", "vertical_confounded",
+           "motion_elevation_deg", "angular_rate_deg_per_s", "angular_rate_se_deg_per_s",
+           "net_to_path", "altitude_m", "elevation_median_deg", "source_duration_s",
+           "source_range_m")
 
-def grouped_median(values, groups, n_groups):
-    """Median of ``values`` within each group (NaN values ignored; NaN for empty groups).
+
+def altitude_from_range_elevation_m(range_m, elevation_deg, *,
+                                    effective_radius_m=EFFECTIVE_EARTH_RADIUS_M):
+    """Altitude of a source seen at an elevation angle over a given ground range.
+
+    A straight ray over a sphere of radius ``a``: with the central angle
+    ``theta = D / a``, ``h = a / (cos(theta) - tan(el) sin(theta)) - a``.
 
     Parameters
     ----------
-    values : ndarray, shape (n,)
-    groups : ndarray of int, shape (n,)
-        Group of each value, in ``[0, n_groups)``.
-    n_groups : int
+    range_m : float or ndarray
+        Horizontal (ground) range D from the station, in metres.
+    elevation_deg : float or ndarray
+        Elevation of the source above the station's horizontal, in degrees.
+    effective_radius_m : float, default=EFFECTIVE_EARTH_RADIUS_M
+        Radius ``a`` of the sphere in metres; 4/3 of the Earth's by default to
+        account for standard refraction (common radar practice).
 
     Returns
     -------
-    ndarray, shape (n_groups,)
+    ndarray
+        Altitude above the surface in metres; NaN where the ray never reaches
+        the range (``tan(el) sin(theta) >= cos(theta)``). Large ``a`` gives the
+        flat-Earth ``D tan(el)``.
+
+    Examples
+    --------
+    >>> round(float(altitude_from_range_elevation_m(100e3, 5.0)), 1)
+    9347.5
     """
-    values = np.asarray(values, dtype=np.float64)
-    keep = np.isfinite(values)
-    v, g = values[keep], np.asarray(groups)[keep]
-    order = np.lexsort((v, g))
-    v, g = v[order], g[order]
-    counts = np.bincount(g, minlength=n_groups)
-    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-    out = np.full(n_groups, np.nan)
-    has = counts > 0
-    lo = starts[has] + (counts[has] - 1) // 2
-    hi = starts[has] + counts[has] // 2
-    out[has] = 0.5 * (v[lo] + v[hi])
-    return out
-
-
-def _line_fit(t, y, w, g, n):
-    """Weighted slope and intercept (at t = 0) of y against t within each group.
-
-    ``y`` is (n_sources, k); returns (slope (n, k), intercept (n, k), ok (n,)).
-    """
-    W = np.bincount(g, w, minlength=n)
-    T = np.bincount(g, w * t, minlength=n)
-    TT = np.bincount(g, w * t * t, minlength=n)
-    k = y.shape[1]
-    Y = np.stack([np.bincount(g, w * y[:, i], minlength=n) for i in range(k)], axis=1)
-    TY = np.stack([np.bincount(g, w * t * y[:, i], minlength=n) for i in range(k)], axis=1)
-    den = W * TT - T * T
-    ok = den > 1e-12 * np.maximum(W * TT, 1e-300)
+    a = float(effective_radius_m)
+    theta = np.asarray(range_m, dtype=np.float64) / a
+    tan_el = np.tan(np.radians(np.asarray(elevation_deg, dtype=np.float64)))
+    # h = a (1 - c) / c with c = cos(theta) - tan(el) sin(theta); 1 - cos written
+    # as 2 sin^2(theta/2) so that short ranges keep their digits
+    one_minus_c = 2.0 * np.sin(0.5 * theta) ** 2 + tan_el * np.sin(theta)
+    c = 1.0 - one_minus_c
     with np.errstate(divide="ignore", invalid="ignore"):
-        slope = (W[:, None] * TY - T[:, None] * Y) / den[:, None]
-        icpt = (Y - slope * T[:, None]) / W[:, None]
-    return slope, icpt, ok
+        return np.where(c > 0, a * one_minus_c / c, np.nan)
 
 
-def robust_velocity(t_s, pos, groups, n_groups):
-    """Robust straight-line velocity of each group's positions against time.
+def altitude_from_enu_m(x_m, y_m, z_m, *, earth_radius_m=EARTH_RADIUS_M):
+    """Altitude above the Earth of a point given in the station's east/north/up frame.
+
+    ``h = sqrt(x^2 + y^2 + (R + z)^2) - R``: the frame is tangent to a sphere
+    of radius R at the station (geometric, no refraction).
 
     Parameters
     ----------
-    t_s : ndarray, shape (n_sources,)
-        Times in seconds.
-    pos : ndarray, shape (n_sources, k)
-        Positions (metres, or degrees for angular fits); rows with NaN are ignored.
-    groups : ndarray of int, shape (n_sources,)
-    n_groups : int
+    x_m, y_m, z_m : float or ndarray
+        East, north, up from the station, in metres.
+    earth_radius_m : float, default=EARTH_RADIUS_M
+        Sphere radius R in metres.
 
     Returns
     -------
-    ndarray, shape (n_groups, k)
-        Velocity (units of ``pos`` per second); NaN for groups with fewer than
-        :data:`MIN_SOURCES_FOR_SPEED` usable sources or no time spread.
+    ndarray
+        Altitude in metres (``z`` in the flat-Earth limit).
+
+    Examples
+    --------
+    >>> round(float(altitude_from_enu_m(60e3, 80e3, 9e3)), 1)
+    9783.7
     """
-    pos = np.asarray(pos, dtype=np.float64)
-    g = np.asarray(groups)
-    valid = np.isfinite(pos).all(axis=1) & np.isfinite(t_s)
-    n_valid = np.bincount(g, valid, minlength=n_groups)
-    w = valid.astype(np.float64)
-    p = np.where(valid[:, None], pos, 0.0)
-    # centre time and position per group for numerical stability
-    tmean = np.bincount(g, w * np.nan_to_num(t_s), minlength=n_groups) / np.maximum(n_valid, 1)
-    tc = np.where(valid, np.nan_to_num(t_s) - tmean[g], 0.0)
-    pmean = np.stack([np.bincount(g, w * p[:, i], minlength=n_groups) for i in
-                      range(p.shape[1])], axis=1) / np.maximum(n_valid, 1)[:, None]
-    pc = p - pmean[g]
-    slope = np.full((n_groups, p.shape[1]), np.nan)
-    for _ in range(IRLS_ITERATIONS):
-        slope, icpt, ok = _line_fit(tc, pc, w, g, n_groups)
-        fit = icpt[g] + slope[g] * tc[:, None]
-        res = np.sqrt(((pc - fit) ** 2).sum(axis=1))
-        res = np.where(valid, res, np.nan)
-        scale = 1.4826 * grouped_median(res, g, n_groups)
-        floor = 1e-9 * (np.abs(pmean).max(axis=1) + 1.0)
-        scale = np.maximum(np.nan_to_num(scale), floor)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            w = np.where(valid, np.minimum(1.0, HUBER_C * scale[g] / res), 0.0)
-        w = np.nan_to_num(w, nan=1.0)
-    slope[~ok] = np.nan
-    slope[n_valid < MIN_SOURCES_FOR_SPEED] = np.nan
-    return slope
+    r = float(earth_radius_m)
+    x, y, z = (np.asarray(v, dtype=np.float64) for v in (x_m, y_m, z_m))
+    # the difference of two near-equal numbers, rewritten without cancellation
+    num = x * x + y * y + z * z + 2.0 * r * z
+    return num / (np.sqrt(x * x + y * y + (r + z) ** 2) + r)
 
 
-def _positions(sources, range_m):
-    g = sources.event_index
-    if sources.xyz_m is not None:
-        return np.asarray(sources.xyz_m, dtype=np.float64)
+def _positions(g, az_deg, el_deg, xyz, range_m):
+    """Positions (east, north, altitude) of the sources in metres (NaN: unknown)."""
+    if xyz is not None:
+        return np.column_stack([xyz[:, 0], xyz[:, 1],
+                                altitude_from_enu_m(xyz[:, 0], xyz[:, 1], xyz[:, 2])])
     d = np.asarray(range_m, dtype=np.float64)[g]
-    az = np.radians(sources.azimuth_deg)
-    el = np.radians(np.minimum(sources.elevation_deg, MAX_ELEVATION_DEG))
-    return np.column_stack([d * np.sin(az), d * np.cos(az), d * np.tan(el)])
+    az = np.radians(az_deg)
+    el = np.minimum(el_deg, MAX_ELEVATION_DEG)
+    return np.column_stack([d * np.sin(az), d * np.cos(az),
+                            altitude_from_range_elevation_m(d, el)])
 
 
 def _sky_unit(az_deg, el_deg):
@@ -168,7 +166,7 @@ def source_features(sources, range_m, n_events):
     ----------
     sources : features._tables.SourceTable or None
         Sources of the batch, ``event_index`` in ``[0, n_events)``; None when the
-        catalog has no sources table (every feature NaN).
+        catalog has no sources table (every float feature NaN).
     range_m : ndarray, shape (n_events,)
         Horizontal range of each pulse in metres, NaN unknown.
     n_events : int
@@ -176,19 +174,23 @@ def source_features(sources, range_m, n_events):
     Returns
     -------
     dict of str -> ndarray, shape (n_events,)
-        ``n_sources``, ``speed_m_per_s``, ``vertical_speed_m_per_s`` (+ up),
-        ``motion_elevation_deg`` (angle of the apparent motion on the sky above
-        the horizontal: tangential vs vertical, from angles),
-        ``angular_rate_deg_per_s``, ``net_to_path``, ``altitude_m``,
-        ``elevation_median_deg``, ``source_duration_s``, ``source_range_m``
-        (median horizontal distance of the sources, xyz only).
+        The :data:`COLUMNS`: ``n_sources``; ``speed_m_per_s`` (debiased, m/s),
+        ``speed_se_m_per_s`` and ``speed_snr`` (speed / its SE);
+        ``vertical_speed_m_per_s`` (rate of change of altitude, + up) and
+        ``vertical_speed_se_m_per_s``; ``vertical_confounded`` (bool: positions
+        from range and angles); ``motion_elevation_deg`` (angle of the apparent
+        motion on the sky above the horizontal: tangential vs vertical, from
+        angles); ``angular_rate_deg_per_s`` (debiased) and
+        ``angular_rate_se_deg_per_s``; ``net_to_path``; ``altitude_m`` (median
+        altitude above the curved Earth); ``elevation_median_deg``;
+        ``source_duration_s``; ``source_range_m`` (median horizontal distance
+        of the sources, xyz only).
     """
     nan = np.full(n_events, np.nan)
-    keys = ("n_sources", "speed_m_per_s", "vertical_speed_m_per_s", "motion_elevation_deg",
-            "angular_rate_deg_per_s", "net_to_path", "altitude_m", "elevation_median_deg",
-            "source_duration_s", "source_range_m")
     if sources is None:
-        return {k: nan.copy() for k in keys}
+        out = {k: nan.copy() for k in COLUMNS}
+        out["vertical_confounded"] = np.zeros(n_events, dtype=bool)
+        return out
     g = np.asarray(sources.event_index, dtype=np.intp)
     t = np.asarray(sources.t_s, dtype=np.float64)
     order = np.lexsort((t, g))
@@ -197,34 +199,34 @@ def source_features(sources, range_m, n_events):
     el = np.asarray(sources.elevation_deg, dtype=np.float64)[order]
     xyz = None if sources.xyz_m is None else np.asarray(sources.xyz_m, np.float64)[order]
     counts = np.bincount(g, minlength=n_events).astype(np.float64)
-    sorted_src = type(sources)(event_index=g, t_s=t, azimuth_deg=az, elevation_deg=el,
-                               xyz_m=xyz, power_db=None, offsets=sources.offsets)
-    pos = _positions(sorted_src, range_m)
-    vel = robust_velocity(t, pos, g, n_events)
-    speed = np.sqrt((vel ** 2).sum(axis=1))
+    has = counts > 0
 
-    # angular motion: azimuth unwrapped around each pulse's first source
+    pos = _positions(g, az, el, xyz, range_m)
+    fit = robust_velocity(t, pos, g, n_events)
+    speed, speed_se = debiased_norm(fit.velocity, fit.covariance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        speed_snr = speed / speed_se
+
+    # angular motion on the sky: azimuth unwrapped around each pulse's first
+    # source and scaled by cos(median elevation), so both axes are arc degrees
     starts = np.concatenate(([0], np.cumsum(counts.astype(np.int64))[:-1]))
     ref = np.zeros(n_events)
-    has = counts > 0
     ref[has] = az[starts[has]]
     az_u = ref[g] + ((az - ref[g] + 180.0) % 360.0) - 180.0
-    ang = robust_velocity(t, np.column_stack([az_u, el]), g, n_events)   # deg/s
     el_med = grouped_median(el, g, n_events)
-    coslat = np.cos(np.radians(el_med))
-    ang_rate = np.sqrt((ang[:, 0] * coslat) ** 2 + ang[:, 1] ** 2)
+    coslat = np.cos(np.radians(np.minimum(el_med, MAX_ELEVATION_DEG)))
+    ang = robust_velocity(t, np.column_stack([az_u * coslat[g], el]), g, n_events)  # deg/s
+    ang_rate, ang_se = debiased_norm(ang.velocity, ang.covariance)
     # direction and straightness are measured on the sky for every catalog (the
-    # interferometer's own measurement), so they mean the same with or without xyz
-    sec2 = 1.0 / np.cos(np.radians(np.minimum(el_med, MAX_ELEVATION_DEG))) ** 2
-    mot_el = np.degrees(np.arctan2(np.radians(ang[:, 1]) * sec2,
-                                   np.abs(np.radians(ang[:, 0]))))
+    # interferometer's own measurement), so they mean the same with or without xyz:
+    # tangential speed D * az rate vs vertical speed D sec^2(el) * el rate
+    sec2 = 1.0 / coslat ** 2
+    mot_el = np.degrees(np.arctan2(ang.velocity[:, 1] * sec2,
+                                   np.abs(ang.velocity[:, 0] / coslat)))
     if xyz is not None:
-        alt = grouped_median(xyz[:, 2], g, n_events)
         src_range = grouped_median(np.hypot(xyz[:, 0], xyz[:, 1]), g, n_events)
     else:
-        alt = grouped_median(pos[:, 2], g, n_events)
         src_range = nan.copy()
-    track = _sky_unit(az, el)
     t_first = np.full(n_events, np.nan)
     t_last = np.full(n_events, np.nan)
     t_first[has] = t[starts[has]]
@@ -232,12 +234,119 @@ def source_features(sources, range_m, n_events):
     return {
         "n_sources": counts,
         "speed_m_per_s": speed,
-        "vertical_speed_m_per_s": vel[:, 2],
+        "speed_se_m_per_s": speed_se,
+        "speed_snr": speed_snr,
+        "vertical_speed_m_per_s": fit.velocity[:, 2],
+        "vertical_speed_se_m_per_s": np.sqrt(fit.covariance[:, 2, 2]),
+        "vertical_confounded": has & (xyz is None),
         "motion_elevation_deg": mot_el,
         "angular_rate_deg_per_s": ang_rate,
-        "net_to_path": _net_to_path(track, g, n_events),
-        "altitude_m": alt,
+        "angular_rate_se_deg_per_s": ang_se,
+        "net_to_path": _net_to_path(_sky_unit(az, el), g, n_events),
+        "altitude_m": grouped_median(pos[:, 2], g, n_events),
         "elevation_median_deg": el_med,
         "source_duration_s": t_last - t_first,
         "source_range_m": src_range,
     }
+
+
+def breakdown_polarity(field_polarity, vertical_speed_m_per_s, vertical_speed_se_m_per_s,
+                       confounded, *, min_snr=3.0, n_sources=None):
+    """Polarity of the breakdown of each pulse from its field sign and vertical motion.
+
+    Convention (pulsesort's; read it before comparing with a paper). The
+    field is in the physics sign convention. For a radiation-dominated pulse
+    ``E = -(1 / (2 pi eps0 c^2 D)) dM/dt``, so a positive initial peak means a
+    growing *downward*-directed current moment: the current direction is
+    ``-polarity`` (+1 up). The propagation direction is the sign of the
+    sources' vertical speed, trusted when ``|v_z| / SE >= min_snr``, or
+    ``>= 2 min_snr`` when ``confounded`` (vertical speed from range and
+    angles, where radial motion leaks into it; a choice, common practice, no
+    source). **Positive breakdown**: the current flows in the direction of
+    propagation (positive charge advances, e.g. a downward current
+    propagating downward). **Negative breakdown**: opposite.
+
+    Naming in the literature, as recalled (from memory; papers name narrow
+    bipolar event polarity in different sign conventions, so compare by
+    current direction): the common "positive" NBEs, at about 7-15 km, have a
+    downward-directed current and are produced by downward fast positive
+    breakdown (Rison et al. 2016, from memory); "negative" NBEs, higher
+    (about 14-20 km), have an upward-directed current.
+
+    Parameters
+    ----------
+    field_polarity : array_like, shape (n,)
+        Sign of the initial field peak (physics convention); only the sign is
+        used, so a signed peak in V/m also works. 0 or NaN: undetermined.
+    vertical_speed_m_per_s : array_like, shape (n,)
+        Vertical speed of the sources in m/s, + upward (NaN: none).
+    vertical_speed_se_m_per_s : array_like, shape (n,)
+        Its standard error in m/s.
+    confounded : array_like of bool, shape (n,)
+        Whether the vertical speed comes from range and angles.
+    min_snr : float, default=3.0
+        Significance needed for a direction, in standard errors.
+    n_sources : array_like, shape (n,), optional
+        Sources behind each vertical speed. Recommended: the SE is then itself
+        estimated from ``n - 2`` degrees of freedom, so ``|v_z| / SE`` follows
+        Student's t, not a normal (with 3 sources a ratio of 20 happens by
+        chance 3 % of the time). Given, the significance is read as the
+        normal-equivalent ``z`` with the same one-sided tail probability under
+        Student's t with ``n - 2`` degrees of freedom (Student 1908; from memory).
+
+    Returns
+    -------
+    labels : ndarray of object, shape (n,)
+        "positive", "negative" or "undetermined".
+    snr : ndarray, shape (n,)
+        The significance the label rests on: ``|v_z| / SE``, or its
+        normal-equivalent with ``n_sources``; NaN where there is no vertical
+        speed (too few or no sources).
+
+    Raises
+    ------
+    InputError
+        When the arrays differ in shape or ``min_snr`` is not a finite number > 0.
+
+    Examples
+    --------
+    >>> labels, snr = breakdown_polarity([1, 1, -1, -1], [-2e7, -2e7, -5e4, 8e4],
+    ...                                  [1e6, 1e7, 1e4, 1e4], [False, False, True, True])
+    >>> labels.tolist(), snr.tolist()
+    (['positive', 'undetermined', 'undetermined', 'positive'], [20.0, 2.0, 5.0, 8.0])
+    >>> labels, snr = breakdown_polarity([1], [-2e7], [1e6], [False], n_sources=[3])
+    >>> labels.tolist(), round(float(snr[0]), 2)
+    (['undetermined'], 2.15)
+    """
+    if not is_real_number(min_snr) or min_snr <= 0:
+        raise InputError(f"breakdown_polarity: 'min_snr' must be a finite number > 0, "
+                         f"got {min_snr!r}")
+    args = {"field_polarity": np.asarray(field_polarity, dtype=np.float64),
+            "vertical_speed_m_per_s": np.asarray(vertical_speed_m_per_s, dtype=np.float64),
+            "vertical_speed_se_m_per_s": np.asarray(vertical_speed_se_m_per_s,
+                                                    dtype=np.float64),
+            "confounded": np.asarray(confounded, dtype=bool)}
+    if n_sources is not None:
+        args["n_sources"] = np.asarray(n_sources, dtype=np.float64)
+    shapes = {k: v.shape for k, v in args.items()}
+    if len(set(shapes.values())) > 1 or args["field_polarity"].ndim != 1:
+        raise InputError(["breakdown_polarity: the arrays must be 1-D of one length, got "
+                          + ", ".join(f"'{k}' {s}" for k, s in shapes.items())])
+    thr = float(min_snr)
+    pol, vz, se, conf = (args[k] for k in list(args)[:4])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        snr = np.abs(vz) / se
+    snr[~(np.isfinite(vz) & (se >= 0))] = np.nan
+    if n_sources is not None:
+        dof = args["n_sources"] - 2.0
+        with np.errstate(invalid="ignore"):
+            tail = special.stdtr(np.where(dof >= 1, dof, np.nan), -snr)
+            snr = np.where(np.isnan(snr), np.nan, -special.ndtri(tail))
+    need = np.where(conf, 2.0 * thr, thr)
+    current = -np.sign(pol)                 # +1: upward-directed current
+    moving = np.sign(vz)                    # +1: sources move up
+    decided = (snr >= need) & (current != 0) & np.isfinite(current) & (moving != 0)
+    labels = np.full(pol.shape, "undetermined", dtype=object)
+    labels[decided & (current == moving)] = "positive"
+    labels[decided & (current == -moving)] = "negative"
+    return labels, snr

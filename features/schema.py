@@ -138,25 +138,47 @@ FEATURES: tuple[Feature, ...] = (
             "sources)", "mapping",
             requires=frozenset({"sources"})),
     Feature("speed_m_per_s", "m/s", "speed from a robust (Huber) straight-line fit of mapped "
-            "positions vs time (3-D if xyz, else from range and angles); NaN under 3 sources "
-            "or without positions", "mapping",
+            "positions vs time (3-D if xyz, else from range and angles), less its noise "
+            "bias: sqrt(max(|v|^2 - sum of the squared standard errors, 0)); NaN under 3 "
+            "sources or without positions", "mapping",
             requires=frozenset({"range", "sources"})),
-    Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity, "
-            "+ upward", "mapping",
+    Feature("speed_se_m_per_s", "m/s", "standard error of that speed (delta method, from "
+            "the fit's Huber covariance: residual scatter over the time spread of the "
+            "sources); depends on the instrument's position noise", "mapping", model=False,
             requires=frozenset({"range", "sources"})),
+    Feature("speed_snr", "1", "speed_m_per_s / speed_se_m_per_s: how far the speed stands "
+            "above its noise (0 when the motion is within the noise; the SE has n_sources - 2 "
+            "degrees of freedom, so with few sources large values happen by chance)", "mapping",
+            requires=frozenset({"range", "sources"})),
+    Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity "
+            "(rate of change of altitude above the curved Earth), + upward", "mapping",
+            requires=frozenset({"range", "sources"})),
+    Feature("vertical_speed_se_m_per_s", "m/s", "standard error of the vertical speed",
+            "mapping", model=False,
+            requires=frozenset({"range", "sources"})),
+    Feature("vertical_confounded", "bool", "the pulse's positions come from range and angles "
+            "(no x/y/z): all its sources sit at one range, so a motion towards or away from "
+            "the station also changes the vertical speed", "mapping", model=False,
+            requires=frozenset({"sources"})),
     Feature("motion_elevation_deg", "deg", "direction of the apparent motion on the sky "
             "above the horizontal (+90 straight up, 0 sideways), from the fitted azimuth and "
             "elevation rates (elevation rate x sec^2(el) vs azimuth rate)", "mapping",
             requires=frozenset({"sources"})),
     Feature("angular_rate_deg_per_s", "deg/s", "angular speed on the sky from a robust fit "
-            "of azimuth and elevation vs time", "mapping",
+            "of azimuth x cos(elevation) and elevation vs time, less its noise bias (as the "
+            "speed)", "mapping",
+            requires=frozenset({"sources"})),
+    Feature("angular_rate_se_deg_per_s", "deg/s", "standard error of the angular rate",
+            "mapping", model=False,
             requires=frozenset({"sources"})),
     Feature("net_to_path", "1", "net displacement / path length of the time-ordered source "
             "track on the sky (1 = straight, near 0 = back and forth); angles only, so the "
             "same with or without xyz",
             "mapping",
             requires=frozenset({"sources"})),
-    Feature("altitude_m", "m", "median source altitude (z, or range x tan(elevation))",
+    Feature("altitude_m", "m", "median source altitude above the curved Earth: from xyz, "
+            "sqrt(x^2 + y^2 + (R + z)^2) - R with R = 6.371e6 m; from range D and elevation, "
+            "a / (cos(D/a) - tan(el) sin(D/a)) - a with a = 4/3 R (standard refraction)",
             "mapping",
             requires=frozenset({"range", "sources"})),
     Feature("elevation_median_deg", "deg", "median source elevation", "mapping",
