@@ -69,21 +69,31 @@ PSI_BANDS = (0.1, 0.25)
 PRESENCE_TOL = 0.05
 
 _FIELD_TIMING = ("rise_time_s", "fwhm_s", "initial_half_cycle_s", "zero_crossing_s",
-                 "width_s")
+                 "width_s", "pulse_start_s", "pulse_end_s")
+#: Features of the pulse among its neighbours in the record (what the detector sees
+#: depends on the noise, the resolution and the record's length).
+_TRAIN = ("neighbours_before", "neighbours_after", "nearest_neighbour_s",
+          "neighbour_interval_s", "largest_neighbour_ratio", "pre_level_ratio",
+          "baseline_slope_ratio", "record_before_s", "record_after_s")
 _AMPLITUDE = ("peak_field_v_per_m", "range_normalized_peak_v_per_m",
               "current_moment_peak_a_m", "charge_moment_change_c_m", "peak_current_a")
 _RANGE = ("range_normalized_peak_v_per_m", "current_moment_peak_a_m",
           "charge_moment_change_c_m", "peak_current_a", "vhf_to_field_db", "speed_m_per_s",
           "vertical_speed_m_per_s", "altitude_m", "range_m")
-_VHF = ("vhf_peak_db", "vhf_field_lag_s", "vhf_to_field_db", "vhf_field_ratio_db",
-        "vhf_snr_db", "vhf_width_s", "has_vhf")
+_VHF = ("vhf_peak_db", "vhf_field_lag_s", "vhf_lag_first_peak_s", "vhf_to_field_db",
+        "vhf_field_ratio_db", "vhf_snr_db", "vhf_width_s", "vhf_censored", "has_vhf")
 _VHF_LEVEL = ("vhf_peak_db", "vhf_snr_db", "vhf_width_s", "vhf_to_field_db",
               "vhf_field_ratio_db")
-_MAPPING = ("n_sources", "speed_m_per_s", "vertical_speed_m_per_s", "motion_elevation_deg",
-            "angular_rate_deg_per_s", "net_to_path", "altitude_m", "elevation_median_deg",
-            "source_duration_s", "source_range_m", "channel_reuse", "range_m")
-_XYZ = ("speed_m_per_s", "vertical_speed_m_per_s", "motion_elevation_deg", "net_to_path",
-        "altitude_m", "source_range_m", "channel_reuse", "range_m")
+_MAPPING = ("n_sources", "speed_m_per_s", "speed_se_m_per_s", "speed_snr",
+            "vertical_speed_m_per_s", "vertical_speed_se_m_per_s", "vertical_confounded",
+            "motion_elevation_deg", "angular_rate_deg_per_s", "angular_rate_se_deg_per_s",
+            "net_to_path", "altitude_m", "elevation_median_deg", "source_duration_s",
+            "source_range_m", "channel_reuse", "range_m", "breakdown_snr",
+            "altitude_assumed")
+_XYZ = ("speed_m_per_s", "speed_se_m_per_s", "speed_snr", "vertical_speed_m_per_s",
+        "vertical_speed_se_m_per_s", "vertical_confounded", "motion_elevation_deg",
+        "net_to_path", "altitude_m", "source_range_m", "channel_reuse", "range_m",
+        "breakdown_snr")
 
 
 @dataclass(frozen=True)
@@ -99,24 +109,25 @@ class SettingEffect:
 #: affect, from the feature definitions in :mod:`features.waveform`,
 #: :mod:`features.vhf`, :mod:`features.mapping` and :mod:`features.context`.
 SETTING_EFFECTS: tuple[SettingEffect, ...] = (
-    SettingEffect("field.sample_rate_hz", _FIELD_TIMING + (
+    SettingEffect("field.sample_rate_hz", _FIELD_TIMING + _TRAIN + (
         "peak_field_v_per_m", "bipolarity", "field_noise_v_per_m", "snr_db"),
         "time resolution: durations near 1/rate are quantised, fast peaks under-sampled, "
         "the noise bandwidth changes"),
-    SettingEffect("field.window_s", (
+    SettingEffect("field.window_s", _TRAIN + (
         "width_s", "zero_crossing_s", "initial_half_cycle_s", "bipolarity",
-        "charge_moment_change_c_m", "field_ok"),
+        "charge_moment_change_c_m", "field_ok", "pulse_end_s"),
         "a shorter record cuts long pulses, late zero crossings and overshoots"),
-    SettingEffect("field.pretrigger_s", (
-        "field_noise_v_per_m", "snr_db", "field_ok", "peak_field_v_per_m"),
+    SettingEffect("field.pretrigger_s", _TRAIN + (
+        "field_noise_v_per_m", "snr_db", "field_ok", "peak_field_v_per_m", "baseline_short"),
         "less record before the trigger for the baseline and noise (and the peak search)"),
-    SettingEffect("field.decay_time_s", (
+    SettingEffect("field.decay_time_s", _TRAIN + (
         "bipolarity", "zero_crossing_s", "width_s", "initial_half_cycle_s", "fwhm_s",
         "current_moment_peak_a_m", "charge_moment_change_c_m", "peak_field_v_per_m",
-        "range_normalized_peak_v_per_m", "peak_current_a"),
+        "range_normalized_peak_v_per_m", "peak_current_a", "pulse_end_s", "pulse_start_s",
+        "moments_converged"),
         "RC decay compensation: the slow part of the pulse (overshoot, zero crossing, "
         "integrals) depends on the decay constant, so a changed or wrong one moves it"),
-    SettingEffect("field.delay_s", ("vhf_field_lag_s",),
+    SettingEffect("field.delay_s", ("vhf_field_lag_s", "vhf_lag_first_peak_s"),
                   "the VHF-to-field lag is measured on delay-corrected times"),
     SettingEffect("field.sign_convention", ("polarity",) + _AMPLITUDE,
                   "converted on load: drift of signed features then means a convention "
@@ -126,10 +137,12 @@ SETTING_EFFECTS: tuple[SettingEffect, ...] = (
     SettingEffect("field.scale", _AMPLITUDE + ("field_noise_v_per_m",),
                   "V/m per count: a wrong calibration scales every amplitude"),
     SettingEffect("field.full_scale", (
-        "clipped", "peak_field_v_per_m", "range_normalized_peak_v_per_m", "peak_current_a",
-        "fwhm_s"),
+        "clipped", "field_censored", "peak_field_v_per_m", "range_normalized_peak_v_per_m",
+        "peak_current_a", "fwhm_s"),
         "clip level: more clipped rows, flattened (under-estimated, widened) peaks"),
-    SettingEffect("field.dtype", ("field_noise_v_per_m", "snr_db"),
+    SettingEffect("field.dtype", _TRAIN + ("field_noise_v_per_m", "snr_db", "rise_time_s",
+                                           "bipolarity", "zero_crossing_s",
+                                           "initial_half_cycle_s"),
                   "integer samples floor the noise at one digitizer step"),
     SettingEffect("vhf.present", _VHF, "without a VHF channel every VHF feature is NaN"),
     SettingEffect("vhf.sample_rate_hz", ("vhf_width_s", "vhf_field_lag_s") + _VHF_LEVEL[:2]
@@ -139,13 +152,13 @@ SETTING_EFFECTS: tuple[SettingEffect, ...] = (
                   "record length around the trigger: noise floor and search window"),
     SettingEffect("vhf.pretrigger_s", ("vhf_snr_db", "vhf_field_ratio_db", "has_vhf"),
                   "record before the trigger for the VHF noise floor"),
-    SettingEffect("vhf.delay_s", ("vhf_field_lag_s",),
+    SettingEffect("vhf.delay_s", ("vhf_field_lag_s", "vhf_lag_first_peak_s"),
                   "the VHF-to-field lag is measured on delay-corrected times"),
     SettingEffect("vhf.band_hz", _VHF_LEVEL,
                   "another pass band sees another part of the radiation spectrum"),
     SettingEffect("vhf.kind", _VHF_LEVEL + ("vhf_field_lag_s",),
                   "detected power envelope vs analytic-signal power of the voltage"),
-    SettingEffect("vhf.full_scale", ("clipped", "vhf_peak_db", "vhf_snr_db"),
+    SettingEffect("vhf.full_scale", ("clipped", "vhf_censored", "vhf_peak_db", "vhf_snr_db"),
                   "clip level of the VHF digitizer"),
     SettingEffect("vhf.dtype", ("vhf_snr_db", "vhf_peak_db"),
                   "integer samples floor the VHF noise"),
@@ -341,7 +354,7 @@ def feature_drift(feat_a: pd.DataFrame, feat_b: pd.DataFrame, *, changes=(),
         (non-missing values), ``explained_by`` (``;``-joined settings among
         ``changes`` expected to move it). Sorted by PSI, then KS statistic.
     """
-    names = [f.name for f in schema.FEATURES if f.group != "id"
+    names = [f.name for f in schema.FEATURES if f.group != "id" and f.unit != "-"
              and f.name in feat_a.columns and f.name in feat_b.columns]
     if not names:
         raise ValueError("the feature tables share no schema feature column")
@@ -477,6 +490,9 @@ def read_feature_table(path, catalog) -> pd.DataFrame:
     df = df.set_index(ids).loc[want].reset_index(drop=True)
     for f in schema.FEATURES[1:]:
         col = df[f.name]
+        if f.unit == "-":          # a text column (e.g. breakdown_polarity)
+            df[f.name] = col.fillna("").astype(str)
+            continue
         if f.unit == "bool":
             if col.dtype == bool:
                 continue

@@ -26,7 +26,7 @@ from ._tables import SourceTable
 from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
-from .mapping import source_features
+from .mapping import breakdown_polarity, source_features
 from .vhf import VHF_LEAD_S, VHF_MAX_WINDOW_S, VHF_SPAN_S, VHF_TRAIL_S, vhf_features
 from .waveform import ANALYSIS_WINDOW_S, PEAK_SEARCH_S, field_features
 
@@ -149,6 +149,9 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         v["vhf_ok"] = np.zeros(n, dtype=bool)
         v["vhf_censored"] = np.zeros(n, dtype=bool)
 
+    polarity_label, polarity_snr = breakdown_polarity(
+        f["polarity"], mapping["vertical_speed_m_per_s"], mapping["vertical_speed_se_m_per_s"],
+        mapping["vertical_confounded"], n_sources=mapping["n_sources"])
     with np.errstate(divide="ignore", invalid="ignore"):
         norm_db = 20 * np.log10(np.abs(f["range_normalized_peak_v_per_m"]))
     cols = {
@@ -163,6 +166,8 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         "vhf_width_s": v["vhf_width_s"],
         "vhf_censored": v["vhf_censored"],
         **mapping,
+        "breakdown_polarity": polarity_label,
+        "breakdown_snr": polarity_snr,
         **job.context,
         "range_m": rng,
         "clipped": fclip | vclip,

@@ -34,7 +34,7 @@ class Feature:
     definition : str
         What it is and how it is computed, in one sentence or two.
     group : str
-        "field", "vhf", "mapping", "context", "quality" or "id".
+        "field", "vhf", "mapping", "breakdown", "context", "quality" or "id".
     model : bool
         Whether classifiers use it.
     requires : frozenset of str
@@ -189,6 +189,13 @@ FEATURES: tuple[Feature, ...] = (
     Feature("source_range_m", "m", "median horizontal distance of the sources (xyz only)",
             "mapping", model=False,
             requires=frozenset({"sources"})),
+    Feature("breakdown_polarity", "-", "positive / negative / undetermined: the current "
+            "(down for a positive initial field peak, physics convention) flows with (positive) "
+            "or against (negative) the sources' vertical propagation, trusted at |v_z| / SE >= 3 "
+            "(>= 6 from range and angles)", "breakdown", model=False,
+            requires=frozenset({"sources"})),
+    Feature("breakdown_snr", "1", "the significance |v_z| / SE that breakdown_polarity rests "
+            "on", "breakdown", model=False, requires=frozenset({"sources"})),
     # ---------------------------------------------------------------- context
     Feature("isolation_s", "s", "time to the nearest other catalogued pulse of the same "
             "flash (NaN if alone)", "context",

@@ -147,7 +147,7 @@ def test_effects_table_names_real_settings_and_features():
     decay = next(e for e in SETTING_EFFECTS if e.setting == "field.decay_time_s")
     assert {"bipolarity", "zero_crossing_s", "width_s"} <= set(decay.affects)
     lag = next(e for e in SETTING_EFFECTS if e.setting == "vhf.delay_s")
-    assert lag.affects == ("vhf_field_lag_s",)
+    assert lag.affects == ("vhf_field_lag_s", "vhf_lag_first_peak_s")
 
 
 def test_manifest_diff_lists_exactly_the_changed_settings(make_catalog):
