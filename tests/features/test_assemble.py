@@ -346,3 +346,27 @@ def test_csv_and_npz_records_give_the_same_catalog(season, tmp_path):
     assert_array_equal(new.event_ids, ref.event_ids)
     assert_array_equal(new.field.open(), ref.field.open())
     assert_array_equal(new.vhf.open(), ref.vhf.open())
+
+
+def test_the_description_page_examples_use_only_known_keys(tmp_path):
+    """Every TOML example of docs/station-description.md is read without a problem other
+    than its (absent) recording files."""
+    import re
+    from pathlib import Path
+
+    from features.station import load_station
+
+    doc = (Path(__file__).resolve().parents[2] / "docs" / "station-description.md").read_text()
+    blocks = re.findall(r"```toml\n(.*?)```", doc, re.S)
+    assert len(blocks) == 3
+    head = blocks[0].split("[field]")[0]
+    field = "[field]" + blocks[0].split("[field]")[1].split("[vhf]")[0]
+    for i, text in enumerate([blocks[0], head + field + blocks[1],
+                              head.replace("[window]", "[window]") + blocks[2]]):
+        path = tmp_path / f"d{i}.toml"
+        path.write_text(text)
+        with pytest.raises(InputError) as err:
+            load_station(path)
+        odd = [p for p in err.value.problems
+               if "matches no file" not in p and "not found" not in p]
+        assert not odd, odd

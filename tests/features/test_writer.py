@@ -113,3 +113,16 @@ def test_failure_inside_the_stage_leaves_nothing(tmp_path):
         (tmp / "catalog.json").write_text(json.dumps({"format": "pulse-catalog"}))
         raise RuntimeError("disk full")
     assert not list(tmp_path.iterdir())
+
+
+def test_the_format_page_example_makes_a_valid_catalog(tmp_path, monkeypatch):
+    """The NumPy/pandas example of docs/catalog-v1.md writes a catalog the reader accepts."""
+    import re
+    from pathlib import Path
+
+    doc = (Path(__file__).resolve().parents[2] / "docs" / "catalog-v1.md").read_text()
+    code = re.findall(r"```python\n(.*?)```", doc, re.S)[0]
+    monkeypatch.chdir(tmp_path)
+    exec(compile(code, "docs/catalog-v1.md", "exec"), {})
+    cat = open_catalog(tmp_path / "hollowmere-2031")
+    assert cat.n_events == 3 and cat.sources.n_sources == 2 and not cat.notes
