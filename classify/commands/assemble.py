@@ -28,8 +28,16 @@ def run(args) -> int:
     info = man["assembled"]
     print(f"assembled {info['n_pulses']:,} pulses ({info['pulses']}) -> {out}")
     for rec in info.get("records", []):
-        parts = [f"{k.replace('_', ' ')} {v:.4g}" if isinstance(v, float) else
-                 f"{k.replace('_', ' ')} {v}" for k, v in rec.items() if k != "record"]
+        parts = []
+        if "n_triggers" in rec:
+            parts.append(f"{rec['n_triggers']} pulses detected")
+        if "noise_v_per_m" in rec:
+            parts.append(f"noise {rec['noise_v_per_m']:.3g} V/m rms")
+        if "n_windows" in rec:
+            parts.append(f"{rec['n_windows']} windows cut ({rec['n_windows_padded']} "
+                         "reaching outside the record)")
+        if "n_rows" in rec:
+            parts.append(f"{rec['n_rows']} rows")
         print(f"  {rec['record']}: " + ", ".join(parts))
     if "sources" in info:
         s = info["sources"]
