@@ -11,8 +11,10 @@ import logging
 
 from ._checks import CatalogError, InputError
 from .catalog import Catalog, open_catalog, scan_quality
+from .writer import write_catalog
 
 logger = logging.getLogger("pulsesort")
 logger.addHandler(logging.NullHandler())
 
-__all__ = ["Catalog", "CatalogError", "InputError", "open_catalog", "scan_quality", "logger"]
+__all__ = ["Catalog", "CatalogError", "InputError", "open_catalog", "scan_quality", "logger",
+           "write_catalog"]
