@@ -66,7 +66,7 @@ def _assert_same_features(ref, new):
         assert (np.abs(a[col] - b[col]).fillna(0) <= 1 / 10e6).all(), col
     for col in AMP_COLS:
         assert_allclose(a[col], b[col], rtol=0.03, err_msg=col)
-    assert (a["polarity"] == b["polarity"]).all()
+    assert_allclose(a["polarity"], b["polarity"], equal_nan=True)
     assert_allclose(a["bipolarity"], b["bipolarity"], atol=0.03)
     return a, b
 
