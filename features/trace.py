@@ -1,0 +1,97 @@
+"""One pulse as the features see it: the processed field, its extent, its neighbours, VHF.
+
+What a plot shows must agree with the table: :func:`pulse_trace` runs the same steps
+as :func:`features.extract.compute_chunk` (same span of record, decay compensation,
+baseline line, pulse detection, VHF envelope) on one row and returns the curves and
+marks, in SI units and physical time relative to the trigger.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .catalog import Catalog
+from .extract import _column_span, _read_rows, clip_level, vhf_window_s
+from .pulses import CONTEXT_S
+from .vhf import VHF_SPAN_S, vhf_envelope, vhf_features, vhf_power
+from .waveform import ANALYSIS_WINDOW_S, field_features
+
+__all__ = ["pulse_trace"]
+
+
+def pulse_trace(catalog: Catalog, row: int) -> dict:
+    """The processed field and VHF of one catalogued pulse, with its extent and neighbours.
+
+    Parameters
+    ----------
+    catalog : Catalog
+    row : int
+        Row of the pulse in the catalog (0-based).
+
+    Returns
+    -------
+    dict
+        ``time_s`` (1-D, physical time of each field sample relative to the trigger, s),
+        ``field_v_per_m`` (baseline removed, decay-compensated, physics convention, V/m),
+        ``extent_s`` ((start, end) of the pulse, s), ``peak_time_s``,
+        ``peak_field_v_per_m``, ``neighbours_s`` and ``neighbour_peaks_v_per_m``
+        (peak times and signed peaks of the other pulses in the record, within the
+        features' context of :data:`features.pulses.CONTEXT_S`), ``noise_v_per_m``;
+        ``vhf_time_s``, ``vhf_envelope`` (smoothed linear power in the catalog's units;
+        None without VHF), ``vhf_window_s`` and ``vhf_peak_time_s``.
+
+    Examples
+    --------
+    >>> from features import open_catalog                     # doctest: +SKIP
+    >>> tr = pulse_trace(open_catalog("hollowmere-2031"), 0)  # doctest: +SKIP
+    >>> tr["extent_s"]                                        # doctest: +SKIP
+    (-1.2e-06, 9.8e-06)
+    """
+    if not 0 <= int(row) < catalog.n_events:
+        raise IndexError(f"row {row} is outside the catalog ({catalog.n_events} pulses)")
+    row = int(row)
+    fch = catalog.field
+    c0, c1 = _column_span(fch, *ANALYSIS_WINDOW_S)
+    seg, _ = _read_rows(fch, row, row + 1, (c0, c1))
+    seg *= fch.scale * fch.sign
+    rng = catalog.range_m[row:row + 1]
+    f, tr = field_features(seg, fch.sample_rate_hz,
+                           pretrigger_s=fch.pretrigger_s - c0 / fch.sample_rate_hz,
+                           delay_s=fch.delay_s, decay_time_s=fch.decay_time_s,
+                           quantum_v_per_m=fch.quantum, range_m=rng,
+                           full_scale_v_per_m=clip_level(fch), return_trace=True)
+    t = tr["time_s"]
+    table, own = tr["pulses"], int(tr["own"][0])
+    others = np.flatnonzero((table.row == 0) & (np.arange(len(table)) != own))
+    t_peak = t[np.clip(table.peak_col[others], 0, t.size - 1)] if others.size else t[:0]
+    near = np.abs(t_peak - f["peak_time_s"][0]) <= CONTEXT_S
+    e = tr["field_v_per_m"][0]
+    peaks = (table.peak[others] * table.sign[others])[near] if others.size else e[:0]
+    out = {
+        "time_s": t,
+        "field_v_per_m": e,
+        "extent_s": (float(f["pulse_start_s"][0]), float(f["pulse_end_s"][0])),
+        "peak_time_s": float(f["peak_time_s"][0]),
+        "peak_field_v_per_m": float(f["peak_field_v_per_m"][0]),
+        "neighbours_s": t_peak[near],
+        "neighbour_peaks_v_per_m": peaks,
+        "noise_v_per_m": float(tr["sigma"][0]),
+        "vhf_time_s": None, "vhf_envelope": None, "vhf_window_s": None,
+        "vhf_peak_time_s": float("nan"),
+    }
+    if catalog.vhf is not None:
+        vch = catalog.vhf
+        v0, v1 = _column_span(vch, VHF_SPAN_S[0] + vch.delay_s, VHF_SPAN_S[1] + vch.delay_s)
+        vseg, _ = _read_rows(vch, row, row + 1, (v0, v1))
+        vseg *= vch.scale
+        window = vhf_window_s(f, 1)
+        pre = vch.pretrigger_s - v0 / vch.sample_rate_hz
+        v = vhf_features(vseg, vch.sample_rate_hz, vch.kind, window, pretrigger_s=pre,
+                         delay_s=vch.delay_s, full_scale=clip_level(vch))
+        env, k = vhf_envelope(vhf_power(vseg, vch.kind), vch.sample_rate_hz)
+        nb = env.shape[1]
+        out["vhf_time_s"] = (np.arange(nb) + 0.5) * k / vch.sample_rate_hz - pre - vch.delay_s
+        out["vhf_envelope"] = env[0]
+        out["vhf_window_s"] = (float(window[0][0]), float(window[1][0]))
+        out["vhf_peak_time_s"] = float(v["vhf_peak_time_s"][0])
+    return out
