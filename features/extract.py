@@ -11,6 +11,7 @@ identical rows whichever runs it: the chunk boundaries depend only on
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import os
 import sys
@@ -24,6 +25,7 @@ import pandas as pd
 from . import schema
 from ._tables import SourceTable
 from .catalog import Catalog, Channel, return_freed_memory
+from .augment import StationVariant, apply_field, apply_vhf, draw_variant
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import breakdown_polarity, source_features
@@ -61,6 +63,7 @@ class ChunkJob:
     sources: SourceTable | None
     context: dict
     extras: pd.DataFrame
+    variant: StationVariant | None = None
 
 
 def _column_span(ch: Channel, before_s: float, after_s: float) -> tuple[int, int]:
@@ -126,11 +129,19 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     c0, c1 = _column_span(fch, *ANALYSIS_WINDOW_S)
     seg, fclip = _read_rows(fch, job.start, job.stop, (c0, c1))
     seg *= fch.scale * fch.sign
-    f = field_features(seg, fch.sample_rate_hz, pretrigger_s=fch.pretrigger_s - c0 /
-                       fch.sample_rate_hz, delay_s=fch.delay_s,
-                       decay_time_s=fch.decay_time_s, quantum_v_per_m=fch.quantum,
-                       range_m=rng, altitude_m=mapping["altitude_m"],
-                       full_scale_v_per_m=clip_level(fch))
+    # the span read is the channel from its column c0 on
+    fch = dataclasses.replace(fch, pretrigger_s=fch.pretrigger_s - c0 / fch.sample_rate_hz,
+                              n_samples=seg.shape[1])
+    if job.variant is not None:   # the same pulses as another station records them
+        rng_v = np.random.default_rng([job.variant.seed, job.start])
+        seg, fch = apply_field(seg, fch, job.variant, rng_v)
+        level = clip_level(fch)
+        fclip = np.zeros(n, bool) if level is None else (np.abs(seg) >= level * (1 - 1e-9)
+                                                          ).any(axis=1)
+    f = field_features(seg, fch.sample_rate_hz, pretrigger_s=fch.pretrigger_s,
+                       delay_s=fch.delay_s, decay_time_s=fch.decay_time_s,
+                       quantum_v_per_m=fch.quantum, range_m=rng,
+                       altitude_m=mapping["altitude_m"], full_scale_v_per_m=clip_level(fch))
     del seg
     vclip = np.zeros(n, dtype=bool)
     if job.vhf is not None:
@@ -138,6 +149,11 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         v0, v1 = _column_span(vch, VHF_SPAN_S[0] + vch.delay_s, VHF_SPAN_S[1] + vch.delay_s)
         vseg, vclip = _read_rows(vch, job.start, job.stop, (v0, v1))
         vseg *= vch.scale
+        if job.variant is not None:
+            vseg, vch = apply_vhf(vseg, vch, job.variant, rng_v)
+            vlevel = clip_level(vch)
+            vclip = np.zeros(n, bool) if vlevel is None else (np.abs(vseg) >= vlevel * (
+                1 - 1e-6)).any(axis=1)
         level = clip_level(vch)
         v = vhf_features(vseg, vch.sample_rate_hz, vch.kind, vhf_window_s(f, n),
                          pretrigger_s=vch.pretrigger_s - v0 / vch.sample_rate_hz,
@@ -192,9 +208,14 @@ class ChunkPlan(Sequence):
     million-pulse season costs the flash context and nothing per chunk.
     """
 
-    def __init__(self, catalog: Catalog, bounds: list[tuple[int, int]], context=None):
+    def __init__(self, catalog: Catalog, bounds: list[tuple[int, int]], context=None,
+                 variants=None):
         self.catalog = catalog
         self.bounds = list(bounds)
+        if variants is not None and len(variants) != len(self.bounds):
+            raise ValueError(f"one station variant per chunk: {len(self.bounds)} chunks, "
+                             f"{len(variants)} variants")
+        self.variants = variants
         if context is None:
             context = flash_context(catalog.events, catalog.time_ns, catalog.sources)
             return_freed_memory()
@@ -216,6 +237,7 @@ class ChunkPlan(Sequence):
             sources=None if cat.sources is None else cat.sources.rows(start, stop),
             context={k: v[start:stop] for k, v in self.context.items()},
             extras=cat.events.iloc[start:stop][self._extra_columns].reset_index(drop=True),
+            variant=None if self.variants is None else self.variants[i],
         )
 
     def n_pulses(self, first: int = 0) -> int:
@@ -228,14 +250,16 @@ class ChunkPlan(Sequence):
 
 
 def plan_chunks(catalog: Catalog, chunk_size: int = DEFAULT_CHUNK_SIZE,
-                bounds: list[tuple[int, int]] | None = None, context=None) -> ChunkPlan:
+                bounds: list[tuple[int, int]] | None = None, context=None,
+                variants=None) -> ChunkPlan:
     """Split ``catalog`` into chunks of ``chunk_size`` rows (or explicit ``bounds``).
 
     Returns a lazy :class:`ChunkPlan`; the flash context is computed here, once
-    (or taken from ``context``, e.g. another plan's ``.context``).
+    (or taken from ``context``, e.g. another plan's ``.context``). ``variants`` gives
+    one :class:`features.augment.StationVariant` (or None) per chunk.
     """
     return ChunkPlan(catalog, catalog.chunk_bounds(chunk_size) if bounds is None else bounds,
-                     context)
+                     context, variants)
 
 
 def _progress(total: int, enabled: bool | None, desc: str):
@@ -290,7 +314,8 @@ def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None,
 
 def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_jobs: int = 1,
                   dask_address: str | None = None, progress: bool | None = None,
-                  start_chunk: int = 0) -> Iterator[pd.DataFrame]:
+                  start_chunk: int = 0, variant_seed: int | None = None,
+                  context=None) -> Iterator[pd.DataFrame]:
     """Yield the feature rows of ``catalog`` chunk by chunk, in catalog order.
 
     Parameters
@@ -306,8 +331,18 @@ def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_j
         Show a progress bar on stderr (default: on a terminal, for > 20,000 pulses).
     start_chunk : int, default=0
         Skip the chunks before this one (to resume an interrupted run).
+    variant_seed : int, optional
+        Compute the features of the pulses as other stations would record them: every
+        chunk gets a station drawn by :func:`features.augment.draw_variant` from this
+        seed (training augmentation).
+    context : dict, optional
+        The flash context of the catalog if already computed (a plan's ``.context``).
     """
-    plan = plan_chunks(catalog, chunk_size)
+    variants = None
+    if variant_seed is not None:
+        rng = np.random.default_rng(variant_seed)
+        variants = [draw_variant(rng) for _ in catalog.chunk_bounds(chunk_size)]
+    plan = plan_chunks(catalog, chunk_size, context=context, variants=variants)
     jobs = plan.jobs(start_chunk)
     bar = _progress(plan.n_pulses(start_chunk), progress, "features")
     try:

@@ -1,0 +1,226 @@
+"""Station variants of recorded pulses: the same pulses as another station would record them.
+
+A classifier trained on one station learns that station's habits (its sample rate, its
+noise, its digitizer, its clip levels) unless it is shown the same pulses recorded
+otherwise. :class:`StationVariant` describes another station's field and VHF channels;
+:func:`apply_field` and :func:`apply_vhf` turn rows recorded by the catalog's station
+into rows as that station would have recorded them (from the physical field, which the
+rows' own decay compensation recovers), and :func:`draw_variant` draws a station from the
+ranges of :data:`VARIANT_RANGES`. :func:`features.extract.extract_features` computes the
+features of such variants (``variants=...``); training uses them so the models (and
+their calibration) hold on stations they never saw.
+
+Transformations, in order (each optional):
+
+1. **decay constant**: the record's own RC decay undone, another one applied (a first-
+   order high-pass, ``scipy.signal.lfilter`` on its bilinear transform) or none
+   (DC-coupled);
+2. **sample rate**: resampled down with an anti-aliasing polyphase filter
+   (:func:`scipy.signal.resample_poly`);
+3. **pre-trigger**: the record's start cut so that only so much remains;
+4. **noise**: white Gaussian noise added, a multiple of the record's own noise;
+5. **digitizer**: quantised to integer counts whose step is the noise divided by
+   ``counts_per_noise`` (noise of a fraction of a count: far pulses a few counts tall),
+   clipped at +-32767 counts;
+6. **full scale**: clipped at a level that the chunk's strongest pulses reach (the peak
+   becomes a lower bound, as at a station whose digitizer saturates on them);
+7. **VHF**: the noise floor raised, and a full scale the strongest VHF emitters reach.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from fractions import Fraction
+
+import numpy as np
+from scipy import signal
+
+from ._manifest import Channel
+from .pulses import robust_sigma_diff
+from .waveform import decay_compensate
+
+__all__ = ["StationVariant", "VARIANT_RANGES", "draw_variant", "apply_field", "apply_vhf"]
+
+#: Ranges stations are drawn from (common practice for fast antennas and VHF receivers,
+#: no single source; they span the settings the catalog spec allows in use).
+VARIANT_RANGES = {
+    "field_rate_hz": (5e6, 20e6),          # resampled only downwards
+    "pretrigger_s": (30e-6, 100e-6),
+    "decay_time_s": (1e-4, 1e-3),          # or DC-coupled, half the time
+    "extra_noise": (0.0, 3.0),             # x the record's own noise
+    "counts_per_noise": (1.0, 1 / 0.3),    # noise of 0.3-1 count
+    "field_clip_quantile": (0.85, 0.99),   # of the chunk's peaks
+    "vhf_noise_gain": (1.0, 10.0),
+    "vhf_clip_quantile": (0.5, 0.95),
+}
+
+
+@dataclass(frozen=True)
+class StationVariant:
+    """Another station's field and VHF recording settings (see the module notes).
+
+    Attributes
+    ----------
+    field_rate_hz : float or None
+        Resample the field to this rate, Hz (None: keep; never upwards).
+    pretrigger_s : float or None
+        Keep at most this much record before the trigger, s.
+    decay_time_s : float, None or "keep"
+        The station's RC decay constant, s (None: DC-coupled; "keep": as recorded).
+    extra_noise : float
+        Added noise sigma, as a multiple of the record's own.
+    counts_per_noise : float or None
+        Quantise to integer counts, the noise being this many counts (None: float).
+    field_clip_quantile : float or None
+        Full scale at this quantile of the chunk's largest |E| per row.
+    vhf_noise_gain : float
+        VHF noise floor multiplied by this (>= 1).
+    vhf_clip_quantile : float or None
+        VHF full scale at this quantile of the chunk's largest VHF sample per row.
+    seed : int
+        Random stream of the added noise.
+    """
+
+    field_rate_hz: float | None = None
+    pretrigger_s: float | None = None
+    decay_time_s: float | None | str = "keep"
+    extra_noise: float = 0.0
+    counts_per_noise: float | None = None
+    field_clip_quantile: float | None = None
+    vhf_noise_gain: float = 1.0
+    vhf_clip_quantile: float | None = None
+    seed: int = 0
+
+
+def draw_variant(rng: np.random.Generator) -> StationVariant:
+    """A station drawn from :data:`VARIANT_RANGES` (each setting used or not at random)."""
+    r = VARIANT_RANGES
+
+    def u(key, log=False):
+        lo, hi = r[key]
+        return float(np.exp(rng.uniform(np.log(lo), np.log(hi))) if log
+                     else rng.uniform(lo, hi))
+
+    return StationVariant(
+        field_rate_hz=u("field_rate_hz", log=True) if rng.random() < 0.7 else None,
+        pretrigger_s=u("pretrigger_s") if rng.random() < 0.5 else None,
+        decay_time_s=(None if rng.random() < 0.5 else u("decay_time_s", log=True))
+        if rng.random() < 0.6 else "keep",
+        extra_noise=u("extra_noise") if rng.random() < 0.7 else 0.0,
+        counts_per_noise=u("counts_per_noise") if rng.random() < 0.5 else None,
+        field_clip_quantile=u("field_clip_quantile") if rng.random() < 0.3 else None,
+        vhf_noise_gain=u("vhf_noise_gain", log=True) if rng.random() < 0.6 else 1.0,
+        vhf_clip_quantile=u("vhf_clip_quantile") if rng.random() < 0.5 else None,
+        seed=int(rng.integers(0, 2**31 - 1)),
+    )
+
+
+def _rc_highpass(e, fs, tau):
+    """First-order RC high-pass s / (s + 1/tau) (bilinear transform), along each row."""
+    b, a = signal.bilinear([1.0, 0.0], [1.0, 1.0 / tau], fs=fs)
+    return signal.lfilter(b, a, e, axis=1)
+
+
+def apply_field(x_v_per_m: np.ndarray, ch: Channel, v: StationVariant, rng=None):
+    """Rows of the field as the variant station would record them.
+
+    Parameters
+    ----------
+    x_v_per_m : ndarray, shape (n, m)
+        Rows as recorded (V/m, physics convention; NaN where missing), starting at the
+        channel's ``pretrigger_s`` before the trigger.
+    ch : Channel
+        The channel that recorded them (its rate, pre-trigger, decay constant).
+    v : StationVariant
+    rng : numpy.random.Generator, optional
+
+    Returns
+    -------
+    x : ndarray, shape (n, m')
+        The variant's rows, V/m.
+    ch : Channel
+        The variant channel (``sample_rate_hz``, ``pretrigger_s``, ``decay_time_s``,
+        ``n_samples``, ``full_scale``; a quantised record has ``dtype`` int16 and
+        ``scale`` one count in V/m).
+    """
+    rng = np.random.default_rng(v.seed) if rng is None else rng
+    x = np.nan_to_num(np.asarray(x_v_per_m, dtype=np.float64))
+    fs, pre, tau = ch.sample_rate_hz, ch.pretrigger_s, ch.decay_time_s
+    if v.decay_time_s != "keep":
+        x = decay_compensate(x, fs, tau)
+        tau = v.decay_time_s
+        if tau is not None:
+            x = _rc_highpass(x, fs, tau)
+    if v.field_rate_hz is not None and v.field_rate_hz < fs * 0.95:
+        frac = Fraction(v.field_rate_hz / fs).limit_denominator(64)
+        x = signal.resample_poly(x, frac.numerator, frac.denominator, axis=1)
+        fs = fs * frac.numerator / frac.denominator
+    if v.pretrigger_s is not None and v.pretrigger_s < pre:
+        cut = int(np.floor((pre - v.pretrigger_s) * fs))
+        cut = min(cut, max(x.shape[1] - 16, 0))
+        x = x[:, cut:]
+        pre = pre - cut / fs
+    n_pre = int(np.clip(pre * fs - 2e-6 * fs, 0, x.shape[1]))
+    noise0 = (np.median(robust_sigma_diff(x[:, :n_pre])) if n_pre > 16
+              else float(np.median(robust_sigma_diff(x))))
+    noise0 = max(float(noise0), 1e-12)
+    if v.extra_noise > 0:
+        x = x + rng.normal(0.0, v.extra_noise * noise0, x.shape)
+    scale, dtype, full = ch.scale, ch.dtype, ch.full_scale
+    if v.counts_per_noise is not None:
+        total = noise0 * np.sqrt(1.0 + v.extra_noise ** 2)
+        scale = total / v.counts_per_noise
+        x = np.clip(np.round(x / scale), -32767, 32767) * scale
+        dtype = np.dtype(np.int16)
+        full = 32767 * scale
+    elif dtype == np.int16:          # the recorded quantum no longer holds after resampling
+        dtype = np.dtype(np.float32)
+        scale = 1.0
+    if v.field_clip_quantile is not None and len(x):
+        level = float(np.quantile(np.abs(x).max(axis=1), v.field_clip_quantile))
+        if level > 0:
+            x = np.clip(x, -level, level)
+            full = level if full is None else min(full, level)
+    ch2 = dataclasses.replace(ch, sample_rate_hz=fs, pretrigger_s=pre, decay_time_s=tau,
+                              n_samples=x.shape[1], full_scale=full, scale=scale, dtype=dtype)
+    return x, ch2
+
+
+def apply_vhf(vhf: np.ndarray, ch: Channel, v: StationVariant, rng=None):
+    """VHF rows as the variant station would record them (noise floor, full scale).
+
+    Parameters
+    ----------
+    vhf : ndarray, shape (n, m)
+        Rows as recorded (file units; voltage or power per ``ch.kind``).
+    ch : Channel
+    v : StationVariant
+    rng : numpy.random.Generator, optional
+
+    Returns
+    -------
+    vhf : ndarray, shape (n, m)
+    ch : Channel
+        With the variant's ``full_scale``.
+    """
+    rng = np.random.default_rng(v.seed + 1) if rng is None else rng
+    x = np.nan_to_num(np.asarray(vhf, dtype=np.float64))
+    if x.size == 0:
+        return x, ch
+    n_pre = int(np.clip((ch.pretrigger_s - 20e-6) * ch.sample_rate_hz, 16, x.shape[1]))
+    full = ch.full_scale
+    if v.vhf_noise_gain > 1.0:
+        extra = v.vhf_noise_gain - 1.0
+        if ch.kind == "power":
+            floor = float(np.median(np.median(x[:, :n_pre], axis=1)))
+            x = x + extra * floor * rng.standard_gamma(4.0, x.shape) / 4.0
+        else:
+            sd = float(np.median(np.std(x[:, :n_pre], axis=1)))
+            x = x + rng.normal(0.0, np.sqrt(extra) * sd, x.shape)
+    if v.vhf_clip_quantile is not None:
+        level = float(np.quantile(np.abs(x).max(axis=1), v.vhf_clip_quantile))
+        if level > 0:
+            x = np.clip(x, 0.0 if ch.kind == "power" else -level, level)
+            full = level if full is None else min(full, level)
+    return x, dataclasses.replace(ch, full_scale=full)
