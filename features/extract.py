@@ -24,8 +24,8 @@ import pandas as pd
 
 from . import schema
 from ._tables import SourceTable
-from .catalog import Catalog, Channel, return_freed_memory
 from .augment import StationVariant, apply_field, apply_vhf, draw_variant
+from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import breakdown_polarity, source_features
