@@ -248,7 +248,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         return list(cv.split(np.zeros(len(y_idx)), y_idx, groups))
 
     # ------------------------------------------------------------------ fit
-    def fit(self, X, y, groups=None, sample_weight=None, sample_ids=None):
+    def fit(self, X, y, groups=None, sample_weight=None, sample_ids=None, reference_rows=None):
         """Fit fold models, calibration, conformal thresholds and the novelty score.
 
         Parameters
@@ -263,6 +263,9 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         sample_ids : array-like of str, shape (n_samples,), optional
             Names of the rows (e.g. "catalog_id/event_id"), kept for the
             reference pulses so look-alikes can be traced back.
+        reference_rows : array-like of bool, shape (n_samples,), optional
+            Rows the reference (look-alike) pulses may be taken from, e.g. the pulses
+            as recorded and not their station variants (default: all).
 
         Returns
         -------
@@ -333,7 +336,11 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         self.oof_fold_ = oof_fold
         self.n_iter_ = max(int(e.n_iter_) for e in self.estimators_)
         self.class_priors_ = np.bincount(y_idx, weights=w, minlength=n_classes) / w.sum()
-        self._fit_novelty(X, y_idx, rng)
+        allowed = (np.ones(n, dtype=bool) if reference_rows is None
+                   else np.asarray(reference_rows, dtype=bool).reshape(-1))
+        if allowed.shape != (n,) or not allowed.any():
+            raise ValueError(f"reference_rows must be {n} booleans, at least one True")
+        self._fit_novelty(X, y_idx, rng, allowed)
         ids = (np.arange(n).astype(str) if sample_ids is None
                else np.asarray(sample_ids).astype(str))
         if ids.shape != (n,):
@@ -382,7 +389,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         z = (X - self.center_) / self.scale_
         return np.arcsinh(z)
 
-    def _fit_novelty(self, X, y_idx, rng):
+    def _fit_novelty(self, X, y_idx, rng, allowed):
         with warnings.catch_warnings():  # all-NaN columns give NaN: handled below
             warnings.simplefilter("ignore", RuntimeWarning)
             center = np.nanmedian(X, axis=0)
@@ -394,9 +401,10 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         self.center_ = np.where(np.isfinite(center), center, 0.0)
         self.scale_ = scale
         n = len(X)
-        m = min(self.n_reference, n)
+        m = min(self.n_reference, int(allowed.sum()))
         # stratified choice of reference pulses: every class represented
         order = rng.permutation(n)
+        order = order[allowed[order]]
         per_class = [order[y_idx[order] == k] for k in range(len(self.classes_))]
         take = []
         quota = max(1, m // len(per_class))

@@ -166,8 +166,12 @@ def _comparison_markdown(cmp: dict, decision: str) -> str:
 def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None,
             new_weight=NEW_WEIGHT, tolerance=0.005, ece_tolerance=0.02, force=False,
             review_below=0.8, n_boot=1000, n_jobs=1, dask_address=None, chunk_size=512,
-            progress=None, random_state=0, **params) -> dict:
+            progress=None, random_state=0, station_variants=2, **params) -> dict:
     """Train a challenger on old + new labels, compare with ``current`` on the new season.
+
+    The challenger learns every labelled pulse also as ``station_variants`` other
+    stations would record it (:func:`classify.training.training_table`); the comparison
+    scores the new season's pulses as recorded.
 
     Returns
     -------
@@ -193,11 +197,13 @@ def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None
                        new_cat.catalog_id)
     catalogs = olds + [new_cat]
     table = training_table(catalogs, store, n_jobs=n_jobs, dask_address=dask_address,
-                           chunk_size=chunk_size, progress=progress)
-    is_new = (table["catalog_id"] == new_cat.catalog_id).to_numpy()
-    weights = np.where(is_new, float(new_weight), 1.0)
+                           chunk_size=chunk_size, progress=progress,
+                           station_variants=station_variants, seed=random_state)
+    from_new = (table["catalog_id"] == new_cat.catalog_id).to_numpy()
+    weights = np.where(from_new, float(new_weight), 1.0)
     challenger = fit_classifier(table, sample_weight=weights, random_state=random_state,
                                 **params)
+    is_new = from_new & (table["variant"] == 0).to_numpy()   # scored as recorded
     new_rows = table[is_new]
     X_champ = new_rows[list(champion.feature_names_in_)].astype(float)
     ch = (champion.classes_.astype(str), *_scores(champion, X_champ))

@@ -37,33 +37,51 @@ def catalog_features(cat, **kwargs) -> pd.DataFrame:
     return df.reset_index(drop=True)
 
 
-def training_table(catalogs, store, **feature_kwargs) -> pd.DataFrame:
+#: Chunk size of the station-variant passes (each chunk is one other station).
+VARIANT_CHUNK_SIZE = 64
+
+
+def training_table(catalogs, store, *, station_variants=0, seed=0,
+                   **feature_kwargs) -> pd.DataFrame:
     """Features of labelled pulses of ``catalogs`` joined with their current labels.
 
     Parameters
     ----------
     catalogs : list of Catalog
     store : classify.labels.LabelStore
+    station_variants : int, default=0
+        Also compute the labelled pulses' features as this many other stations would
+        record them (:mod:`features.augment`; each chunk of 64 pulses another station),
+        so the model learns what a pulse is, not what this station's records look like.
+    seed : int, default=0
+        Seed of the stations drawn.
     **feature_kwargs
         Passed to :func:`features.extract.extract_features` (``n_jobs``, ...).
 
     Returns
     -------
     pandas.DataFrame
-        ``catalog_id, event_id, label, season, station, group`` then the features.
+        ``catalog_id, event_id, label, season, station, group, variant`` (0: as recorded;
+        1..: a station variant) then the features.
     """
     parts = []
-    for cat in catalogs:
+    for ci, cat in enumerate(catalogs):
         store.register_catalog(cat)
         labels = store.current_labels([cat.catalog_id], status="labelled")
         if labels.empty:
             logger.warning("%s: no labelled pulses in the store", cat.catalog_id)
             continue
-        feats = catalog_features(cat, **feature_kwargs)
-        t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")
-        t.insert(2, "season", cat.season or "")
-        t.insert(3, "station", cat.station or "")
-        parts.append(t)
+        passes = [catalog_features(cat, **feature_kwargs)]
+        kw = dict(feature_kwargs, chunk_size=VARIANT_CHUNK_SIZE)
+        for k in range(station_variants):
+            passes.append(catalog_features(cat, variant_seed=seed * 1000 + ci * 100 + k + 1,
+                                           **kw))
+        for k, feats in enumerate(passes):
+            t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")
+            t.insert(2, "season", cat.season or "")
+            t.insert(3, "station", cat.station or "")
+            t.insert(4, "variant", k)
+            parts.append(t)
     if not parts:
         names = ", ".join(c.catalog_id for c in catalogs)
         raise ValueError(f"no labelled pulses for catalog(s) {names} in the store; import "
@@ -87,19 +105,26 @@ def fit_classifier(table, *, coverage=0.95, sample_weight=None, random_state=0,
                             random_state=random_state, **params)
     ids = (table["catalog_id"].astype(str) + ID_SEPARATOR
            + table["event_id"].astype(str)).to_numpy()
+    recorded = (table["variant"] == 0).to_numpy() if "variant" in table else None
     return model.fit(X, table["label"].to_numpy(), groups=table["group"].to_numpy(),
-                     sample_weight=sample_weight, sample_ids=ids)
+                     sample_weight=sample_weight, sample_ids=ids, reference_rows=recorded)
 
 
-def cv_metrics(model: PulseClassifier, y) -> dict:
-    """Grouped cross-validation metrics from the model's out-of-fold probabilities."""
-    y = np.asarray(y).astype(str)
+def cv_metrics(model: PulseClassifier, y, rows=None) -> dict:
+    """Grouped cross-validation metrics from the model's out-of-fold probabilities.
+
+    ``rows`` (bool mask) restricts them to some training rows, e.g. the pulses as
+    recorded (not their station variants).
+    """
+    rows = np.ones(len(y), dtype=bool) if rows is None else np.asarray(rows, dtype=bool)
+    y = np.asarray(y).astype(str)[rows]
     classes = model.classes_.astype(str)
-    proba = model.oof_proba_
+    proba = model.oof_proba_[rows]
+    pattern = model.oof_pattern_[rows]
     pred = classes[np.argmax(proba, axis=1)]
     p, r, f, s = metrics.precision_recall_fscore_support(y, pred, labels=classes,
                                                          zero_division=0)
-    sets = (1.0 - proba) <= model.pattern_thresholds_[model.oof_pattern_] + 1e-12
+    sets = (1.0 - proba) <= model.pattern_thresholds_[pattern] + 1e-12
     per_cov = {c: float(np.mean(sets[y == c, k])) if (y == c).any() else None
                for k, c in enumerate(classes)}
     return {
@@ -138,7 +163,8 @@ def _versions() -> dict:
 
 def build_card(model, table, catalogs, version, *, extra=None) -> dict:
     """The model card as a dict (stored as card.json)."""
-    counts = (table.groupby(["season", "label"]).size().unstack(fill_value=0)
+    recorded = table[table["variant"] == 0] if "variant" in table else table
+    counts = (recorded.groupby(["season", "label"]).size().unstack(fill_value=0)
               .astype(int))
     card = {
         "version": version,
@@ -155,12 +181,14 @@ def build_card(model, table, catalogs, version, *, extra=None) -> dict:
                                "season": c.season, "content_hash": c.content_hash,
                                "path": str(c.path), "n_events": c.n_events}
                               for c in catalogs],
-        "n_training_pulses": int(len(table)),
+        "n_training_pulses": int(len(recorded)),
+        "n_station_variant_rows": int(len(table) - len(recorded)),
         "n_flashes": int(table["group"].nunique()),
         "labels_per_season": {str(s): {str(k): int(v) for k, v in row.items()}
                               for s, row in counts.iterrows()},
         "parameters": {k: v for k, v in model.get_params().items() if k != "missing_groups"},
-        "metrics": cv_metrics(model, table["label"]),
+        "metrics": cv_metrics(model, table["label"], table["variant"] == 0
+                              if "variant" in table else None),
         "library_versions": _versions(),
     }
     if extra:
@@ -225,7 +253,8 @@ def model_card_markdown(card: dict) -> str:
 
 def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
                      dask_address=None, chunk_size=512, progress=None, random_state=0,
-                     sample_weight_fn=None, make_current=None, **params):
+                     sample_weight_fn=None, make_current=None, station_variants=2,
+                     **params):
     """Train, save and register a model; return ``(model_dir, card)``.
 
     Parameters
@@ -236,6 +265,9 @@ def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
         The new model folder; its parent is the registry.
     sample_weight_fn : callable, optional
         ``f(table) -> weights`` (e.g. to weight a new season's labels more).
+    station_variants : int, default=2
+        Station variants of every labelled pulse added to training
+        (:func:`training_table`).
     """
     catalogs = [open_catalog(p) for p in catalog_paths]
     ids = [c.catalog_id for c in catalogs]
@@ -246,7 +278,8 @@ def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
         raise FileExistsError(f"{out_dir}: already exists; model folders are immutable, "
                               "choose a new --out")
     table = training_table(catalogs, store, n_jobs=n_jobs, dask_address=dask_address,
-                           chunk_size=chunk_size, progress=progress)
+                           chunk_size=chunk_size, progress=progress,
+                           station_variants=station_variants, seed=random_state)
     weights = None if sample_weight_fn is None else sample_weight_fn(table)
     model = fit_classifier(table, coverage=coverage, sample_weight=weights,
                            random_state=random_state, **params)

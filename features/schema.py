@@ -199,15 +199,17 @@ FEATURES: tuple[Feature, ...] = (
     # ---------------------------------------------------------------- context
     Feature("isolation_s", "s", "time to the nearest other catalogued pulse of the same "
             "flash (NaN if alone)", "context",
+            model=False,
             requires=frozenset({"flash"})),
     Feature("isolation_any_s", "s", "time to the nearest other catalogued pulse of any "
-            "flash", "context"),
+            "flash", "context", model=False),
     Feature("time_in_flash_s", "s", "time since the first pulse of its flash (NaN without "
             "flash_id)", "context",
             requires=frozenset({"flash"})),
     Feature("flash_n_pulses", "1", "catalogued pulses in its flash (1 without flash_id; NaN "
             "when the catalog has no flash ids at all)",
             "context",
+            model=False,
             requires=frozenset({"flash"})),
     Feature("channel_reuse", "1", "fraction of its sources within one 300 m cell (0.3 deg on "
             "the sky without xyz) of a source mapped >= 5 ms earlier in its flash",

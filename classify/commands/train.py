@@ -20,6 +20,10 @@ def add_arguments(parser):
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     parser.add_argument("--max-iter", type=int, default=80,
                         help="boosting iterations per fold model (default 80)")
+    parser.add_argument("--station-variants", type=int, default=2, metavar="K",
+                        help="also learn each labelled pulse as K other stations would record "
+                             "it (other rates, noise, digitizers, full scales; default 2, "
+                             "0: as recorded only)")
     parser.add_argument("--promote", action="store_true",
                         help="make the new model the registry's current one")
     add_parallel_arguments(parser)
@@ -34,6 +38,7 @@ def run(args) -> int:
         args.catalogs, store, args.out, coverage=args.coverage, n_jobs=args.jobs,
         dask_address=args.dask, chunk_size=args.chunk_size, progress=args.progress,
         random_state=args.seed, max_iter=args.max_iter,
+        station_variants=args.station_variants,
         make_current=True if args.promote else None)
     m = card["metrics"]
     print(f"trained {card['version']} on {card['n_training_pulses']:,} labelled pulses "
