@@ -10,10 +10,9 @@ import pytest
 from numpy.testing import assert_allclose
 from sklearn.ensemble import HistGradientBoostingClassifier
 
+from classify._tree_paths import leaves, tree_tables
 from classify.cli import main
 from classify.explain import (
-    _leaves,
-    _tree_tables,
     display_spec,
     explain_pulses,
     permutation_importance_by_flash,
@@ -90,7 +89,7 @@ def test_threshold_ties_and_missing_values_route_like_the_model():
     probe[0, root_feature] = root_thr
     base, contrib = tree_score_contributions(est, probe)
     assert_allclose(base + contrib.sum(axis=2), _raw_scores(est, probe), atol=1e-9)
-    leaf = _leaves(nodes, probe[:1])
+    leaf = leaves(nodes, probe[:1])
     first = nodes["left"][0]
     assert nodes["depth"][leaf[0]] >= 1 and (leaf[0] == first or _descends(nodes, first,
                                                                          leaf[0]))
@@ -120,7 +119,7 @@ def test_node_values_are_expected_outputs_of_the_training_rows():
     start = np.full((1, len(X)), float(np.ravel(est._baseline_prediction)[0]))
     outputs = np.diff(np.vstack([start, np.array(stages)]), axis=0)
     for t, predictors in enumerate(est._predictors):
-        value, _ = _tree_tables(predictors[0].nodes, X.shape[1])
+        value, _ = tree_tables(predictors[0].nodes, X.shape[1])
         assert value[0] == pytest.approx(outputs[t].mean(), abs=1e-12)
         assert np.ptp(outputs[t]) > 0.01          # a tree that does something
 
