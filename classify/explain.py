@@ -64,8 +64,6 @@ True
 
 from __future__ import annotations
 
-import logging
-
 import numpy as np
 import pandas as pd
 
@@ -75,8 +73,6 @@ from ._tree_paths import apply_tables, score_tables, tree_score_contributions
 
 __all__ = ["DISPLAY_UNITS", "display_spec", "tree_score_contributions", "explain_pulses",
            "top_reasons", "event_features", "permutation_importance_by_flash"]
-
-logger = logging.getLogger("pulsesort")
 
 #: Rows explained at once (the per-class accumulator is rows x classes x features).
 BLOCK_ROWS = 4096

@@ -248,7 +248,8 @@ def model_card_markdown(card: dict) -> str:
               "| | " + " | ".join(cm["labels"]) + " |", "|---" * (len(cm["labels"]) + 1) + "|"]
     for lab, row in zip(cm["labels"], cm["matrix"]):
         lines.append(f"| {lab} | " + " | ".join(map(str, row)) + " |")
-    lines += _importance_markdown(card.get("importance"))
+    if "importance" in card:        # cards written before importances have none
+        lines += _importance_markdown(card["importance"])
     for section in card.get("comparisons", []):
         lines += ["", f"## Comparison on {section.get('season', '?')} "
                       f"({section.get('when', '')})", "", section.get("markdown", "")]

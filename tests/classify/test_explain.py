@@ -332,3 +332,26 @@ def test_model_card_lists_importances(season):
     section = md.split("## Feature importance")[1].split("\n## ")[0]
     rows = [ln for ln in section.splitlines() if ln.startswith("| ") and ln[2].isdigit()]
     assert len(rows) == 15 and f"`{feats[0]}`" in rows[0]
+
+
+def test_card_without_held_out_folds_says_so():
+    """One flash only: no importances (None), the card says why; older cards show nothing."""
+    from types import SimpleNamespace
+
+    from classify.training import build_card, fit_classifier, model_card_markdown
+
+    names = schema.model_feature_names()
+    rng = np.random.default_rng(0)
+    y = np.array(["narrow_bipolar", "recoil"])[rng.integers(0, 2, 80)]
+    table = pd.DataFrame(rng.normal(size=(80, len(names))), columns=names)
+    table[names[0]] += 3 * (y == "recoil")
+    table = table.assign(catalog_id="hollowmere-2031", event_id=[f"e{i}" for i in range(80)],
+                         label=y, season="2031", group="hollowmere-2031/f1")
+    model = fit_classifier(table, max_iter=5, n_reference=20)
+    cat = SimpleNamespace(catalog_id="hollowmere-2031", station="hollowmere", season="2031",
+                          content_hash="sha256:" + "0" * 64, path="x", n_events=80)
+    card = build_card(model, table, [cat], "v1")
+    assert card["importance"] is None
+    assert "Not computed: the model has no held-out folds" in model_card_markdown(card)
+    del card["importance"]
+    assert "Feature importance" not in model_card_markdown(card)
