@@ -60,6 +60,10 @@ def pulse_figure(trace: dict, sources: pd.DataFrame | None = None, *, size: str 
     matplotlib.figure.Figure
     """
     _check_trace(trace)
+    if sources is not None:
+        missing = [c for c in ("t_s", "azimuth_deg", "elevation_deg") if c not in sources]
+        if missing:
+            raise InputError(f"sources: missing column(s) {missing}")
     has_vhf = trace.get("vhf_envelope") is not None and len(trace["vhf_envelope"]) > 1
     src = None if sources is None or len(sources) == 0 else sources
     has_alt = (src is not None and "altitude_m" in src.columns

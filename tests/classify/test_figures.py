@@ -167,6 +167,8 @@ def test_bad_trace_names_the_key():
     tr["neighbour_peaks_v_per_m"] = np.array([1.0])
     with pytest.raises(InputError, match="'neighbours_s' and 'neighbour_peaks_v_per_m'"):
         pulse_figure(tr)
+    with pytest.raises(InputError, match=r"sources: missing column\(s\) \['azimuth_deg'\]"):
+        pulse_figure(_trace(), _sources().drop(columns="azimuth_deg"))
 
 
 def test_log_axes_where_values_span_decades():
