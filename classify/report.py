@@ -2,11 +2,12 @@
 
 One file, no scripts, no external resources: inline CSS and inline SVG charts
 (:mod:`classify.svgplot`). Sections: what was triaged, class counts per hour
-of the season (``time_utc``, UTC hours), the confidence histogram per
-predicted class, the review load (how many pulses need review and why), and,
-with the catalog, a few example field changes per class (the most confident
-pulses that need no review; field change as on the review page). Every text
-from the data is HTML-escaped.
+of the season (``time_utc``, UTC hours), the distributions of the main
+features per predicted class, the confidence histogram per predicted class,
+the review load (how many pulses need review and why), and, with the catalog,
+a few example field changes per class (the most confident pulses that need no
+review; field change as on the review page). Every text from the data is
+HTML-escaped.
 
 Examples
 --------
@@ -31,7 +32,8 @@ from .review._queue import probability_columns
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["hourly_counts", "review_load", "build_report", "write_report"]
+__all__ = ["result_classes", "hourly_counts", "review_load", "distribution_samples",
+           "build_report", "write_report"]
 
 #: Review reasons, in the order the triage checks them.
 REASONS = ("low_confidence", "ambiguous_set", "empty_set", "novel", "clipped", "no_vhf",
@@ -40,7 +42,7 @@ MAX_HOUR_ROWS = 200
 _REQUIRED = ("event_id", "label", "confidence", "needs_review", "time_utc")
 
 
-def _classes(results: pd.DataFrame) -> list[str]:
+def result_classes(results: pd.DataFrame) -> list[str]:
     """The model's classes (``p_`` columns), then any other label seen."""
     classes = [c[2:] for c in probability_columns(results)]
     return classes + sorted(set(results["label"].astype(str)) - set(classes))
@@ -62,7 +64,7 @@ def hourly_counts(results: pd.DataFrame) -> pd.DataFrame:
     """
     t = pd.to_datetime(results["time_utc"], utc=True)
     hours = t.dt.floor("h")
-    classes = _classes(results)
+    classes = result_classes(results)
     if len(results) == 0:
         return pd.DataFrame(columns=classes, dtype="int64")
     table = pd.crosstab(hours, results["label"].astype(str))
@@ -90,6 +92,52 @@ def review_load(results: pd.DataFrame) -> pd.DataFrame:
         n = int(sets.map(lambda s, r=r: r in s).sum())
         rows.append((r, n, n / len(results) if len(results) else 0.0))
     return pd.DataFrame(rows, columns=["reason", "n", "share"]).set_index("reason")
+
+
+def distribution_samples(results: pd.DataFrame, name: str, absolute: bool = False,
+                         classes=None):
+    """One feature's values per predicted class, as the report's histograms show them.
+
+    Values are in display units (:func:`classify.figures.feature_values`);
+    where they span decades the histogram is of their base-10 logarithm.
+
+    Returns
+    -------
+    samples : list of ndarray
+        Finite values of each class, in the order of ``classes`` (default
+        :func:`result_classes`).
+    x_label : str
+        With the unit in parentheses, e.g. ``"width (µs)"`` or
+        ``"log10 of width (µs)"``.
+    """
+    from .figures import feature_values
+
+    classes = result_classes(results) if classes is None else classes
+    v, label, log = feature_values(results, name, absolute)
+    labels = results["label"].astype(str).to_numpy()
+    if log:
+        v, label = np.log10(v), f"log10 of {label}"
+    return [v[(labels == c) & np.isfinite(v)] for c in classes], label
+
+
+def _distributions(results, classes) -> str:
+    from .figures import MAIN_FEATURES
+
+    figs = []
+    for name, absolute in MAIN_FEATURES:
+        if name not in results.columns:
+            continue
+        samples, x_label = distribution_samples(results, name, absolute, classes)
+        if not any(len(s) for s in samples):
+            continue
+        figs.append('<div class="dist">' + svgplot.histogram_chart(
+            samples, bins=30, x_label=x_label, y_label="pulses", width=300,
+            height=200) + "</div>")
+    if not figs:
+        return ""
+    key = " ".join(f'<span style="color:{svgplot.PALETTE[i % len(svgplot.PALETTE)]}">'
+                   f"&#9632; {escape(c)}</span>" for i, c in enumerate(classes))
+    return f'<p class="key">{key}</p><div class="examples">' + "".join(figs) + "</div>"
 
 
 def _table(header, rows, cls=""):
@@ -146,7 +194,7 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
                          "'pulsesort triage' output?")
     n = len(results)
     needs = results["needs_review"].astype(bool)
-    classes = _classes(results)
+    classes = result_classes(results)
     cids = sorted(set(results.get("catalog_id", pd.Series([], dtype=str)).dropna()
                       .astype(str)))
     versions = sorted(set(results.get("model_version", pd.Series([], dtype=str)).dropna()
@@ -196,6 +244,13 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
                    f"{f'; the first {MAX_HOUR_ROWS} are listed' if len(active) > MAX_HOUR_ROWS else ''}"
                    ".</p>")
         out.append(_table(["hour (UTC)", *classes, "total"], rows, "num hours"))
+
+    dists = _distributions(results, classes)
+    if dists:
+        out.append("<h2>Feature distributions per class</h2>")
+        out.append("<p>Main features of the pulses of each predicted class (display units; "
+                   "a base-10 logarithm where the values span decades).</p>")
+        out.append(dists)
 
     out.append("<h2>Confidence</h2>")
     samples = [results.loc[results["label"].astype(str) == c, "confidence"] for c in classes]

@@ -25,7 +25,7 @@ from .registry import ModelRegistry, save_model
 from .stats import empirical_coverage, expected_calibration_error, flash_groups
 
 __all__ = ["catalog_features", "training_table", "fit_classifier", "cv_metrics",
-           "train_from_store", "model_card_markdown"]
+           "feature_importance", "build_card", "train_from_store", "model_card_markdown"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -161,6 +161,38 @@ def _versions() -> dict:
             "skops": skops.__version__}
 
 
+#: Permutations per feature for the model card's importances.
+IMPORTANCE_REPEATS = 3
+
+
+def feature_importance(model, table, *, n_repeats=IMPORTANCE_REPEATS, random_state=0):
+    """The model card's importances: permutation on held-out flashes (or None).
+
+    See :func:`classify.explain.permutation_importance_by_flash`; the rows of
+    ``table`` must be the model's training rows, in order.
+
+    Returns
+    -------
+    dict or None
+        ``method``, ``n_rows``, ``n_repeats``, ``base_log_loss``,
+        ``base_macro_f1`` and ``features``: a list of {feature,
+        log_loss_increase, log_loss_increase_std, macro_f1_drop,
+        macro_f1_drop_std}, most important first. None without held-out folds.
+    """
+    from .explain import permutation_importance_by_flash
+
+    names = list(map(str, model.feature_names_in_))
+    imp = permutation_importance_by_flash(model, table[names].astype(float), table["label"],
+                                          n_repeats=n_repeats, random_state=random_state)
+    if imp is None:
+        return None
+    rows = [{"feature": f, **{k: float(v) for k, v in r.items()}} for f, r in imp.iterrows()]
+    return {"method": "permutation within each held-out fold (folds grouped by flash); "
+                      "increase of the log-loss and drop of the macro-F1 of the pooled "
+                      "held-out predictions, mean and std over repeats",
+            **imp.attrs, "features": rows}
+
+
 def build_card(model, table, catalogs, version, *, extra=None) -> dict:
     """The model card as a dict (stored as card.json)."""
     recorded = table[table["variant"] == 0] if "variant" in table else table
@@ -189,6 +221,7 @@ def build_card(model, table, catalogs, version, *, extra=None) -> dict:
         "parameters": {k: v for k, v in model.get_params().items() if k != "missing_groups"},
         "metrics": cv_metrics(model, table["label"], table["variant"] == 0
                               if "variant" in table else None),
+        "importance": feature_importance(model, table),
         "library_versions": _versions(),
     }
     if extra:
@@ -243,12 +276,36 @@ def model_card_markdown(card: dict) -> str:
               "| | " + " | ".join(cm["labels"]) + " |", "|---" * (len(cm["labels"]) + 1) + "|"]
     for lab, row in zip(cm["labels"], cm["matrix"]):
         lines.append(f"| {lab} | " + " | ".join(map(str, row)) + " |")
+    if "importance" in card:        # cards written before importances have none
+        lines += _importance_markdown(card["importance"])
     for section in card.get("comparisons", []):
         lines += ["", f"## Comparison on {section.get('season', '?')} "
                       f"({section.get('when', '')})", "", section.get("markdown", "")]
     lines += ["", "## Library versions", "",
               ", ".join(f"{k} {v}" for k, v in card["library_versions"].items()), ""]
     return "\n".join(lines)
+
+
+#: Features listed in the card's importance table.
+IMPORTANCE_TOP = 15
+
+
+def _importance_markdown(imp) -> list[str]:
+    if not imp:
+        return ["", "## Feature importance", "",
+                "Not computed: the model has no held-out folds (too few flashes)."]
+    lines = ["", "## Feature importance (permutation on held-out flashes)", "",
+             f"Each feature permuted within the held-out fold of each fold model "
+             f"({imp['n_repeats']} repeats, {imp['n_rows']:,} pulses); folds hold whole "
+             f"flashes, so no pulse is scored by a model that trained on its flash. "
+             f"Baseline: log-loss {imp['base_log_loss']:.4f}, macro-F1 "
+             f"{imp['base_macro_f1']:.4f}. Top {IMPORTANCE_TOP}:", "",
+             "| rank | feature | log-loss increase | macro-F1 drop |", "|---|---|---|---|"]
+    for i, r in enumerate(imp["features"][:IMPORTANCE_TOP], start=1):
+        lines.append(f"| {i} | `{r['feature']}` | {r['log_loss_increase']:.4f} ± "
+                     f"{r['log_loss_increase_std']:.4f} | {r['macro_f1_drop']:.4f} ± "
+                     f"{r['macro_f1_drop_std']:.4f} |")
+    return lines
 
 
 def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,

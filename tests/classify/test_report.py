@@ -125,3 +125,38 @@ def test_report_is_written_atomically_and_bad_input_exits_2(triaged, tmp_path, c
     assert main(["report", str(out), "--out", str(target)]) == 0
     assert target.read_text().startswith("<!doctype html>")
     assert sorted(x.name for x in tmp_path.iterdir()) == ["bad.csv", "r.html"]
+
+
+def test_distribution_samples_by_hand():
+    """Widths 1-100 µs span two decades: log10 of µs; bipolarity with zeros stays linear."""
+    from classify.report import distribution_samples
+
+    df = pd.DataFrame({"label": ["a", "a", "a", "b", "b", "b"],
+                       "width_s": [1e-6, 1e-5, 1e-4, 1e-6, 2e-6, float("nan")],
+                       "bipolarity": [0.0, 0.5, 0.2, 0.4, 0.1, 0.3],
+                       "p_a": 0.5, "p_b": 0.5})
+    samples, label = distribution_samples(df, "width_s")
+    assert label == "log10 of width (µs)"
+    assert samples[0] == pytest.approx([0.0, 1.0, 2.0])
+    assert samples[1] == pytest.approx([0.0, 0.30103], abs=1e-5)   # log10(2)
+    samples, label = distribution_samples(df, "bipolarity")
+    assert label == "bipolarity (1)"
+    assert samples[0] == pytest.approx([0.0, 0.5, 0.2]) and len(samples[1]) == 3
+
+
+def test_report_shows_feature_distributions_per_class(triaged):
+    """One SVG histogram per main feature, each x axis with its unit, every class named."""
+    from classify.figures import MAIN_FEATURES
+
+    _, out = triaged
+    res = read_results(out)
+    html = build_report(res)
+    section = html.split("<h2>Feature distributions per class</h2>")[1].split("<h2>")[0]
+    svgs = re.findall(r"<svg.*?</svg>", section, flags=re.S)
+    expected = [n for n, _ in MAIN_FEATURES if res[n].notna().any()]
+    assert len(svgs) == len(expected) >= 6
+    for svg in svgs:
+        texts = [t.text or "" for t in ET.fromstring(svg).iter("{http://www.w3.org/2000/svg}text")]
+        assert any(re.search(r"\([^()]+\)$", t) for t in texts), texts
+    for c in res["label"].unique():
+        assert f"&#9632; {c}</span>" in section
