@@ -2,11 +2,16 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
+import socket
 import subprocess
 import sys
+import threading
 import time
+from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -15,7 +20,8 @@ from numpy.testing import assert_allclose
 
 from classify.cli import main
 from classify.labels import LabelStore
-from classify.review import ReviewSession, is_loopback, make_server
+from classify.review import TOKEN_HEADER, ReviewSession, is_loopback, make_server
+from classify.review._server import LISTEN_BACKLOG, MAX_JSON_DEPTH, json_depth
 from classify.triage import read_results
 from features import open_catalog
 
@@ -369,3 +375,83 @@ def test_lookalikes_come_from_the_model_with_thumbnails(tmp_path):
         assert x["thumb"].startswith("<svg")                   # catalog A opened by path
     dist = [x["distance"] for x in looks]
     assert dist == sorted(dist)
+
+
+def _raw_exchange(port, data: bytes) -> bytes:
+    """Send raw bytes on a fresh socket; everything the server answers until it closes."""
+    with socket.create_connection(("127.0.0.1", port), timeout=20) as s:
+        s.sendall(data)
+        chunks = []
+        while True:
+            b = s.recv(65536)
+            if not b:
+                return b"".join(chunks)
+            chunks.append(b)
+
+
+def test_deeply_nested_body_is_refused_with_400_and_the_server_goes_on(served):
+    """60 KB of nested arrays: 400 with a one-line message (not 500), nothing written."""
+    server, c, store, _ = served
+    eid = c.json("GET", "/api/current")[1]["pulse"]["event_id"]
+    body = b"[" * 30_000 + b"]" * 30_000
+    status, headers, data = c.request("POST", "/api/decision", raw=body,
+                                      headers={"Content-Type": "application/json"})
+    assert status == 400 and headers["Content-Type"].startswith("application/json")
+    assert json.loads(data) == {"error": f"body nested deeper than {MAX_JSON_DEPTH} levels"}
+    # the same inside an object that is otherwise a valid decision
+    deep = "[" * 40 + "]" * 40
+    nested = f'{{"event_id": {json.dumps(eid)}, "action": "skip", "note": {deep}}}'
+    status, _, data = c.request("POST", "/api/decision", raw=nested.encode(),
+                                headers={"Content-Type": "application/json"})
+    assert status == 400 and b"nested deeper" in data
+    # brackets inside strings do not count; a shallow body still works
+    status, cur = c.json("POST", "/api/decision", {"event_id": eid, "action": "skip",
+                                                   "note": "[" * 100})
+    assert status == 200 and cur["n_reviewed"] == 1
+    with LabelStore(store) as s:
+        assert s.review_marks()["note"].tolist() == ["[" * 100]
+
+
+def test_json_depth_counts_brackets_outside_strings():
+    """The depth scan skips strings (escaped quotes included) and counts arrays and objects."""
+    assert json_depth("{}") == 1 and json_depth("1") == 0 and json_depth("") == 0
+    assert json_depth('[[1], {"a": [2]}]') == 3
+    assert json_depth(r'{"a": "\"[[[[", "b": [[]]}') == 3
+    assert json_depth("[" * 5000) == 5000
+
+
+def test_malformed_requests_get_a_status_and_a_short_json_message(served):
+    """http.server's own refusals answer with a status line and one line of JSON, no traceback."""
+    server, _, _, _ = served
+    for raw, code in [(b"GARBAGE\r\n\r\n", 400),
+                      (b"GET / HTTP/7.0\r\n\r\n", 505),
+                      (b"GET /" + b"a" * 70_000 + b" HTTP/1.1\r\n\r\n", 414),
+                      (b"PATCH /api/session HTTP/1.1\r\nHost: x\r\n\r\n", 501)]:
+        answer = _raw_exchange(server.port, raw)
+        head, _, body = answer.partition(b"\r\n\r\n")
+        assert head.startswith(b"HTTP/1.") and int(head.split()[1]) == code, (raw[:20], head)
+        msg = json.loads(body)["error"]
+        assert msg and "\n" not in msg and "Traceback" not in msg
+        assert b"Content-Security-Policy" in head
+
+
+def test_two_hundred_concurrent_connections_are_all_answered(served):
+    """200 clients connecting at the same moment all get an answer (listen backlog 128)."""
+    server, c, _, _ = served
+    assert server.request_queue_size == LISTEN_BACKLOG >= 128
+    n = 200
+    barrier = threading.Barrier(n)
+    request = (f"GET /api/session HTTP/1.1\r\nHost: 127.0.0.1:{server.port}\r\n"
+               f"{TOKEN_HEADER}: {server.token}\r\nConnection: close\r\n\r\n").encode()
+
+    def one(_):
+        barrier.wait()
+        try:
+            answer = _raw_exchange(server.port, request)
+        except OSError as exc:  # refused, reset or no answer within the socket timeout
+            return repr(exc)
+        return answer.split(b"\r\n", 1)[0].decode()
+
+    with ThreadPoolExecutor(n) as pool:
+        statuses = list(pool.map(one, range(n)))
+    assert statuses == ["HTTP/1.1 200 OK"] * n, Counter(statuses)
