@@ -1,4 +1,4 @@
-"""The review page's local web server: a JSON API and three static files.
+"""The review page's local web server: a JSON API and four static files.
 
 Security measures (each one checked by ``tests/classify/test_review_server.py``):
 
@@ -21,14 +21,14 @@ Security measures (each one checked by ``tests/classify/test_review_server.py``)
   that hangs up mid-answer is dropped quietly.
 * A listen backlog of 128 (a browser opens several connections at once) and a
   thread per connection; an idle kept-alive connection is closed after 30 s.
-* Only fixed routes exist: ``/`` and ``/static/review.js``, ``/static/review.css``
+* Only fixed routes exist: ``/`` and ``/static/plot.js``, ``/static/review.js``,
+  ``/static/review.css``
   (from the package, by an allow-list: no file path is ever built from the
   request) and the API. Waveforms come from the catalog through the session,
   labels go to the store: nothing else on disk is reachable.
 * Responses are JSON (or the static files) with ``nosniff``, a strict
   Content-Security-Policy (scripts and styles only from the page itself, no
-  inline code, images only from ``blob:`` URLs the page makes from the SVG
-  plots, no framing), ``Referrer-Policy: no-referrer`` (the token is in the
+  inline code, no images or fonts from anywhere, no framing), ``Referrer-Policy: no-referrer`` (the token is in the
   address) and ``Cache-Control: no-store``.
 * The page builds its DOM with ``textContent`` and ``createElementNS`` only
   (never ``innerHTML``): plots are SVG elements the page's own script draws
@@ -70,11 +70,12 @@ IDLE_TIMEOUT_S = 30
 #: URL path -> (file in classify/review/static, content type). Nothing else is served.
 STATIC_FILES = {
     "/": ("index.html", "text/html; charset=utf-8"),
+    "/static/plot.js": ("plot.js", "text/javascript; charset=utf-8"),
     "/static/review.js": ("review.js", "text/javascript; charset=utf-8"),
     "/static/review.css": ("review.css", "text/css; charset=utf-8"),
 }
-CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src blob:; "
-       "connect-src 'self'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
+CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; connect-src 'self'; "
+       "base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
 _SECURITY_HEADERS = {
     "Content-Security-Policy": CSP,
     "X-Content-Type-Options": "nosniff",
