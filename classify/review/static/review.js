@@ -133,7 +133,7 @@
 
   // ------------------------------------------------------------------ time plots
 
-  function markTimes(f, s, withNeighbours) {
+  function markTimes(f, s, withNeighbours, withMarkers) {
     if (s.extent) {
       P.band(f, s.extent[0], s.extent[1], { class: "extent", fill: "#F0B27A",
                                            "fill-opacity": 0.35 });
@@ -148,7 +148,7 @@
                        stroke: COLOURS.neighbour, "stroke-width": 2 }, f.data);
       }
     }
-    for (const m of s.markers) {
+    for (const m of withMarkers === false ? [] : s.markers) {
       P.vline(f, m.t, { class: "marker marker-" + m.kind, stroke: COLOURS[m.kind] || "#888",
                         "stroke-dasharray": "5 3", "stroke-width": 1.4 });
     }
@@ -200,6 +200,7 @@
                            title: "whole record" });
     P.band(f, state.view[0], state.view[1], { class: "view-band", fill: "#0072B2",
                                               "fill-opacity": 0.14 });
+    markTimes(f, s, true, false);
     P.line(f, s.ft, s.fy, { stroke: COLOURS.trace, "stroke-width": 1 });
     state.frames.set(c, f);
   }
