@@ -141,7 +141,7 @@ class LookAlikes:
         lo, hi = waveform.ANALYSIS_WINDOW_S
         keep = (t >= lo) & (t <= hi)
         t, e = reduce_points(t[keep], e[keep], MAX_TRACE_POINTS)
-        return {"time_s": compact(t, 7), "field_v_per_m": compact(e)}
+        return {"time_s": compact(t, 6), "field_v_per_m": compact(e, 4)}
 
     def _standardised(self, rows):
         missing = [r for r in rows if r not in self._z]

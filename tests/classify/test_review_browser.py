@@ -342,14 +342,21 @@ def test_altitude_and_plan_views_exist_with_positions_only(browser, triaged, tmp
         assert page.locator("#src-colourbar svg rect").count() > 10
         assert "source time from trigger (µs)" in page.text_content("#src-colourbar")
         assert errors == []
-    bare_dir, bare_out = triaged_catalog(tmp_path / "bare", simulate_args=["--no-xyz",
-                                                                           "--no-range"])
+    # no positions (and no VHF channel either): no altitude or plan view, no VHF plot
+    bare_dir, bare_out = triaged_catalog(tmp_path / "bare", simulate_args=[
+        "--no-xyz", "--no-range", "--no-vhf"])
     with served_page(browser, bare_dir, bare_out, tmp_path / "b.sqlite",
                      size=(1920, 1080)) as (page, server, _, errors):
-        assert server.session.current()["pulse"]["sources"]["position"] is None
+        pulse = server.session.current()["pulse"]
+        assert pulse["sources"]["position"] is None and pulse["trace"]["vhf_envelope"] is None
         assert page.is_hidden("#plot-altitude") and page.is_hidden("#plot-plan")
         assert page.is_visible("#plot-elevation svg") and page.is_visible("#plot-sky svg")
         assert page.locator("#plot-altitude svg").count() == 0
+        assert page.is_hidden("#plot-vhf") and "no VHF record" in page.text_content("#notes")
+        t0 = _time_range(page, "plot-field")
+        page.keyboard.press("+")
+        assert _time_range(page, "plot-field") != t0
+        assert page.evaluate(_LABEL_CHECK)["problems"] == []
         assert errors == []
 
 
@@ -425,6 +432,11 @@ def test_plot_labels_never_overlap_or_leave_their_plot(browser, triaged, tmp_pat
             check = page.evaluate(_LABEL_CHECK)
             assert check["nSvgs"] >= 8 and check["nTexts"] > 60, check
             assert check["problems"] == [], (step, check["problems"])
+        eid = page.evaluate("document.body.dataset.event")
+        for _ in range(5):                      # other pulses, other shapes and ranges
+            page.keyboard.press("s")
+            eid = _settled(page, eid)
+            assert page.evaluate(_LABEL_CHECK)["problems"] == [], eid
         assert errors == []
 
 

@@ -55,6 +55,28 @@
     return { values: values, step: step };
   }
 
+  // Ticks for an axis of px pixels: about one per `spacing` px, at least two when their
+  // labels fit, and never labels closer than their size (size(label) in px along the axis).
+  function axisTicks(lo, hi, px, spacing, size) {
+    const fits = function (t) {
+      if (t.values.length < 2) { return true; }
+      const biggest = Math.max(...t.values.map(function (v) { return size(fmtTick(v, t.step)); }));
+      return t.step / (hi - lo) * px >= biggest + 8;
+    };
+    const n0 = Math.max(1, Math.floor(px / spacing));
+    let sparse = null;
+    for (let n = n0; n >= 1 && !sparse; n--) {
+      const t = ticks(lo, hi, n);
+      if (fits(t)) { sparse = t; }
+    }
+    if (sparse && sparse.values.length >= 2) { return sparse; }
+    for (let n = n0 + 1; n <= n0 + 8; n++) {  // too few: denser, if the labels fit
+      const t = ticks(lo, hi, n);
+      if (t.values.length >= 2 && fits(t)) { return t; }
+    }
+    return sparse || { values: [], step: 1 };
+  }
+
   function decimals(step) {
     let d = Math.max(0, -Math.floor(Math.log10(Math.abs(step)) + 1e-9));
     while (d < 12 && Math.abs(Math.round(step * Math.pow(10, d)) - step * Math.pow(10, d)) >
@@ -127,8 +149,9 @@
 
   // ------------------------------------------------------------------ frame
 
-  // Axes in a container sized by CSS. opt: xlim, ylim, xLabel, yLabel, title (aria),
-  // equal (same units per pixel on both axes), xTickFmt. Returns the mapping.
+  // Axes in a container sized by CSS. opt: xlim, ylim, xLabel, yLabel (a string, or a list
+  // of them longest first: the first that fits is used), title (aria), equal (same units
+  // per pixel on both axes). Returns the mapping.
   function frame(container, opt) {
     container.replaceChildren();
     const W = Math.max(160, Math.floor(container.clientWidth));
@@ -141,7 +164,8 @@
     const bottom = H - (opt.xLabel ? 34 : 20);
     let xlim = opt.xlim.slice();
     let ylim = opt.ylim.slice();
-    const yt = ticks(ylim[0], ylim[1], Math.max(2, Math.floor((bottom - top) / 34)));
+    const ySize = function () { return 14; };
+    const yt = axisTicks(ylim[0], ylim[1], bottom - top, 34, ySize);
     const ylabels = yt.values.map(function (v) { return fmtTick(v, yt.step); });
     const left = Math.ceil(Math.max(30, 12 + Math.max(0, ...ylabels.map(textWidth))));
     const right = W - 14;
@@ -165,25 +189,27 @@
       y: function (v) { return bottom - (v - ylim[0]) / (ylim[1] - ylim[0]) * (bottom - top); },
       xinv: function (px) { return xlim[0] + (px - left) / (right - left) * (xlim[1] - xlim[0]); },
     };
-    const ytk = opt.equal ? ticks(ylim[0], ylim[1], Math.max(2, Math.floor((bottom - top) / 34)))
-      : yt;
+    const ytk = opt.equal ? axisTicks(ylim[0], ylim[1], bottom - top, 34, ySize) : yt;
     const axis = el("g", { class: "axis", stroke: "#555", "stroke-width": 1 }, svg);
     el("line", { x1: left, y1: bottom, x2: right, y2: bottom }, axis);
     el("line", { x1: left, y1: bottom, x2: left, y2: top }, axis);
     const labels = el("g", { class: "labels", fill: "#222" }, svg);
-    const xt = ticks(xlim[0], xlim[1], Math.max(2, Math.floor((right - left) / 90)));
-    const xfmt = opt.xTickFmt || fmtTick;
+    const xt = axisTicks(xlim[0], xlim[1], right - left, 90, textWidth);
+    const xfmt = fmtTick;
+    let corner = false;  // an x tick label reaches left of the y axis
     for (const v of xt.values) {
       const px = f.x(v);
       el("line", { x1: px, y1: bottom, x2: px, y2: bottom + 4 }, axis);
       const s = xfmt(v, xt.step);
       const w = textWidth(s) / 2;
       const anchor = px + w > W ? "end" : (px - w < 0 ? "start" : "middle");
+      corner = corner || (anchor === "middle" && px - w < left - 2);
       text(labels, px, bottom + 15, s, { "text-anchor": anchor, class: "tick" });
     }
     for (const v of ytk.values) {
       const py = f.y(v);
       el("line", { x1: left - 4, y1: py, x2: left, y2: py }, axis);
+      if (corner && py > bottom - 4) { continue; }  // its label would meet the x tick label
       text(labels, left - 6, py + 4, fmtTick(v, ytk.step), { "text-anchor": "end",
                                                              class: "tick" });
     }
@@ -297,7 +323,7 @@
                    fill: timeColour((i + 0.5) / n) }, svg);
     }
     const span = t1 > t0 ? t1 - t0 : 1;
-    const tk = ticks(t0, t0 + span, Math.max(2, Math.floor((right - left) / 80)));
+    const tk = axisTicks(t0, t0 + span, right - left, 80, textWidth);
     for (const v of tk.values) {
       const px = left + (v - t0) / span * (right - left);
       el("line", { x1: px, x2: px, y1: 16, y2: 20, stroke: "#555" }, svg);
@@ -344,7 +370,7 @@
   }
 
   window.PulsePlot = {
-    el: el, text: text, ticks: ticks, fmtTick: fmtTick, lowerBound: lowerBound, range: range,
+    el: el, text: text, ticks: ticks, axisTicks: axisTicks, fmtTick: fmtTick, lowerBound: lowerBound, range: range,
     padded: padded, timeColour: timeColour, frame: frame, hline: hline, vline: vline,
     band: band, line: line, dots: dots, colourBar: colourBar, hbars: hbars,
   };

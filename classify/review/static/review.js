@@ -368,9 +368,10 @@
     legendItem(ul, "sw-own", "this pulse: " + s.t.length + " sources, coloured by time");
     if (e) {
       const ages = limitsOf([e.age]);
+      const when = ages[0] > 0 ? fixed(ages[0], 1) + " to " + fixed(ages[1], 1) + " ms before"
+        : "within the " + fixed(ages[1], 1) + " ms before";
       legendItem(ul, "sw-earlier", "mapped earlier in the flash: " + e.n_sources +
-                 " sources of " + e.n_pulses + " pulse(s), " + fixed(ages[0], 1) + " to " +
-                 fixed(ages[1], 1) + " ms before");
+                 " sources of " + e.n_pulses + " pulse(s), " + when);
     } else {
       legendItem(ul, "sw-none", "no earlier mapped pulse in this flash");
     }
