@@ -1,4 +1,4 @@
-"""The review page's local web server: a JSON API and four static files.
+"""The review page's local web server: a JSON API and five static files.
 
 Security measures (each one checked by ``tests/classify/test_review_server.py``):
 
@@ -21,8 +21,8 @@ Security measures (each one checked by ``tests/classify/test_review_server.py``)
   that hangs up mid-answer is dropped quietly.
 * A listen backlog of 128 (a browser opens several connections at once) and a
   thread per connection; an idle kept-alive connection is closed after 30 s.
-* Only fixed routes exist: ``/`` and ``/static/plot.js``, ``/static/review.js``,
-  ``/static/review.css``
+* Only fixed routes exist: ``/`` and ``/static/plot.js``, ``/static/views.js``,
+  ``/static/review.js``, ``/static/review.css``
   (from the package, by an allow-list: no file path is ever built from the
   request) and the API. Waveforms come from the catalog through the session,
   labels go to the store: nothing else on disk is reachable.
@@ -71,6 +71,7 @@ IDLE_TIMEOUT_S = 30
 STATIC_FILES = {
     "/": ("index.html", "text/html; charset=utf-8"),
     "/static/plot.js": ("plot.js", "text/javascript; charset=utf-8"),
+    "/static/views.js": ("views.js", "text/javascript; charset=utf-8"),
     "/static/review.js": ("review.js", "text/javascript; charset=utf-8"),
     "/static/review.css": ("review.css", "text/css; charset=utf-8"),
 }

@@ -125,7 +125,7 @@ def test_keyboard_review_writes_exactly_those_decisions(browser, triaged, tmp_pa
         # the event id with markup is shown as text, nothing of it ran
         assert eid == XSS_ID
         assert page.text_content("#event-id") == XSS_ID
-        assert page.evaluate("document.querySelectorAll('script').length") == 2
+        assert page.evaluate("document.querySelectorAll('script').length") == 3
         assert page.evaluate("document.querySelectorAll('img[src=\"x\"]').length") == 0
         assert page.evaluate("window.__pwned") is None
         assert len(page.get_attribute("#plot-field svg path.trace", "d")) > 100

@@ -99,12 +99,12 @@ def test_host_header_is_checked_against_the_bound_address(served):
 
 
 def test_only_the_allow_listed_static_files_are_served(served):
-    """/, plot.js, review.js and review.css exist; any other path (traversal included) is 404."""
+    """/, plot.js, views.js, review.js and review.css exist; any other path is 404."""
     _, c, _, _ = served
     status, headers, body = c.request("GET", "/", token=None)
     assert status == 200 and headers["Content-Type"].startswith("text/html")
     assert b'<script src="/static/review.js"' in body and b'<script src="/static/plot.js"' in body
-    for name in ("plot.js", "review.js"):
+    for name in ("plot.js", "views.js", "review.js"):
         status, headers, body = c.request("GET", f"/static/{name}", token=None)
         assert status == 200 and headers["Content-Type"].startswith("text/javascript")
         assert b"innerHTML" not in body and b"textContent" in body
