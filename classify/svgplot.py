@@ -28,6 +28,10 @@ __all__ = ["PALETTE", "nice_ticks", "line_chart", "scatter_chart", "bar_chart",
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442",
            "#000000")
 _FONT = 'font-family="system-ui, sans-serif" font-size="11"'
+#: Generous width of one character at font size 11, px (a layout estimate).
+_CHAR_PX = 6.6
+#: Right edge of the rotated y-axis label (drawn centred on x = 12), px.
+_Y_LABEL_RIGHT = 20
 
 
 def nice_ticks(lo: float, hi: float, n: int = 5) -> list[float]:
@@ -64,6 +68,9 @@ class _Frame:
         self.top, self.right, self.bottom, self.left = margin
         if title:
             self.top += 14
+        if yticks and y_label:  # room for the widest tick label right of the rotated axis label
+            widest = max((len(_fmt(t)) for t in nice_ticks(*ylim)), default=0)
+            self.left = max(self.left, _Y_LABEL_RIGHT + 6 + math.ceil(_CHAR_PX * widest))
         self.xlim, self.ylim = xlim, ylim
         self.parts = [f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" '
                       f'height="{height}" viewBox="0 0 {width} {height}" role="img">']

@@ -11,9 +11,13 @@ NAME = "review"
 HELP = "open a local web page to decide the doubtful pulses of a triage, best first"
 
 EPILOG = """\
-The page shows one pulse at a time (field change, VHF power, mapped sources,
-the model's probabilities and the key features). Keys: 1-9 one per class of
-the label store, u unsure, s skip, z or Backspace undo the last decision.
+The page shows one pulse at a time: field change and VHF power on a shared time
+axis (zoom and pan), the whole record, the mapped sources (altitude against
+time, plan view and sky when positions exist, with the channel mapped earlier
+in the flash), why the pulse is in the queue, the model's probabilities, the
+nearest labelled pulses of each class in question, and the key features.
+Keys: 1-9 one per class of the label store, u unsure, s skip, z or Backspace
+undo the last decision, + and - zoom, arrows pan, 0 back to the pulse, ? help.
 Every decision is written to the label store at once (origin 'review'), so
 closing the page or stopping the server loses nothing; starting again resumes
 the queue. The server listens on 127.0.0.1 only, unless --host says otherwise.

@@ -1,13 +1,20 @@
-"""The look-alikes strip: the labelled pulses nearest to the one under review.
+"""Look-alikes: for each class in question, the labelled pulses of THAT class nearest to the pulse.
 
-With a model, its own reference set of labelled training pulses and its
-distance (``model.nearest_labelled``) are used. Without one (rules mode), the
+Which classes: those of the pulse's prediction set when it holds two or more,
+else the two classes of highest probability (:func:`lookalike_classes`); the
+analyst compares the pulse with references of each candidate class.
+
+With a model, its own reference set of labelled training pulses
+(``model.reference_``) and its distance (``model.nearest_labelled``, asked for
+the whole set, then filtered by class) are used. Without one (rules mode), the
 label store's labelled pulses of the same catalog are compared in the
 standardised model-feature space of the results file (the space of the
 queue's diversity pass, :func:`classify.review._queue.standardised_features`);
 the distance shown is then the root-mean-square difference of the standardised
-features. A thumbnail of each look-alike's field change is drawn when its
-catalog can be opened (its path as registered in the label store).
+features. Each look-alike carries its field record over the features' analysis
+window (:func:`classify.review._trace.field_record`) when its catalog can be
+opened (its path as registered in the label store), so the page draws it on
+the pulse's own time axis.
 """
 
 from __future__ import annotations
@@ -18,18 +25,49 @@ import math
 import numpy as np
 import pandas as pd
 
-from features import open_catalog
+from features import open_catalog, waveform
 
-from ._pulse import thumbnail_svg
 from ._queue import feature_stats, standardised_features
+from ._trace import compact, field_record, reduce_points
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["LookAlikes"]
+__all__ = ["LookAlikes", "lookalike_classes", "MAX_TRACE_POINTS"]
+
+#: Longest look-alike trace sent to the page (longer ones: block minima and maxima).
+MAX_TRACE_POINTS = 4096
+
+
+def lookalike_classes(prediction_set, probabilities) -> list[str]:
+    """The classes whose references the page shows next to a pulse.
+
+    Parameters
+    ----------
+    prediction_set : list of str
+        The pulse's conformal prediction set.
+    probabilities : list of (str, float or None)
+        ``(class, probability)`` in the model's class order.
+
+    Returns
+    -------
+    list of str
+        The set when it has two classes or more; otherwise the two most
+        probable classes (ties in class order).
+
+    Examples
+    --------
+    >>> lookalike_classes(["recoil"], [("narrow_bipolar", 0.3), ("recoil", 0.6),
+    ...                                 ("stepped_leader", 0.1)])
+    ['recoil', 'narrow_bipolar']
+    """
+    if len(prediction_set) >= 2:
+        return list(prediction_set)
+    ranked = sorted(enumerate(probabilities), key=lambda ip: (-(ip[1][1] or 0.0), ip[0]))
+    return [c for _, (c, _) in ranked[:2]]
 
 
 class LookAlikes:
-    """Find the ``k`` labelled pulses nearest to a pulse of a results table.
+    """Find, per class, the ``k`` labelled pulses nearest to a pulse of a results table.
 
     Parameters
     ----------
@@ -39,13 +77,14 @@ class LookAlikes:
     labels : pandas.DataFrame
         Current labels (``catalog_id``, ``event_id``, ``label``) of the store.
     catalog_paths : dict of str -> path, optional
-        Where other catalogs live (for thumbnails of a model's reference pulses).
+        Where other catalogs live (for the traces of a model's reference pulses).
     model : object, optional
         A fitted pulsesort model (``reference_``, ``nearest_labelled``).
-    k : int, default=5
+    k : int, default=3
+        Look-alikes per class.
     """
 
-    def __init__(self, results, catalog, labels, *, catalog_paths=None, model=None, k=5):
+    def __init__(self, results, catalog, labels, *, catalog_paths=None, model=None, k=3):
         self.results = results.reset_index(drop=True)
         self.catalog = catalog
         self.model = model
@@ -56,6 +95,7 @@ class LookAlikes:
         self._res_row = {e: i for i, e in enumerate(self.results["event_id"].astype(str))}
         self._stats = feature_stats(self.results)
         self._z = {}  # results row -> standardised features, filled as needed
+        self._ref = None if model is None else model.reference_
         mine = labels[labels["catalog_id"].astype(str) == catalog.catalog_id]
         mine = mine[mine["label"].notna()]
         self._labels = dict(zip(mine["event_id"].astype(str), mine["label"].astype(str)))
@@ -90,12 +130,18 @@ class LookAlikes:
             self._rows[catalog_id] = _row_map(cat)
         return cat
 
-    def _thumb(self, catalog_id, event_id):
+    def _trace(self, catalog_id, event_id):
         cat = self._catalog(catalog_id)
         if cat is None:
             return None
         row = self._rows[catalog_id].get(event_id)
-        return None if row is None else thumbnail_svg(cat, row)
+        if row is None:
+            return None
+        t, e, _ = field_record(cat, row)
+        lo, hi = waveform.ANALYSIS_WINDOW_S
+        keep = (t >= lo) & (t <= hi)
+        t, e = reduce_points(t[keep], e[keep], MAX_TRACE_POINTS)
+        return {"time_s": compact(t, 6), "field_v_per_m": compact(e, 4)}
 
     def _standardised(self, rows):
         missing = [r for r in rows if r not in self._z]
@@ -105,38 +151,57 @@ class LookAlikes:
                 self._z[r] = z
         return np.array([self._z[r] for r in rows])
 
-    def find(self, event_id: str) -> list[dict]:
-        """The look-alikes of ``event_id``: dicts of catalog_id, event_id, label, distance, thumb.
-
-        An empty list means there are no labelled pulses to compare with.
-        """
-        event_id = str(event_id)
+    def _ranked(self, event_id):
+        """Every candidate, nearest first: (catalog_id, event_id, label, distance) lists."""
         i = self._res_row[event_id]
         if self.model is not None:
-            ref = self.model.reference_
+            ref = self._ref
             names = list(getattr(self.model, "feature_names_in_", self.results.columns))
             X = self.results.iloc[[i]][names].apply(pd.to_numeric, errors="coerce")
-            idx, dist = self.model.nearest_labelled(X.astype(float), k=self.k)
-            picks = [(str(ref["catalog_id"].iat[j]), str(ref["event_id"].iat[j]),
-                      str(ref["label"].iat[j]), float(d))
-                     for j, d in zip(np.asarray(idx)[0], np.asarray(dist)[0]) if j >= 0]
-        else:
-            cand = [(e, self._res_row[e]) for e in self._labels
-                    if e != event_id and e in self._res_row]
-            if not cand:
-                return []
-            rows = np.array([r for _, r in cand])
-            z, zi = self._standardised(rows), self._standardised(np.array([i]))[0]
-            d = np.sqrt(((z - zi) ** 2).sum(axis=1) / max(z.shape[1], 1))
-            order = np.argsort(d, kind="stable")[: self.k]
-            cid = self.catalog.catalog_id
-            picks = [(cid, cand[j][0], self._labels[cand[j][0]], float(d[j])) for j in order]
-        out = []
-        for cid, eid, label, dist in picks:
-            out.append({"catalog_id": cid, "event_id": eid, "label": label,
-                        "distance": dist if math.isfinite(dist) else None,
-                        "thumb": self._thumb(cid, eid)})
-        return out
+            idx, dist = self.model.nearest_labelled(X.astype(float), k=len(ref))
+            idx, dist = np.asarray(idx)[0], np.asarray(dist)[0]
+            keep = idx >= 0
+            idx, dist = idx[keep], dist[keep]
+            return (ref["catalog_id"].to_numpy(dtype=str)[idx],
+                    ref["event_id"].to_numpy(dtype=str)[idx],
+                    ref["label"].to_numpy(dtype=str)[idx], dist)
+        cand = [(e, self._res_row[e]) for e in self._labels
+                if e != event_id and e in self._res_row]
+        if not cand:
+            return [], [], [], []
+        rows = np.array([r for _, r in cand])
+        z, zi = self._standardised(rows), self._standardised(np.array([i]))[0]
+        d = np.sqrt(((z - zi) ** 2).sum(axis=1) / max(z.shape[1], 1))
+        order = np.argsort(d, kind="stable")
+        ids = [cand[j][0] for j in order]
+        return ([self.catalog.catalog_id] * len(ids), ids, [self._labels[e] for e in ids],
+                d[order])
+
+    def find(self, event_id: str, classes) -> list[dict]:
+        """The look-alikes of ``event_id`` for each class of ``classes``.
+
+        Returns
+        -------
+        list of dict
+            One per class, in the order given: ``class`` and ``items``, a list
+            (nearest first, at most ``k``; empty when no labelled pulse of that
+            class exists) of dicts with ``catalog_id``, ``event_id``,
+            ``label``, ``distance`` and ``trace`` (``time_s``,
+            ``field_v_per_m``; None when the catalog cannot be opened).
+        """
+        cids, eids, labels, dist = self._ranked(str(event_id))
+        groups = []
+        for c in classes:
+            picks = [j for j, lab in enumerate(labels) if lab == c][: self.k]
+            items = []
+            for j in picks:
+                dj = float(dist[j])
+                items.append({"catalog_id": str(cids[j]), "event_id": str(eids[j]),
+                              "label": str(labels[j]),
+                              "distance": dj if math.isfinite(dj) else None,
+                              "trace": self._trace(str(cids[j]), str(eids[j]))})
+            groups.append({"class": c, "items": items})
+        return groups
 
 
 def _row_map(cat) -> dict:

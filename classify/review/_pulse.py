@@ -1,41 +1,39 @@
-"""What the review page shows of one pulse: traces in display units and their SVG plots.
+"""What the review page shows of one pulse: numbers in SI units, JSON-ready.
 
-SI units come from :mod:`features`; this module is the one place where they are
-scaled for display (microseconds, kilometres, 10^6 m/s), by the table
-:data:`DISPLAY_FEATURES`. Plots are drawn by :mod:`classify.svgplot`.
+The page (``static/plot.js``, ``static/review.js``) draws everything itself from
+these numbers, so the time axis can be zoomed and panned; the one place where
+SI units are scaled for display is the page (microseconds, kilometres) and the
+table :data:`DISPLAY_FEATURES` of the key features.
 
-Conventions of the plots
-------------------------
-* Time axis: physical arrival time at the antenna relative to the trigger
-  (channel delay removed), in microseconds, the same for the field and the VHF;
-  they show the pulse itself (:func:`zoom_window_s`), a third plot the field
-  over the whole analysis window (neighbouring pulses).
-* Field change: baseline (median of the record before the analysis window)
-  removed, decay-compensated (:func:`features.waveform.decay_compensate`),
-  in V/m, physics convention (+ = field vector up).
-* VHF power: ``10 log10`` of the linear power (:func:`features.vhf.vhf_power`)
-  in the catalog's own power units, floored 60 dB below its peak.
-* Markers: the field peak (as :func:`features.waveform.field_features` finds
-  it) and the VHF peak, which lies ``vhf_field_lag_s`` before it.
+What :func:`pulse_view` holds
+-----------------------------
+* ``trace``: the record (:mod:`classify.review._trace`): field change and VHF
+  power against physical time from the trigger, the pulse's extent and its
+  neighbours.
+* ``markers``: the field peak (as :func:`features.waveform.field_features`
+  finds it) and the VHF peak, ``vhf_field_lag_s`` before it.
+* ``view_s``: the time window first shown (:func:`zoom_window_s`).
+* ``sources``: the mapped sources and the channel mapped earlier in the flash
+  (:mod:`classify.review._sources`).
+* ``model``, ``features``, ``notes``: the model's answer, the key features in
+  display units, what is missing.
 """
 
 from __future__ import annotations
 
 import math
-import warnings
 
 import numpy as np
 import pandas as pd
 
 from features import waveform
-from features.vhf import vhf_power
 
-from .. import svgplot
 from ._queue import probability_columns
+from ._sources import source_view
+from ._trace import field_record, record_trace, trace_json, with_extent
 
-__all__ = ["DISPLAY_FEATURES", "FIELD_AXIS_LABEL", "field_trace", "vhf_trace",
-           "source_track", "field_peak_time_s", "zoom_window_s", "pulse_plots", "pulse_view",
-           "thumbnail_svg", "display_value"]
+__all__ = ["DISPLAY_FEATURES", "field_trace", "field_peak_time_s", "zoom_window_s",
+           "pulse_view", "display_value", "vhf_lag_text"]
 
 #: Key features shown beside the plots: column, label, display unit, factor from SI.
 DISPLAY_FEATURES = (
@@ -52,15 +50,12 @@ DISPLAY_FEATURES = (
     ("altitude_m", "source altitude", "km", 1e-3),
     ("vhf_field_lag_s", "VHF-to-field lag (+: VHF leads)", "µs", 1e6),
     ("vhf_snr_db", "VHF peak over noise", "dB", 1.0),
+    ("channel_reuse", "sources on an earlier channel", "", 1.0),
     ("isolation_s", "isolation (same flash)", "ms", 1e3),
     ("isolation_any_s", "isolation (any pulse)", "ms", 1e3),
     ("snr_db", "field SNR", "dB", 1.0),
 )
 
-#: The field plot's y axis label (the sign convention is stated on the axis).
-FIELD_AXIS_LABEL = "E (V/m) physics convention: + = field vector up"
-TIME_AXIS_LABEL = "time from trigger (µs)"
-VHF_FLOOR_DB = 60.0
 #: Time shown around the trigger, in seconds (the features' analysis window).
 VIEW_WINDOW_S = waveform.ANALYSIS_WINDOW_S
 
@@ -76,13 +71,8 @@ def display_value(value, factor: float):
     return float(f"{v:.4g}")
 
 
-def _window(t_s, window_s):
-    keep = (t_s >= window_s[0]) & (t_s <= window_s[1])
-    return keep if keep.sum() >= 2 else np.ones_like(t_s, dtype=bool)
-
-
 def field_trace(catalog, row: int, window_s=VIEW_WINDOW_S):
-    """The field change of one pulse for display.
+    """The field change of one pulse over a window, for a static plot (the HTML report).
 
     Returns
     -------
@@ -92,59 +82,11 @@ def field_trace(catalog, row: int, window_s=VIEW_WINDOW_S):
         Baseline removed, decay-compensated, V/m, physics convention (NaN where missing).
     clipped : bool
     """
-    ch = catalog.field
-    y, clipped = catalog.read_field(row, row + 1)
-    rec = ch.recorded_time_s()
-    pre = rec < window_s[0]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        base = np.nanmedian(y[0, pre]) if pre.sum() >= 16 else np.nanmedian(y[0])
-    y = y - (0.0 if not np.isfinite(base) else base)
-    missing = ~np.isfinite(y)
-    e = waveform.decay_compensate(np.where(missing, 0.0, y), ch.sample_rate_hz,
-                                  ch.decay_time_s)[0]
-    e[missing[0]] = np.nan
-    t = ch.physical_time_s()
-    keep = _window(t, window_s)
-    return t[keep] * 1e6, e[keep], bool(clipped[0])
-
-
-def vhf_trace(catalog, row: int, window_s=VIEW_WINDOW_S, floor_db: float = VHF_FLOOR_DB):
-    """The VHF power of one pulse in dB (catalog units), or None without a VHF channel.
-
-    Returns
-    -------
-    (t_us, power_db) : tuple of ndarray, shape (m,), or None
-        Physical time from the trigger in microseconds; ``10 log10`` power,
-        floored ``floor_db`` below the peak (NaN where the record is missing).
-    """
-    if catalog.vhf is None:
-        return None
-    v, _ = catalog.read_vhf(row, row + 1)
-    missing = ~np.isfinite(v[0])
-    if missing.all():
-        return None
-    p = vhf_power(v, catalog.vhf.kind)[0]
-    top = float(np.max(p))
-    if not top > 0:
-        return None
-    with np.errstate(divide="ignore"):
-        db = 10.0 * np.log10(np.maximum(p, top * 10 ** (-floor_db / 10)))
-    db[missing] = np.nan
-    t = catalog.vhf.physical_time_s()
-    keep = _window(t, window_s)
-    return t[keep] * 1e6, db[keep]
-
-
-def source_track(catalog, row: int):
-    """Mapped sources of one pulse: ``(t_us, azimuth_deg, elevation_deg)`` or None."""
-    if catalog.sources is None:
-        return None
-    s = catalog.sources.rows(row, row + 1)
-    if s.n_sources == 0:
-        return None
-    order = np.argsort(s.t_s, kind="stable")
-    return s.t_s[order] * 1e6, s.azimuth_deg[order], s.elevation_deg[order]
+    t, e, clipped = field_record(catalog, row)
+    keep = (t >= window_s[0]) & (t <= window_s[1])
+    if keep.sum() < 2:
+        keep = np.ones_like(t, dtype=bool)
+    return t[keep] * 1e6, e[keep], clipped
 
 
 def field_peak_time_s(catalog, row: int, range_m=None):
@@ -176,84 +118,12 @@ def zoom_window_s(peak_time_s, fwhm_s=None, width_s=None):
     return (peak_time_s - pre, peak_time_s + post)
 
 
-def _lag_text(lag_s):
+def vhf_lag_text(lag_s) -> str:
+    """``"VHF-to-field lag +0.51 µs (VHF leads)"`` from a lag in seconds (None: n/a)."""
     if lag_s is None:
         return "VHF-to-field lag: n/a"
     lead = "VHF leads" if lag_s > 0 else ("field leads" if lag_s < 0 else "simultaneous")
     return f"VHF-to-field lag {lag_s * 1e6:+.2f} µs ({lead})"
-
-
-def pulse_plots(catalog, row: int, result=None, *, width=620):
-    """SVG strings of one pulse (None where there is no data).
-
-    ``field`` and ``vhf`` share the time axis of :func:`zoom_window_s`;
-    ``field_context`` is the whole analysis window; ``elevation`` (sources vs
-    time) and ``sky`` (azimuth/elevation) are coloured by time.
-
-    Parameters
-    ----------
-    catalog : features.catalog.Catalog
-    row : int
-        Row of the event in the catalog.
-    result : mapping, optional
-        Its triage results row (for ``vhf_field_lag_s`` and ``range_m``).
-    """
-    result = {} if result is None else result
-    lag = _finite(result.get("vhf_field_lag_s"))
-    t_us, e, clipped = field_trace(catalog, row)
-    full = (float(np.nanmin(t_us)), float(np.nanmax(t_us)))
-    t_peak = field_peak_time_s(catalog, row, _finite(result.get("range_m")))
-    markers = []
-    if t_peak is not None:
-        markers.append((t_peak * 1e6, "field peak", "#D55E00"))
-        if lag is not None:
-            markers.append(((t_peak - lag) * 1e6, "VHF peak", "#009E73"))
-    lo, hi = zoom_window_s(t_peak, _finite(result.get("fwhm_s")),
-                           _finite(result.get("width_s")))
-    xlim = (max(full[0], lo * 1e6), min(full[1], hi * 1e6))
-    if not xlim[1] > xlim[0]:
-        xlim = full
-    keep = (t_us >= xlim[0]) & (t_us <= xlim[1])
-    title = "Field change around the pulse" + (" (clipped)" if clipped else "")
-    plots = {"field": svgplot.line_chart([(t_us[keep], e[keep], "E")], x_label=TIME_AXIS_LABEL,
-                                         y_label=FIELD_AXIS_LABEL, width=width, height=330,
-                                         title=title, xlim=xlim, markers=markers,
-                                         zero_line=True)}
-    plots["field_context"] = svgplot.line_chart(
-        [(t_us, e, "E")], x_label=TIME_AXIS_LABEL, y_label="E (V/m)", width=width,
-        height=150, title="Whole analysis window (grey dashes: the part shown above)", xlim=full,
-        markers=[(xlim[0], None, "#888"), (xlim[1], None, "#888")], zero_line=True)
-    vt = vhf_trace(catalog, row)
-    if vt is not None:
-        vk = (vt[0] >= xlim[0]) & (vt[0] <= xlim[1])
-        vt = (vt[0][vk], vt[1][vk]) if vk.sum() >= 2 else None
-    plots["vhf"] = None if vt is None else svgplot.line_chart(
-        [(vt[0], vt[1], "VHF")], x_label=TIME_AXIS_LABEL, y_label="VHF power (dB)",
-        width=width, height=200, title=f"VHF power; {_lag_text(lag)}", xlim=xlim,
-        markers=markers)
-    src = source_track(catalog, row)
-    if src is None:
-        plots["elevation"] = plots["sky"] = None
-    else:
-        ts, az, el = src
-        span = float(ts[-1] - ts[0])
-        colours = [svgplot.time_colour((t - ts[0]) / span if span > 0 else 0.0) for t in ts]
-        sx = (min(xlim[0], float(ts[0])), max(xlim[1], float(ts[-1])))
-        plots["elevation"] = svgplot.scatter_chart(
-            ts, el, x_label=TIME_AXIS_LABEL, y_label="elevation (deg)", colours=colours,
-            width=width, height=190, title=f"Mapped sources ({len(ts)}), coloured by time",
-            xlim=sx)
-        plots["sky"] = svgplot.scatter_chart(
-            az, el, x_label="azimuth (deg from north, clockwise)", y_label="elevation (deg)",
-            colours=colours, width=300, height=240, title="Sky (early blue, late yellow)")
-    return plots
-
-
-def thumbnail_svg(catalog, row: int) -> str:
-    """A small field-change plot (for the look-alikes strip)."""
-    t_us, e, _ = field_trace(catalog, row)
-    return svgplot.line_chart([(t_us, e, "E")], x_label="µs", y_label="V/m", width=190,
-                              height=110, zero_line=True)
 
 
 def _finite(v):
@@ -272,7 +142,22 @@ def _text(v):
     return str(v)
 
 
-def pulse_view(catalog, row: int, result: pd.Series, *, classes=None) -> dict:
+def _markers_and_view(catalog, row, res, t_s):
+    lag = _finite(res.get("vhf_field_lag_s"))
+    t_peak = field_peak_time_s(catalog, row, _finite(res.get("range_m")))
+    markers = []
+    if t_peak is not None:
+        markers.append({"kind": "field_peak", "label": "field peak", "t_s": t_peak})
+        if lag is not None:
+            markers.append({"kind": "vhf_peak", "label": "VHF peak", "t_s": t_peak - lag})
+    full = (float(np.nanmin(t_s)), float(np.nanmax(t_s)))
+    lo, hi = zoom_window_s(t_peak, _finite(res.get("fwhm_s")), _finite(res.get("width_s")))
+    view = (max(full[0], lo), min(full[1], hi))
+    return markers, (view if view[1] > view[0] else full), lag
+
+
+def pulse_view(catalog, row: int, result: pd.Series, *, classes=None, trace=None,
+               flash_codes=None) -> dict:
     """Everything the page shows of one pulse, JSON-ready (numbers finite or None).
 
     Parameters
@@ -284,40 +169,46 @@ def pulse_view(catalog, row: int, result: pd.Series, *, classes=None) -> dict:
         Its row of the triage results.
     classes : list of str, optional
         The store's classes; probabilities are shown for the model's classes.
+    trace : callable, optional
+        ``trace(catalog, row) -> dict`` with the keys of
+        :data:`classify.review._trace.TRACE_KEYS`; default
+        :func:`classify.review._trace.record_trace`.
+    flash_codes : ndarray of int, optional
+        :func:`classify.review._sources.flash_codes` of the catalog, for the
+        channel mapped earlier in the flash.
 
     Returns
     -------
     dict
-        ``event_id``, ``time_utc``, ``flash_id``, ``model`` (version, label,
-        confidence, probabilities, prediction_set, novel, novelty_score,
-        review_reason), ``features`` (label, value, unit), ``plots`` (SVG
-        strings or None) and ``notes``.
+        ``event_id``, ``catalog_id``, ``time_utc``, ``flash_id``, ``model``
+        (version, label, confidence, probabilities, prediction_set, novel,
+        novelty_score, review_reason, vhf_lag_s, vhf_lag_text), ``trace``,
+        ``markers`` (kind, label, t_s), ``view_s``, ``sources``, ``features``
+        (name, label, unit, value), ``notes`` and ``classes``.
     """
     res = result.to_dict() if isinstance(result, pd.Series) else dict(result)
     pcols = probability_columns(pd.DataFrame(columns=list(res)))
     probs = [{"class": c[2:], "p": display_value(res.get(c), 1.0)} for c in pcols]
     pset = [s for s in _text(res.get("prediction_set")).split("|") if s]
     reasons = [s for s in _text(res.get("review_reason")).split(";") if s]
-    plots = pulse_plots(catalog, row, res)
-    if probs:
-        in_set = [p["class"] in pset for p in probs]
-        plots["probabilities"] = svgplot.hbar_chart(
-            [p["class"] for p in probs], [p["p"] or 0.0 for p in probs],
-            x_label="probability", width=340, xlim=(0.0, 1.0),
-            title="Probabilities (dark: in set)",
-            colours=[svgplot.PALETTE[0] if s else "#9db7cc" for s in in_set])
-    else:
-        plots["probabilities"] = None
+    tr = with_extent((trace or record_trace)(catalog, row), res)
+    markers, view, lag = _markers_and_view(catalog, row, res, np.asarray(tr["time_s"]))
+    sources = source_view(catalog, row, flash_codes)
     features = []
     for name, label, unit, factor in DISPLAY_FEATURES:
         if name in res:
             features.append({"name": name, "label": label, "unit": unit,
                              "value": display_value(res.get(name), factor)})
     notes = []
-    if plots["vhf"] is None:
+    if tr.get("vhf_envelope") is None:
         notes.append("no VHF record for this pulse")
-    if plots["elevation"] is None:
+    if sources is None:
         notes.append("no mapped sources for this pulse")
+    elif sources["position"] is None:
+        notes.append("sources without positions (no x/y/z, no range): no plan or altitude "
+                     "view")
+    if tr.get("clipped"):
+        notes.append("the field record is clipped (a sample at full scale)")
     ev = catalog.events.iloc[row]
     novel = res.get("novel")
     return {
@@ -334,9 +225,14 @@ def pulse_view(catalog, row: int, result: pd.Series, *, classes=None) -> dict:
             "novel": bool(novel) if isinstance(novel, (bool, np.bool_)) else novel == "true",
             "novelty_score": display_value(res.get("novelty_score"), 1.0),
             "review_reason": reasons,
+            "vhf_lag_s": lag,
+            "vhf_lag_text": vhf_lag_text(lag),
         },
+        "trace": trace_json(tr),
+        "markers": markers,
+        "view_s": list(view),
+        "sources": sources,
         "features": features,
-        "plots": plots,
         "notes": notes,
         "classes": list(classes) if classes is not None else [p["class"] for p in probs],
     }

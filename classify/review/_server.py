@@ -1,4 +1,4 @@
-"""The review page's local web server: a JSON API and three static files.
+"""The review page's local web server: a JSON API and five static files.
 
 Security measures (each one checked by ``tests/classify/test_review_server.py``):
 
@@ -12,18 +12,28 @@ Security measures (each one checked by ``tests/classify/test_review_server.py``)
   loopback bind; any IP literal or this machine's name on a wildcard bind),
   with the bound port: a DNS-rebinding page cannot talk to the server.
 * Writes are ``POST`` with ``Content-Type: application/json``, a body of at
-  most 64 KiB, and an ``Origin``, when sent, equal to the server's own.
-* Only fixed routes exist: ``/`` and ``/static/review.js``, ``/static/review.css``
+  most 64 KiB (413 beyond) nested at most 32 levels deep (400 beyond, checked
+  before the body is parsed, so a deeply nested body cannot exhaust the
+  parser's recursion), and an ``Origin``, when sent, equal to the server's own.
+* Every error is answered with a status and a one-line JSON message, including
+  the ones :mod:`http.server` makes itself (a malformed request line, an
+  over-long header); tracebacks go to the log, never to the client. A client
+  that hangs up mid-answer is dropped quietly.
+* A listen backlog of 128 (a browser opens several connections at once) and a
+  thread per connection; an idle kept-alive connection is closed after 30 s.
+* Only fixed routes exist: ``/`` and ``/static/plot.js``, ``/static/views.js``,
+  ``/static/review.js``, ``/static/review.css``
   (from the package, by an allow-list: no file path is ever built from the
   request) and the API. Waveforms come from the catalog through the session,
   labels go to the store: nothing else on disk is reachable.
 * Responses are JSON (or the static files) with ``nosniff``, a strict
   Content-Security-Policy (scripts and styles only from the page itself, no
-  inline code, images only from ``blob:`` URLs the page makes from the SVG
-  plots, no framing), ``Referrer-Policy: no-referrer`` (the token is in the
+  inline code, no images or fonts from anywhere, no framing), ``Referrer-Policy: no-referrer`` (the token is in the
   address) and ``Cache-Control: no-store``.
-* The page builds its DOM with ``textContent`` only; plots are shown as
-  ``<img>`` elements, in which SVG cannot run scripts.
+* The page builds its DOM with ``textContent`` and ``createElementNS`` only
+  (never ``innerHTML``): plots are SVG elements the page's own script draws
+  from the numbers of the JSON answers, so no text from the data is ever parsed
+  as markup.
 """
 
 from __future__ import annotations
@@ -33,6 +43,7 @@ import ipaddress
 import json
 import logging
 import math
+import re
 import secrets
 import socket
 import threading
@@ -45,18 +56,27 @@ from ._session import OutOfTurn
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["ReviewServer", "make_server", "TOKEN_HEADER", "STATIC_FILES", "is_loopback"]
+__all__ = ["ReviewServer", "make_server", "TOKEN_HEADER", "STATIC_FILES", "is_loopback",
+           "json_depth", "MAX_BODY_BYTES", "MAX_JSON_DEPTH", "LISTEN_BACKLOG"]
 
 TOKEN_HEADER = "X-Review-Token"
 MAX_BODY_BYTES = 64 * 1024
+#: Deepest nesting of arrays and objects accepted in a request body.
+MAX_JSON_DEPTH = 32
+#: Pending connections the kernel queues before the server accepts them.
+LISTEN_BACKLOG = 128
+#: An idle (kept-alive) connection is closed after this many seconds.
+IDLE_TIMEOUT_S = 30
 #: URL path -> (file in classify/review/static, content type). Nothing else is served.
 STATIC_FILES = {
     "/": ("index.html", "text/html; charset=utf-8"),
+    "/static/plot.js": ("plot.js", "text/javascript; charset=utf-8"),
+    "/static/views.js": ("views.js", "text/javascript; charset=utf-8"),
     "/static/review.js": ("review.js", "text/javascript; charset=utf-8"),
     "/static/review.css": ("review.css", "text/css; charset=utf-8"),
 }
-CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src blob:; "
-       "connect-src 'self'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
+CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; connect-src 'self'; "
+       "base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
 _SECURITY_HEADERS = {
     "Content-Security-Policy": CSP,
     "X-Content-Type-Options": "nosniff",
@@ -99,6 +119,28 @@ def _is_ip(host: str) -> bool:
         return False
 
 
+_JSON_STRING = re.compile(r'"(?:[^"\\]|\\.)*"', re.DOTALL)
+_JSON_BRACKET = re.compile(r"[\[\]{}]")
+
+
+def json_depth(text: str) -> int:
+    """Deepest nesting of arrays and objects in a JSON text (brackets inside strings skipped).
+
+    Examples
+    --------
+    >>> json_depth('{"a": [1, {"b": "[[["}]}')
+    3
+    """
+    depth = deepest = 0
+    for m in _JSON_BRACKET.finditer(_JSON_STRING.sub("", text)):
+        if m.group() in "[{":
+            depth += 1
+            deepest = max(deepest, depth)
+        else:
+            depth -= 1
+    return deepest
+
+
 def _static(name: str) -> bytes:
     return resources.files("classify.review").joinpath("static", name).read_bytes()
 
@@ -126,12 +168,32 @@ class _Handler(BaseHTTPRequestHandler):
     server: ReviewServer
     protocol_version = "HTTP/1.1"
 
+    timeout = IDLE_TIMEOUT_S  # socket timeout: an idle kept-alive connection is closed
+
     def version_string(self):
         return "pulsesort-review"
 
+    def handle(self):
+        try:
+            super().handle()
+        except (ConnectionError, TimeoutError):  # the client hung up or went quiet
+            self.close_connection = True
+
+    def send_error(self, code, message=None, explain=None):
+        """http.server's own refusals (bad request line, long header...): JSON, one line."""
+        try:
+            phrase = HTTPStatus(code).phrase
+        except ValueError:
+            phrase = "error"
+        self.close_connection = True
+        if self.request_version == "HTTP/0.9":  # unparsable request line: answer with a status
+            self.request_version = "HTTP/1.0"
+        self._error(code, (message or phrase).splitlines()[0][:200])
+
     def log_message(self, format, *args):  # noqa: A002 - the base class's name
         # the request line may hold the token: log the path only
-        logger.debug("review server: %s %s", self.command, urlsplit(self.path).path)
+        logger.debug("review server: %s %s", self.command,
+                     urlsplit(getattr(self, "path", "") or "").path)
 
     # ------------------------------------------------------------------ replies
 
@@ -141,6 +203,8 @@ class _Handler(BaseHTTPRequestHandler):
         self.send_header("Content-Length", str(len(body)))
         for k, v in _SECURITY_HEADERS.items():
             self.send_header(k, v)
+        if self.close_connection:
+            self.send_header("Connection", "close")
         self.end_headers()
         if self.command != "HEAD":
             self.wfile.write(body)
@@ -186,10 +250,23 @@ class _Handler(BaseHTTPRequestHandler):
         if n < 0 or n > MAX_BODY_BYTES:
             raise _Refused(HTTPStatus.REQUEST_ENTITY_TOO_LARGE,
                            f"request body over {MAX_BODY_BYTES} bytes")
-        raw = self.rfile.read(n)
         try:
-            obj = json.loads(raw.decode("utf-8")) if raw else {}
-        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raw = self.rfile.read(n)
+        except TimeoutError:
+            raise _Refused(HTTPStatus.REQUEST_TIMEOUT, "request body incomplete") from None
+        if len(raw) < n:
+            raise _Refused(HTTPStatus.BAD_REQUEST, "request body shorter than its "
+                                                  "Content-Length")
+        try:
+            text = raw.decode("utf-8")
+        except UnicodeDecodeError:
+            raise _Refused(HTTPStatus.BAD_REQUEST, "body is not UTF-8 text") from None
+        if json_depth(text) > MAX_JSON_DEPTH:
+            raise _Refused(HTTPStatus.BAD_REQUEST,
+                           f"body nested deeper than {MAX_JSON_DEPTH} levels")
+        try:
+            obj = json.loads(text) if text else {}
+        except (json.JSONDecodeError, RecursionError) as exc:
             raise _Refused(HTTPStatus.BAD_REQUEST, f"body is not JSON ({exc})") from None
         if not isinstance(obj, dict):
             raise _Refused(HTTPStatus.BAD_REQUEST, "body must be a JSON object")
@@ -232,6 +309,8 @@ class _Handler(BaseHTTPRequestHandler):
             self._error(HTTPStatus.CONFLICT, str(exc))
         except ValueError as exc:  # a refused decision: bad label, note, nothing to undo
             self._error(HTTPStatus.BAD_REQUEST, str(exc))
+        except (ConnectionError, TimeoutError):  # the client went away mid-answer
+            self.close_connection = True
         except Exception as exc:  # noqa: BLE001 - keep serving; the analyst sees the message
             logger.exception("review server: internal error on %s", urlsplit(self.path).path)
             self._error(HTTPStatus.INTERNAL_SERVER_ERROR, f"internal error: {type(exc).__name__}")
@@ -268,6 +347,7 @@ class ReviewServer(ThreadingHTTPServer):
 
     daemon_threads = True
     allow_reuse_address = False
+    request_queue_size = LISTEN_BACKLOG
 
     def __init__(self, session, host="127.0.0.1", port=0, token=None):
         self.session = session
@@ -284,6 +364,10 @@ class ReviewServer(ThreadingHTTPServer):
         if self._wildcard:
             self._names |= {"localhost", socket.gethostname().lower(),
                             socket.getfqdn().lower()}
+
+    def handle_error(self, request, client_address):
+        """Log (never print) what escaped a handler; the client got its answer already."""
+        logger.debug("review server: error on a connection", exc_info=True)
 
     def host_allowed(self, host: str) -> bool:
         """Whether a request's Host name is one this server answers to."""

@@ -31,9 +31,11 @@ import pandas as pd
 
 from classify.labels import LabelStore
 
-from ._lookalike import LookAlikes, store_labels
+from ._help import REVIEW_REASONS, priority_parts, priority_rule
+from ._lookalike import LookAlikes, lookalike_classes, store_labels
 from ._pulse import pulse_view
 from ._queue import build_queue
+from ._sources import flash_codes
 
 logger = logging.getLogger("pulsesort")
 
@@ -68,10 +70,21 @@ class ReviewSession:
         Extra catalog_id -> folder (e.g. a model card's training catalogs).
     revisit : bool, default=False
         Queue again the pulses this analyst marked unsure or skipped before.
+    n_lookalikes : int, default=3
+        Look-alikes shown per class.
+    trace : callable, optional
+        ``trace(catalog, row) -> dict`` giving a pulse's record with the keys of
+        :data:`classify.review._trace.TRACE_KEYS` (``features.trace.pulse_trace``
+        has that signature); default :func:`classify.review._trace.record_trace`.
+    attributions : callable, optional
+        ``attributions(result_row) -> [(feature, contribution), ...]`` or None:
+        why the model chose its class, shown as a bar chart ("not available
+        for this model" without it).
     """
 
     def __init__(self, results, catalog, store_path, analyst, *, budget=None, model=None,
-                 catalog_paths=None, revisit=False, n_lookalikes=5):
+                 catalog_paths=None, revisit=False, n_lookalikes=3, trace=None,
+                 attributions=None):
         if not isinstance(analyst, str) or not analyst.strip() or analyst != analyst.strip():
             raise ValueError(f"--analyst must be a non-empty name without surrounding "
                              f"spaces, got {analyst!r}")
@@ -102,6 +115,9 @@ class ReviewSession:
         paths.update(catalog_paths or {})
         self.lookalikes = LookAlikes(self.results, catalog, labels, catalog_paths=paths,
                                      model=model, k=n_lookalikes)
+        self.trace = trace
+        self.attributions = attributions
+        self._flash_codes = flash_codes(catalog) if catalog.sources is not None else None
         self._lock = threading.RLock()
         self._done: dict[str, dict] = {}
         self._history: list[dict] = []
@@ -128,7 +144,8 @@ class ReviewSession:
                 "classes": [{"name": c, "key": _KEYS[i] if i < len(_KEYS) else None}
                             for i, c in enumerate(self.classes)],
                 "model_versions": versions, "lookalike_source": self.lookalikes.source,
-                "n_queued": self.n_queued, "n_reviewed": self.n_reviewed}
+                "n_queued": self.n_queued, "n_reviewed": self.n_reviewed,
+                "reasons": dict(REVIEW_REASONS), "priority_rule": priority_rule()}
 
     def _current_index(self):
         for i, e in enumerate(self._queue_ids):
@@ -140,10 +157,16 @@ class ReviewSession:
         eid = self._queue_ids[i]
         if eid not in self._views:
             res = self.queue.iloc[i]
-            view = pulse_view(self.catalog, self._rows[eid], res, classes=self.classes)
+            view = pulse_view(self.catalog, self._rows[eid], res, classes=self.classes,
+                              trace=self.trace, flash_codes=self._flash_codes)
             view["queue_rank"] = int(res["queue_rank"])
-            view["priority"] = _num(res["priority"])
-            view["lookalikes"] = self.lookalikes.find(eid)
+            view["queue"] = priority_parts(res["priority"], res["uncertainty"],
+                                           res["novelty_rank"])
+            m = view["model"]
+            wanted = lookalike_classes(m["prediction_set"], [(p["class"], p["p"]) for p in
+                                                             m["probabilities"]])
+            view["lookalikes"] = self.lookalikes.find(eid, wanted)
+            view["why"] = _attributions(self.attributions, res)
             self._views[eid] = view
             while len(self._views) > 8:
                 self._views.popitem(last=False)
@@ -235,6 +258,21 @@ class ReviewSession:
                 self._views.clear()
             logger.info("review: undid %s on %s", act["action"], eid)
             return self.current()
+
+
+def _attributions(fn, res):
+    """``fn(res)`` as ``[[feature, contribution], ...]`` (finite numbers), or None."""
+    if fn is None:
+        return None
+    pairs = fn(res)
+    if pairs is None:
+        return None
+    out = []
+    for name, value in pairs:
+        v = _num(value)
+        if v is not None:
+            out.append([str(name), v])
+    return out or None
 
 
 def _num(v):

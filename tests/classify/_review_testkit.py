@@ -28,16 +28,17 @@ def _rename_event(folder: Path, old: str, new: str) -> None:
         df.to_csv(path, index=False)
 
 
-def triaged_catalog(root: Path, *, events: int = 300, seed: int = 1):
+def triaged_catalog(root: Path, *, events: int = 300, seed: int = 1, simulate_args=()):
     """Simulate a small catalog, rename its first queued pulse to :data:`XSS_ID`, triage it.
 
+    ``simulate_args`` are extra options of ``pulsesort simulate`` (e.g. ``--no-xyz``).
     Returns ``(catalog_dir, results_csv)``: a real ``pulsesort triage --rules`` output.
     """
     root = Path(root)
     root.mkdir(parents=True, exist_ok=True)
     cat_dir, out = root / "hollowmere-2031", root / "results.csv"
-    assert main(["simulate", str(cat_dir), "--events", str(events), "--seed", str(seed),
-                 *SIMULATE_SHORT]) == 0
+    assert main(["-q", "simulate", str(cat_dir), "--events", str(events), "--seed", str(seed),
+                 *SIMULATE_SHORT, *simulate_args]) == 0
     assert main(["-q", "triage", str(cat_dir), "--rules", "--out", str(out)]) == 0
     first = build_queue(read_results(out))["event_id"].iat[0]
     _rename_event(cat_dir, first, XSS_ID)

@@ -2,11 +2,16 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
+import socket
 import subprocess
 import sys
+import threading
 import time
+from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -15,7 +20,15 @@ from numpy.testing import assert_allclose
 
 from classify.cli import main
 from classify.labels import LabelStore
-from classify.review import ReviewSession, is_loopback, make_server
+from classify.review import (
+    TOKEN_HEADER,
+    ReviewSession,
+    is_loopback,
+    lookalike_classes,
+    make_server,
+    standardised_features,
+)
+from classify.review._server import LISTEN_BACKLOG, MAX_JSON_DEPTH, json_depth
 from classify.triage import read_results
 from features import open_catalog
 
@@ -86,14 +99,17 @@ def test_host_header_is_checked_against_the_bound_address(served):
 
 
 def test_only_the_allow_listed_static_files_are_served(served):
-    """/, review.js and review.css exist; any other path (traversal included) is 404."""
+    """/, plot.js, views.js, review.js and review.css exist; any other path is 404."""
     _, c, _, _ = served
     status, headers, body = c.request("GET", "/", token=None)
     assert status == 200 and headers["Content-Type"].startswith("text/html")
-    assert b'<script src="/static/review.js"' in body
-    status, headers, body = c.request("GET", "/static/review.js", token=None)
-    assert status == 200 and headers["Content-Type"].startswith("text/javascript")
-    assert b"innerHTML" not in body and b"textContent" in body
+    assert b'<script src="/static/review.js"' in body and b'<script src="/static/plot.js"' in body
+    for name in ("plot.js", "views.js", "review.js"):
+        status, headers, body = c.request("GET", f"/static/{name}", token=None)
+        assert status == 200 and headers["Content-Type"].startswith("text/javascript")
+        assert b"innerHTML" not in body and b"textContent" in body
+        rest = body.replace(b'"http://www.w3.org/2000/svg"', b"")   # SVG's namespace name
+        assert b"http://" not in rest and b"https://" not in rest  # nothing from outside
     for path in ("/static/index.html", "/static/../_server.py", "/static/%2e%2e/_server.py",
                  "/..%2f..%2fetc%2fpasswd", "/etc/passwd", "/static/", "/favicon.ico",
                  "/api/../static/review.js", "/api/nothing"):
@@ -223,27 +239,39 @@ def test_bad_decisions_are_refused_with_a_message(served):
 
 
 def test_pulse_view_is_complete_and_strict_json(served):
-    """The current pulse has the plots, probabilities (rows sum to 1) and key features."""
+    """The current pulse: its record, markers, view, sources, probabilities, features, queue parts."""
     _, c, _, results = served
     status, cur = c.json("GET", "/api/current")        # strict JSON: NaN would raise
     p = cur["pulse"]
-    assert p["plots"]["field"].startswith("<svg") and "physics convention" in \
-        p["plots"]["field"]
-    assert "field vector up" in p["plots"]["field"] and "time from trigger (µs)" in \
-        p["plots"]["field"]
-    assert p["plots"]["probabilities"].startswith("<svg")
+    tr = p["trace"]
+    assert len(tr["time_s"]) == len(tr["field_v_per_m"]) > 1000
+    assert np.all(np.diff(tr["time_s"]) > 0)
+    assert len(tr["vhf_time_s"]) == len(tr["vhf_envelope"]) > 1000
+    assert tr["extent_s"] is None and tr["neighbours_s"] == []   # no such columns yet
+    assert tr["time_s"][0] <= p["view_s"][0] < p["view_s"][1] <= tr["time_s"][-1]
+    assert [m["kind"] for m in p["markers"]] == ["field_peak", "vhf_peak"]
+    lag = results.set_index("event_id").at[p["event_id"], "vhf_field_lag_s"]
+    assert_allclose(p["markers"][0]["t_s"] - p["markers"][1]["t_s"], lag, rtol=1e-9)
     probs = [q["p"] for q in p["model"]["probabilities"]]
     assert_allclose(sum(probs), 1.0, atol=1e-3)
     names = {f["name"] for f in p["features"]}
     assert {"width_s", "bipolarity", "speed_m_per_s", "motion_elevation_deg",
-            "range_normalized_peak_v_per_m", "isolation_s"} <= names
+            "range_normalized_peak_v_per_m", "isolation_s", "channel_reuse"} <= names
     width = next(f for f in p["features"] if f["name"] == "width_s")
     raw = results.set_index("event_id").at[p["event_id"], "width_s"]
     assert width["unit"] == "µs"
     if np.isfinite(raw):
         assert_allclose(width["value"], raw * 1e6, rtol=1e-3)
     assert p["model"]["version"] == "rules-2"
-    assert isinstance(p["lookalikes"], list)
+    q = p["queue"]
+    assert_allclose(q["priority"], q["uncertainty"] + q["novelty_weight"] * q["novelty_rank"],
+                    rtol=1e-12)
+    assert p["sources"]["position"] == "xyz" and len(p["sources"]["up_m"]) > 0
+    assert [g["class"] for g in p["lookalikes"]] and p["why"] is None
+    status, info = c.json("GET", "/api/session")
+    assert set(info["reasons"]) >= set(p["model"]["review_reason"])
+    assert any("priority = uncertainty + 0.5 x novelty rank" in line
+               for line in info["priority_rule"])
 
 
 def test_reopening_resumes_the_queue(triaged, tmp_path):
@@ -268,21 +296,38 @@ def test_reopening_resumes_the_queue(triaged, tmp_path):
 
 
 def test_lookalikes_come_from_the_stores_labelled_pulses(triaged, tmp_path):
-    """In rules mode the strip lists this catalog's labelled pulses, nearest first."""
+    """In rules mode each class group lists this catalog's labelled pulses of that class, nearest first."""
     cat_dir, out = triaged
     results, cat, store = read_results(out), open_catalog(cat_dir), tmp_path / "s.sqlite"
     s = ReviewSession(results, cat, store, ANALYST)
-    assert s.current()["pulse"]["lookalikes"] == []
+    assert all(g["items"] == [] for g in s.current()["pulse"]["lookalikes"])
     decided = []
-    for label in ("recoil", "narrow_bipolar", "stepped_leader"):
+    for label in ("recoil", "narrow_bipolar", "stepped_leader", "recoil", "energetic_in_cloud",
+                  "narrow_bipolar"):
         eid = s.current()["pulse"]["event_id"]
         decided.append((eid, label))
         s.decide(eid, "label", label=label)
-    looks = s.current()["pulse"]["lookalikes"]
-    assert {(x["event_id"], x["label"]) for x in looks} == set(decided)
-    dist = [x["distance"] for x in looks]
-    assert dist == sorted(dist)
-    assert all(x["thumb"].startswith("<svg") for x in looks)
+    pulse = s.current()["pulse"]
+    m = pulse["model"]
+    wanted = lookalike_classes(m["prediction_set"], [(q["class"], q["p"]) for q in
+                                                     m["probabilities"]])
+    assert [g["class"] for g in pulse["lookalikes"]] == wanted
+    # brute force over the labelled pulses, in the queue's standardised feature space
+    z = standardised_features(results)
+    rows = {e: i for i, e in enumerate(results["event_id"])}
+    zi = z[rows[pulse["event_id"]]]
+    for g in pulse["lookalikes"]:
+        mine = [e for e, lab in decided if lab == g["class"]]
+        d = {e: float(np.sqrt(np.mean((z[rows[e]] - zi) ** 2))) for e in mine}
+        expect = sorted(mine, key=lambda e: d[e])[:3]
+        assert [x["event_id"] for x in g["items"]] == expect
+        assert all(x["label"] == g["class"] for x in g["items"])
+        assert_allclose([x["distance"] for x in g["items"]], [d[e] for e in expect],
+                        rtol=1e-9)
+        for x in g["items"]:           # the record over the analysis window, as the page draws it
+            t = np.array(x["trace"]["time_s"])
+            assert t[0] >= -40e-6 - 1e-9 and t[-1] <= 160e-6 + 1e-9
+            assert len(t) == len(x["trace"]["field_v_per_m"]) > 100
 
 
 def test_review_command_refuses_bad_input_with_exit_2(triaged, tmp_path, capsys):
@@ -335,8 +380,16 @@ def test_review_command_prints_the_address_and_warns_off_loopback(triaged, tmp_p
     assert "WARNING: listening on 0.0.0.0, which is not a loopback address" in stderr
 
 
-def test_lookalikes_come_from_the_model_with_thumbnails(tmp_path):
-    """With a trained model, the strip shows its labelled training pulses, from their catalog."""
+def test_lookalikes_come_from_the_model_per_class(tmp_path):
+    """With a trained model: per class, its nearest labelled training pulses of THAT class.
+
+    Checked against scikit-learn's ``nan_euclidean_distances`` in the model's
+    standardised space (arcsinh of the robustly scaled features, its documented
+    ``center_`` and ``scale_``), a reference implementation independent of the
+    model's own distance code.
+    """
+    from sklearn.metrics.pairwise import nan_euclidean_distances
+
     from classify.review._lookalike import card_catalog_paths, find_model
 
     a, b, models = tmp_path / "hollowmere-2031", tmp_path / "hollowmere-2032", tmp_path / "m"
@@ -360,12 +413,101 @@ def test_lookalikes_come_from_the_model_with_thumbnails(tmp_path):
                             model=model, catalog_paths=card_catalog_paths(card))
     assert session.info()["lookalike_source"] == "model"
     assert session.n_queued == int(results["needs_review"].sum()) > 0
-    looks = session.current()["pulse"]["lookalikes"]
-    ref = model.reference_.set_index("event_id")
-    assert len(looks) == 5
-    for x in looks:
-        assert x["catalog_id"] == "hollowmere-2031"
-        assert ref.at[x["event_id"], "label"] == x["label"]
-        assert x["thumb"].startswith("<svg")                   # catalog A opened by path
-    dist = [x["distance"] for x in looks]
-    assert dist == sorted(dist)
+    pulse = session.current()["pulse"]
+    m = pulse["model"]
+    assert [g["class"] for g in pulse["lookalikes"]] == lookalike_classes(
+        m["prediction_set"], [(q["class"], q["p"]) for q in m["probabilities"]])
+    ref = model.reference_
+    names = list(model.feature_names_in_)
+    x = results.set_index("event_id").loc[[pulse["event_id"]], names].to_numpy(float)
+    zx = np.arcsinh((x - model.center_) / model.scale_)
+    zr = np.arcsinh((ref[names].to_numpy(float) - model.center_) / model.scale_)
+    d = nan_euclidean_distances(zx, zr)[0]
+    for g in pulse["lookalikes"]:
+        of_class = np.flatnonzero(ref["label"].to_numpy() == g["class"])
+        best = of_class[np.argsort(d[of_class], kind="stable")][:3]
+        assert [x["event_id"] for x in g["items"]] == ref["event_id"].to_numpy()[best].tolist()
+        assert_allclose([x["distance"] for x in g["items"]], d[best], rtol=1e-6)
+        for x in g["items"]:
+            assert x["catalog_id"] == "hollowmere-2031" and x["label"] == g["class"]
+            assert len(x["trace"]["time_s"]) > 100              # catalog A opened by path
+
+
+def _raw_exchange(port, data: bytes) -> bytes:
+    """Send raw bytes on a fresh socket; everything the server answers until it closes."""
+    with socket.create_connection(("127.0.0.1", port), timeout=20) as s:
+        s.sendall(data)
+        chunks = []
+        while True:
+            b = s.recv(65536)
+            if not b:
+                return b"".join(chunks)
+            chunks.append(b)
+
+
+def test_deeply_nested_body_is_refused_with_400_and_the_server_goes_on(served):
+    """60 KB of nested arrays: 400 with a one-line message (not 500), nothing written."""
+    server, c, store, _ = served
+    eid = c.json("GET", "/api/current")[1]["pulse"]["event_id"]
+    body = b"[" * 30_000 + b"]" * 30_000
+    status, headers, data = c.request("POST", "/api/decision", raw=body,
+                                      headers={"Content-Type": "application/json"})
+    assert status == 400 and headers["Content-Type"].startswith("application/json")
+    assert json.loads(data) == {"error": f"body nested deeper than {MAX_JSON_DEPTH} levels"}
+    # the same inside an object that is otherwise a valid decision
+    deep = "[" * 40 + "]" * 40
+    nested = f'{{"event_id": {json.dumps(eid)}, "action": "skip", "note": {deep}}}'
+    status, _, data = c.request("POST", "/api/decision", raw=nested.encode(),
+                                headers={"Content-Type": "application/json"})
+    assert status == 400 and b"nested deeper" in data
+    # brackets inside strings do not count; a shallow body still works
+    status, cur = c.json("POST", "/api/decision", {"event_id": eid, "action": "skip",
+                                                   "note": "[" * 100})
+    assert status == 200 and cur["n_reviewed"] == 1
+    with LabelStore(store) as s:
+        assert s.review_marks()["note"].tolist() == ["[" * 100]
+
+
+def test_json_depth_counts_brackets_outside_strings():
+    """The depth scan skips strings (escaped quotes included) and counts arrays and objects."""
+    assert json_depth("{}") == 1 and json_depth("1") == 0 and json_depth("") == 0
+    assert json_depth('[[1], {"a": [2]}]') == 3
+    assert json_depth(r'{"a": "\"[[[[", "b": [[]]}') == 3
+    assert json_depth("[" * 5000) == 5000
+
+
+def test_malformed_requests_get_a_status_and_a_short_json_message(served):
+    """http.server's own refusals answer with a status line and one line of JSON, no traceback."""
+    server, _, _, _ = served
+    for raw, code in [(b"GARBAGE\r\n\r\n", 400),
+                      (b"GET / HTTP/7.0\r\n\r\n", 505),
+                      (b"GET /" + b"a" * 70_000 + b" HTTP/1.1\r\n\r\n", 414),
+                      (b"PATCH /api/session HTTP/1.1\r\nHost: x\r\n\r\n", 501)]:
+        answer = _raw_exchange(server.port, raw)
+        head, _, body = answer.partition(b"\r\n\r\n")
+        assert head.startswith(b"HTTP/1.") and int(head.split()[1]) == code, (raw[:20], head)
+        msg = json.loads(body)["error"]
+        assert msg and "\n" not in msg and "Traceback" not in msg
+        assert b"Content-Security-Policy" in head
+
+
+def test_two_hundred_concurrent_connections_are_all_answered(served):
+    """200 clients connecting at the same moment all get an answer (listen backlog 128)."""
+    server, c, _, _ = served
+    assert server.request_queue_size == LISTEN_BACKLOG >= 128
+    n = 200
+    barrier = threading.Barrier(n)
+    request = (f"GET /api/session HTTP/1.1\r\nHost: 127.0.0.1:{server.port}\r\n"
+               f"{TOKEN_HEADER}: {server.token}\r\nConnection: close\r\n\r\n").encode()
+
+    def one(_):
+        barrier.wait()
+        try:
+            answer = _raw_exchange(server.port, request)
+        except OSError as exc:  # refused, reset or no answer within the socket timeout
+            return repr(exc)
+        return answer.split(b"\r\n", 1)[0].decode()
+
+    with ThreadPoolExecutor(n) as pool:
+        statuses = list(pool.map(one, range(n)))
+    assert statuses == ["HTTP/1.1 200 OK"] * n, Counter(statuses)

@@ -102,3 +102,17 @@ def test_stacked_bar_chart_heights_add_up():
     assert len(heights) == 3                                # a@0, a@2, b@0
     assert heights[0] + heights[2] == pytest.approx(2 * heights[1], rel=1e-2)
     assert heights[0] * 3 == pytest.approx(heights[2], rel=1e-2)
+
+
+def test_y_tick_labels_leave_room_for_the_axis_label():
+    """Long tick labels (1.0e-05) widen the left margin instead of running into the y label."""
+    svg = svgplot.histogram_chart([np.array([1e-5, 2e-5, 3e-5, 9e-5])], x_label="x",
+                                  y_label="density", density=True)
+    root = _parse(svg)
+    ticks = [t for t in root.iter("{http://www.w3.org/2000/svg}text")
+             if t.get("text-anchor") == "end"]
+    assert ticks and any("e" in t.text for t in ticks)
+    for t in ticks:  # right-aligned at x: starts about 6.6 px per character to its left
+        assert float(t.get("x")) - 6.6 * len(t.text) >= 20, t.text
+    plain = svgplot.line_chart([([0, 1], [0, 1], "a")], x_label="t", y_label="E")
+    assert 'x1="58"' in plain                      # short labels keep the usual margin

@@ -1,32 +1,36 @@
 // pulsesort review page. Plain JavaScript, no libraries, nothing fetched from outside.
-// Every text from the server is shown with textContent (never parsed as HTML); the
-// SVG plots are shown as <img> from blob: URLs, where SVG cannot run scripts.
+// Every text from the server is shown with textContent (never parsed as HTML); the plots
+// are SVG elements drawn by views.js and plot.js from the numbers of the JSON answers.
+// This file holds the page's state: the pulse on screen, the time axis shown (zoom and
+// pan), the decisions, the keys and the help.
 "use strict";
 
 (function () {
+  const P = window.PulsePlot;
+  const V = window.PulseViews;
   const token = new URLSearchParams(window.location.search).get("token") || "";
-  const state = { session: null, current: null, busy: false, blobs: [], classKeys: {} };
+  const state = { session: null, current: null, busy: false, classKeys: {}, view: null,
+                  series: null, src: null, frames: new WeakMap(),
+                  lookPlots: [], drag: null, helpOpen: false, lastFocus: null };
+  const US = V.US;
+  const ZOOM_STEP = 1.5;
 
   function $(id) { return document.getElementById(id); }
 
-  function setText(el, value) { el.textContent = value == null ? "" : String(value); }
-
-  function el(tag, cls, textValue) {
-    const e = document.createElement(tag);
-    if (cls) { e.className = cls; }
-    if (textValue != null) { e.textContent = String(textValue); }
-    return e;
-  }
+  const setText = V.setText;
+  const el = V.el;
+  const fmt = V.fmt;
+  const fixed = V.fixed;
 
   function setPending(on) {
     state.busy = on;
     document.body.dataset.pending = on ? "1" : "0";
   }
 
-  function showMessage(text) {
+  function showMessage(msg) {
     const m = $("message");
-    setText(m, text);
-    m.hidden = !text;
+    setText(m, msg);
+    m.hidden = !msg;
   }
 
   async function api(method, path, body) {
@@ -43,23 +47,72 @@
     return data;
   }
 
-  function svgUrl(svg) {
-    const url = URL.createObjectURL(new Blob([svg], { type: "image/svg+xml" }));
-    state.blobs.push(url);
-    return url;
+  // ------------------------------------------------------------------ view
+
+  // Show [a, b] µs, kept inside the record and no narrower than ten field samples.
+  function setView(a, b) {
+    const full = state.series.full;
+    const w = Math.min(Math.max(b - a, state.series.minWidth), full[1] - full[0]);
+    let lo = a;
+    let hi = b;
+    if (w !== b - a) {
+      const c = (a + b) / 2;
+      lo = c - w / 2;
+      hi = c + w / 2;
+    }
+    if (lo < full[0]) { lo = full[0]; hi = lo + w; }
+    if (hi > full[1]) { hi = full[1]; lo = hi - w; }
+    state.view = [lo, hi];
+    drawTimePlots();
   }
 
-  function setPlot(id, svg) {
-    const img = $(id);
-    if (!svg) { img.hidden = true; img.removeAttribute("src"); return; }
-    img.src = svgUrl(svg);
-    img.hidden = false;
+  function zoom(factor, centre) {
+    if (!state.view) { return; }
+    const a = state.view[0];
+    const b = state.view[1];
+    const c = centre == null ? (a + b) / 2 : centre;
+    setView(c - (c - a) * factor, c + (b - c) * factor);
   }
 
-  function fmt(v, digits) {
-    if (v == null) { return "n/a"; }
-    return Number(v).toPrecision(digits || 3);
+  function pan(frac) {
+    if (!state.view) { return; }
+    const d = (state.view[1] - state.view[0]) * frac;
+    setView(state.view[0] + d, state.view[1] + d);
   }
+
+  function resetView() {
+    if (state.series) { setView(state.series.defaultView[0], state.series.defaultView[1]); }
+  }
+
+  // ------------------------------------------------------------------ time plots
+
+  // The frame of a plot, for the pointer; its time range and plot box as data attributes.
+  function remember(container, f) {
+    state.frames.set(container, f);
+    container.dataset.t0Us = String(f.xlim[0]);
+    container.dataset.t1Us = String(f.xlim[1]);
+    container.dataset.plotLeft = String(f.left);
+    container.dataset.plotRight = String(f.right);
+  }
+
+  function drawTimePlots() {
+    const s = state.series;
+    if (!s) { return; }
+    const v = state.view;
+    remember($("plot-field"), V.drawField($("plot-field"), s, v));
+    const vhf = V.drawVhf($("plot-vhf"), s, v);
+    if (vhf) { remember($("plot-vhf"), vhf); }
+    state.frames.set($("plot-overview"), V.drawOverview($("plot-overview"), s, v));
+    for (const lp of state.lookPlots) {
+      remember(lp.container, V.drawLookalike(lp.container, lp, v));
+    }
+    V.drawAltitude($("plot-altitude"), state.src, v);
+    const w = v[1] - v[0];
+    setText($("view-range"), fixed(v[0], 2) + " to " + fixed(v[1], 2) +
+            " µs (" + P.fmtTick(w, w / 10) + " µs shown)");
+  }
+
+  // ------------------------------------------------------------------ side panels
 
   function renderFeatures(rows) {
     const body = $("feature-rows");
@@ -73,45 +126,81 @@
     }
   }
 
-  function renderLookalikes(items) {
-    const strip = $("lookalike-strip");
-    strip.replaceChildren();
-    if (!items || items.length === 0) {
-      strip.appendChild(el("p", "empty", "No labelled pulses to compare with yet."));
+  function renderQueue(p) {
+    const ul = $("review-reason");
+    ul.replaceChildren();
+    const words = (state.session && state.session.reasons) || {};
+    for (const r of p.model.review_reason) {
+      const li = el("li");
+      li.appendChild(el("b", null, r.replace(/_/g, " ")));
+      if (words[r]) { li.appendChild(el("span", "reason-text", ": " + words[r])); }
+      ul.appendChild(li);
+    }
+    if (!p.model.review_reason.length) { ul.appendChild(el("li", null, "n/a")); }
+    const q = p.queue || {};
+    let line = "queue rank " + p.queue_rank + " of " + state.current.n_queued;
+    if (q.priority != null) {
+      line += " · priority " + fixed(q.priority, 2) + " = " + fixed(q.uncertainty, 2) +
+        " uncertainty + " + fixed(q.novelty_part, 2) + " novelty (" + q.novelty_weight +
+        " × novelty rank " + fixed(q.novelty_rank, 2) + ")";
+    }
+    setText($("queue-rank"), line);
+  }
+
+  function renderLookalikes(groups) {
+    const box = $("lookalike-groups");
+    box.replaceChildren();
+    state.lookPlots = [];
+    const any = groups.some(function (g) { return g.items.length > 0; });
+    if (!any) {
+      box.appendChild(el("p", "empty", "No labelled pulses of these classes to compare with yet."));
       return;
     }
-    for (const item of items) {
-      const card = el("figure", "lookalike");
-      if (item.thumb) {
-        const img = el("img");
-        img.alt = "field change of a labelled look-alike";
-        img.src = svgUrl(item.thumb);
-        card.appendChild(img);
+    const pset = state.current.pulse.model.prediction_set;
+    for (const g of groups) {
+      const sec = el("div", "la-group");
+      const h = el("h3", null, g["class"]);
+      h.appendChild(el("span", "la-why", pset.indexOf(g["class"]) >= 0 ?
+        " in the prediction set" : " among the two most probable classes"));
+      sec.appendChild(h);
+      const row = el("div", "la-row");
+      if (!g.items.length) { row.appendChild(el("p", "empty", "no labelled pulse of this class")); }
+      for (const item of g.items) {
+        const card = el("figure", "lookalike");
+        if (item.trace) {
+          const plot = el("div", "plot la-plot time-plot");
+          card.appendChild(plot);
+          state.lookPlots.push({ container: plot, t: V.toArray(item.trace.time_s, US),
+                                 y: V.toArray(item.trace.field_v_per_m) });
+          attachTimeControls(plot);
+        } else {
+          card.appendChild(el("p", "empty", "record not available (its catalog is not here)"));
+        }
+        const cap = el("figcaption");
+        cap.appendChild(el("b", "label", item.label));
+        cap.appendChild(el("span", "eid", item.event_id));
+        cap.appendChild(el("span", "dist", "distance " + fmt(item.distance, 2)));
+        if (item.catalog_id !== state.session.catalog_id) {
+          cap.appendChild(el("span", "cat", item.catalog_id));
+        }
+        card.appendChild(cap);
+        row.appendChild(card);
       }
-      const cap = el("figcaption");
-      cap.appendChild(el("b", "label", item.label));
-      cap.appendChild(el("span", "eid", item.event_id));
-      cap.appendChild(el("span", "dist", "distance " + fmt(item.distance, 2)));
-      if (item.catalog_id !== state.session.catalog_id) {
-        cap.appendChild(el("span", "cat", item.catalog_id));
-      }
-      card.appendChild(cap);
-      strip.appendChild(card);
+      sec.appendChild(row);
+      box.appendChild(sec);
     }
   }
 
   function renderLast(last) {
     const p = $("last");
-    if (!last) { setText(p, ""); return; }
-    let what = last.action === "label" ? last.label : last.action;
+    if (!last) { setText(p, "no decision yet in this session"); return; }
+    const what = last.action === "label" ? last.label : last.action;
     let line = "last decision: " + last.event_id + " \u2192 " + what;
     if (last.note) { line += " (note: " + last.note + ")"; }
     setText(p, line + "  [z to undo]");
   }
 
   function render(cur) {
-    const old = state.blobs;
-    state.blobs = [];
     state.current = cur;
     setText($("counter"), "reviewed " + cur.n_reviewed + " / queued " + cur.n_queued);
     renderLast(cur.last);
@@ -119,38 +208,46 @@
       $("main").hidden = true;
       $("done").hidden = false;
       document.body.dataset.event = "";
-    } else {
-      $("done").hidden = true;
-      $("main").hidden = false;
-      const p = cur.pulse;
-      document.body.dataset.event = p.event_id;
-      setText($("event-id"), p.event_id);
-      setText($("event-time"), p.time_utc);
-      setText($("flash-id"), p.flash_id || "none");
-      setText($("queue-rank"), p.queue_rank + " (priority " + fmt(p.priority, 3) + ")");
-      const m = p.model;
-      setText($("model-version"), m.version || "n/a");
-      setText($("model-label"), m.label || "n/a");
-      setText($("model-confidence"), m.confidence == null ? "" :
-        "(confidence " + fmt(m.confidence, 3) + ")");
-      setText($("prediction-set"), m.prediction_set.length ? m.prediction_set.join(", ") :
-        "empty");
-      setText($("novelty"), (m.novel ? "NOVEL, " : "") + "score " + fmt(m.novelty_score, 3));
-      setText($("review-reason"), m.review_reason.join(", ") || "n/a");
-      setPlot("plot-field", p.plots.field);
-      setPlot("plot-vhf", p.plots.vhf);
-      setPlot("plot-field-context", p.plots.field_context);
-      setPlot("plot-elevation", p.plots.elevation);
-      setPlot("plot-sky", p.plots.sky);
-      setPlot("plot-probabilities", p.plots.probabilities);
-      const notes = $("notes");
-      notes.replaceChildren();
-      for (const n of p.notes) { notes.appendChild(el("li", null, n)); }
-      renderFeatures(p.features);
-      renderLookalikes(p.lookalikes);
+      state.series = null;
+      return;
     }
-    for (const url of old) { URL.revokeObjectURL(url); }
+    $("done").hidden = true;
+    $("main").hidden = false;
+    const p = cur.pulse;
+    document.body.dataset.event = p.event_id;
+    setText($("event-id"), p.event_id);
+    setText($("event-time"), p.time_utc);
+    setText($("flash-id"), p.flash_id || "none");
+    const m = p.model;
+    setText($("model-version"), m.version || "n/a");
+    setText($("model-label"), m.label || "n/a");
+    setText($("model-confidence"), m.confidence == null ? "" :
+      "(confidence " + fmt(m.confidence, 3) + ")");
+    setText($("prediction-set"), m.prediction_set.length ? m.prediction_set.join(", ") :
+      "empty");
+    setText($("novelty"), (m.novel ? "NOVEL, " : "") + "score " + fmt(m.novelty_score, 3));
+    renderQueue(p);
+    const notes = $("notes");
+    notes.replaceChildren();
+    for (const n of p.notes) { notes.appendChild(el("li", null, n)); }
+    renderFeatures(p.features);
+    state.series = V.prepareSeries(p);
+    state.view = state.series.defaultView.slice();
+    state.src = V.prepareSources(p);
+    V.renderLegend($("legend-field"), state.series, p);
+    renderLookalikes(p.lookalikes);
+    drawAll();
   }
+
+  function drawAll() {
+    if (!state.current || state.current.done) { return; }
+    V.renderProbabilities($("plot-probabilities"), state.current.pulse.model);
+    V.drawSources(state.src);
+    drawTimePlots();
+    V.renderWhy(state.current.pulse);
+  }
+
+  // ------------------------------------------------------------------ decisions
 
   async function run(action) {
     if (state.busy) { return; }
@@ -197,23 +294,120 @@
     }
   }
 
+  // ------------------------------------------------------------------ help
+
+  function buildHelp(s) {
+    const keys = $("help-keys");
+    for (const c of s.classes.slice().reverse()) {
+      if (!c.key) { continue; }
+      const tr = el("tr");
+      const th = el("th");
+      th.appendChild(el("kbd", null, c.key));
+      tr.appendChild(th);
+      tr.appendChild(el("td", null, "label the pulse " + c.name));
+      keys.insertBefore(tr, keys.firstChild);
+    }
+    const dl = $("help-reasons");
+    dl.replaceChildren();
+    for (const code of Object.keys(s.reasons || {})) {
+      dl.appendChild(el("dt", null, code.replace(/_/g, " ")));
+      dl.appendChild(el("dd", null, s.reasons[code]));
+    }
+    const ul = $("help-priority");
+    ul.replaceChildren();
+    for (const line of s.priority_rule || []) { ul.appendChild(el("li", null, line)); }
+  }
+
+  function openHelp() {
+    state.lastFocus = document.activeElement;
+    $("help").hidden = false;
+    state.helpOpen = true;
+    document.body.dataset.help = "1";
+    $("help-close").focus();
+  }
+
+  function closeHelp() {
+    $("help").hidden = true;
+    state.helpOpen = false;
+    document.body.dataset.help = "0";
+    if (state.lastFocus && state.lastFocus.focus) { state.lastFocus.focus(); }
+  }
+
+  // ------------------------------------------------------------------ input
+
+  function attachTimeControls(container) {
+    container.addEventListener("wheel", function (ev) {
+      const f = state.frames.get(container);
+      if (!f || !state.view) { return; }
+      ev.preventDefault();
+      const r = container.getBoundingClientRect();
+      const centre = f.xinv(ev.clientX - r.left);
+      zoom(ev.deltaY > 0 ? ZOOM_STEP : 1 / ZOOM_STEP, centre);
+    }, { passive: false });
+    container.addEventListener("pointerdown", function (ev) {
+      const f = state.frames.get(container);
+      if (!f || ev.button !== 0) { return; }
+      state.drag = { x: ev.clientX, view: state.view.slice(), px: f.right - f.left };
+      container.setPointerCapture(ev.pointerId);
+    });
+    container.addEventListener("pointermove", function (ev) {
+      const d = state.drag;
+      if (!d) { return; }
+      const shift = -(ev.clientX - d.x) / d.px * (d.view[1] - d.view[0]);
+      setView(d.view[0] + shift, d.view[1] + shift);
+    });
+    const stop = function () { state.drag = null; };
+    container.addEventListener("pointerup", stop);
+    container.addEventListener("pointercancel", stop);
+  }
+
+  function onOverviewClick(ev) {
+    const c = $("plot-overview");
+    const f = state.frames.get(c);
+    if (!f || !state.view) { return; }
+    const t = f.xinv(ev.clientX - c.getBoundingClientRect().left);
+    const w = state.view[1] - state.view[0];
+    setView(t - w / 2, t + w / 2);
+  }
+
   function onKey(ev) {
     if (ev.ctrlKey || ev.metaKey || ev.altKey) { return; }
-    const inNote = ev.target && ev.target.id === "note";
-    if (inNote) {
-      if (ev.key === "Escape") { ev.target.blur(); ev.preventDefault(); }
+    const k = ev.key;
+    if (state.helpOpen) {
+      if (k === "Escape" || k === "?") { closeHelp(); ev.preventDefault(); }
       return;
     }
-    const k = ev.key;
-    if (state.classKeys[k]) { decide("label", state.classKeys[k]); }
+    const inNote = ev.target && ev.target.id === "note";
+    if (inNote) {
+      if (k === "Escape") { ev.target.blur(); ev.preventDefault(); }
+      return;
+    }
+    if (k === "?") { openHelp(); }
+    else if (state.classKeys[k]) { decide("label", state.classKeys[k]); }
     else if (k === "u" || k === "U") { decide("unsure"); }
     else if (k === "s" || k === "S") { decide("skip"); }
     else if (k === "z" || k === "Z" || k === "Backspace") { undo(); }
+    else if (k === "+" || k === "=") { zoom(1 / ZOOM_STEP); }
+    else if (k === "-" || k === "_") { zoom(ZOOM_STEP); }
+    else if (k === "ArrowLeft") { pan(-0.25); }
+    else if (k === "ArrowRight") { pan(0.25); }
+    else if (k === "0") { resetView(); }
     else { return; }
     ev.preventDefault();
   }
 
+  let resizePending = false;
+  function onResize() {
+    if (resizePending) { return; }
+    resizePending = true;
+    window.requestAnimationFrame(function () { resizePending = false; drawAll(); });
+  }
+
   async function start() {
+    $("btn-help").addEventListener("click", openHelp);
+    $("help-close").addEventListener("click", closeHelp);
+    $("help").addEventListener("click", function (ev) { if (ev.target === $("help")) { closeHelp(); } });
+    document.addEventListener("keydown", onKey);
     if (!token) {
       showMessage("This address has no session token: open the address printed by " +
                   "'pulsesort review'.");
@@ -227,8 +421,10 @@
       setText($("catalog-id"), s.catalog_id);
       setText($("analyst"), s.analyst);
       setText($("lookalike-source"), s.lookalike_source === "model" ?
-        "(the model's labelled training pulses)" : "(labelled pulses of this catalog)");
+        "(nearest labelled training pulses of the model, per class)" :
+        "(nearest labelled pulses of this catalog, per class)");
       buildButtons(s.classes);
+      buildHelp(s);
       render(await api("GET", "/api/current"));
     } catch (err) {
       showMessage(err.message);
@@ -238,7 +434,15 @@
     $("btn-unsure").addEventListener("click", function () { decide("unsure"); });
     $("btn-skip").addEventListener("click", function () { decide("skip"); });
     $("btn-undo").addEventListener("click", undo);
-    document.addEventListener("keydown", onKey);
+    $("zoom-in").addEventListener("click", function () { zoom(1 / ZOOM_STEP); });
+    $("zoom-out").addEventListener("click", function () { zoom(ZOOM_STEP); });
+    $("pan-left").addEventListener("click", function () { pan(-0.25); });
+    $("pan-right").addEventListener("click", function () { pan(0.25); });
+    $("zoom-reset").addEventListener("click", resetView);
+    attachTimeControls($("plot-field"));
+    attachTimeControls($("plot-vhf"));
+    $("plot-overview").addEventListener("click", onOverviewClick);
+    window.addEventListener("resize", onResize);
   }
 
   document.addEventListener("DOMContentLoaded", start);
