@@ -2,7 +2,7 @@
 
 Each catalogued pulse is a Heidler current launched as a TL/MTLE wave on a short vertical
 channel; its vertical field at the ground (electrostatic, induction and radiation terms,
-ground image included; :mod:`features.dipole`) passes through the fast antenna's RC
+ground image included; :mod:`.dipole`) passes through the fast antenna's RC
 decay and a digitizer (noise, quantisation, clipping). Its VHF power is tied to the
 breakdown (``|di/dt|``, plus a plateau while a fast front moves) and the mapped VHF
 sources lie along the moving front, with angular (and optionally 3-D) noise. Pulses come
@@ -25,10 +25,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..dipole import HeidlerCurrent, current_moment_a_m, sampled_channel_field_terms
 from ._classes import CLASSES, MARGIN, MARGIN_FRACTION, PARAMS
 from ._settings import PRESETS, Settings, resolve_settings
 from ._writer import event_order, event_table, iter_blocks, replace_atomically, write_season
+from .dipole import HeidlerCurrent, current_moment_a_m, sampled_channel_field_terms
 
 __all__ = ["CLASSES", "MARGIN", "MARGIN_FRACTION", "PARAMS", "PRESETS", "Settings",
            "draw_season", "labels_path", "pulse_fields", "resolve_settings",

@@ -1,7 +1,7 @@
 """Physical parameters of the four pulse classes, drawn per pulse.
 
 Every pulse is a Heidler current (steepness 2) launched on a short vertical channel as a
-TL/MTLE current wave (:mod:`features.dipole`), seen at the ground. Where the VHF
+TL/MTLE current wave (:mod:`.dipole`), seen at the ground. Where the VHF
 sources of a pulse come from a different, slower front (a leader tip), its speed is
 ``front_speed_m_per_s``. The ranges below are starting points recalled from the
 literature and then tuned so that the simulated observables (last column) fall in the

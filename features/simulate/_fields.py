@@ -2,7 +2,7 @@
 
 Every pulse's field is computed once on its own short support, on a fine time grid
 (:func:`fine_rate_hz`, an integer multiple of the record's rate): the dipole field of its
-TL/MTLE channel (:func:`features.dipole.sampled_vertical_field_v_per_m`), the digitizer's
+TL/MTLE channel (:func:`.dipole.sampled_vertical_field_v_per_m`), the digitizer's
 averaging over one sample interval (a centred trapezoid of one sample period, the
 anti-alias filter) and the fast antenna's RC decay (first-order high-pass, time constant
 ``decay_time_s``). After its support a
@@ -23,7 +23,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage, signal
 
-from ..dipole import (
+from .dipole import (
     SPEED_OF_LIGHT_M_PER_S,
     HeidlerCurrent,
     element_field_factors,

@@ -16,7 +16,6 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
-from ..dipole import SPEED_OF_LIGHT_M_PER_S
 from ._fields import (
     PAD,
     assemble_windows,
@@ -29,6 +28,7 @@ from ._fields import (
     vhf_support_samples,
     vhf_supports,
 )
+from .dipole import SPEED_OF_LIGHT_M_PER_S
 
 __all__ = ["BlockRenderer", "clip_counts", "digitize_field", "digitize_vhf", "sources_table"]
 

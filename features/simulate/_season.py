@@ -31,7 +31,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..dipole import SPEED_OF_LIGHT_M_PER_S, HeidlerCurrent
 from ._classes import CLASSES, MARGIN_FRACTION
 from ._flashes import (
     EIP,
@@ -46,6 +45,7 @@ from ._flashes import (
     ic_flash,
     nbe_pulse,
 )
+from .dipole import SPEED_OF_LIGHT_M_PER_S, HeidlerCurrent
 
 __all__ = ["BLOCK_EVENTS", "PULSE_COLUMNS", "SeasonClock", "block_quotas", "generate_block"]
 
