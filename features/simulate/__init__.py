@@ -137,12 +137,12 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
 
 
 _TRUTH = {  # truth column -> pulse column
-    "altitude_start_m": "z0_m", "channel_direction": "zdir", "channel_length_m": "length_m",
-    "wave_speed_m_per_s": "speed_m_per_s", "decay_length_m": "lambda_m",
-    "peak_current_a": "peak_a", "rise_s": "rise_s", "decay_s": "decay_s",
-    "vhf_peak_db": "vhf_db", "front_speed_m_per_s": "fv",
-    "front_x0_m": "f0x", "front_y0_m": "f0y", "front_z0_m": "f0z",
-    "front_ux": "fux", "front_uy": "fuy", "front_uz": "fuz",
+    "altitude_start_m": "z0_m", "channel_direction": "channel_direction",
+    "channel_length_m": "length_m", "wave_speed_m_per_s": "speed_m_per_s",
+    "decay_length_m": "decay_length_m", "peak_current_a": "peak_a", "rise_s": "rise_s",
+    "decay_s": "decay_s", "vhf_peak_db": "vhf_peak_db",
+    **{f"front_{k}": f"front_{k}" for k in ("speed_m_per_s", "x0_m", "y0_m", "z0_m", "ux",
+                                            "uy", "uz")},
 }
 
 
@@ -166,12 +166,12 @@ def draw_season(n_events, seed, *, preset="reference", **settings) -> pd.DataFra
     for _, p, starts, first_flash, _ in iter_blocks(s, n_events, seed):
         ev = event_order(p)
         df = event_table(s, p, ev, starts, first_flash, row0, n_events)
-        df["label"] = [CLASSES[c] for c in p["cls"][ev]]
+        df["label"] = [CLASSES[c] for c in p["class_index"][ev]]
         df["margin"] = p["margin"][ev]
         for name, col in _TRUTH.items():
             df[name] = p[col][ev]
-        df["front_t0_s"] = p["ft0"][ev] - p["trigger_s"][ev]
-        df["front_t1_s"] = p["ft1"][ev] - p["trigger_s"][ev]
+        df["front_t0_s"] = p["front_t0_s"][ev] - p["trigger_s"][ev]
+        df["front_t1_s"] = p["front_t1_s"][ev] - p["trigger_s"][ev]
         df["distance_m"] = np.hypot(p["x_m"][ev], p["y_m"][ev])
         df["slant_m"] = p["slant_m"][ev]
         frames.append(df)

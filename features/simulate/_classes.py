@@ -108,26 +108,26 @@ PARAMS: dict[str, dict[str, Range]] = {
         "peak_a": _log(35e3, 140e3), "rise_s": _log(0.4e-6, 1.5e-6),
         "decay_s": _log(1.5e-6, 4e-6), "length_m": Range(300.0, 1000.0),
         "speed_m_per_s": _log(5e7, 1.5e8), "decay_ratio": Range(0.25, 0.6),
-        "vhf_db": Range(25.0, 40.0), "plateau_db": Range(-10.0, -6.0),
+        "vhf_peak_db": Range(25.0, 40.0), "plateau_db": Range(-10.0, -6.0),
     },
     "stepped_leader": {
         "peak_a": _log(1.5e3, 10e3), "rise_s": _log(0.1e-6, 0.4e-6),
         "decay_s": _log(0.3e-6, 1.2e-6), "length_m": Range(50.0, 300.0),
         "speed_m_per_s": _log(5e7, 1.5e8), "decay_ratio": Range(0.5, 1.5),
-        "vhf_db": Range(0.0, 12.0),
+        "vhf_peak_db": Range(0.0, 12.0),
     },
     "recoil": {
         "peak_a": _log(8e3, 40e3), "rise_s": _log(0.3e-6, 1.0e-6),
         "decay_s": _log(1.0e-6, 3.0e-6), "length_m": Range(300.0, 1000.0),
         "speed_m_per_s": _log(2e7, 8e7), "decay_ratio": Range(0.2, 0.5),
-        "vhf_db": Range(6.0, 16.0), "plateau_db": Range(-9.0, -5.0),
+        "vhf_peak_db": Range(6.0, 16.0), "plateau_db": Range(-9.0, -5.0),
         "front_speed_m_per_s": _log(1e6, 2e7), "path_m": Range(500.0, 3000.0),
     },
     "energetic_in_cloud": {
         "peak_a": _log(100e3, 400e3), "rise_s": _log(4e-6, 14e-6),
         "decay_s": _log(10e-6, 30e-6), "length_m": Range(1000.0, 3000.0),
         "speed_m_per_s": _log(8e7, 2e8), "decay_ratio": Range(0.8, 2.0),
-        "vhf_db": Range(4.0, 14.0),
+        "vhf_peak_db": Range(4.0, 14.0),
     },
 }
 
@@ -135,19 +135,19 @@ PARAMS: dict[str, dict[str, Range]] = {
 MARGIN: dict[str, dict[str, Range]] = {
     "narrow_bipolar": {  # towards a small energetic in-cloud pulse
         "peak_a": _log(80e3, 150e3), "rise_s": _log(1.5e-6, 3e-6),
-        "decay_s": _log(4e-6, 8e-6), "vhf_db": Range(12.0, 22.0),
+        "decay_s": _log(4e-6, 8e-6), "vhf_peak_db": Range(12.0, 22.0),
     },
     "energetic_in_cloud": {  # towards a big narrow bipolar event
         "peak_a": _log(60e3, 120e3), "rise_s": _log(1.5e-6, 3.5e-6),
-        "decay_s": _log(4e-6, 9e-6), "vhf_db": Range(12.0, 24.0),
+        "decay_s": _log(4e-6, 9e-6), "vhf_peak_db": Range(12.0, 24.0),
     },
     "stepped_leader": {  # towards a narrow recoil
         "peak_a": _log(5e3, 15e3), "rise_s": _log(0.3e-6, 0.6e-6),
-        "decay_s": _log(1.0e-6, 2.2e-6), "vhf_db": Range(6.0, 14.0),
+        "decay_s": _log(1.0e-6, 2.2e-6), "vhf_peak_db": Range(6.0, 14.0),
     },
     "recoil": {  # towards a wide stepped-leader pulse
         "peak_a": _log(3e3, 10e3), "rise_s": _log(0.15e-6, 0.4e-6),
-        "decay_s": _log(0.5e-6, 1.2e-6), "vhf_db": Range(2.0, 10.0),
+        "decay_s": _log(0.5e-6, 1.2e-6), "vhf_peak_db": Range(2.0, 10.0),
         "front_speed_m_per_s": _log(6e5, 1.5e6), "plateau_db": Range(-18.0, -12.0),
     },
 }

@@ -119,8 +119,8 @@ def field_supports(p, idx, s) -> Supports:
         z0 = p["z0_m"][sel]
         e = sampled_vertical_field_v_per_m(
             *cur.current_and_derivative(t), fine_hz,
-            np.hypot(p["x_m"][sel], p["y_m"][sel]), z0, z0 + p["zdir"][sel] * p["length_m"][sel],
-            p["speed_m_per_s"][sel], p["lambda_m"][sel])
+            np.hypot(p["x_m"][sel], p["y_m"][sel]), z0, z0 + p["channel_direction"][sel] * p["length_m"][sel],
+            p["speed_m_per_s"][sel], p["decay_length_m"][sel])
         if ratio > 1:  # the digitizer's average over one sample period
             box = np.ones(ratio + 1)
             box[[0, -1]] = 0.5
@@ -145,9 +145,9 @@ def static_change_v_per_m(p, idx, n_elements=48):
     total_q = cur.charge_c(cur.peak_time_s + 40.0 * p["decay_s"][idx])
     length = p["length_m"][idx]
     s_el = (np.arange(n_elements) + 0.5) / n_elements * length[:, None]
-    z = p["z0_m"][idx, None] + p["zdir"][idx, None] * s_el
+    z = p["z0_m"][idx, None] + p["channel_direction"][idx, None] * s_el
     f_es, _, _, _ = element_field_factors(z, np.hypot(p["x_m"][idx], p["y_m"][idx])[:, None])
-    w = np.exp(-s_el / p["lambda_m"][idx, None]) * (length / n_elements)[:, None]
+    w = np.exp(-s_el / p["decay_length_m"][idx, None]) * (length / n_elements)[:, None]
     return total_q * np.sum(f_es * w, axis=1)
 
 
@@ -166,7 +166,7 @@ def vhf_supports(p, idx, s) -> Supports:
     rate = np.full(idx.size, fine)
     n = vhf_support_samples({k: v[idx] for k, v in p.items()}, fine)
     sup = Supports(rate, p["arrival_s"][idx] - PAD / fine, n)
-    received = 10.0 ** (p["vhf_db"] / 10.0) * (1e5 / p["slant_m"]) ** 2
+    received = 10.0 ** (p["vhf_peak_db"] / 10.0) * (1e5 / p["slant_m"]) ** 2
     for k, _, length in _batches(rate, n):
         sel = idx[k]
         t = (np.arange(length) - PAD) / fine

@@ -28,6 +28,7 @@ from ._fields import (
     vhf_support_samples,
     vhf_supports,
 )
+from ._flashes import FRONT_FIELDS
 from .dipole import SPEED_OF_LIGHT_M_PER_S
 
 __all__ = ["BlockRenderer", "clip_counts", "digitize_field", "digitize_vhf", "sources_table"]
@@ -43,7 +44,7 @@ class BlockRenderer:
 
     def __init__(self, p, s):
         self.p, self.s = p, s
-        ev = np.flatnonzero(p["cat"])
+        ev = np.flatnonzero(p["catalogued"])
         self.ev_idx = ev[np.lexsort((p["trigger_s"][ev], p["flash"][ev]))]
         self._setup_field()
         if s.with_vhf:
@@ -183,16 +184,15 @@ def sources_table(p, ev_idx, s, rng):
     counts = rng.poisson(p["n_src_mean"][ev_idx])
     row = np.repeat(np.arange(ev_idx.size), counts)
     q = ev_idx[row]
-    branch = ~np.isnan(p["bt0"][q]) & (rng.random(q.size) < p["b_share"][q])
-    names = ("0x", "0y", "0z", "ux", "uy", "uz", "v", "t0", "t1")
-    geo = {n: np.where(branch, p["b" + n][q], p["f" + n][q]) for n in names}
+    branch = ~np.isnan(p["branch_t0_s"][q]) & (rng.random(q.size) < p["branch_share"][q])
+    geo = {k: np.where(branch, p["branch_" + k][q], p["front_" + k][q]) for k in FRONT_FIELDS}
     travel = p["slant_m"][q] / c  # emission-to-arrival time, nearly constant in a window
-    t_a = np.maximum(geo["t0"], lo[row] - travel)
-    t_b = np.minimum(geo["t1"], hi[row] - travel)
+    t_a = np.maximum(geo["t0_s"], lo[row] - travel)
+    t_b = np.minimum(geo["t1_s"], hi[row] - travel)
     ok = t_b > t_a
     t_e = t_a + rng.random(q.size) * (t_b - t_a)
-    dt = (t_e - geo["t0"]) * geo["v"]
-    xyz = np.stack([geo["0" + k] + geo["u" + k] * dt for k in "xyz"], axis=1)
+    path_m = (t_e - geo["t0_s"]) * geo["speed_m_per_s"]  # distance along the front
+    xyz = np.stack([geo[f"{k}0_m"] + geo[f"u{k}"] * path_m for k in "xyz"], axis=1)
     arrival = t_e + np.linalg.norm(xyz, axis=1) / c
     horiz = np.hypot(xyz[:, 0], xyz[:, 1])
     el = np.degrees(np.arctan2(xyz[:, 2], horiz))
@@ -202,7 +202,7 @@ def sources_table(p, ev_idx, s, rng):
     az_n = np.mod(az + sig / np.maximum(np.cos(np.radians(el)), 0.1)
                   * rng.standard_normal(q.size), 360.0)
     az_n = np.where(az_n >= 360.0, 0.0, az_n)
-    received = 10.0 ** (p["vhf_db"][q] / 10.0) * (1e5 / p["slant_m"][q]) ** 2
+    received = 10.0 ** (p["vhf_peak_db"][q] / 10.0) * (1e5 / p["slant_m"][q]) ** 2
     power_db = (10.0 * np.log10(s.vhf_gain * received) - rng.exponential(6.0, q.size)
                 + rng.standard_normal(q.size))
     xyz_n = xyz + s.xyz_noise_m * rng.standard_normal(xyz.shape)

@@ -170,18 +170,18 @@ def generate_block(s, quotas, rng, clock: SeasonClock):
         if sp["kind"] == "nbe":
             rows = nbe_pulse(rng, flash_xy(rng, s.range_km), 0.0, rng.random() < 0.7,
                               margin=False)
-            rows["cat"][:] = True
+            rows["catalogued"][:] = True
             got = [rows]
         elif sp["kind"] == "ic":
             got = ic_flash(rng, s, sp)
         else:
             got = cg_flash(rng, s, sp)
-        n_sl = sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
+        n_sl = sum(int((p["catalogued"] & (p["class_index"] == SL)).sum()) for p in got)
         sl_short += sp["k_sl"] + sp["k_sl_dart"] - n_sl
         _append_flash(got, pieces, starts, clock)
     while sl_short > 0:  # leaders too short for their share: more CG flashes
         got = cg_flash(rng, s, spec("cg", k_sl=sl_short))
-        sl_short -= sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
+        sl_short -= sum(int((p["catalogued"] & (p["class_index"] == SL)).sum()) for p in got)
         _append_flash(got, pieces, starts, clock)
     pulses = concat(pieces)
     order = np.lexsort((pulses["t_s"], pulses["flash"]))
@@ -196,7 +196,7 @@ def _append_flash(got, pieces, starts, clock):
     flash = len(starts)
     starts.append(clock.next_flash_ns())
     for p in got:
-        p["flash"] = np.full(p["cls"].size, flash)
+        p["flash"] = np.full(p["class_index"].size, flash)
         pieces.append(p)
 
 

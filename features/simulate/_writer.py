@@ -49,7 +49,7 @@ def iter_blocks(s, n_events, seed):
 
 def event_order(p):
     """Pulse indices of the catalogued pulses in record order (flash, then trigger)."""
-    ev = np.flatnonzero(p["cat"])
+    ev = np.flatnonzero(p["catalogued"])
     return ev[np.lexsort((p["trigger_s"][ev], p["flash"][ev]))]
 
 
@@ -155,7 +155,7 @@ def write_season(folder: Path, labels_path: Path, s, n_events: int, seed: int) -
         _append_csv(events, folder / "events.csv", b == 0)
         labels = pd.DataFrame({
             "event_id": events["event_id"],
-            "label": [CLASSES[c] for c in p["cls"][ev_idx]],
+            "label": [CLASSES[c] for c in p["class_index"][ev_idx]],
             "analyst": "truth", "decided_at": decided_at,
             "note": np.where(p["margin"][ev_idx], "simulated; margin", "simulated")})
         _append_csv(labels, labels_path, b == 0)
@@ -172,7 +172,7 @@ def write_season(folder: Path, labels_path: Path, s, n_events: int, seed: int) -
             cols["power_db"] = np.round(src["power_db"], 2)
             _append_csv(pd.DataFrame(cols), folder / "sources.csv", b == 0)
             n_sources += src["row"].size
-        for c, k in zip(CLASSES, np.bincount(p["cls"][ev_idx], minlength=4), strict=True):
+        for c, k in zip(CLASSES, np.bincount(p["class_index"][ev_idx], minlength=4), strict=True):
             counts[c] += int(k)
         n_flashes += len(np.unique(p["flash"][ev_idx]))
         row0 += r.n_rows
