@@ -71,6 +71,23 @@ class Supports:
     def end_s(self):
         return self.start_s + (self.n - 1) / self.rate_hz
 
+    @classmethod
+    def join(cls, parts):
+        """New supports holding pulses ``k`` of each ``(supports, k)`` in ``parts``, in order."""
+        rate = np.concatenate([sup.rate_hz[k] for sup, k in parts])
+        start = np.concatenate([sup.start_s[k] for sup, k in parts])
+        n = np.concatenate([sup.n[k] for sup, k in parts])
+        out = cls(rate, start, n)
+        o = 0
+        for sup, k in parts:
+            for kk in np.asarray(k).tolist():  # one copy per pulse
+                length = int(sup.n[kk])
+                out.data[out.offset[o]:out.offset[o] + length] = \
+                    sup.data[sup.offset[kk]:sup.offset[kk] + length]
+                out.end_value[o] = sup.end_value[kk]
+                o += 1
+        return out
+
     def put(self, k, rows):
         """Store rows (2-D, equal lengths) as the supports of pulses ``k``."""
         for row, kk in zip(rows, k, strict=True):
