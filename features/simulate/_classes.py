@@ -36,19 +36,20 @@ energetic_in_cloud  peak current 100-400 kA (log),         bipolar; half-cycle 1
                     1-3 km at 8e7-2e8 m/s (log), lambda    for the size); sources on the
                     0.8-2 x channel; altitude 8-13 km;     upward negative leader
                     leader tip 1e5-1e6 m/s (log)
-return_stroke       first: 10-50 kA (log), rise 1-4 us     first: slow front (10-90 % 1.3-4.3
-(extra class)       (log), decay 40-100 us (log), TL/MTLE  us), mostly unipolar (overshoot
-                    from the ground up the leader's        6-20 %), zero crossing 28-60 us at
-                    height at 8e7-1.6e8 m/s (log), lambda  50-200 km, ~6 V/m at 100 km for 30
-                    0.25-0.55 x height; subsequent: 5-30   kA; subsequent: rise 0.35-0.8 us,
-                    kA, rise 0.2-0.6 us, decay 20-40 us,   zero crossing 20-23 us; VHF 0-8 dB;
-                    1e8-2e8 m/s (all log)                  sources up the leader channel
+return_stroke       first: 10-50 kA (log), rise 1-4 us     mostly unipolar (opposite
+(extra class)       (log), decay 40-100 us (log), TL/MTLE  overshoot 10-18-28 %), 10-90 %
+                    from the ground up the leader's        rise 0.4-0.75-3.8 us, zero
+                    height at 8e7-1.6e8 m/s (log), lambda  crossing 15-27-54 us after the
+                    0.25-0.55 x height; subsequent: 5-30   onset, peak 1.3-3.3-9.6 V/m
+                    kA, rise 0.2-0.6 us, decay 20-40 us,   (first and subsequent strokes
+                    1e8-2e8 m/s (all log)                  together); VHF 0-8 dB; sources
+                                                           up the leader channel
 initial_breakdown   10-60 kA (log), upward-directed;       bipolar, the return stroke's
 (extra class)       rise 0.8-2 us, decay 3-6 us (log);     initial polarity; total width
-                    wave 600-1200 m down from the          30-45 us above 5 % of the peak,
-                    leader start at 4e7-1e8 m/s (log),     first half-cycle 9-13 us; 1-5 V/m
-                    lambda 0.7-1.3 x channel; trains of    at 100 km; VHF 10-22 dB
-                    3-12 pulses 70-130 us apart in the
+                    wave 600-1200 m down from the          18-27-39 us above 5 % of the
+                    leader tip at 4e7-1e8 m/s (log),       peak, first half-cycle 6-8.5-12
+                    lambda 0.7-1.3 x channel; trains of    us, peak 0.9-2.6-8.3 V/m; VHF
+                    3-12 pulses 70-130 us apart in the     10-22 dB
                     first ~1.5 ms of CG flashes
 ==================  =====================================  ==================================
 

@@ -17,8 +17,9 @@
   sferic. First or subsequent strokes at equal odds, 10 % of positive polarity; no VHF,
   no mapped sources (too far for the mapping).
 - **Mapping outages**: ``mapping_outage_fraction`` of events lose their sources at random;
-  ``mapping_down_fraction`` of the season's time the mapping is down, in stretches of
-  Exp(6 h) (up stretches Exp(6 h x (1 - f) / f)); events inside lose their sources.
+  ``mapping_down_fraction`` f of the season's time the mapping is down, in stretches of
+  Exp(6 h) (up stretches Exp(6 h x (1 - f) / f), the first stretch down with
+  probability f); events inside lose their sources.
 
 The stretch lengths and the sferic ranges are our choice (common practice, no source).
 """
@@ -134,17 +135,23 @@ def add_sferics(p, s, rng):
 
 
 class MappingDown:
-    """Stretches of the season when the mapping is down (deterministic from a seed)."""
+    """Stretches of the season when the mapping is down (deterministic from a seed).
+
+    Alternating down and up stretches, Exp(6 h) and Exp(6 h x (1 - f) / f) long; the
+    first one is down with probability ``f`` (the stationary state).
+    """
 
     def __init__(self, fraction, start_ns, rng):
         self.fraction = float(fraction)
         self.rng = rng
-        self.edges = [int(start_ns)]  # alternating: up from edges[0], down from edges[1]...
+        self.edges = [int(start_ns)]  # stretch j covers edges[j]..edges[j+1]
+        self.first_down = bool(rng.random() < self.fraction) if self.fraction > 0 else False
 
     def _extend(self, until_ns):
         mean_up = MAPPING_DOWN_MEAN_S * (1 - self.fraction) / self.fraction
         while self.edges[-1] <= until_ns:
-            mean = mean_up if len(self.edges) % 2 == 1 else MAPPING_DOWN_MEAN_S
+            down = self.first_down != ((len(self.edges) - 1) % 2 == 1)
+            mean = MAPPING_DOWN_MEAN_S if down else mean_up
             self.edges.append(self.edges[-1] + int(self.rng.exponential(mean) * 1e9) + 1)
 
     def is_down(self, t_ns) -> np.ndarray:
@@ -153,5 +160,5 @@ class MappingDown:
         if self.fraction <= 0 or t_ns.size == 0:
             return np.zeros(t_ns.shape, bool)
         self._extend(int(t_ns.max()))
-        k = np.searchsorted(np.array(self.edges, np.int64), t_ns, "right")
-        return (k % 2 == 0) & (t_ns >= self.edges[0])
+        j = np.searchsorted(np.array(self.edges, np.int64), t_ns, "right") - 1
+        return (self.first_down != (j % 2 == 1)) & (j >= 0)

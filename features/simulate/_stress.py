@@ -118,7 +118,7 @@ def stress_settings(member) -> dict:
     out.update(field_rate_hz=rate, field_samples=int(round(record_s * rate)), pretrigger_s=pre,
                units="counts", scale=scale,
                field_noise_v_per_m=_sig(rng.uniform(0.3, 1.0) * scale),
-               full_scale=(2 ** (bits - 1) - 1) * scale,
+               full_scale=round((2 ** (bits - 1) - 1) * scale, 6),
                sign_convention=str(rng.choice(["physics", "atmospheric"])),
                decay_time_s=None if rng.random() < 0.3 else _sig(_log(rng, 1e-4, 1e-3)),
                field_delay_s=round(rng.uniform(0.0, 1e-6), 9))

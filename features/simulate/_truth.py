@@ -5,8 +5,8 @@ For a TL/MTLE channel of length ``L``, front speed ``v`` and decay length ``lamb
 is ``M(t) = integral i dz = v integral_0^min(t, L/v) exp(-v tau / lambda) i0(t - tau)
 dtau`` and the charge moment change ``integral M dt = Q lambda (1 - exp(-L/lambda))``
 (``Q L`` for TL), with ``Q`` the total charge of ``i0``. The first is evaluated
-numerically (composite Gauss-Legendre in ``tau`` on a time grid refined around the
-peak), the second in closed form.
+numerically (composite Gauss-Legendre over the current's time, on a time grid refined
+around the peak), the second in closed form.
 """
 
 from __future__ import annotations
@@ -19,19 +19,28 @@ from ._currents import HeidlerCurrent
 __all__ = ["charge_moment_change_c_m", "current_moment_peak_a_m"]
 
 _X, _W = leggauss(16)
-_PANELS = 8
-_CHUNK = 512  # pulses per batch (memory: chunk x times x panels x nodes)
+_CHUNK = 128  # pulses per batch (memory: chunk x times x panels x nodes)
 
 
 def _moment(t, cur, length, speed, lam):
-    """M(t) in A m at times ``t`` (shape (n, m)) for pulses with parameters (n, 1)."""
-    upper = np.minimum(t, (length / speed)[:, None])  # (n, m)
-    edges = upper[..., None] * (np.arange(_PANELS + 1) / _PANELS)
+    """M(t) in A m at times ``t`` (shape (n, m)) for pulses with parameters (n,).
+
+    ``M(t) = v integral_{max(0, t - L/v)}^{t} exp(-v (t - u) / lambda) i0(u) du``, on
+    panels growing geometrically from the current's start (as ``charge_c`` does).
+    """
+    u_hi = t
+    u_lo = np.maximum(t - (length / speed)[:, None], 0.0)
+    scale = np.minimum(cur[1], cur[2])[:, None, None]
+    k_max = int(np.ceil(np.log2(max(float(np.max(u_hi[..., None] / scale)), 1.0)))) + 1
+    grow = scale * 2.0 ** np.arange(-1, k_max + 1)
+    edges = np.concatenate([u_lo[..., None],
+                            np.clip(grow, u_lo[..., None], u_hi[..., None]),
+                            u_hi[..., None]], axis=-1)
     half = 0.5 * np.diff(edges, axis=-1)  # (n, m, panels)
-    tau = (edges[..., :-1] + half)[..., None] + half[..., None] * _X  # (n, m, P, 16)
+    u = (edges[..., :-1] + half)[..., None] + half[..., None] * _X  # (n, m, P, 16)
     ex = (slice(None), None, None, None)
-    w = np.exp(-speed[ex] * tau / lam[ex])
-    i = HeidlerCurrent(*(x[ex] for x in cur)).current_a(t[..., None, None] - tau)
+    w = np.exp(-speed[ex] * (t[..., None, None] - u) / lam[ex])
+    i = HeidlerCurrent(*(x[ex] for x in cur)).current_a(u)
     return speed[:, None] * np.sum(w * i * _W * half[..., None], axis=(-2, -1))
 
 
@@ -61,7 +70,7 @@ def current_moment_peak_a_m(peak_a, rise_s, decay_s, length_m, speed_m_per_s,
         t_peak = HeidlerCurrent(1.0, t1, t2).peak_time_s
         span = t_peak + length / v + t1  # M peaks before the current's peak leaves
         lo, hi = np.zeros_like(span), span
-        for n_grid in (48, 24, 24, 24):  # the peak bracketed, then the bracket refined
+        for n_grid in (32, 12, 12, 12):  # the peak bracketed, then the bracket refined
             t = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, n_grid)
             m = _moment(t, cur, length, v, lam)
             k = np.argmax(np.abs(m), axis=1)

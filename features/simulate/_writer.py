@@ -222,8 +222,6 @@ def write_season(folder: Path, labels_path: Path, s, n_events: int, seed: int) -
         ev_idx = r.ev_idx
         field_rng, vhf_rng, misc_rng = blk.noise_rngs
         missing = (misc_rng.random(r.n_rows) < s.missing_vhf_fraction) & (not twin)
-        outage = (misc_rng.random(r.n_rows) < s.mapping_outage_fraction
-                  if s.mapping_outage_fraction > 0 else np.zeros(r.n_rows, bool))
         for a, z in r.row_chunks():
             if twin:  # as the antenna saw it: V/m, physics sign, no instrument
                 field[row0 + a:row0 + z] = r.field_rows(a, z)
@@ -249,6 +247,9 @@ def write_season(folder: Path, labels_path: Path, s, n_events: int, seed: int) -
         _append_csv(labels, labels_path, first)
         if s.with_sources:
             src = sources_table(p, ev_idx, rs, misc_rng)
+            # drawn after the sources: an outage removes them and changes nothing else
+            outage = (misc_rng.random(r.n_rows) < s.mapping_outage_fraction
+                      if s.mapping_outage_fraction > 0 else np.zeros(r.n_rows, bool))
             mapped = np.ones(r.n_rows, bool)
             if not twin:
                 t_ns = blk.flash_start_ns[p["flash"][ev_idx]] + np.round(
