@@ -94,6 +94,16 @@ def test_a_stress_season_is_byte_identical_when_written_again(members, tmp_path)
     assert (members[3] / "field.npy").read_bytes() != (members[2] / "field.npy").read_bytes()
 
 
+def test_chunk_size_does_not_change_a_stress_season(members, tmp_path):
+    """Trigger, sferics and a voltage VHF channel written 7 rows at a time: same bytes."""
+    assert stress_settings(4)["catalog_practice"] == "one_per_trigger"
+    assert stress_settings(4)["sferic_rate_hz"] > 0
+    small = simulate_season(tmp_path / "small", 60, 1, preset="stress", member=4,
+                            chunk_size=7)
+    for name in ("field.npy", "vhf.npy", "events.csv", "sources.csv"):
+        assert (small / name).read_bytes() == (members[4] / name).read_bytes(), name
+
+
 def test_every_stress_catalog_opens_and_records_its_station(members):
     """open_catalog validates every member's catalog; the manifest holds the draws."""
     for m, out in members.items():
