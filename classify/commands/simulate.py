@@ -42,9 +42,24 @@ _OPTIONS = [
     ("--angle-noise-deg", "angle_noise_deg", float, "source angle noise, degrees [0.2]"),
     ("--xyz-noise-m", "xyz_noise_m", float, "source position noise, m [10]"),
     ("--chunk-size", "chunk_size", int, "rows written at a time, at most [1024]"),
+    ("--member", "member", int, "member of the stress family (with --preset stress) [0]"),
+    ("--catalog-practice", "catalog_practice", str,
+     "every_pulse (pulses catalogued one by one) or one_per_trigger [every_pulse]"),
+    ("--dead-time-s", "dead_time_s", float,
+     "dead time after a trigger, s (one_per_trigger) [the post-trigger record]"),
+    ("--trigger-level-v-per-m", "trigger_level_v_per_m", float,
+     "trigger level, V/m (one_per_trigger) [5 x field noise]"),
+    ("--sferic-rate-hz", "sferic_rate_hz", float, "distant strokes per second [0]"),
+    ("--vhf-full-scale", "vhf_full_scale", float, "VHF clip level, file units [none]"),
+    ("--mapping-outage-fraction", "mapping_outage_fraction", float,
+     "fraction of pulses without sources [0]"),
+    ("--mapping-down-fraction", "mapping_down_fraction", float,
+     "fraction of the season with the mapping down, in stretches [0]"),
 ]
 _FLAGS = [("vhf", "with_vhf"), ("sources", "with_sources"), ("xyz", "with_xyz"),
           ("range", "with_range")]
+_CLASS_MIX_HELP = ("fractions, e.g. narrow_bipolar=0.2,stepped_leader=0.4,recoil=0.3,"
+                   "energetic_in_cloud=0.1; also return_stroke, initial_breakdown")
 
 
 def add_arguments(parser):
@@ -52,7 +67,11 @@ def add_arguments(parser):
     parser.add_argument("--events", type=int, required=True, help="number of pulses (rows)")
     parser.add_argument("--seed", type=int, required=True, help="random seed (>= 0)")
     parser.add_argument("--preset", choices=sorted(PRESETS), default="reference",
-                        help="starting settings: reference, next (another season) or hard")
+                        help="starting settings: reference, next (another season), hard, "
+                             "or stress (a station drawn from ranges; see --member)")
+    parser.add_argument("--truth-twin", dest="truth_twin", action="store_true", default=None,
+                        help="write the season's noise-free truth twin instead (each record "
+                             "only its own pulse, no instrument)")
     parser.add_argument("--overwrite", action="store_true",
                         help="replace an existing catalog folder")
     for option, dest, kind, text in _OPTIONS:
@@ -61,9 +80,7 @@ def add_arguments(parser):
                         metavar=("LOW", "HIGH"), help="VHF band, Hz [25e6 85e6]")
     parser.add_argument("--range-km", dest="range_km", type=float, nargs=2, default=None,
                         metavar=("NEAR", "FAR"), help="source distances, km [10 150]")
-    parser.add_argument("--class-mix", dest="class_mix", default=None,
-                        help="fractions, e.g. narrow_bipolar=0.2,stepped_leader=0.4,"
-                             "recoil=0.3,energetic_in_cloud=0.1")
+    parser.add_argument("--class-mix", dest="class_mix", default=None, help=_CLASS_MIX_HELP)
     for name, dest in _FLAGS:
         parser.add_argument(f"--{name}", dest=dest, action=argparse.BooleanOptionalAction,
                             default=None, help=f"write {name} data [yes]")
@@ -108,6 +125,7 @@ def run(args) -> int:
     settings["band_hz"] = args.band_hz
     settings["range_km"] = args.range_km
     settings["class_mix"] = None if args.class_mix is None else _class_mix(args.class_mix)
+    settings["truth_twin"] = args.truth_twin
     settings = {k: v for k, v in settings.items() if v is not None}  # the preset decides
     try:
         out = simulate_season(args.out, args.events, args.seed, preset=args.preset,
@@ -117,8 +135,11 @@ def run(args) -> int:
         raise ValueError(f"{exc}" + (f" (option {option})" if option else "")) from exc
     manifest = json.loads((out / "catalog.json").read_text(encoding="utf-8"))
     summary = manifest["simulation"]["summary"]
+    twin = " (noise-free truth twin)" if manifest["simulation"].get("truth_twin") else ""
+    member = manifest["simulation"]["settings"].get("member")
+    preset = args.preset + (f" member {member}" if args.preset == "stress" else "")
     print(f"simulated {args.events:,} pulses in {summary['n_flashes']:,} flashes "
-          f"(catalog {manifest['catalog_id']}, preset {args.preset}, seed {args.seed})")
+          f"(catalog {manifest['catalog_id']}, preset {preset}, seed {args.seed}){twin}")
     for label, n in summary["events_per_class"].items():
         print(f"  {label:<20s} {n:>9,}")
     print(f"  mapped sources       {summary['n_sources']:>9,}")

@@ -2,17 +2,23 @@
 
 Each catalogued pulse is a Heidler current launched as a TL/MTLE wave on a short vertical
 channel; its vertical field at the ground (electrostatic, induction and radiation terms,
-ground image included; :mod:`features.dipole`) passes through the fast antenna's RC
+ground image included; :mod:`.dipole`) passes through the fast antenna's RC
 decay and a digitizer (noise, quantisation, clipping). Its VHF power is tied to the
 breakdown (``|di/dt|``, plus a plateau while a fast front moves) and the mapped VHF
-sources lie along the moving front, with angular (and optionally 3-D) noise. Pulses come
-in flashes (:mod:`._season`) and every record window holds the field of the neighbouring
-pulses of its flash that fall in it. Class parameters and their sources:
-:mod:`._classes`.
+sources lie along the moving front, seen over a curved Earth (:mod:`._earth`), with
+angular (and optionally 3-D) noise. Pulses come in flashes (:mod:`._season`,
+:mod:`._cgflash`) and every record window holds the field of the neighbouring pulses of
+its flash that fall in it, and of distant sferics (:mod:`._station`). A station either
+catalogues pulses one by one or records one event per trigger (:mod:`._station`). Class
+parameters and their sources: :mod:`._classes`; the stress family of stations:
+:mod:`._stress`.
 
-Public API: :func:`simulate_season` (write a catalog), :func:`draw_season` (the truth
-table of the same season, without waveforms), :func:`pulse_fields` (one pulse's physical
-field and current moment), :data:`PRESETS`, :func:`resolve_settings`.
+Public API: :func:`simulate_season` (write a catalog, or its noise-free truth twin),
+:func:`draw_season` (the truth table of the same season, without waveforms),
+:func:`pulse_fields` (one pulse's physical field and current moment), :data:`PRESETS`,
+:func:`resolve_settings`, :func:`stress_settings`, :data:`CLASSES`,
+:data:`ALL_CLASSES`, and the curved-Earth formulas :func:`apparent_elevation_deg`,
+:func:`local_xyz_m`, :func:`slant_distance_m`.
 """
 
 from __future__ import annotations
@@ -25,14 +31,25 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..dipole import HeidlerCurrent, current_moment_a_m, sampled_channel_field_terms
-from ._classes import CLASSES, MARGIN, MARGIN_FRACTION, PARAMS
+from ._classes import ALL_CLASSES, CLASSES, EXTRA_CLASSES, MARGIN, MARGIN_FRACTION, PARAMS
+from ._earth import (
+    EARTH_RADIUS_M,
+    EFFECTIVE_EARTH_RADIUS_M,
+    apparent_elevation_deg,
+    local_xyz_m,
+    slant_distance_m,
+)
 from ._settings import PRESETS, Settings, resolve_settings
+from ._stress import stress_settings
+from ._truth import charge_moment_change_c_m, current_moment_peak_a_m
 from ._writer import event_order, event_table, iter_blocks, replace_atomically, write_season
+from .dipole import HeidlerCurrent, current_moment_a_m, sampled_channel_field_terms
 
-__all__ = ["CLASSES", "MARGIN", "MARGIN_FRACTION", "PARAMS", "PRESETS", "Settings",
-           "draw_season", "labels_path", "pulse_fields", "resolve_settings",
-           "simulate_season"]
+__all__ = ["ALL_CLASSES", "CLASSES", "EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M",
+           "EXTRA_CLASSES", "MARGIN", "MARGIN_FRACTION", "PARAMS", "PRESETS", "Settings",
+           "apparent_elevation_deg", "draw_season", "labels_path", "local_xyz_m",
+           "pulse_fields", "resolve_settings", "simulate_season", "slant_distance_m",
+           "stress_settings"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -63,8 +80,9 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
         Number of catalogued pulses (rows), >= 1.
     seed : int
         Random seed (>= 0); the same seed and settings give byte-identical files.
-    preset : {"reference", "next", "hard"}, default="reference"
+    preset : {"reference", "next", "hard", "stress"}, default="reference"
         Defaults to start from (:data:`PRESETS`); explicit settings override it.
+        ``"stress"`` takes the station :func:`stress_settings` draws for ``member``.
     overwrite : bool, default=False
         Replace an existing non-empty ``out_dir`` (otherwise ``FileExistsError``).
     **settings
@@ -92,7 +110,29 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
           0.30, "energetic_in_cloud": 0.10}, normalised], ``range_km`` [(10, 150)];
         - ``missing_vhf_fraction`` [0.0, rows whose VHF is all NaN],
           ``sources_per_event`` [20.0, mean], ``angle_noise_deg`` [0.2],
-          ``xyz_noise_m`` [10.0], ``chunk_size`` [1024, rows per write at most].
+          ``xyz_noise_m`` [10.0], ``chunk_size`` [1024, rows per write at most];
+        - ``class_mix`` may also hold ``"return_stroke"`` and ``"initial_breakdown"``
+          (:data:`ALL_CLASSES`); their pulses are in the records of every CG flash
+          either way;
+        - ``catalog_practice`` ["every_pulse": pulses catalogued one by one, the class
+          mix exact; or "one_per_trigger": one record per trigger, the event its
+          triggering pulse], ``dead_time_s`` [None: the post-trigger record, s],
+          ``trigger_level_v_per_m`` [None: 5 x ``field_noise_v_per_m``, at least
+          0.05 V/m];
+        - ``sferic_rate_hz`` [0.0, distant strokes per second in the records],
+          ``vhf_full_scale`` [None; the VHF clip level in file units, written as
+          ``vhf.full_scale``], ``mapping_outage_fraction`` [0.0, events without
+          sources], ``mapping_down_fraction`` [0.0, season time without mapping];
+        - ``member`` [0; preset "stress" only: the member of the stress family];
+        - ``truth_twin`` [False]: write the noise-free truth twin of the season
+          instead: the same events, ids, times, labels and pulses (every random draw
+          made as for the station), each record holding only its own catalogued pulse
+          (no neighbours, sferics or return strokes of other pulses), DC-coupled
+          (``decay_time_s`` null), float64 V/m in the physics sign with no noise,
+          quantisation or clipping (the digitizer's one-sample average kept), VHF as
+          noise-free power (``vhf_gain`` x received power) at the same rate, the same
+          rates, pre-triggers and delays; sources without angle or position noise and
+          without outages. Labels go next to the twin's folder as usual.
 
     Returns
     -------
@@ -137,12 +177,12 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
 
 
 _TRUTH = {  # truth column -> pulse column
-    "altitude_start_m": "z0_m", "channel_direction": "zdir", "channel_length_m": "length_m",
-    "wave_speed_m_per_s": "speed_m_per_s", "decay_length_m": "lambda_m",
-    "peak_current_a": "peak_a", "rise_s": "rise_s", "decay_s": "decay_s",
-    "vhf_peak_db": "vhf_db", "front_speed_m_per_s": "fv",
-    "front_x0_m": "f0x", "front_y0_m": "f0y", "front_z0_m": "f0z",
-    "front_ux": "fux", "front_uy": "fuy", "front_uz": "fuz",
+    "altitude_start_m": "z0_m", "channel_direction": "channel_direction",
+    "channel_length_m": "length_m", "wave_speed_m_per_s": "speed_m_per_s",
+    "decay_length_m": "decay_length_m", "peak_current_a": "peak_a", "rise_s": "rise_s",
+    "decay_s": "decay_s", "vhf_peak_db": "vhf_peak_db",
+    **{f"front_{k}": f"front_{k}" for k in ("speed_m_per_s", "x0_m", "y0_m", "z0_m", "ux",
+                                            "uy", "uz")},
 }
 
 
@@ -157,26 +197,48 @@ def draw_season(n_events, seed, *, preset="reference", **settings) -> pd.DataFra
     ``vhf_peak_db`` (at 100 km, gain 1) and the sources' front: ``front_speed_m_per_s``,
     its position ``front_{x,y,z}0_m`` at ``front_t0_s`` and unit direction
     ``front_u{x,y,z}``, active over ``front_t0_s``..``front_t1_s`` (source times
-    relative to the trigger), plus ``distance_m`` (horizontal) and ``slant_m``.
+    relative to the trigger), plus ``distance_m`` (horizontal, ground arc) and ``slant_m``
+    (straight line, curved Earth); and the field channel's ``current_moment_peak_a_m``
+    (signed extreme of ``M = integral i dz``, A m), ``charge_moment_change_c_m``
+    (``integral M dt`` over the whole pulse, C m), ``source_altitude_m`` (the channel's
+    mean height, m), ``front_vertical_speed_m_per_s`` (vertical velocity of the sources'
+    front, + up) and ``current_direction`` (+1 upward-directed, -1 downward).
+    ``truth_twin`` makes no difference here: a twin is the same season.
     """
     s = resolve_settings(preset, **settings)
     n_events, seed = _check_counts(n_events, seed)
     frames = []
     row0 = 0
-    for _, p, starts, first_flash, _ in iter_blocks(s, n_events, seed):
+    for blk in iter_blocks(s, n_events, seed, sferics=False):
+        p = blk.pulses
         ev = event_order(p)
-        df = event_table(s, p, ev, starts, first_flash, row0, n_events)
-        df["label"] = [CLASSES[c] for c in p["cls"][ev]]
+        df = event_table(s, p, ev, blk.flash_start_ns, blk.first_flash, row0, n_events)
+        df["label"] = [ALL_CLASSES[c] for c in p["class_index"][ev]]
         df["margin"] = p["margin"][ev]
         for name, col in _TRUTH.items():
             df[name] = p[col][ev]
-        df["front_t0_s"] = p["ft0"][ev] - p["trigger_s"][ev]
-        df["front_t1_s"] = p["ft1"][ev] - p["trigger_s"][ev]
+        df["front_t0_s"] = p["front_t0_s"][ev] - p["trigger_s"][ev]
+        df["front_t1_s"] = p["front_t1_s"][ev] - p["trigger_s"][ev]
         df["distance_m"] = np.hypot(p["x_m"][ev], p["y_m"][ev])
         df["slant_m"] = p["slant_m"][ev]
         frames.append(df)
         row0 += ev.size
-    return pd.concat(frames, ignore_index=True)
+    df = pd.concat(frames, ignore_index=True)
+    _add_channel_truth(df)
+    return df
+
+
+def _add_channel_truth(df):
+    """Current and charge moments, source altitude, vertical front speed, direction."""
+    args = [df[k].to_numpy() for k in ("peak_current_a", "rise_s", "decay_s",
+                                       "channel_length_m", "wave_speed_m_per_s",
+                                       "decay_length_m")]
+    df["current_moment_peak_a_m"] = current_moment_peak_a_m(*args)
+    df["charge_moment_change_c_m"] = charge_moment_change_c_m(*args[:4], args[5])
+    df["source_altitude_m"] = (df["altitude_start_m"]
+                               + 0.5 * df["channel_direction"] * df["channel_length_m"])
+    df["front_vertical_speed_m_per_s"] = df["front_speed_m_per_s"] * df["front_uz"]
+    df["current_direction"] = np.sign(df["peak_current_a"]).astype(int)
 
 
 def pulse_fields(truth: pd.DataFrame, sample_rate_hz=100e6, n_samples=4000,

@@ -2,7 +2,7 @@
 
 Every pulse's field is computed once on its own short support, on a fine time grid
 (:func:`fine_rate_hz`, an integer multiple of the record's rate): the dipole field of its
-TL/MTLE channel (:func:`features.dipole.sampled_vertical_field_v_per_m`), the digitizer's
+TL/MTLE channel (:func:`.dipole.sampled_vertical_field_v_per_m`), the digitizer's
 averaging over one sample interval (a centred trapezoid of one sample period, the
 anti-alias filter) and the fast antenna's RC decay (first-order high-pass, time constant
 ``decay_time_s``). After its support a
@@ -23,7 +23,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage, signal
 
-from ..dipole import (
+from .dipole import (
     SPEED_OF_LIGHT_M_PER_S,
     HeidlerCurrent,
     element_field_factors,
@@ -70,6 +70,23 @@ class Supports:
     @property
     def end_s(self):
         return self.start_s + (self.n - 1) / self.rate_hz
+
+    @classmethod
+    def join(cls, parts):
+        """New supports holding pulses ``k`` of each ``(supports, k)`` in ``parts``, in order."""
+        rate = np.concatenate([sup.rate_hz[k] for sup, k in parts])
+        start = np.concatenate([sup.start_s[k] for sup, k in parts])
+        n = np.concatenate([sup.n[k] for sup, k in parts])
+        out = cls(rate, start, n)
+        o = 0
+        for sup, k in parts:
+            for kk in np.asarray(k).tolist():  # one copy per pulse
+                length = int(sup.n[kk])
+                out.data[out.offset[o]:out.offset[o] + length] = \
+                    sup.data[sup.offset[kk]:sup.offset[kk] + length]
+                out.end_value[o] = sup.end_value[kk]
+                o += 1
+        return out
 
     def put(self, k, rows):
         """Store rows (2-D, equal lengths) as the supports of pulses ``k``."""
@@ -119,8 +136,8 @@ def field_supports(p, idx, s) -> Supports:
         z0 = p["z0_m"][sel]
         e = sampled_vertical_field_v_per_m(
             *cur.current_and_derivative(t), fine_hz,
-            np.hypot(p["x_m"][sel], p["y_m"][sel]), z0, z0 + p["zdir"][sel] * p["length_m"][sel],
-            p["speed_m_per_s"][sel], p["lambda_m"][sel])
+            np.hypot(p["x_m"][sel], p["y_m"][sel]), z0, z0 + p["channel_direction"][sel] * p["length_m"][sel],
+            p["speed_m_per_s"][sel], p["decay_length_m"][sel])
         if ratio > 1:  # the digitizer's average over one sample period
             box = np.ones(ratio + 1)
             box[[0, -1]] = 0.5
@@ -145,9 +162,9 @@ def static_change_v_per_m(p, idx, n_elements=48):
     total_q = cur.charge_c(cur.peak_time_s + 40.0 * p["decay_s"][idx])
     length = p["length_m"][idx]
     s_el = (np.arange(n_elements) + 0.5) / n_elements * length[:, None]
-    z = p["z0_m"][idx, None] + p["zdir"][idx, None] * s_el
+    z = p["z0_m"][idx, None] + p["channel_direction"][idx, None] * s_el
     f_es, _, _, _ = element_field_factors(z, np.hypot(p["x_m"][idx], p["y_m"][idx])[:, None])
-    w = np.exp(-s_el / p["lambda_m"][idx, None]) * (length / n_elements)[:, None]
+    w = np.exp(-s_el / p["decay_length_m"][idx, None]) * (length / n_elements)[:, None]
     return total_q * np.sum(f_es * w, axis=1)
 
 
@@ -166,7 +183,7 @@ def vhf_supports(p, idx, s) -> Supports:
     rate = np.full(idx.size, fine)
     n = vhf_support_samples({k: v[idx] for k, v in p.items()}, fine)
     sup = Supports(rate, p["arrival_s"][idx] - PAD / fine, n)
-    received = 10.0 ** (p["vhf_db"] / 10.0) * (1e5 / p["slant_m"]) ** 2
+    received = 10.0 ** (p["vhf_peak_db"] / 10.0) * (1e5 / p["slant_m"]) ** 2
     for k, _, length in _batches(rate, n):
         sel = idx[k]
         t = (np.arange(length) - PAD) / fine

@@ -5,44 +5,54 @@ start. Each builder returns "pieces": dicts of equal-length arrays, one entry pe
 :data:`PULSE_COLUMNS`, one row per pulse (catalogued or not). See :mod:`._season` for
 the flash types and their timing, :mod:`._classes` for the class parameters.
 
-Pulse columns: ``cls`` (index into ``CLASSES``), ``cat`` (catalogued), ``margin``;
+Pulse columns: ``class_index`` (index into ``ALL_CLASSES``), ``catalogued``, ``margin``;
 ``t_s`` (source time the current front starts); the field channel ``x_m, y_m`` (its
-horizontal position), ``z0_m`` (start height), ``zdir`` (+1 up, -1 down),
-``length_m``, ``speed_m_per_s``, ``lambda_m`` (MTLE); the Heidler current ``peak_a``
-(signed, positive upward-directed), ``rise_s``, ``decay_s``; the VHF ``vhf_db`` (at
-100 km), ``plateau_db`` and ``plateau_s``; the sources' front ``f0{x,y,z}`` at ``ft0``,
-direction ``fu{x,y,z}``, speed ``fv``, active until ``ft1``; an optional second front
-``b...`` (a leader branch, or the leader around an embedded narrow bipolar event) that
-holds ``b_share`` of the sources; ``src_weight`` scales the number of sources.
+horizontal position), ``z0_m`` (start height), ``channel_direction`` (+1 up, -1 down),
+``length_m``, ``speed_m_per_s`` (its current wave), ``decay_length_m`` (MTLE); the Heidler
+current ``peak_a`` (signed, positive upward-directed), ``rise_s``, ``decay_s``; the VHF
+``vhf_peak_db`` (at 100 km), ``plateau_db`` and ``plateau_s``; the sources' front
+``front_{x,y,z}0_m`` at ``front_t0_s``, unit direction ``front_u{x,y,z}``, speed
+``front_speed_m_per_s``, active until ``front_t1_s``; an optional second front
+``branch_...`` (a leader branch, or the leader around an embedded narrow bipolar event)
+that holds ``branch_share`` of the sources; ``src_weight`` scales the number of sources.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from ._classes import CLASSES, EIP_LEADER_SPEED, draw_class_params, leader_speed_m_per_s
+from ._classes import ALL_CLASSES, EIP_LEADER_SPEED, draw_class_params
 
-__all__ = ["NBE", "PULSE_COLUMNS", "REC", "SL", "EIP", "SOURCE_WEIGHT", "cg_flash",
-           "concat", "flash_xy", "ic_flash", "nbe_pulse"]
+__all__ = ["EIP", "FRONT_FIELDS", "IB", "NBE", "PULSE_COLUMNS", "REC", "RS", "SFERIC", "SL",
+           "SOURCE_WEIGHT", "Track", "choose_catalogued", "concat", "flash_xy", "ic_flash",
+           "leader_pulses", "nbe_pulse", "pulse_rows", "recoil_times", "recoils",
+           "set_front", "trains", "unit_vector"]
 
-NBE, SL, REC, EIP = range(4)
-#: Relative number of mapped sources per catalogued pulse, by class.
-SOURCE_WEIGHT = np.array([0.15, 1.25, 1.2, 1.0])
+#: Class indices (into ``ALL_CLASSES``); ``SFERIC`` marks distant pulses of other storms,
+#: never catalogued.
+NBE, SL, REC, EIP, RS, IB = range(len(ALL_CLASSES))
+SFERIC = len(ALL_CLASSES)
+#: Relative number of mapped sources per catalogued pulse, by class index.
+SOURCE_WEIGHT = np.array([0.15, 1.25, 1.2, 1.0, 0.3, 1.0, 0.0])
+
+#: The columns of a straight front, after the prefix "front_" or "branch_".
+FRONT_FIELDS = ("x0_m", "y0_m", "z0_m", "ux", "uy", "uz", "speed_m_per_s", "t0_s", "t1_s")
 
 PULSE_COLUMNS = (
-    "flash", "cls", "cat", "margin", "t_s", "x_m", "y_m", "z0_m", "zdir", "length_m",
-    "speed_m_per_s", "lambda_m", "peak_a", "rise_s", "decay_s", "vhf_db", "plateau_db",
-    "plateau_s", "f0x", "f0y", "f0z", "fux", "fuy", "fuz", "fv", "ft0", "ft1",
-    "b0x", "b0y", "b0z", "bux", "buy", "buz", "bv", "bt0", "bt1", "b_share", "src_weight",
+    "flash", "class_index", "catalogued", "margin", "t_s", "x_m", "y_m", "z0_m",
+    "channel_direction", "length_m", "speed_m_per_s", "decay_length_m", "peak_a", "rise_s",
+    "decay_s", "vhf_peak_db", "plateau_db", "plateau_s",
+    *(f"front_{k}" for k in FRONT_FIELDS), *(f"branch_{k}" for k in FRONT_FIELDS),
+    "branch_share", "src_weight",
 )
 
 
-def _unit(theta, phi):
+def unit_vector(theta, phi):
     """Unit vector at polar angle ``theta`` from +z and azimuth ``phi`` (radians)."""
     return np.array([np.sin(theta) * np.sin(phi), np.sin(theta) * np.cos(phi), np.cos(theta)])
 
 
-class _Track:
+class Track:
     """A leader track: a polyline traversed at constant speed from time ``t0``."""
 
     def __init__(self, vertices, speed, t0):
@@ -67,7 +77,7 @@ class _Track:
         return j, d / np.linalg.norm(d, axis=-1, keepdims=True)
 
 
-def _trains(rng, t_start, t_end, mean_gap_s=1.0e-3):
+def trains(rng, t_start, t_end, mean_gap_s=1.0e-3):
     """Pulse times of leader trains between two times (s); returns (times, train index)."""
     times, ids = [], []
     t, k = t_start, 0
@@ -86,7 +96,7 @@ def _trains(rng, t_start, t_end, mean_gap_s=1.0e-3):
     return np.concatenate(times), np.concatenate(ids)
 
 
-def _choose_catalogued(rng, ids, k):
+def choose_catalogued(rng, ids, k):
     """Catalogue ``k`` pulses, train by train (about 60 % of a chosen train's pulses)."""
     cat = np.zeros(ids.size, bool)
     if k <= 0 or ids.size == 0:
@@ -107,21 +117,21 @@ def _choose_catalogued(rng, ids, k):
 
 
 # ------------------------------------------------------------------ pulse rows
-def _rows(n, cls, rng, margin=None, **cols):
+def pulse_rows(n, cls, rng, margin=None, **cols):
     """Pulse rows of one class: class parameters drawn, then the given columns set."""
-    p = draw_class_params(CLASSES[cls], n, rng, margin)
+    p = draw_class_params(ALL_CLASSES[cls], n, rng, margin)
     out = {name: np.full(n, np.nan) for name in PULSE_COLUMNS}
-    out["cls"] = np.full(n, cls, np.int8)
-    out["cat"] = np.zeros(n, bool)
+    out["class_index"] = np.full(n, cls, np.int8)
+    out["catalogued"] = np.zeros(n, bool)
     out["margin"] = p["margin"]
-    for key in ("rise_s", "decay_s", "length_m", "speed_m_per_s", "vhf_db"):
+    for key in ("rise_s", "decay_s", "length_m", "speed_m_per_s", "vhf_peak_db"):
         out[key] = p[key]
-    out["lambda_m"] = p["length_m"] * p["decay_ratio"]
+    out["decay_length_m"] = p["length_m"] * p["decay_ratio"]
     out["peak_a"] = p["peak_a"]
     if "plateau_db" in p:
         out["plateau_db"] = p["plateau_db"]
     out["plateau_s"] = np.zeros(n)
-    out["b_share"] = np.full(n, 0.3)  # share of sources on the second front, if any
+    out["branch_share"] = np.full(n, 0.3)  # share of sources on the second front, if any
     out["src_weight"] = np.full(n, SOURCE_WEIGHT[cls])
     extra = {k: p[k] for k in ("front_speed_m_per_s", "path_m") if k in p}
     for key, val in cols.items():
@@ -129,55 +139,55 @@ def _rows(n, cls, rng, margin=None, **cols):
     return out, extra
 
 
-def _set_front(rows, idx, start, unit, speed, t0, t1, prefix="f"):
-    names = ("0x", "0y", "0z", "ux", "uy", "uz")
-    vals = (start[..., 0], start[..., 1], start[..., 2], unit[..., 0], unit[..., 1],
-            unit[..., 2])
-    for name, val in zip(names, vals, strict=True):
-        rows[prefix + name][idx] = val
+def set_front(rows, idx, start, unit, speed, t0, t1, prefix="front"):
+    """Set a straight front (``prefix`` "front" or "branch"): start point (m), unit
+    direction, speed (m/s; None keeps it) and active interval (s)."""
+    for k, axis in enumerate("xyz"):
+        rows[f"{prefix}_{axis}0_m"][idx] = start[..., k]
+        rows[f"{prefix}_u{axis}"][idx] = unit[..., k]
     if speed is not None:
-        rows[prefix + "v"][idx] = speed
-    rows[prefix + "t0"][idx] = t0
-    rows[prefix + "t1"][idx] = t1
+        rows[f"{prefix}_speed_m_per_s"][idx] = speed
+    rows[f"{prefix}_t0_s"][idx] = t0
+    rows[f"{prefix}_t1_s"][idx] = t1
 
 
-def _leader_pulses(rng, cls, track, times, zdir_rule, branches=(), margin=None):
+def leader_pulses(rng, cls, track, times, zdir_rule, branches=(), margin=None):
     """Pulses at a leader tip at ``times``: field channel at the tip, front = the leg."""
     n = times.size
     arc = (times - track.t0) * track.speed
     tip = track.at(arc)
     j, unit = track.leg(arc)
-    rows, _ = _rows(n, cls, rng, margin=margin, t_s=times)
+    rows, _ = pulse_rows(n, cls, rng, margin=margin, t_s=times)
     if zdir_rule == "up-channel":  # the wave runs back along the channel behind the tip
         zdir = np.where(unit[:, 2] < -0.2, 1.0, np.where(unit[:, 2] > 0.2, -1.0, 0.0))
         zdir = np.where(zdir == 0, np.where(rng.random(n) < 0.5, 1.0, -1.0), zdir)
     else:
         zdir = np.full(n, float(zdir_rule))
     zdir = np.where(tip[:, 2] - rows["length_m"] < 100.0, 1.0, zdir)  # stay above ground
-    rows.update(x_m=tip[:, 0], y_m=tip[:, 1], z0_m=tip[:, 2], zdir=zdir)
+    rows.update(x_m=tip[:, 0], y_m=tip[:, 1], z0_m=tip[:, 2], channel_direction=zdir)
     rows["peak_a"] = rows["peak_a"] * zdir  # negative leader: current back along channel
     leg_t0 = track.t0 + track.s[j] / track.speed
     leg_t1 = track.t0 + track.s[j + 1] / track.speed
-    _set_front(rows, np.arange(n), tip, unit, track.speed, times,
+    set_front(rows, np.arange(n), tip, unit, track.speed, times,
                np.minimum(leg_t1, times + 1e-3))
-    rows["ft0"] = np.maximum(leg_t0, times - 1e-3)
-    rows["f0x"], rows["f0y"], rows["f0z"] = (tip - unit * (times - rows["ft0"])[:, None]
+    rows["front_t0_s"] = np.maximum(leg_t0, times - 1e-3)
+    rows["front_x0_m"], rows["front_y0_m"], rows["front_z0_m"] = (tip - unit * (times - rows["front_t0_s"])[:, None]
                                              * track.speed).T
     for btrack in branches:  # an active branch tip at the same time
-        on = (times > btrack.t0) & (times < btrack.t_end) & np.isnan(rows["bt0"])
+        on = (times > btrack.t0) & (times < btrack.t_end) & np.isnan(rows["branch_t0_s"])
         if on.any():
             b_arc = (times[on] - btrack.t0) * btrack.speed
             _, b_unit = btrack.leg(b_arc)
             b_tip = btrack.at(b_arc)
             t0 = np.maximum(btrack.t0, times[on] - 1e-3)
             start = b_tip - b_unit * ((times[on] - t0) * btrack.speed)[:, None]
-            _set_front(rows, np.flatnonzero(on), start, b_unit, btrack.speed, t0,
-                       np.minimum(btrack.t_end, times[on] + 1e-3), prefix="b")
+            set_front(rows, np.flatnonzero(on), start, b_unit, btrack.speed, t0,
+                       np.minimum(btrack.t_end, times[on] + 1e-3), prefix="branch")
     return rows
 
 
 def nbe_pulse(rng, xy, t, positive, margin=False, zc=None):
-    rows, _ = _rows(1, NBE, rng, margin=margin, t_s=t)
+    rows, _ = pulse_rows(1, NBE, rng, margin=margin, t_s=t)
     length = rows["length_m"][0]
     if positive:  # lower, downward fast positive breakdown, downward current
         zc, zdir = (rng.uniform(7e3, 15e3) if zc is None else zc), -1.0
@@ -185,11 +195,11 @@ def nbe_pulse(rng, xy, t, positive, margin=False, zc=None):
         zc, zdir = rng.uniform(14e3, 20e3), 1.0
     z0 = zc - zdir * length / 2
     rows.update(x_m=np.array([xy[0]]), y_m=np.array([xy[1]]), z0_m=np.array([z0]),
-                zdir=np.array([zdir]))
+                channel_direction=np.array([zdir]))
     rows["peak_a"] = rows["peak_a"] * zdir
     v = rows["speed_m_per_s"][0]
     rows["plateau_s"] = np.array([length / v])
-    _set_front(rows, [0], np.array([[xy[0], xy[1], z0]]), np.array([[0.0, 0.0, zdir]]),
+    set_front(rows, [0], np.array([[xy[0], xy[1], z0]]), np.array([[0.0, 0.0, zdir]]),
                v, t, t + length / v)
     return rows
 
@@ -201,14 +211,14 @@ def flash_xy(rng, range_km):
     return np.array([r * np.sin(phi), r * np.cos(phi)])
 
 
-def _recoils(rng, track, times, anchors_arc, margin):
+def recoils(rng, track, times, anchors_arc, margin):
     """Recoil pulses at ``times`` retracing straight pieces of ``track``'s legs.
 
     Margin recoils come with a regular train of uncatalogued pulses 5-25 us apart along
     the same front (returned after the catalogued pulses, ``cat`` False).
     """
     n = times.size
-    rows, extra = _rows(n, REC, rng, margin=margin, t_s=times)
+    rows, extra = pulse_rows(n, REC, rng, margin=margin, t_s=times)
     total = track.s[-1]
     if anchors_arc.size:
         arc = rng.choice(anchors_arc, n) + rng.normal(0, 200.0, n)
@@ -229,12 +239,12 @@ def _recoils(rng, track, times, anchors_arc, margin):
     zdir = np.where(np.abs(u[:, 2]) > 0.3, np.sign(u[:, 2]),
                     np.where(rng.random(n) < 0.5, 1.0, -1.0))
     zdir = np.where(start[:, 2] - rows["length_m"] < 100.0, 1.0, zdir)
-    rows.update(x_m=start[:, 0], y_m=start[:, 1], z0_m=start[:, 2], zdir=zdir)
+    rows.update(x_m=start[:, 0], y_m=start[:, 1], z0_m=start[:, 2], channel_direction=zdir)
     rows["peak_a"] = -rows["peak_a"] * zdir  # negative recoil leader: current opposes it
     rows["plateau_s"] = np.minimum(path / vf, 300e-6)
-    _set_front(rows, np.arange(n), start, u, vf, times, times + path / vf)
-    rows["cat"][:] = True
-    trains = [rows]
+    set_front(rows, np.arange(n), start, u, vf, times, times + path / vf)
+    rows["catalogued"][:] = True
+    out = [rows]
     for k in np.flatnonzero(rows["margin"]):
         gaps = rng.uniform(5e-6, 25e-6, int(rng.integers(4, 15)))
         dt = np.cumsum(gaps) - gaps.sum() * rng.uniform(0.2, 0.8)
@@ -242,18 +252,19 @@ def _recoils(rng, track, times, anchors_arc, margin):
                 & (dt > -1e-3)]
         if dt.size == 0:
             continue
-        more, _ = _rows(dt.size, REC, rng, margin=True, t_s=times[k] + dt)
+        more, _ = pulse_rows(dt.size, REC, rng, margin=True, t_s=times[k] + dt)
         pos = start[k] + u[k] * (vf[k] * dt)[:, None]
-        more.update(x_m=pos[:, 0], y_m=pos[:, 1], z0_m=pos[:, 2], zdir=np.full(dt.size, zdir[k]))
+        more.update(x_m=pos[:, 0], y_m=pos[:, 1], z0_m=pos[:, 2],
+                    channel_direction=np.full(dt.size, zdir[k]))
         more["z0_m"] = np.maximum(more["z0_m"], more["length_m"] + 100.0)
         more["peak_a"] = np.sign(rows["peak_a"][k]) * more["peak_a"]
-        for key in ("f0x", "f0y", "f0z", "fux", "fuy", "fuz", "fv", "ft0", "ft1"):
-            more[key][:] = rows[key][k]
-        trains.append(more)
-    return concat(trains)
+        for key in FRONT_FIELDS:
+            more["front_" + key][:] = rows["front_" + key][k]
+        out.append(more)
+    return concat(out)
 
 
-def _recoil_times(rng, n, lo, hi):
+def recoil_times(rng, n, lo, hi):
     t = np.sort(rng.uniform(lo, hi, n))
     return t + 1e-3 * np.arange(n)  # at least 1 ms apart
 
@@ -268,9 +279,9 @@ def _embedded_nbe(rng, track, t):
     t0 = max(track.t0 + track.s[j[0]] / track.speed, t - 1e-3)
     t1 = min(track.t0 + track.s[j[0] + 1] / track.speed, t + 1e-3)
     start = tip - unit[0] * (t - t0) * track.speed
-    _set_front(rows, [0], start[None], unit, None, t0, t1, prefix="b")
-    rows["bv"][:] = track.speed
-    rows["b_share"][:] = 0.8  # the leader's sources dominate the window
+    set_front(rows, [0], start[None], unit, None, t0, t1, prefix="branch")
+    rows["branch_speed_m_per_s"][:] = track.speed
+    rows["branch_share"][:] = 0.8  # the leader's sources dominate the window
     rows["src_weight"][:] = SOURCE_WEIGHT[EIP]
     return rows
 
@@ -282,12 +293,12 @@ def ic_flash(rng, s, sp):
     t_lead = 0.0
     if sp["nbe_first"]:
         nbe = nbe_pulse(rng, xy, 0.0, positive=True, margin=False)
-        nbe["cat"][:] = True
+        nbe["catalogued"][:] = True
         pieces.append(nbe)
         t_lead = rng.uniform(0.5e-3, 2e-3)
     v = float(EIP_LEADER_SPEED.draw(rng, 1)[0])
     tilt, az = np.radians(rng.uniform(0, 25)), rng.uniform(0, 2 * np.pi)
-    up = _unit(tilt, az)
+    up = unit_vector(tilt, az)
     inner = np.array([EIP] * sp["n_eip"] + [NBE] * sp["n_nbe_in"])
     if inner.size:  # the first of them at 8-13 km, 0.5-5 ms into the leader
         z_e, tau_e = rng.uniform(8e3, 13e3), rng.uniform(0.5e-3, 5e-3)
@@ -300,15 +311,15 @@ def ic_flash(rng, s, sp):
     z_top = max(rng.uniform(11e3, 14e3), z0 + 1.5e3)
     p0 = np.array([xy[0], xy[1], z0])
     p1 = p0 + up * (z_top - z0) / up[2]
-    horiz = _unit(np.pi / 2, rng.uniform(0, 2 * np.pi))
+    horiz = unit_vector(np.pi / 2, rng.uniform(0, 2 * np.pi))
     t_total = rng.uniform(30e-3, 150e-3)
     p2 = p1 + horiz * max(v * t_total - (z_top - z0) / up[2], 500.0)
-    track = _Track([p0, p1, p2], v, t_lead)
+    track = Track([p0, p1, p2], v, t_lead)
     t_up = (z_top - z0) / up[2] / v
-    times, ids = _trains(rng, t_lead + 0.2e-3, t_lead + min(t_up + 5e-3, 15e-3), 2.0e-3)
+    times, ids = trains(rng, t_lead + 0.2e-3, t_lead + min(t_up + 5e-3, 15e-3), 2.0e-3)
     if times.size:
-        sl = _leader_pulses(rng, SL, track, times, "up-channel")
-        sl["cat"] = _choose_catalogued(rng, ids, sp["k_sl"])
+        sl = leader_pulses(rng, SL, track, times, "up-channel")
+        sl["catalogued"] = choose_catalogued(rng, ids, sp["k_sl"])
         pieces.append(sl)
     if inner.size:
         inner = rng.permutation(inner)
@@ -316,62 +327,19 @@ def ic_flash(rng, s, sp):
         later = tau_e + np.cumsum(rng.uniform(0.3e-3, 2e-3, inner.size - 1))
         te = t_lead + np.minimum(np.concatenate([[tau_e], later]), t_max)
         if (inner == EIP).any():
-            eip = _leader_pulses(rng, EIP, track, te[inner == EIP], -1.0)
-            eip["cat"][:] = True
+            eip = leader_pulses(rng, EIP, track, te[inner == EIP], -1.0)
+            eip["catalogued"][:] = True
             pieces.append(eip)
         for t in te[inner == NBE]:
             nbe = _embedded_nbe(rng, track, t)
-            nbe["cat"][:] = True
+            nbe["catalogued"][:] = True
             pieces.append(nbe)
-    anchors = [(p["t_s"][p["cat"] & (p["cls"] != NBE)] - t_lead) * v for p in pieces]
+    anchors = [(p["t_s"][p["catalogued"] & (p["class_index"] != NBE)] - t_lead) * v for p in pieces]
     n_rec = sp["n_rec"] + sp["n_rec_margin"]
     if n_rec:
         margin = rng.permutation(np.arange(n_rec) < sp["n_rec_margin"])
-        pieces.append(_recoils(rng, track, _recoil_times(rng, n_rec, 30e-3, 400e-3),
+        pieces.append(recoils(rng, track, recoil_times(rng, n_rec, 30e-3, 400e-3),
                                np.concatenate(anchors) if anchors else np.zeros(0), margin))
-    return pieces
-
-
-def cg_flash(rng, s, sp):
-    """A cloud-to-ground flash holding the catalogued pulses asked for in ``sp``."""
-    xy = flash_xy(rng, s.range_km)
-    v = float(leader_speed_m_per_s(rng, 1)[0])
-    z0 = rng.uniform(4e3, 7e3)
-    down = _unit(np.pi - np.radians(rng.uniform(0, 30)), rng.uniform(0, 2 * np.pi))
-    p0 = np.array([xy[0], xy[1], z0])
-    track = _Track([p0, p0 + down * z0 / -down[2]], v, 0.0)
-    branches = []
-    for _ in range(int(rng.integers(1, 3))):
-        frac = rng.uniform(0.2, 0.7)
-        start = track.at(frac * track.s[-1])
-        bdir = _unit(np.pi - np.radians(rng.uniform(30, 65)), rng.uniform(0, 2 * np.pi))
-        blen = max((start[2] - 200.0) / -bdir[2] * rng.uniform(0.3, 0.9), 100.0)
-        t0 = frac * track.s[-1] / v + rng.uniform(0, 0.5e-3)
-        branches.append(_Track([start, start + bdir * blen], v, t0))
-    times, ids = _trains(rng, 0.2e-3, track.t_end - 0.3e-3)
-    pieces = []
-    if times.size:
-        sl = _leader_pulses(rng, SL, track, times, "up-channel", branches)
-        sl["cat"] = _choose_catalogued(rng, ids, sp["k_sl"])
-        pieces.append(sl)
-    t_rs = track.t_end
-    if sp["k_sl_dart"]:  # a dart-stepped leader down the old channel before a later stroke
-        v_d = float(np.exp(rng.uniform(np.log(6e5), np.log(2e6))))
-        dart = _Track(track.v, v_d, t_rs + rng.uniform(20e-3, 150e-3))
-        times, ids = _trains(rng, dart.t0 + 0.05e-3, dart.t_end - 0.1e-3, 0.3e-3)
-        k = min(sp["k_sl_dart"], times.size)
-        if k:
-            margin = np.ones(times.size, bool)
-            dsl = _leader_pulses(rng, SL, dart, times, "up-channel", margin=margin)
-            dsl["cat"] = _choose_catalogued(rng, ids, k)
-            pieces.append(dsl)
-    n_rec = sp["n_rec"] + sp["n_rec_margin"]
-    if n_rec:
-        anchors = (pieces[0]["t_s"][pieces[0]["cat"]] * v) if pieces else np.zeros(0)
-        margin = rng.permutation(np.arange(n_rec) < sp["n_rec_margin"])
-        pieces.append(_recoils(rng, track,
-                               _recoil_times(rng, n_rec, t_rs + 20e-3, t_rs + 300e-3),
-                               anchors, margin))
     return pieces
 
 

@@ -16,9 +16,10 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
-from ..dipole import SPEED_OF_LIGHT_M_PER_S
+from ._earth import apparent_elevation_deg, azimuth_deg, local_xyz_m
 from ._fields import (
     PAD,
+    Supports,
     assemble_windows,
     field_support_samples,
     field_supports,
@@ -29,6 +30,8 @@ from ._fields import (
     vhf_support_samples,
     vhf_supports,
 )
+from ._flashes import FRONT_FIELDS, SFERIC
+from .dipole import SPEED_OF_LIGHT_M_PER_S
 
 __all__ = ["BlockRenderer", "clip_counts", "digitize_field", "digitize_vhf", "sources_table"]
 
@@ -39,11 +42,25 @@ class BlockRenderer:
     The constructor orders the events (by flash, then trigger time), pairs every window
     with the pulses of its flash that reach into it and computes those pulses' supports;
     :meth:`field_rows` and :meth:`vhf_rows` then assemble any range of rows.
+
+    Parameters
+    ----------
+    p : dict of ndarray
+        The block's pulses.
+    s : Settings
+        The settings to render with (rates, windows, RC decay).
+    known : Supports or None
+        Field supports of pulses ``0..known.n.size-1``, already computed with ``s``
+        (the trigger's); only the other pulses' are computed.
+    own_only : bool
+        Each window holds only its own event's pulse (the truth twin): no neighbours,
+        sferics or strokes of other pulses.
     """
 
-    def __init__(self, p, s):
+    def __init__(self, p, s, known=None, own_only=False):
         self.p, self.s = p, s
-        ev = np.flatnonzero(p["cat"])
+        self.known, self.own_only = known, own_only
+        ev = np.flatnonzero(p["catalogued"])
         self.ev_idx = ev[np.lexsort((p["trigger_s"][ev], p["flash"][ev]))]
         self._setup_field()
         if s.with_vhf:
@@ -58,7 +75,21 @@ class BlockRenderer:
         order = np.lexsort((start, p["flash"]))
         e, k = find_pairs(p["flash"][self.ev_idx], win_start, win_len, p["flash"][order],
                           start[order], end[order], lookback)
-        return e, order[k]
+        q = order[k]
+        if self.own_only:
+            keep = q == self.ev_idx[e]
+            e, q = e[keep], q[keep]
+        return e, q
+
+    def _field_supports(self, pulses):
+        if self.known is None:
+            return field_supports(self.p, pulses, self.s)
+        n_known = self.known.n.size
+        old, new = pulses[pulses < n_known], pulses[pulses >= n_known]
+        parts = [(self.known, old)]
+        if new.size:
+            parts.append((field_supports(self.p, new, self.s), np.arange(new.size)))
+        return Supports.join(parts)
 
     def _setup_field(self):
         p, s = self.p, self.s
@@ -72,7 +103,7 @@ class BlockRenderer:
                            1e4 if tau is None else 5.0 * tau)
         overlap = (end[q] >= self.win_start[e]) & (start[q] <= self.win_start[e] + win_len)
         pulses = np.unique(q[overlap])
-        self.sup = field_supports(p, pulses, s)
+        self.sup = self._field_supports(pulses)
         slot = np.full(p["t_s"].size, -1)
         slot[pulses] = np.arange(pulses.size)
         end_value = np.zeros(p["t_s"].size)
@@ -91,7 +122,7 @@ class BlockRenderer:
         start = p["arrival_s"] - PAD / fine
         end = start + (vhf_support_samples(p, fine) - 1) / fine
         e, q = self._pairs(self.vwin_start, win_len, start, end, 0.0)
-        keep = end[q] >= self.vwin_start[e]
+        keep = (end[q] >= self.vwin_start[e]) & (p["class_index"][q] != SFERIC)  # no VHF
         e, q = e[keep], q[keep]
         pulses = np.unique(q)
         self.vsup = vhf_supports(p, pulses, s)
@@ -169,6 +200,8 @@ def digitize_vhf(power, s, rng, missing):
         white = rng.standard_normal(total.shape) * np.sqrt(total / (2.0 * np.mean(gain**2)))
         spec = sp_fft.rfft(white, axis=1) * gain  # row by row: chunk-proof
         out = sp_fft.irfft(spec, total.shape[1], axis=1)
+    if s.vhf_full_scale is not None:  # the digitizer's clip level
+        out = np.clip(out, -s.vhf_full_scale, s.vhf_full_scale)
     out = out.astype(np.float32)
     out[missing] = np.nan
     return out
@@ -183,26 +216,28 @@ def sources_table(p, ev_idx, s, rng):
     counts = rng.poisson(p["n_src_mean"][ev_idx])
     row = np.repeat(np.arange(ev_idx.size), counts)
     q = ev_idx[row]
-    branch = ~np.isnan(p["bt0"][q]) & (rng.random(q.size) < p["b_share"][q])
-    names = ("0x", "0y", "0z", "ux", "uy", "uz", "v", "t0", "t1")
-    geo = {n: np.where(branch, p["b" + n][q], p["f" + n][q]) for n in names}
+    branch = ~np.isnan(p["branch_t0_s"][q]) & (rng.random(q.size) < p["branch_share"][q])
+    geo = {k: np.where(branch, p["branch_" + k][q], p["front_" + k][q]) for k in FRONT_FIELDS}
     travel = p["slant_m"][q] / c  # emission-to-arrival time, nearly constant in a window
-    t_a = np.maximum(geo["t0"], lo[row] - travel)
-    t_b = np.minimum(geo["t1"], hi[row] - travel)
+    t_a = np.maximum(geo["t0_s"], lo[row] - travel)
+    t_b = np.minimum(geo["t1_s"], hi[row] - travel)
     ok = t_b > t_a
     t_e = t_a + rng.random(q.size) * (t_b - t_a)
-    dt = (t_e - geo["t0"]) * geo["v"]
-    xyz = np.stack([geo["0" + k] + geo["u" + k] * dt for k in "xyz"], axis=1)
+    path_m = (t_e - geo["t0_s"]) * geo["speed_m_per_s"]  # distance along the front
+    # the simulator's frame: ground-arc x, y and altitude z; the instrument's: a curved
+    # Earth (true radius for x/y/z, 4/3 effective radius for the elevation; _earth)
+    arc = np.stack([geo[f"{k}0_m"] + geo[f"u{k}"] * path_m for k in "xyz"], axis=1)
+    xyz = local_xyz_m(arc[:, 0], arc[:, 1], arc[:, 2])
     arrival = t_e + np.linalg.norm(xyz, axis=1) / c
-    horiz = np.hypot(xyz[:, 0], xyz[:, 1])
-    el = np.degrees(np.arctan2(xyz[:, 2], horiz))
-    az = np.degrees(np.arctan2(xyz[:, 0], xyz[:, 1]))
+    el = apparent_elevation_deg(np.hypot(arc[:, 0], arc[:, 1]), arc[:, 2])
+    ok &= el >= 0.0  # below the radio horizon: not seen
+    az = azimuth_deg(arc[:, 0], arc[:, 1])
     sig = s.angle_noise_deg
     el_n = np.clip(el + sig * rng.standard_normal(q.size), 0.0, 90.0)
     az_n = np.mod(az + sig / np.maximum(np.cos(np.radians(el)), 0.1)
                   * rng.standard_normal(q.size), 360.0)
     az_n = np.where(az_n >= 360.0, 0.0, az_n)
-    received = 10.0 ** (p["vhf_db"][q] / 10.0) * (1e5 / p["slant_m"][q]) ** 2
+    received = 10.0 ** (p["vhf_peak_db"][q] / 10.0) * (1e5 / p["slant_m"][q]) ** 2
     power_db = (10.0 * np.log10(s.vhf_gain * received) - rng.exponential(6.0, q.size)
                 + rng.standard_normal(q.size))
     xyz_n = xyz + s.xyz_noise_m * rng.standard_normal(xyz.shape)

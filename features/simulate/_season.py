@@ -14,50 +14,63 @@ east, y north, z up):
   along it (up to 15 ms, trains 0.2 ms + Exp(2 ms) apart); energetic in-cloud pulses in
   its first 0.5-5 ms at 8-13 km; recoil events 30-400 ms into the flash along channels
   mapped earlier in the flash.
-- cloud-to-ground (CG) flash: a downward stepped leader from 4-7 km (tilted up to 30
-  degrees, one or two branches) with trains of pulses from 0.2 ms until it reaches the
-  ground; recoil events 20-300 ms after (the return stroke itself is not one of the four
-  classes and is not simulated). Margin stepped-leader pulses come from a dart-stepped
-  leader retracing the channel 20-150 ms after the first stroke at 6e5-2e6 m/s (Rakov &
-  Uman 2003, ch. 4: dart-stepped leaders ~1e6 m/s; from memory).
+- cloud-to-ground (CG) flash (:mod:`._cgflash`): a train of initial-breakdown pulses,
+  then a downward stepped leader from 4-7 km (tilted up to 30 degrees, one or two
+  branches) with trains of pulses until it reaches the ground, its last step ~25 us
+  before the first return stroke; subsequent strokes, recoil events 20-300 ms after the
+  first stroke. Return strokes and initial-breakdown pulses are in every CG flash's
+  records; they are catalogued only when ``class_mix`` asks for them. Margin
+  stepped-leader pulses come from a dart-stepped leader retracing the channel 20-150 ms
+  after the first stroke at 6e5-2e6 m/s (Rakov & Uman 2003, ch. 4: dart-stepped leaders
+  ~1e6 m/s; from memory).
 
 Leader pulse trains: 5-20 pulses 10-30 us apart, trains 0.2 ms + Exp(1 ms) apart (Rakov
 & Uman 2003, ch. 4: interstep intervals 10-30 us for stepped leaders near the ground; from
 memory). Flashes are 1 s + Exp(7 s) apart in storms of 150-600 flashes, storms 6-36 h
-apart. Flash positions are uniform over the area of the annulus ``range_km``.
+apart. Flash positions are uniform over the area of the annulus ``range_km`` (ground-arc
+distances; the propagation times use the straight-line distance over a curved Earth,
+:mod:`._earth`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from ..dipole import SPEED_OF_LIGHT_M_PER_S, HeidlerCurrent
-from ._classes import CLASSES, MARGIN_FRACTION
+from ._cgflash import cg_flash
+from ._classes import ALL_CLASSES, MARGIN_FRACTION
+from ._earth import slant_distance_m
 from ._flashes import (
     EIP,
+    IB,
     NBE,
     PULSE_COLUMNS,
     REC,
+    RS,
     SL,
     SOURCE_WEIGHT,
-    cg_flash,
     concat,
     flash_xy,
     ic_flash,
     nbe_pulse,
 )
+from .dipole import SPEED_OF_LIGHT_M_PER_S, HeidlerCurrent
 
-__all__ = ["BLOCK_EVENTS", "PULSE_COLUMNS", "SeasonClock", "block_quotas", "generate_block"]
+__all__ = ["BLOCK_EVENTS", "PULSE_COLUMNS", "SeasonClock", "block_quotas", "generate_block",
+           "season_start_ns"]
 
 BLOCK_EVENTS = 1000
+
+
+def season_start_ns(year: int) -> int:
+    """Start of a season (1 May, 14:00 UTC of ``year``), in ns since the Unix epoch."""
+    return int(np.datetime64(f"{year}-05-01T14:00:00", "ns").astype(np.int64))
 
 
 class SeasonClock:
     """Start times of successive flashes, in ns since the Unix epoch (storm by storm)."""
 
     def __init__(self, year: int, rng: np.random.Generator):
-        start = np.datetime64(f"{year}-05-01T14:00:00", "ns").astype(np.int64)
-        self.now_ns = int(start)
+        self.now_ns = season_start_ns(year)
         self.rng = rng
         self.left_in_storm = int(rng.integers(150, 601))
 
@@ -84,10 +97,10 @@ def block_quotas(n_events: int, class_mix: dict) -> list[np.ndarray]:
 
     Returns
     -------
-    list of ndarray, shape (4,)
-        Counts in the order of :data:`CLASSES`, one array per block.
+    list of ndarray, shape (6,)
+        Counts in the order of :data:`ALL_CLASSES`, one array per block.
     """
-    totals = _largest_remainder(n_events, np.array([class_mix[c] for c in CLASSES]))
+    totals = _largest_remainder(n_events, np.array([class_mix[c] for c in ALL_CLASSES]))
     n_blocks = max(1, -(-n_events // BLOCK_EVENTS))
     edges = np.minimum(np.arange(n_blocks + 1) * BLOCK_EVENTS, n_events)
     cum = np.floor(edges[:, None] * totals[None, :] / max(n_events, 1) + 0.5).astype(np.int64)
@@ -109,14 +122,14 @@ def generate_block(s, quotas, rng, clock: SeasonClock):
     flash_start_ns : ndarray of int64
         Start time of each flash of the block, ns since the Unix epoch.
     """
-    q = {c: int(n) for c, n in zip(range(4), quotas, strict=True)}
+    q = {c: int(n) for c, n in zip(range(len(ALL_CLASSES)), quotas, strict=True)}
     n_nbe_margin = int(rng.binomial(q[NBE], MARGIN_FRACTION["narrow_bipolar"]))
     n_rec_margin = int(rng.binomial(q[REC], MARGIN_FRACTION["recoil"]))
     n_dart = int(rng.binomial(q[SL], MARGIN_FRACTION["stepped_leader"]))
 
     def spec(kind, **kw):
         out = dict(kind=kind, n_eip=0, nbe_first=False, n_nbe_in=0, k_sl=0, k_sl_dart=0,
-                   n_rec=0, n_rec_margin=0)
+                   k_ib=0, k_rs=0, n_rec=0, n_rec_margin=0)
         out.update(kw)
         return out
 
@@ -153,6 +166,16 @@ def generate_block(s, quotas, rng, clock: SeasonClock):
         k = min(left, int(rng.integers(6, 31)))
         specs.append(spec("cg", k_sl=k))
         left -= k
+    for cls, key, first_k, more_k in ((RS, "k_rs", (1, 4), (1, 5)), (IB, "k_ib", (1, 6), (2, 9))):
+        left = q[cls]  # extra classes: in the CG flashes there are, then in more of them
+        for sp in specs:
+            if sp["kind"] == "cg" and left > 0:
+                sp[key] = min(left, int(rng.integers(*first_k)))
+                left -= sp[key]
+        while left > 0:
+            k = min(left, int(rng.integers(*more_k)))
+            specs.append(spec("cg", **{key: k}))
+            left -= k
     hosts = [sp for sp in specs if sp["kind"] in ("ic", "cg")]
     if q[REC] and not hosts:
         hosts = [spec("ic") for _ in range(-(-q[REC] // 4))]
@@ -170,18 +193,18 @@ def generate_block(s, quotas, rng, clock: SeasonClock):
         if sp["kind"] == "nbe":
             rows = nbe_pulse(rng, flash_xy(rng, s.range_km), 0.0, rng.random() < 0.7,
                               margin=False)
-            rows["cat"][:] = True
+            rows["catalogued"][:] = True
             got = [rows]
         elif sp["kind"] == "ic":
             got = ic_flash(rng, s, sp)
         else:
             got = cg_flash(rng, s, sp)
-        n_sl = sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
+        n_sl = sum(int((p["catalogued"] & (p["class_index"] == SL)).sum()) for p in got)
         sl_short += sp["k_sl"] + sp["k_sl_dart"] - n_sl
         _append_flash(got, pieces, starts, clock)
     while sl_short > 0:  # leaders too short for their share: more CG flashes
         got = cg_flash(rng, s, spec("cg", k_sl=sl_short))
-        sl_short -= sum(int((p["cat"] & (p["cls"] == SL)).sum()) for p in got)
+        sl_short -= sum(int((p["catalogued"] & (p["class_index"] == SL)).sum()) for p in got)
         _append_flash(got, pieces, starts, clock)
     pulses = concat(pieces)
     order = np.lexsort((pulses["t_s"], pulses["flash"]))
@@ -196,7 +219,7 @@ def _append_flash(got, pieces, starts, clock):
     flash = len(starts)
     starts.append(clock.next_flash_ns())
     for p in got:
-        p["flash"] = np.full(p["cls"].size, flash)
+        p["flash"] = np.full(p["class_index"].size, flash)
         pieces.append(p)
 
 
@@ -217,13 +240,13 @@ def _add_timing(p, s):
     The station triggers on the rising edge: the trigger is the arrival of the front
     start plus the time its current takes to reach half its peak, rounded to 1 ns.
     """
-    slant = np.sqrt(p["x_m"] ** 2 + p["y_m"] ** 2 + p["z0_m"] ** 2)
+    slant = slant_distance_m(np.hypot(p["x_m"], p["y_m"]), p["z0_m"])  # curved Earth
     p["slant_m"] = slant
     p["arrival_s"] = p["t_s"] + slant / SPEED_OF_LIGHT_M_PER_S
     p["trigger_s"] = np.round((p["arrival_s"] + half_rise_s(p["rise_s"], p["decay_s"]))
                               * 1e9) / 1e9
-    mix = np.array([s.class_mix[c] for c in CLASSES])
-    norm = s.sources_per_event / float(np.sum(mix * SOURCE_WEIGHT))
+    mix = np.array([s.class_mix[c] for c in ALL_CLASSES])
+    norm = s.sources_per_event / float(np.sum(mix * SOURCE_WEIGHT[:mix.size]))
     p["n_src_mean"] = p["src_weight"] * norm
     # classes without a plateau have NaN there; keep the VHF simple downstream
     p["plateau_db"] = np.where(np.isnan(p["plateau_db"]), -np.inf, p["plateau_db"])

@@ -9,12 +9,13 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import asdict, dataclass, fields
+from dataclasses import asdict, dataclass, fields, replace
 
 from .._checks import check_option, is_real_number
-from ._classes import CLASSES
+from ._classes import ALL_CLASSES
+from ._stress import stress_settings
 
-__all__ = ["PRESETS", "Settings", "resolve_settings"]
+__all__ = ["PRESETS", "Settings", "render_settings", "resolve_settings"]
 
 _REFERENCE = dict(
     station="hollowmere", season="2031", catalog_id=None,
@@ -28,6 +29,9 @@ _REFERENCE = dict(
                "energetic_in_cloud": 0.10},
     range_km=(10.0, 150.0), vhf_gain=1.0, missing_vhf_fraction=0.0,
     sources_per_event=20.0, angle_noise_deg=0.2, xyz_noise_m=10.0, chunk_size=1024,
+    member=None, catalog_practice="every_pulse", dead_time_s=None,
+    trigger_level_v_per_m=None, sferic_rate_hz=0.0, vhf_full_scale=None,
+    mapping_outage_fraction=0.0, mapping_down_fraction=0.0, truth_twin=False,
 )
 
 #: Named presets: partial settings applied before the explicit keywords.
@@ -50,6 +54,9 @@ PRESETS: dict[str, dict] = {
         with_range=False, with_xyz=False, missing_vhf_fraction=0.05, vhf_noise_floor=0.3,
         angle_noise_deg=0.4,
     ),
+    # a family of stations drawn from ranges (domain randomisation): the settings come
+    # from stress_settings(member), explicit keywords override them
+    "stress": {},
 }
 
 
@@ -91,12 +98,39 @@ class Settings:
     angle_noise_deg: float
     xyz_noise_m: float
     chunk_size: int
+    member: int | None
+    catalog_practice: str
+    dead_time_s: float | None
+    trigger_level_v_per_m: float | None
+    sferic_rate_hz: float
+    vhf_full_scale: float | None
+    mapping_outage_fraction: float
+    mapping_down_fraction: float
+    truth_twin: bool
     preset: str = "reference"
 
     @property
     def field_duration_s(self) -> float:
         """Duration of a field record, in s."""
         return self.field_samples / self.field_rate_hz
+
+    @property
+    def post_trigger_s(self) -> float:
+        """Duration of a field record after its trigger, in s."""
+        return self.field_duration_s - self.pretrigger_s
+
+    @property
+    def station_dead_time_s(self) -> float:
+        """Dead time after a trigger in s: ``dead_time_s``, else the post-trigger record."""
+        return self.post_trigger_s if self.dead_time_s is None else self.dead_time_s
+
+    @property
+    def station_trigger_level_v_per_m(self) -> float:
+        """Trigger level in V/m: ``trigger_level_v_per_m``, else 5 x the field noise rms
+        (at least 0.05 V/m; common practice, no source)."""
+        if self.trigger_level_v_per_m is not None:
+            return self.trigger_level_v_per_m
+        return max(5.0 * self.field_noise_v_per_m, 0.05)
 
     @property
     def season_year(self) -> int:
@@ -154,7 +188,7 @@ def _class_mix(value):
         raise ValueError(f"setting 'class_mix' must be a dict class -> fraction, got {value!r}")
     mix = {}
     for key, frac in value.items():
-        check_option(key, CLASSES, "setting 'class_mix' key")
+        check_option(key, ALL_CLASSES, "setting 'class_mix' key")
         if not is_real_number(frac) or frac < 0:
             raise ValueError(f"setting 'class_mix' fraction of {key!r} must be >= 0, "
                              f"got {frac!r}")
@@ -162,7 +196,7 @@ def _class_mix(value):
     total = sum(mix.values())
     if total <= 0:
         raise ValueError(f"setting 'class_mix' needs a fraction > 0, got {value!r}")
-    return {k: mix.get(k, 0.0) / total for k in CLASSES}
+    return {k: mix.get(k, 0.0) / total for k in ALL_CLASSES}
 
 
 def resolve_settings(preset: str = "reference", **overrides) -> Settings:
@@ -198,6 +232,12 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
                          "give the clip level or the fraction of rows to clip, not both")
     s = dict(_REFERENCE)
     s.update(PRESETS[preset])
+    if preset == "stress":
+        member = given.get("member")
+        s.update(stress_settings(0 if member is None else member))
+    elif given.get("member") is not None:
+        raise ValueError(f"setting 'member' applies to preset 'stress' only, got member="
+                         f"{given['member']!r} with preset {preset!r}")
     if given.get("full_scale") is not None:
         s["clip_fraction"] = None
     if given.get("clip_fraction") is not None:
@@ -246,6 +286,7 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
         s[name] = _bool(name, s[name])
     if s["decay_time_s"] is not None:
         s["decay_time_s"] = _pos("decay_time_s", s["decay_time_s"])
+    _check_station(s)
 
     if s["pretrigger_s"] >= s["field_samples"] / s["field_rate_hz"]:
         raise ValueError(f"setting 'pretrigger_s' ({s['pretrigger_s']!r} s) must be shorter "
@@ -292,3 +333,36 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
                              f"count ({s['scale']!r} V/m)")
     s["preset"] = preset
     return Settings(**{k: s[k] for k in _NAMES})
+
+
+def _check_station(s):
+    """Validate the trigger, sferic, VHF clip and mapping settings (in place)."""
+    s["catalog_practice"] = check_option(s["catalog_practice"], ("every_pulse",
+                                                                 "one_per_trigger"),
+                                         "setting 'catalog_practice'")
+    for name in ("dead_time_s", "trigger_level_v_per_m"):
+        if s[name] is not None:
+            s[name] = _pos(name, s[name], allow_zero=True)
+    if s["vhf_full_scale"] is not None:
+        s["vhf_full_scale"] = _pos("vhf_full_scale", s["vhf_full_scale"])
+    s["sferic_rate_hz"] = _pos("sferic_rate_hz", s["sferic_rate_hz"], allow_zero=True)
+    for name in ("mapping_outage_fraction", "mapping_down_fraction"):
+        s[name] = _fraction(name, s[name])
+    s["truth_twin"] = _bool("truth_twin", s["truth_twin"])
+
+
+def render_settings(s: Settings) -> Settings:
+    """The settings a season's records are rendered with: ``s`` itself, or for a truth
+    twin the instrument removed (DC-coupled float64 V/m in the physics sign, no noise,
+    quantisation or clipping, VHF as noise-free power, no source noise or outages).
+
+    Rates, record lengths, pre-triggers and delays stay the station's.
+    """
+    if not s.truth_twin:
+        return s
+    return replace(s, units="V/m", scale=1.0, sign_convention="physics", decay_time_s=None,
+                   field_noise_v_per_m=0.0, full_scale=None, clip_fraction=None,
+                   vhf_kind="power", vhf_noise_floor=0.0, vhf_full_scale=None,
+                   missing_vhf_fraction=0.0, angle_noise_deg=0.0, xyz_noise_m=0.0,
+                   mapping_outage_fraction=0.0, mapping_down_fraction=0.0,
+                   sferic_rate_hz=0.0)

@@ -1,4 +1,4 @@
-"""Tests of features.dipole against textbook closed forms and CODATA constants."""
+"""Tests of features.simulate.dipole against textbook closed forms and CODATA constants."""
 
 import numpy as np
 import pytest
@@ -6,8 +6,8 @@ import scipy.constants
 from numpy.testing import assert_allclose
 from scipy.integrate import cumulative_trapezoid
 
-from features import dipole
-from features.dipole import (
+from features.simulate import dipole
+from features.simulate.dipole import (
     DoubleExponentialCurrent,
     HeidlerCurrent,
     channel_field_terms,
