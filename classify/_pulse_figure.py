@@ -6,6 +6,8 @@ import numpy as np
 import pandas as pd
 
 from features import InputError
+from features.mapping import source_positions_m
+from features.trace import pulse_trace
 
 from ._figure_base import TIME_LABEL, check_size, new_figure, style_context
 from .svgplot import PALETTE
@@ -149,53 +151,6 @@ def _draw_sources(fig, sky, alt_ax, src):
 
 
 # ----------------------------------------------------------------------- from a catalog
-def _trace_from_catalog(catalog, row: int) -> dict:
-    """The pulse trace of one catalog row, as ``features.trace.pulse_trace`` will return it.
-
-    A stand-in built from existing pieces until that function is merged: the
-    field as the review page shows it (:func:`classify.review.field_trace`),
-    the extent from the onset to onset + ``width_s``
-    (:func:`features.waveform.field_features`), the other catalogued pulses
-    whose triggers fall in the record as neighbours (their peak: the largest
-    |E| within 2 us of the trigger), and the VHF power smoothed over
-    ``VHF_SMOOTH_S``.
-    """
-    from scipy.ndimage import uniform_filter1d
-
-    from features.vhf import VHF_SMOOTH_S, vhf_power
-    from features.waveform import field_features
-
-    from .review import field_trace
-
-    t_us, e, _ = field_trace(catalog, row)
-    t = t_us * 1e-6
-    ch = catalog.field
-    y, _ = catalog.read_field(row, row + 1)
-    f = field_features(y, ch.sample_rate_hz, pretrigger_s=ch.pretrigger_s, delay_s=ch.delay_s,
-                       decay_time_s=ch.decay_time_s, quantum_v_per_m=ch.quantum)
-    onset, width = float(f["onset_time_s"][0]), float(f["width_s"][0])
-    dt = (catalog.time_ns - catalog.time_ns[row]) * 1e-9
-    near = np.flatnonzero((dt >= t[0]) & (dt <= t[-1]))
-    near = near[near != row]
-    # a neighbour's peak: the field of largest |E| within 2 us of its trigger
-    win = np.abs(t[None, :] - dt[near, None]) <= 2e-6
-    pick = np.where(win, np.abs(np.nan_to_num(e)), -1.0).argmax(axis=1)
-    out = {"time_s": t, "field_v_per_m": e,
-           "extent_s": (onset, onset + width) if np.isfinite(onset + width) else None,
-           "neighbours_s": dt[near], "neighbour_peaks_v_per_m": e[pick],
-           "vhf_time_s": None, "vhf_envelope": None}
-    if catalog.vhf is not None:
-        v, _ = catalog.read_vhf(row, row + 1)
-        if np.isfinite(v).any():
-            vch = catalog.vhf
-            n = max(int(round(VHF_SMOOTH_S * vch.sample_rate_hz)), 1)
-            p = uniform_filter1d(vhf_power(v, vch.kind)[0], n)
-            tv = vch.physical_time_s()
-            keep = (tv >= t[0]) & (tv <= t[-1])
-            out["vhf_time_s"], out["vhf_envelope"] = tv[keep], p[keep]
-    return out
-
-
 def _sources_of(catalog, row: int) -> pd.DataFrame | None:
     """The mapped sources of one row (altitude from the catalog's x/y/z when it has them)."""
     if catalog.sources is None:
@@ -205,8 +160,9 @@ def _sources_of(catalog, row: int) -> pd.DataFrame | None:
         return None
     df = pd.DataFrame({"t_s": s.t_s, "azimuth_deg": s.azimuth_deg,
                        "elevation_deg": s.elevation_deg})
-    if s.xyz_m is not None:
-        df["altitude_m"] = s.xyz_m[:, 2]
+    pos = source_positions_m(s, catalog.range_m[row:row + 1])
+    if np.isfinite(pos[:, 2]).any():
+        df["altitude_m"] = pos[:, 2]     # above the curved Earth (features.mapping)
     return df.sort_values("t_s", kind="stable").reset_index(drop=True)
 
 
@@ -223,5 +179,5 @@ def pulse_figure_from_catalog(catalog, event_id: str, *, size: str = "page"):
         raise InputError(f"{catalog.path / 'events.csv'}: no event_id {event_id!r} in "
                          f"catalog {catalog.catalog_id}")
     row = int(rows[0])
-    return pulse_figure(_trace_from_catalog(catalog, row), _sources_of(catalog, row),
+    return pulse_figure(pulse_trace(catalog, row), _sources_of(catalog, row),
                         size=size, title=f"{catalog.catalog_id} {event_id}")

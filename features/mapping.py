@@ -33,7 +33,7 @@ from ._trackfit import MIN_SOURCES_FOR_SPEED, debiased_norm, grouped_median, rob
 
 __all__ = ["COLUMNS", "EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M", "MIN_SOURCES_FOR_SPEED",
            "altitude_from_enu_m", "altitude_from_range_elevation_m", "breakdown_polarity",
-           "grouped_median", "source_features"]
+           "grouped_median", "source_features", "source_positions_m"]
 
 #: Mean Earth radius in metres (the IUGG mean radius rounded; from memory).
 EARTH_RADIUS_M = 6.371e6
@@ -131,6 +131,29 @@ def _positions(g, az_deg, el_deg, xyz, range_m):
     el = np.minimum(el_deg, MAX_ELEVATION_DEG)
     return np.column_stack([d * np.sin(az), d * np.cos(az),
                             altitude_from_range_elevation_m(d, el)])
+
+
+def source_positions_m(sources, range_m) -> np.ndarray:
+    """East, north and altitude of every source of a source table, in metres.
+
+    From x/y/z when the table has them (altitude above the curved Earth), else from the
+    event's horizontal range and the angles (4/3-Earth altitude); NaN without either.
+
+    Parameters
+    ----------
+    sources : features._tables.SourceTable
+        Sources; ``event_index`` indexes ``range_m``.
+    range_m : ndarray, shape (n_events,)
+        Horizontal range of each event, m (NaN unknown).
+
+    Returns
+    -------
+    ndarray, shape (n_sources, 3)
+    """
+    xyz = None if sources.xyz_m is None else np.asarray(sources.xyz_m, dtype=np.float64)
+    return _positions(np.asarray(sources.event_index, dtype=np.intp),
+                      np.asarray(sources.azimuth_deg, dtype=np.float64),
+                      np.asarray(sources.elevation_deg, dtype=np.float64), xyz, range_m)
 
 
 def _sky_unit(az_deg, el_deg):

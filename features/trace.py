@@ -14,12 +14,12 @@ from .catalog import Catalog
 from .extract import _column_span, _read_rows, clip_level, vhf_window_s
 from .pulses import CONTEXT_S
 from .vhf import VHF_SPAN_S, vhf_envelope, vhf_features, vhf_power
-from .waveform import ANALYSIS_WINDOW_S, field_features
+from .waveform import ANALYSIS_WINDOW_S, decay_compensate, field_features
 
 __all__ = ["pulse_trace"]
 
 
-def pulse_trace(catalog: Catalog, row: int) -> dict:
+def pulse_trace(catalog: Catalog, row: int, *, whole_record: bool = False) -> dict:
     """The processed field and VHF of one catalogued pulse, with its extent and neighbours.
 
     Parameters
@@ -27,6 +27,10 @@ def pulse_trace(catalog: Catalog, row: int) -> dict:
     catalog : Catalog
     row : int
         Row of the pulse in the catalog (0-based).
+    whole_record : bool, default=False
+        Return the field over the whole record, processed the same way (the same
+        offset, decay compensation and baseline; on the analysed span the values are
+        the features'), instead of the analysed span only.
 
     Returns
     -------
@@ -61,11 +65,15 @@ def pulse_trace(catalog: Catalog, row: int) -> dict:
                            quantum_v_per_m=fch.quantum, range_m=rng,
                            full_scale_v_per_m=clip_level(fch), return_trace=True)
     t = tr["time_s"]
-    table, own = tr["pulses"], int(tr["own"][0])
-    others = np.flatnonzero((table.row == 0) & (np.arange(len(table)) != own))
-    t_peak = t[np.clip(table.peak_col[others], 0, t.size - 1)] if others.size else t[:0]
-    near = np.abs(t_peak - f["peak_time_s"][0]) <= CONTEXT_S
     e = tr["field_v_per_m"][0]
+    table, own = tr["pulses"], int(tr["own"][0])
+    if whole_record:
+        t, e = _whole_record(catalog, row, c0, tr)
+    others = np.flatnonzero((table.row == 0) & (np.arange(len(table)) != own))
+    t_span = tr["time_s"]
+    t_peak = (t_span[np.clip(table.peak_col[others], 0, t_span.size - 1)] if others.size
+              else t_span[:0])
+    near = np.abs(t_peak - f["peak_time_s"][0]) <= CONTEXT_S
     peaks = (table.peak[others] * table.sign[others])[near] if others.size else e[:0]
     out = {
         "time_s": t,
@@ -95,3 +103,22 @@ def pulse_trace(catalog: Catalog, row: int) -> dict:
         out["vhf_window_s"] = (float(window[0][0]), float(window[1][0]))
         out["vhf_peak_time_s"] = float(v["vhf_peak_time_s"][0])
     return out
+
+
+def _whole_record(catalog, row, c0, tr):
+    """The whole field record processed as the analysed span was (see ``whole_record``)."""
+    fch = catalog.field
+    raw = fch.read_rows(row, row + 1).astype(np.float64) * (fch.scale * fch.sign)
+    missing = np.isnan(raw)
+    x = np.where(missing, np.nanmedian(raw) if (~missing).any() else 0.0, raw)
+    x = x - tr["offset"][0]
+    e0 = decay_compensate(x, fch.sample_rate_hz, fch.decay_time_s)[0]
+    span = tr["compensated_v_per_m"][0]
+    # decay compensation integrates from the first sample: over the span the whole
+    # record's compensated field differs from the span's by a constant
+    shift = float(np.mean(e0[c0:c0 + span.size] - span))
+    level, slope, lo, hi = (float(v[0]) for v in tr["baseline"])
+    cols = np.arange(e0.size) - c0
+    e = e0 - shift - (level + slope * np.clip(cols, lo, hi))
+    e[missing[0]] = np.nan
+    return fch.physical_time_s(), e

@@ -295,7 +295,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         relative to the trigger, s), ``prev_end_s``, ``next_start_s`` (the neighbouring
         pulses' extents, s, NaN: none) and ``field_ok`` (bool). With ``return_trace``,
         a second dict: ``field_v_per_m`` (processed rows), ``time_s`` (physical time of
-        each column), ``pulses`` (the :class:`features.pulses.PulseTable`), ``own``.
+        each column), ``pulses`` (the :class:`features.pulses.PulseTable`), ``own``,
+        ``sigma``, ``compensated_v_per_m`` (after decay compensation, before the
+        baseline), ``offset`` (digitizer offset removed first, V/m) and ``baseline``
+        ((level, slope per column, first and last column of the line)).
     """
     x = np.asarray(field_v_per_m, dtype=np.float64)
     if x.ndim != 2:
@@ -318,6 +321,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     q = float(quantum_v_per_m or 0.0)
     stop_a = np.full(n, int(np.clip(np.floor(jt - TRIGGER_GUARD_S * fs), 0, m)))
     # the digitizer's offset first (decay compensation would turn it into a ramp)
+    offset = np.zeros(n)
     if decay_time_s is not None:
         offset, _, _, _, _ = _pulses.baseline_fit(x, stop_a, fs, q, min_slope_s=np.inf,
                                                   quiet_level=True)
@@ -546,5 +550,6 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     if not return_trace:
         return out
     trace = {"field_v_per_m": e, "time_s": tm(cols.astype(float)), "pulses": table,
-             "own": own, "sigma": sigma}
+             "own": own, "sigma": sigma, "compensated_v_per_m": e0, "offset": offset,
+             "baseline": (level, slope, line_lo, line_hi)}
     return out, trace

@@ -12,7 +12,7 @@ standardised model-feature space of the results file (the space of the
 queue's diversity pass, :func:`classify.review._queue.standardised_features`);
 the distance shown is then the root-mean-square difference of the standardised
 features. Each look-alike carries its field record over the features' analysis
-window (:func:`classify.review._trace.field_record`) when its catalog can be
+window (:func:`features.trace.pulse_trace`) when its catalog can be
 opened (its path as registered in the label store), so the page draws it on
 the pulse's own time axis.
 """
@@ -25,10 +25,11 @@ import math
 import numpy as np
 import pandas as pd
 
-from features import open_catalog, waveform
+from features import open_catalog
+from features.trace import pulse_trace
 
 from ._queue import feature_stats, standardised_features
-from ._trace import compact, field_record, reduce_points
+from ._trace import compact, reduce_points
 
 logger = logging.getLogger("pulsesort")
 
@@ -137,10 +138,8 @@ class LookAlikes:
         row = self._rows[catalog_id].get(event_id)
         if row is None:
             return None
-        t, e, _ = field_record(cat, row)
-        lo, hi = waveform.ANALYSIS_WINDOW_S
-        keep = (t >= lo) & (t <= hi)
-        t, e = reduce_points(t[keep], e[keep], MAX_TRACE_POINTS)
+        tr = pulse_trace(cat, row)          # the analysed span, as the features saw it
+        t, e = reduce_points(tr["time_s"], tr["field_v_per_m"], MAX_TRACE_POINTS)
         return {"time_s": compact(t, 6), "field_v_per_m": compact(e, 4)}
 
     def _standardised(self, rows):

@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from features.mapping import _positions
+from features.mapping import source_positions_m
 
 from ._trace import compact
 
@@ -48,7 +48,7 @@ def _rows_sources(catalog, rows):
     az = np.concatenate([p.azimuth_deg for _, p in parts])
     el = np.concatenate([p.elevation_deg for _, p in parts])
     owner = np.concatenate([np.full(p.n_sources, r) for r, p in parts])
-    pos = np.concatenate([_positions(p, catalog.range_m[r:r + 1]) for r, p in parts])
+    pos = np.concatenate([source_positions_m(p, catalog.range_m[r:r + 1]) for r, p in parts])
     return t, az, el, pos, owner
 
 

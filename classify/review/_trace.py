@@ -1,29 +1,26 @@
 """The record of one pulse for the page: field and VHF against physical time, extent, neighbours.
 
 The page draws the record itself (zoom and pan on the time axis), so it gets
-numbers, not pictures. :func:`record_trace` returns a dict with the keys of
-``features.trace.pulse_trace(catalog, row)`` (:data:`TRACE_KEYS`), which
-computes the pulse's own extent and its neighbours in the record; until that
-function is there, the extent comes from the results' ``pulse_start_s`` and
-``pulse_end_s`` columns when they exist (:func:`with_extent`) and the list of
-neighbours is empty. :class:`classify.review.ReviewSession` takes any function
-of ``(catalog, row)`` returning these keys (its ``trace`` parameter).
+numbers, not pictures. :func:`record_trace` takes the field, the pulse's extent and
+its neighbours from :func:`features.trace.pulse_trace` (``whole_record=True``): the
+page shows the field exactly as the features measured it. :class:`classify.review.
+ReviewSession` takes any function of ``(catalog, row)`` returning the keys of
+:data:`TRACE_KEYS` (its ``trace`` parameter).
 
 Conventions
 -----------
 * ``time_s``: physical arrival time at the antenna relative to the trigger
   (the channel delay removed), s, for every sample of the record.
-* ``field_v_per_m``: baseline (median of the record before the features'
-  analysis window) removed, decay-compensated
-  (:func:`features.waveform.decay_compensate`), V/m, physics convention
-  (+ = field vector up); NaN where the record is missing.
+* ``field_v_per_m``: the digitizer offset and the features' baseline line removed,
+  decay-compensated (:func:`features.waveform.decay_compensate`), V/m, physics
+  convention (+ = field vector up); NaN where the record is missing.
 * ``vhf_time_s``, ``vhf_envelope``: linear VHF power (:func:`features.vhf.vhf_power`)
   in the catalog's power units; a record longer than :data:`MAX_VHF_POINTS`
   samples is reduced to the maximum of consecutive blocks (peaks kept), at the
   blocks' mean time.
 * ``extent_s``: ``(start, end)`` of the pulse itself, s from the trigger, or None.
-* ``neighbours_s``, ``neighbour_peaks_v_per_m``: times (s) and field peaks
-  (V/m) of the other pulses in the record.
+* ``neighbours_s``, ``neighbour_peaks_v_per_m``: times (s) and peaks (V/m) of the
+  other pulses in the record that the features counted around the pulse.
 """
 
 from __future__ import annotations
@@ -34,6 +31,7 @@ import warnings
 import numpy as np
 
 from features import waveform
+from features.trace import pulse_trace
 from features.vhf import vhf_power
 
 __all__ = ["TRACE_KEYS", "MAX_VHF_POINTS", "field_record", "record_trace", "with_extent",
@@ -103,15 +101,20 @@ def record_trace(catalog, row: int) -> dict:
     Returns
     -------
     dict
-        ``time_s``, ``field_v_per_m`` (ndarray, shape (m,)); ``extent_s`` None;
-        ``neighbours_s``, ``neighbour_peaks_v_per_m`` empty arrays;
+        ``time_s``, ``field_v_per_m`` (ndarray, shape (m,)); ``extent_s`` ((start, end)
+        or None for an unusable record); ``neighbours_s``, ``neighbour_peaks_v_per_m``;
         ``vhf_time_s``, ``vhf_envelope`` (ndarray, or None without VHF); and
         ``clipped`` (bool).
     """
-    t, e, clipped = field_record(catalog, row)
+    tr = pulse_trace(catalog, row, whole_record=True)
+    raw = catalog.field.read_rows(row, row + 1)
+    clipped = bool(catalog.field.clipped_rows(raw)[0])
+    extent = tr["extent_s"]
+    extent = None if not all(math.isfinite(v) for v in extent) else extent
     vhf = _vhf_record(catalog, row)
-    return {"time_s": t, "field_v_per_m": e, "extent_s": None,
-            "neighbours_s": np.zeros(0), "neighbour_peaks_v_per_m": np.zeros(0),
+    return {"time_s": tr["time_s"], "field_v_per_m": tr["field_v_per_m"], "extent_s": extent,
+            "neighbours_s": np.asarray(tr["neighbours_s"]),
+            "neighbour_peaks_v_per_m": np.asarray(tr["neighbour_peaks_v_per_m"]),
             "vhf_time_s": None if vhf is None else vhf[0],
             "vhf_envelope": None if vhf is None else vhf[1], "clipped": clipped}
 

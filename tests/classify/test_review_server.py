@@ -30,6 +30,7 @@ from classify.review import (
 )
 from classify.review._server import LISTEN_BACKLOG, MAX_JSON_DEPTH, json_depth
 from classify.triage import read_results
+from features.waveform import ANALYSIS_WINDOW_S
 from features import open_catalog
 
 from ._review_testkit import XSS_ID, Client, triaged_catalog
@@ -247,7 +248,11 @@ def test_pulse_view_is_complete_and_strict_json(served):
     assert len(tr["time_s"]) == len(tr["field_v_per_m"]) > 1000
     assert np.all(np.diff(tr["time_s"]) > 0)
     assert len(tr["vhf_time_s"]) == len(tr["vhf_envelope"]) > 1000
-    assert tr["extent_s"] is None and tr["neighbours_s"] == []   # no such columns yet
+    # the extent is the features' (pulse_start_s .. pulse_end_s of the results row)
+    res = results.set_index("event_id").loc[p["event_id"]]
+    assert tr["extent_s"] == pytest.approx([res["pulse_start_s"], res["pulse_end_s"]],
+                                           rel=1e-5, abs=1e-12)
+    assert isinstance(tr["neighbours_s"], list)
     assert tr["time_s"][0] <= p["view_s"][0] < p["view_s"][1] <= tr["time_s"][-1]
     assert [m["kind"] for m in p["markers"]] == ["field_peak", "vhf_peak"]
     lag = results.set_index("event_id").at[p["event_id"], "vhf_field_lag_s"]
@@ -324,9 +329,10 @@ def test_lookalikes_come_from_the_stores_labelled_pulses(triaged, tmp_path):
         assert all(x["label"] == g["class"] for x in g["items"])
         assert_allclose([x["distance"] for x in g["items"]], [d[e] for e in expect],
                         rtol=1e-9)
-        for x in g["items"]:           # the record over the analysis window, as the page draws it
+        for x in g["items"]:           # the analysed span, as the features saw it
             t = np.array(x["trace"]["time_s"])
-            assert t[0] >= -40e-6 - 1e-9 and t[-1] <= 160e-6 + 1e-9
+            lo, hi = ANALYSIS_WINDOW_S
+            assert t[0] >= lo - 1e-6 and t[-1] <= hi + 1e-6
             assert len(t) == len(x["trace"]["field_v_per_m"]) > 100
 
 

@@ -115,13 +115,16 @@ def test_extent_comes_from_the_results_columns_when_the_trace_has_none():
         trace_json(dict(base, field_v_per_m=[1.0]))
 
 
-def test_pulse_view_takes_extent_from_results_rows(catalog, tmp_path):
-    """A results row with pulse_start_s / pulse_end_s puts the extent in the pulse JSON."""
+def test_pulse_view_shows_the_extent_and_neighbours_the_features_measured(catalog, tmp_path):
+    """The pulse JSON carries the features' own extent and neighbours (not a results row's)."""
+    from features.trace import pulse_trace
+
     res = pd.Series({"event_id": catalog.event_ids[5], "pulse_start_s": -2e-6,
                      "pulse_end_s": 5e-6, "prediction_set": "recoil", "p_recoil": 1.0})
     view = pulse_view(catalog, 5, res)
-    assert view["trace"]["extent_s"] == [-2e-6, 5e-6]
-    assert view["trace"]["neighbours_s"] == []
+    ref = pulse_trace(catalog, 5)
+    assert view["trace"]["extent_s"] == pytest.approx(list(ref["extent_s"]), abs=1e-12)
+    assert view["trace"]["neighbours_s"] == pytest.approx(list(ref["neighbours_s"]), abs=1e-11)
 
 
 def test_sources_are_those_of_sources_csv_with_the_earlier_flash_channel(catalog):
@@ -141,7 +144,11 @@ def test_sources_are_those_of_sources_csv_with_the_earlier_flash_channel(catalog
         assert_allclose(view["t_s"], mine["t_s"], rtol=1e-6)
         assert_allclose(view["east_m"], mine["x_m"], rtol=1e-5)
         assert_allclose(view["north_m"], mine["y_m"], rtol=1e-5)
-        assert_allclose(view["up_m"], mine["z_m"], rtol=1e-5)
+        # altitude above the curved Earth from the local east/north/up frame:
+        # h = sqrt(x^2 + y^2 + (R + z)^2) - R (geometry; R = 6.371e6 m, mean Earth radius)
+        r_e = 6.371e6
+        h = np.sqrt(mine["x_m"] ** 2 + mine["y_m"] ** 2 + (r_e + mine["z_m"]) ** 2) - r_e
+        assert_allclose(view["up_m"], h, rtol=1e-5)
         fid = ev["flash_id"][row]
         before = ev[(ev["flash_id"] == fid) & (t_ns < t_ns[row])]["event_id"]
         early = src[src["event_id"].isin(before)]
@@ -160,7 +167,9 @@ def test_sources_are_those_of_sources_csv_with_the_earlier_flash_channel(catalog
 
 
 def test_positions_from_range_and_angles_without_xyz(tmp_path):
-    """Without x/y/z: east = r sin(az), north = r cos(az), up = r tan(el) (flat-earth closed form)."""
+    """Without x/y/z: east = r sin(az), north = r cos(az); the altitude over a 4/3 Earth,
+    h = a / (cos(r/a) - tan(el) sin(r/a)) - a (common radar practice), is r tan(el) plus
+    about r^2 / 2a (second order in r/a)."""
     cat = _simulate(tmp_path / "angles", "--no-xyz", events=30)
     ev = pd.read_csv(cat.path / "events.csv")
     src = pd.read_csv(cat.path / "sources.csv")
@@ -172,7 +181,11 @@ def test_positions_from_range_and_angles_without_xyz(tmp_path):
     assert view["position"] == "range"
     assert_allclose(view["east_m"], r * np.sin(az), rtol=1e-5)
     assert_allclose(view["north_m"], r * np.cos(az), rtol=1e-5)
-    assert_allclose(view["up_m"], r * np.tan(el), rtol=1e-5)
+    a = 4 / 3 * 6.371e6
+    theta = r / a
+    assert_allclose(view["up_m"], a / (np.cos(theta) - np.tan(el) * np.sin(theta)) - a,
+                    rtol=1e-6)
+    assert_allclose(view["up_m"], r * np.tan(el) + r * r / (2 * a), rtol=0.02, atol=50)
     bare = _simulate(tmp_path / "bare", "--no-xyz", "--no-range", events=30)
     row = int(np.flatnonzero(pd.read_csv(bare.path / "events.csv")["event_id"].isin(
         pd.read_csv(bare.path / "sources.csv")["event_id"]))[0])

@@ -16,7 +16,7 @@ import features.mapping
 from features import InputError, schema
 from features._tables import SourceTable
 from features._trackfit import robust_velocity
-from features.dipole import tl_radiation_field_v_per_m
+from features.simulate.dipole import tl_radiation_field_v_per_m
 from features.mapping import (
     EARTH_RADIUS_M,
     EFFECTIVE_EARTH_RADIUS_M,

@@ -39,3 +39,16 @@ def test_trace_agrees_with_the_feature_table(season):
 def test_row_outside_the_catalog(season):
     with pytest.raises(IndexError, match="outside the catalog"):
         pulse_trace(season, season.n_events)
+
+
+def test_whole_record_agrees_with_the_span(season):
+    """The whole record, processed the same way, equals the analysed span where they meet."""
+    for row in range(0, season.n_events, 7):
+        span = pulse_trace(season, row)
+        whole = pulse_trace(season, row, whole_record=True)
+        assert whole["time_s"].size == season.field.n_samples
+        idx = np.searchsorted(whole["time_s"], span["time_s"])
+        assert_allclose(whole["time_s"][idx], span["time_s"], atol=1e-12)
+        scale = np.nanmax(np.abs(span["field_v_per_m"]))
+        assert_allclose(whole["field_v_per_m"][idx], span["field_v_per_m"], atol=1e-9 * scale)
+        assert whole["extent_s"] == span["extent_s"]
