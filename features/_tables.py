@@ -7,7 +7,9 @@ Private to :mod:`features.catalog`. Every problem is collected in a
 
 from __future__ import annotations
 
+import csv
 import os
+import re
 import shutil
 import tempfile
 import weakref
@@ -17,13 +19,40 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ._checks import Problems
+from ._checks import Plausible, Problems
 
-__all__ = ["SourceTable", "read_events", "read_sources"]
+__all__ = ["SourceTable", "read_events", "read_sources", "TABLE_PLAUSIBLE"]
 
 EVENT_COLUMNS = ("event_id", "time_utc", "flash_id", "range_m")
 SOURCE_REQUIRED = ("event_id", "t_s", "azimuth_deg", "elevation_deg")
 SOURCE_XYZ = ("x_m", "y_m", "z_m")
+
+#: Accepted range of the number columns of events.csv and sources.csv
+#: (inclusive; generous on purpose, like the manifest's ranges).
+TABLE_PLAUSIBLE = {
+    "range_m": Plausible(
+        0.0, 2e6, "m", "a single station records discharge pulses out to a few hundred "
+        "km; 2,000 km is beyond any of them; common practice, no source"),
+    "t_s": Plausible(
+        -10.0, 10.0, "s", "a source belongs to a pulse of a flash, and a flash lasts at most "
+        "a few seconds; common practice, no source"),
+    "x_m": Plausible(-2e6, 2e6, "m", "the same 2,000 km as range_m"),
+    "y_m": Plausible(-2e6, 2e6, "m", "the same 2,000 km as range_m"),
+    "z_m": Plausible(
+        -1e5, 1e5, "m", "discharges lie below the ionosphere, about 90 km up; common "
+        "practice, no source"),
+    "power_db": Plausible(
+        -1000.0, 1000.0, "dB", "no source power is a thousand orders of magnitude from its "
+        "reference; common practice, no source"),
+}
+
+#: An explicit ISO-8601 date *and* time, extended (2031-07-14T21:03:55.123Z) or
+#: basic (20310714T210355Z) form, with an optional zone. Words such as "now"
+#: or "today", and dates without a time, are refused.
+ISO_TIME = re.compile(
+    r"(?:\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?"
+    r"|\d{8}T\d{4}(?:\d{2}(?:[.,]\d+)?)?)"
+    r"(?:Z|[+-]\d{2}(?::?\d{2})?)?")
 
 #: Above this many sources the parsed table is kept in memory-mapped files in a
 #: temporary folder instead of RAM (about 40 bytes per source either way).
@@ -33,6 +62,64 @@ _CSV_CHUNK_ROWS = 100_000
 
 def _line(i) -> str:
     return f"line {int(i) + 2}"
+
+
+def _raw_header(path: Path) -> tuple[list[str], int]:
+    """The header row as written (pandas renames a repeated name to ``name.1``) and
+    the number of fields of the first data row (0 when there is none)."""
+    with open(path, encoding="utf-8-sig", newline="") as fh:
+        reader = csv.reader(iter(lambda: fh.readline(1 << 20), ""))
+        header = [c.strip() for c in next(reader, [])]
+        first = next(reader, [])
+    return header, len(first)
+
+
+def _repeated(header: list[str]) -> list[str]:
+    return sorted({c for c in header if header.count(c) > 1})
+
+
+def _long_row(path: Path, fname: str, n_columns: int) -> str:
+    """Name the first row with more fields than the header (read only on that error)."""
+    with open(path, encoding="utf-8-sig", newline="") as fh:
+        reader = csv.reader(fh)
+        next(reader, None)
+        for row in reader:
+            if len(row) > n_columns:
+                hint = ("a trailing comma" if len(row) == n_columns + 1 and row[-1] == ""
+                        else "a comma inside an unquoted value?")
+                return (f"{fname} line {reader.line_num}: {len(row)} fields but the header "
+                        f"has {n_columns} columns ({hint})")
+    return f"{fname}: a row has more fields than the header's {n_columns} columns"
+
+
+def _read_csv_chunks(path: Path, **kwargs):
+    """pandas' chunked reader, with ``index_col=False``.
+
+    Without it pandas silently takes the first column as the index when the
+    first data row carries one field more than the header (a trailing comma);
+    the caller checks that row, and pandas refuses any later row with more
+    fields than the first (``ParserError``, naming the line).
+    """
+    return pd.read_csv(path, index_col=False, chunksize=_CSV_CHUNK_ROWS, encoding="utf-8",
+                       **kwargs)
+
+
+def _extra_fields(exc: Exception) -> bool:
+    text = str(exc)
+    return "Expected" in text and "fields" in text
+
+
+def _check_range(values: np.ndarray, raw: pd.Series, fname: str, column: str,
+                 problems: Problems, line_offset: int) -> None:
+    """Report finite values outside :data:`TABLE_PLAUSIBLE` and set them to NaN."""
+    rng = TABLE_PLAUSIBLE[column]
+    with np.errstate(invalid="ignore"):
+        out = (values < rng.low) | (values > rng.high)
+    for i in np.flatnonzero(out):
+        problems.add(f"{fname} {_line(i + line_offset)}: column '{column}' is "
+                     f"{raw.iloc[i]!r}, outside the accepted range {rng.describe()} "
+                     f"({rng.why})", key=f"{fname}:{column}:range")
+    values[out] = np.nan
 
 
 def _parse_float_column(values: pd.Series, fname: str, column: str, problems: Problems,
@@ -72,8 +159,10 @@ def _event_chunk(raw: pd.DataFrame, fname: str, offset: int, problems: Problems,
         problems.add(f"{fname} {_line(i + offset)}: column 'event_id' is empty",
                      key=f"{fname}:id-empty")
     text = raw["time_utc"].astype(str).str.strip()
-    times = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
-    bad_time = times.isna().to_numpy()
+    explicit = text.str.fullmatch(ISO_TIME).fillna(False).to_numpy(dtype=bool)
+    times = pd.to_datetime(text.where(explicit, ""), format="ISO8601", utc=True,
+                           errors="coerce")
+    bad_time = times.isna().to_numpy() | ~explicit
     for i in np.flatnonzero(bad_time):
         problems.add(f"{fname} {_line(i + offset)}: column 'time_utc' must be an ISO-8601 UTC "
                      f"time like 2031-07-14T21:03:55.123456Z, got {raw['time_utc'].iloc[i]!r}",
@@ -98,6 +187,7 @@ def _event_chunk(raw: pd.DataFrame, fname: str, offset: int, problems: Problems,
             problems.add(f"{fname} {_line(i + offset)}: column 'range_m' must be > 0 (metres), "
                          f"got {raw['range_m'].iloc[i]!r}", key=f"{fname}:range")
         rng[rng <= 0] = np.nan
+        _check_range(rng, raw["range_m"], fname, "range_m", problems, offset)
         out["range_m"] = rng
     else:
         out["range_m"] = np.full(len(raw), np.nan)
@@ -115,24 +205,29 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
     other columns as strings, or None when the file cannot be used at all.
     """
     fname = path.name
+    header = None
     try:
-        reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                             encoding="utf-8", skipinitialspace=False,
-                             chunksize=_CSV_CHUNK_ROWS)
-        parts, offset, header = [], 0, None
+        header, first_len = _raw_header(path)
+        dup_cols = _repeated(header)
+        if dup_cols:
+            problems.add(f"{fname}: the header repeats column(s) {dup_cols}; every column "
+                         "name must appear once")
+            return None
+        if first_len > len(header):
+            problems.add(_long_row(path, fname, len(header)))
+            return None
+        reader = _read_csv_chunks(path, dtype=str, keep_default_na=False, na_filter=False,
+                                  skipinitialspace=False)
+        parts, offset, seen = [], 0, False
         counts = {"no_zone": 0, "coarse": 0}
         for raw in reader:
             raw.columns = [str(c).strip() for c in raw.columns]
-            if header is None:
-                header = list(raw.columns)
-                missing = [c for c in ("event_id", "time_utc") if c not in header]
+            if not seen:
+                seen = True
+                missing = [c for c in ("event_id", "time_utc") if c not in raw.columns]
                 if missing:
                     problems.add(f"{fname}: required column(s) {missing} missing; header has "
-                                 f"{header}")
-                    return None
-                dup_cols = sorted({c for c in header if header.count(c) > 1})
-                if dup_cols:
-                    problems.add(f"{fname}: header repeats column(s) {dup_cols}")
+                                 f"{list(raw.columns)}")
                     return None
             parts.append(_event_chunk(raw, fname, offset, problems, counts))
             offset += len(raw)
@@ -143,7 +238,10 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
         problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
         return None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
-        problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
+        if header and _extra_fields(exc):
+            problems.add(_long_row(path, fname, len(header)))
+        else:
+            problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
         return None
     if not parts:
         problems.add(f"{fname}: no event rows after the header")
@@ -346,19 +444,31 @@ def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
                        notes: list[str], numeric: bool) -> SourceTable | None:
     fname = path.name
     n_events = len(event_ids)
+    raw_header = None
     try:
         size = path.stat().st_size
+        raw_header, first_len = _raw_header(path)
+        dup_cols = _repeated(raw_header)
+        if dup_cols:
+            problems.add(f"{fname}: the header repeats column(s) {dup_cols}; every column "
+                         "name must appear once")
+            return None
+        if first_len > len(raw_header):
+            problems.add(_long_row(path, fname, len(raw_header)))
+            return None
         if numeric:
             header = [str(c).strip() for c in pd.read_csv(path, nrows=0, encoding="utf-8")]
             dtypes = {c: np.float64 for c in header if c in _SOURCE_NUMBERS}
-            reader = pd.read_csv(path, dtype={**{c: str for c in header}, **dtypes},
-                                 keep_default_na=False, na_values={c: [""] for c in dtypes},
-                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
+            reader = _read_csv_chunks(path, dtype={**{c: str for c in header}, **dtypes},
+                                      keep_default_na=False,
+                                      na_values={c: [""] for c in dtypes})
         else:
-            reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
+            reader = _read_csv_chunks(path, dtype=str, keep_default_na=False, na_filter=False)
     except FileNotFoundError:
         problems.add(f"{fname}: file not found at {path} (declared in catalog.json 'sources')")
+        return None
+    except UnicodeDecodeError as exc:
+        problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
         return None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
         problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
@@ -391,6 +501,7 @@ def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
                              key=f"{fname}:event")
             t = _parse_float_column(chunk["t_s"], fname, "t_s", problems,
                                     allow_empty=False, line_offset=offset)
+            _check_range(t, chunk["t_s"], fname, "t_s", problems, offset)
             az = _parse_float_column(chunk["azimuth_deg"], fname, "azimuth_deg", problems,
                                      allow_empty=False, line_offset=offset)
             el = _parse_float_column(chunk["elevation_deg"], fname, "elevation_deg", problems,
@@ -408,13 +519,18 @@ def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
             arrays = dict(event_index=idx.astype(np.int64), t_s=t, azimuth_deg=az,
                           elevation_deg=el)
             if has_xyz:
-                arrays["xyz_m"] = np.column_stack([
-                    _parse_float_column(chunk[c], fname, c, problems, allow_empty=True,
-                                        line_offset=offset) for c in SOURCE_XYZ])
+                xyz = []
+                for c in SOURCE_XYZ:
+                    v = _parse_float_column(chunk[c], fname, c, problems, allow_empty=True,
+                                            line_offset=offset)
+                    _check_range(v, chunk[c], fname, c, problems, offset)
+                    xyz.append(v)
+                arrays["xyz_m"] = np.column_stack(xyz)
             if has_power:
-                arrays["power_db"] = _parse_float_column(chunk["power_db"], fname, "power_db",
-                                                         problems, allow_empty=True,
-                                                         line_offset=offset)
+                power = _parse_float_column(chunk["power_db"], fname, "power_db", problems,
+                                            allow_empty=True, line_offset=offset)
+                _check_range(power, chunk["power_db"], fname, "power_db", problems, offset)
+                arrays["power_db"] = power
             cols.append(**arrays)
             offset += len(chunk)
     except UnicodeDecodeError as exc:
@@ -422,7 +538,10 @@ def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
         cols.discard()
         return None
     except pd.errors.ParserError as exc:
-        problems.add(f"{fname}: malformed CSV ({exc})")
+        if raw_header and _extra_fields(exc):
+            problems.add(_long_row(path, fname, len(raw_header)))
+        else:
+            problems.add(f"{fname}: malformed CSV ({exc})")
         cols.discard()
         return None
     except ValueError:

@@ -243,12 +243,12 @@ def test_missing_declared_files(make_catalog):
 
 
 def test_invalid_json_and_not_a_folder(tmp_path, make_catalog):
-    """Broken JSON names line and column; a missing folder is FileNotFoundError."""
+    """Broken JSON names line and column; a missing folder is an InputError naming it."""
     path = make_catalog("json", _field())
     (path / "catalog.json").write_text('{"format": "pulse-catalog",\n "version": }')
     with pytest.raises(CatalogError, match=r"invalid JSON at line 2"):
         open_catalog(path)
-    with pytest.raises(FileNotFoundError):
+    with pytest.raises(CatalogError, match=r"nowhere: no such catalog folder"):
         open_catalog(tmp_path / "nowhere")
     assert main(["check", str(tmp_path / "nowhere")]) == 2
 
