@@ -302,6 +302,9 @@ def resolve_model(name, registry=None) -> Path:
         return p
     if (p / REGISTRY_FILE).exists():
         return ModelRegistry(p)._lookup("current")
+    if p.is_dir():
+        raise InputError(f"{p}: neither a model folder ({MODEL_FILE}) nor a registry "
+                         f"({REGISTRY_FILE})")
     return ModelRegistry(DEFAULT_REGISTRY if registry is None else registry)._lookup(str(name))
 
 

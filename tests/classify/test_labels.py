@@ -11,8 +11,8 @@ from numpy.testing import assert_allclose
 from sklearn.metrics import cohen_kappa_score
 
 from classify.labels import STANDARD_CLASSES, LabelStore
-from features import InputError
 from classify.labels._values import parse_time
+from features import InputError
 
 from ._labels_testkit import TRICKY_IDS, tiny_catalog, write_labels
 

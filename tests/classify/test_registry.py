@@ -49,7 +49,7 @@ def test_tampered_model_is_refused(tmp_path):
     (folder / "model.skops").write_bytes(bytes(data))
     with pytest.raises(InputError, match="model.skops: SHA-256 is .* Refusing to load"):
         load_model(folder)
-    assert main(["models", "--registry", str(tmp_path / "models"), "show", str(folder)]) == 2
+    assert main(["models", "show", str(folder), "--registry", str(tmp_path / "models")]) == 2
 
 
 def test_tampered_card_is_refused(tmp_path):
@@ -81,9 +81,9 @@ def test_registry_register_promote_and_resolve(tmp_path, capsys):
     reg.register(b)
     assert reg.current() == "v1"
     assert reg.resolve("current") == reg.root / "v1"
-    assert main(["models", "--registry", str(reg.root), "promote", "v2"]) == 0
+    assert main(["models", "promote", "v2", "--registry", str(reg.root)]) == 0
     assert reg.current() == "v2"
-    assert main(["models", "--registry", str(reg.root), "list"]) == 0
+    assert main(["models", "list", "--registry", str(reg.root)]) == 0
     out = capsys.readouterr().out
     assert "* v2" in out and "  v1" in out
     with pytest.raises(InputError, match="known versions: v1, v2"):
