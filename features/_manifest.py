@@ -147,16 +147,22 @@ class Channel:
 
     def read_rows(self, start: int, stop: int, columns: tuple[int, int] | None = None
                   ) -> np.ndarray:
-        """Rows ``start:stop`` as stored (file units), read without a lasting memory map.
+        """Rows ``start:stop`` in file units, read without a lasting memory map.
 
-        ``columns=(c0, c1)`` reads only those samples of each row.
+        ``columns=(c0, c1)`` reads only those samples of each row. An infinite
+        sample of a float file (an overflow, no measurement) is returned as NaN,
+        the spec's missing sample, so no later step sees an infinity.
         """
         from ._rowio import NpyRows
 
         rows = NpyRows(self.file)
-        if columns is None:
-            return rows.read(start, stop)
-        return rows.read_columns(start, stop, *columns)
+        raw = rows.read(start, stop) if columns is None else rows.read_columns(start, stop,
+                                                                               *columns)
+        if raw.dtype.kind == "f":
+            inf = np.isinf(raw)
+            if inf.any():
+                raw[inf] = np.nan
+        return raw
 
     def clipped_rows(self, raw: np.ndarray) -> np.ndarray:
         """Rows of a raw (file-unit) block with any sample at or beyond full scale."""

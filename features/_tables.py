@@ -510,12 +510,16 @@ def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
             if full_turn.any():
                 az[full_turn] = 0.0
                 wrapped += int(full_turn.sum())
-            for i in np.flatnonzero((az < 0) | (az >= 360)):
-                problems.add(f"{fname} {_line(i + offset)}: azimuth_deg must be in [0, 360), "
-                             f"got {chunk['azimuth_deg'].iloc[i]!r}", key=f"{fname}:az")
-            for i in np.flatnonzero((el < 0) | (el > 90)):
-                problems.add(f"{fname} {_line(i + offset)}: elevation_deg must be in [0, 90], "
-                             f"got {chunk['elevation_deg'].iloc[i]!r}", key=f"{fname}:el")
+            bad_az, bad_el = (az < 0) | (az >= 360), (el < 0) | (el > 90)
+            for i in np.flatnonzero(bad_az):
+                problems.add(f"{fname} {_line(i + offset)}: column 'azimuth_deg' must be in "
+                             f"[0, 360), got {chunk['azimuth_deg'].iloc[i]!r}",
+                             key=f"{fname}:az")
+            for i in np.flatnonzero(bad_el):
+                problems.add(f"{fname} {_line(i + offset)}: column 'elevation_deg' must be in "
+                             f"[0, 90], got {chunk['elevation_deg'].iloc[i]!r}",
+                             key=f"{fname}:el")
+            az[bad_az], el[bad_el] = np.nan, np.nan   # never cast a refused value to float32
             arrays = dict(event_index=idx.astype(np.int64), t_s=t, azimuth_deg=az,
                           elevation_deg=el)
             if has_xyz:

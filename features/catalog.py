@@ -283,7 +283,8 @@ def open_catalog(path) -> Catalog:
             problems.add(f"catalog.json: 'events' must be a file inside the catalog folder, "
                          f"got {_short(repr(ev_name))}")
         elif ev_kind == "missing":
-            problems.add(f"{ev_name}: file not found in {folder} (required)")
+            problems.add(f"{ev_name}: file not found in {folder} (required; named by "
+                         "catalog.json 'events')")
         elif ev_kind is not None:
             problems.add(f"{ev_name}: is {ev_kind} in {folder}, not a regular file "
                          "(catalog.json 'events')")

@@ -223,8 +223,8 @@ def test_source_angles_out_of_range(make_catalog):
     path = make_catalog("angles", _field(), sources=src)
     with pytest.raises(CatalogError) as info:
         open_catalog(path)
-    assert "line 3: azimuth_deg must be in [0, 360)" in str(info.value)
-    assert "line 4: elevation_deg must be in [0, 90]" in str(info.value)
+    assert "line 3: column 'azimuth_deg' must be in [0, 360)" in str(info.value)
+    assert "line 4: column 'elevation_deg' must be in [0, 90]" in str(info.value)
 
 
 def test_partial_xyz_columns(make_catalog):

@@ -310,3 +310,20 @@ def test_sampled_hash_of_a_big_file_reads_blocks(tmp_path):
     big.write_bytes(bytes(data))
     h1, legacy1 = catalog_hash(b"{}", ev, [big])
     assert h1 != h0 and legacy1 == legacy0
+
+
+def test_infinite_samples_are_read_as_missing(make_catalog):
+    """An infinite float sample (an overflow) is no measurement: read as NaN, counted
+    as such by the scan, and the features still compute."""
+    from features import scan_quality
+    from features.extract import extract_features
+
+    f = _field()
+    f[2, 100:110] = -np.inf
+    f[3, :] = np.inf
+    cat = open_catalog(make_catalog("inf", f, field_meta={"pretrigger_s": 5e-6}))
+    x, _ = cat.read_field(0, N)
+    assert np.isnan(x[2, 100:110]).all() and not np.isinf(x).any()
+    q = scan_quality(cat)
+    assert (q["n_rows_with_nan"], q["n_rows_missing_field"]) == (2, 1)
+    assert len(extract_features(cat)) == N
