@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib.util
 import time
 
 from features import InputError, open_catalog, schema
@@ -33,6 +34,11 @@ def run(args) -> int:
     if not args.catalog or not args.out:
         raise InputError("give CATALOG and --out FILE (or --list)")
     out = check_output_file(args.out, OUTPUT_SUFFIXES, "--out")
+    for needed, module, extra in ((out.suffix.lower() == ".parquet", "pyarrow", "parquet"),
+                                  (args.dask is not None, "distributed", "dask")):
+        if needed and importlib.util.find_spec(module) is None:
+            raise InputError(f"{'--out ' + str(out) if extra == 'parquet' else '--dask'} needs "
+                             f"the optional extra: pip install 'pulsesort[{extra}]'")
     cat = open_catalog(args.catalog)
     t = time.perf_counter()
     out = write_features(cat, out, chunk_size=args.chunk_size, n_jobs=args.jobs,

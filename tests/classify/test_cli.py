@@ -181,3 +181,14 @@ def test_store_that_is_a_folder_or_unopenable(season, capsys):
     assert "junk.sqlite: cannot be" in capsys.readouterr().err
     with pytest.raises(InputError, match="folder .*missing"):
         LabelStore(season / "nowhere" / "labels.sqlite")
+
+
+def test_parquet_without_pyarrow_is_refused_up_front(season, capsys):
+    """--out .parquet needs the optional pyarrow: said before any work, nothing written."""
+    import importlib.util
+
+    if importlib.util.find_spec("pyarrow") is not None:
+        pytest.skip("pyarrow is installed here: Parquet output works")
+    assert main(["features", CID, "--out", "f.parquet"]) == 2
+    assert "pip install 'pulsesort[parquet]'" in capsys.readouterr().err
+    assert not (season / "f.parquet").exists()
