@@ -303,7 +303,7 @@ def test_trigger_outside_the_record_is_noted(make_catalog):
 
 def test_large_source_tables_spill_to_disk(make_catalog, monkeypatch):
     """Above the in-memory limit, sources live in temporary files, read per chunk."""
-    import features._tables as tables
+    import features._sources as tables
 
     monkeypatch.setattr(tables, "SOURCES_IN_MEMORY_MAX", 1)
     ids = [f"e{i:04d}" for i in range(N)]

@@ -298,7 +298,7 @@ def test_content_hash_covers_the_waveforms(make_catalog):
 
 def test_sampled_hash_of_a_big_file_reads_blocks(tmp_path):
     """Beyond 66 blocks the hash samples: a change in a sampled block is seen."""
-    from features.catalog import HASH_BLOCK, catalog_hash
+    from features._hash import HASH_BLOCK, catalog_hash
 
     ev = tmp_path / "events.csv"
     ev.write_text("event_id,time_utc\n")
