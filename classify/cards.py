@@ -25,8 +25,11 @@ from pathlib import Path
 
 import numpy as np
 
+from features import InputError
 from features.atomic import atomic_write
 from features.catalog import scan_quality
+
+from .labels import same_content
 
 __all__ = ["render_data_card", "write_data_card"]
 
@@ -68,8 +71,8 @@ def render_data_card(cat, store, out_dir="data_cards") -> str:
     cid = cat.catalog_id
     reg = store.catalogs()
     reg = reg[reg["catalog_id"] == cid]
-    if len(reg) and reg["content_hash"].iat[0] != cat.content_hash:
-        raise ValueError(
+    if len(reg) and not same_content(reg["content_hash"].iat[0], cat):
+        raise InputError(
             f"catalog {cid!r} at {cat.path} differs from the catalog registered under that id "
             f"in {store.path} (content hash {reg['content_hash'].iat[0]}, this one "
             f"{cat.content_hash}); its labels do not describe this catalog")
@@ -97,7 +100,8 @@ def _head(cat, store, summary) -> str:
             ("station", _md(cat.station) if cat.station else "not given"),
             ("season", _md(cat.season) if cat.season else "not given"),
             ("catalog folder", f"`{_code(cat.path.name)}`"),
-            ("content hash (manifest + events table)", f"`{cat.content_hash}`"),
+            ("content hash (manifest, events table, sampled data files)",
+             f"`{cat.content_hash}`"),
             ("label store", f"`{_code(store.path.name)}`, schema v{store.schema_version}")]
     return (f"# Data card: {_md(cat.catalog_id)}\n\n"
             "A datasheet for the labelled set of one pulse catalog: what it holds, who "

@@ -1,8 +1,9 @@
 """The ``pulsesort`` command line: a thin layer over the library.
 
-Exit codes: 0 success, 2 bad input (a broken catalog, a malformed file, a
-wrong option), 1 an internal error (a bug: please report it with the traceback
-printed by ``--debug``).
+Exit codes: 0 success; 2 bad input, meaning a :class:`features.InputError` (a
+broken catalog, a malformed file, a wrong option, a missing path the user
+gave) or an argparse usage error; 1 anything else, which is a bug: a short
+message, and the traceback with ``--debug``.
 """
 
 from __future__ import annotations
@@ -14,6 +15,9 @@ import os
 import pkgutil
 import sqlite3
 import sys
+import traceback
+
+from features import InputError
 
 from . import __version__, commands
 
@@ -21,10 +25,18 @@ EXIT_OK = 0
 EXIT_INTERNAL = 1
 EXIT_BAD_INPUT = 2
 
-#: Exceptions that mean "the input is wrong", not "the program is wrong".
-BAD_INPUT_ERRORS = (ValueError, FileNotFoundError, NotADirectoryError,
-                    IsADirectoryError, PermissionError, FileExistsError,
-                    UnicodeDecodeError, sqlite3.DatabaseError)
+#: Temporary compatibility switch, to be turned off by the integrator after the
+#: merge. While True, the exceptions the CLI used to take as bad input
+#: (:data:`LEGACY_INPUT_ERRORS`: ``ValueError`` and a few ``OSError`` kinds) still
+#: exit 2, because modules outside the CLI owner's files (the feature code,
+#: triage, review, report, the simulator, the demo) still raise them for bad user
+#: input; their owners convert them to ``InputError``. When False, only
+#: ``InputError`` (and argparse usage errors) exit 2, and a ``ValueError`` from
+#: NumPy or an ``OSError`` from a bug exits 1 as the bug it is.
+LEGACY_VALUEERROR_IS_INPUT = True
+#: What the switch keeps mapping to exit 2 (the CLI's old list).
+LEGACY_INPUT_ERRORS = (ValueError, FileNotFoundError, NotADirectoryError, IsADirectoryError,
+                       PermissionError, FileExistsError, sqlite3.DatabaseError)
 
 # Order in ``pulsesort --help``; commands not listed here follow alphabetically.
 _ORDER = ["demo", "simulate", "check", "features", "labels", "card", "train",
@@ -68,6 +80,16 @@ def _setup_logging(debug: bool, quiet: bool) -> None:
         logger.addHandler(handler)
 
 
+def _report_input_error(command: str, exc: Exception) -> None:
+    problems = getattr(exc, "problems", None)
+    if problems:
+        print(f"pulsesort {command}: error: {len(problems)} problem(s):", file=sys.stderr)
+        for line in problems:
+            print(f"  {line}", file=sys.stderr)
+    else:
+        print(f"pulsesort {command}: error: {exc}", file=sys.stderr)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run ``pulsesort`` with ``argv`` (default: ``sys.argv[1:]``); return the exit code."""
     parser = build_parser()
@@ -88,25 +110,29 @@ def main(argv: list[str] | None = None) -> int:
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
         return EXIT_OK
-    except BAD_INPUT_ERRORS as exc:
+    except InputError as exc:
         if args.debug:
-            raise
-        problems = getattr(exc, "problems", None)
-        if problems:
-            print(f"pulsesort {args.command}: error: {len(problems)} problem(s):",
-                  file=sys.stderr)
-            for line in problems:
-                print(f"  {line}", file=sys.stderr)
-        else:
-            print(f"pulsesort {args.command}: error: {exc}", file=sys.stderr)
+            traceback.print_exc()
+        _report_input_error(args.command, exc)
         return EXIT_BAD_INPUT
     except Exception as exc:  # noqa: BLE001 - the last line of defence
+        if not (LEGACY_VALUEERROR_IS_INPUT and isinstance(exc, LEGACY_INPUT_ERRORS)):
+            return _internal_error(args, exc)
         if args.debug:
-            raise
-        print(f"pulsesort {args.command}: internal error: {type(exc).__name__}: {exc}\n"
-              "This is a bug; rerun with --debug for the traceback and report it.",
-              file=sys.stderr)
-        return EXIT_INTERNAL
+            traceback.print_exc()
+        logging.getLogger("pulsesort").debug(
+            "%s taken as bad input (LEGACY_VALUEERROR_IS_INPUT)", type(exc).__name__)
+        _report_input_error(args.command, exc)
+        return EXIT_BAD_INPUT
+
+
+def _internal_error(args, exc: Exception) -> int:
+    if args.debug:
+        traceback.print_exc()
+    print(f"pulsesort {args.command}: internal error: {type(exc).__name__}: {exc}\n"
+          "This is a bug; rerun with --debug for the traceback and report it.",
+          file=sys.stderr)
+    return EXIT_INTERNAL
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -36,23 +36,20 @@ import math
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
-from features import schema
+from features import InputError, schema
+from features._checks import describe_path_kind
 
 from .priors import PriorShift
 
-if TYPE_CHECKING:
-    from .drift_report import Calibration
-
 __all__ = ["PSI_BINS", "PSI_EPS", "PSI_BANDS", "SETTING_EFFECTS", "SettingEffect",
-           "InstrumentChange", "DriftResult", "instrument_settings", "instrument_changes",
-           "population_stability_index", "psi_band", "feature_drift", "compare_catalogs",
-           "read_feature_table"]
+           "InstrumentChange", "Calibration", "DriftResult", "instrument_settings",
+           "instrument_changes", "population_stability_index", "psi_band", "feature_drift",
+           "compare_catalogs", "read_feature_table"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -393,6 +390,32 @@ def feature_drift(feat_a: pd.DataFrame, feat_b: pd.DataFrame, *, changes=(),
 
 
 @dataclass
+class Calibration:
+    """A model's top-label reliability on labelled pulses of a catalog.
+
+    Made by :func:`classify.drift_report.champion_calibration`; it lives here,
+    beside :class:`DriftResult` that holds it, so that this module does not
+    import the report module (which imports this one).
+
+    Attributes
+    ----------
+    curve : pandas.DataFrame
+        :func:`classify.stats.reliability_curve` table.
+    ece : float
+        Expected calibration error (top label, equal-width bins).
+    n_pulses : int
+        Labelled pulses scored.
+    n_skipped : int
+        Labelled pulses of a class the model does not know.
+    """
+
+    curve: pd.DataFrame
+    ece: float
+    n_pulses: int
+    n_skipped: int
+
+
+@dataclass
 class DriftResult:
     """Everything :func:`compare_catalogs` found; see :mod:`classify.drift_report`."""
 
@@ -448,40 +471,46 @@ def read_feature_table(path, catalog) -> pd.DataFrame:
 
     Raises
     ------
-    FileNotFoundError
-        If ``path`` does not exist.
-    ValueError
-        Naming the file and the column, line or event id that is wrong.
+    features.InputError
+        Naming the file and the column, line or event id that is wrong (or the
+        file missing).
     """
     path = Path(path)
-    if not path.is_file():
-        raise FileNotFoundError(f"{path}: no such features file")
+    kind = describe_path_kind(path)
+    if kind is not None:
+        raise InputError(f"{path}: no such features file" if kind == "missing" else
+                         f"{path}: is {kind}, not a features file")
     if path.suffix == ".parquet":
         try:
             df = pd.read_parquet(path)
         except ImportError as exc:
-            raise ValueError(f"{path}: reading Parquet needs pyarrow "
+            raise InputError(f"{path}: reading Parquet needs pyarrow "
                              "(pip install 'pulsesort[parquet]')") from exc
+        except Exception as exc:  # noqa: BLE001 - pyarrow's errors for a bad file vary
+            raise InputError(f"{path}: not a readable Parquet file ({str(exc)[:160]})"
+                             ) from None
     else:
         try:
             df = pd.read_csv(path, dtype={"event_id": str, "flash_id": str},
                              keep_default_na=False, na_values=[""], low_memory=False)
         except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-            raise ValueError(f"{path}: not a readable features CSV ({exc})") from None
+            raise InputError(f"{path}: not a readable features CSV ({exc})") from None
+    if "event_id" not in df.columns:
+        raise InputError(f"{path}: no event_id column; write it with `pulsesort features`")
     names = [f.name for f in schema.FEATURES]
     missing = [c for c in names if c not in df.columns]
     if missing:
-        raise ValueError(f"{path}: missing feature column(s) {missing[:8]}"
+        raise InputError(f"{path}: missing feature column(s) {missing[:8]}"
                          f"{' ...' if len(missing) > 8 else ''}; write it with "
                          "`pulsesort features` of this pulsesort version")
     ids = df["event_id"].astype(str)
     dup = ids[ids.duplicated()]
     if len(dup):
-        raise ValueError(f"{path}: event_id {dup.iloc[0]!r} appears more than once")
+        raise InputError(f"{path}: event_id {dup.iloc[0]!r} appears more than once")
     want = pd.Index(catalog.event_ids.astype(str))
     extra, lacking = ids[~ids.isin(want)], want[~want.isin(ids)]
     if len(extra) or len(lacking):
-        raise ValueError(
+        raise InputError(
             f"{path}: its event ids do not match catalog {catalog.catalog_id!r}: "
             f"{len(lacking)} of the catalog's missing"
             f"{f' (first {lacking[0]!r})' if len(lacking) else ''}, {len(extra)} unknown"
@@ -500,7 +529,7 @@ def read_feature_table(path, catalog) -> pd.DataFrame:
             bad = ~text.isin(["true", "false"])
             if bad.any():
                 i = int(np.flatnonzero(bad.to_numpy())[0])
-                raise ValueError(f"{path}: column {f.name!r} must be true/false, got "
+                raise InputError(f"{path}: column {f.name!r} must be true/false, got "
                                  f"{col.iloc[i]!r} (event {df['event_id'].iloc[i]!r})")
             df[f.name] = text.eq("true")
         else:
@@ -508,7 +537,7 @@ def read_feature_table(path, catalog) -> pd.DataFrame:
             bad = num.isna() & col.notna()
             if bad.any():
                 i = int(np.flatnonzero(bad.to_numpy())[0])
-                raise ValueError(f"{path}: column {f.name!r} must be a number, got "
+                raise InputError(f"{path}: column {f.name!r} must be a number, got "
                                  f"{col.iloc[i]!r} (event {df['event_id'].iloc[i]!r})")
             df[f.name] = num.astype(np.float64)
     return df

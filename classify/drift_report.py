@@ -11,44 +11,23 @@ renamed, so a reader never sees half a report.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from html import escape
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from features import InputError
 from features.atomic import atomic_write
 
 from . import __version__, svgplot
 from . import stats as _stats
-from .drift import PSI_BANDS, DriftResult, _numeric
+from .display import DISPLAY_UNITS, display_unit, display_value
+from .drift import PSI_BANDS, Calibration, DriftResult, _numeric
 from .priors import _model_inputs
 
 __all__ = ["Calibration", "champion_calibration", "format_value", "format_drift_text",
            "render_drift_html", "write_drift_html"]
-
-
-@dataclass
-class Calibration:
-    """A model's top-label reliability on labelled pulses of a catalog.
-
-    Attributes
-    ----------
-    curve : pandas.DataFrame
-        :func:`classify.stats.reliability_curve` table.
-    ece : float
-        Expected calibration error (top label, equal-width bins).
-    n_pulses : int
-        Labelled pulses scored.
-    n_skipped : int
-        Labelled pulses of a class the model does not know.
-    """
-
-    curve: pd.DataFrame
-    ece: float
-    n_pulses: int
-    n_skipped: int
 
 
 def champion_calibration(model, features: pd.DataFrame, labels: pd.DataFrame, *,
@@ -86,24 +65,31 @@ def champion_calibration(model, features: pd.DataFrame, labels: pd.DataFrame, *,
 
 
 def format_value(setting: str, value) -> str:
-    """A setting's value for people: units from the name, fractions as percentages."""
+    """A setting's value for people: display units from the name
+    (:data:`classify.display.DISPLAY_UNITS`), fractions as percentages."""
     if value is None:
         return "none"
     if isinstance(value, bool):
         return "yes" if value else "no"
     if setting.startswith("events."):
         return f"{100 * value:.0f} % of events"
+    unit = next((u for s, u in (("_hz", "Hz"), ("_s", "s")) if setting.endswith(s)), "")
     if isinstance(value, (tuple, list)):
-        unit = " Hz" if setting.endswith("_hz") else ""
-        return "-".join(f"{v:g}" for v in value) + unit
+        shown = display_unit(unit)
+        return "-".join(display_value(v, unit).removesuffix(" " + shown) for v in value) \
+            + (f" {shown}" if shown else "")
     if isinstance(value, float):
-        unit = next((u for s, u in (("_hz", " Hz"), ("_s", " s")) if setting.endswith(s)), "")
-        return f"{value:g}{unit}"
+        return display_value(value, unit, digits=6) if unit else f"{value:g}"
     return str(value)
 
 
 def _num(v, fmt="{:.3g}") -> str:
     return "" if v is None or not np.isfinite(v) else fmt.format(v)
+
+
+def _median_change(a, b, unit: str) -> str:
+    """``"0.359 µs -> 0.41 µs"``: two medians in the unit's display unit."""
+    return f"{display_value(a, unit) or '-'} -> {display_value(b, unit) or '-'}"
 
 
 def format_drift_text(result: DriftResult, top: int = 10) -> str:
@@ -128,13 +114,13 @@ def format_drift_text(result: DriftResult, top: int = 10) -> str:
                  f"{PSI_BANDS[1]}: common practice, no source):")
     w = max([len("feature")] + [len(f) for f in t["feature"].head(n)])
     lines.append(f"  {'#':>3}  {'feature':<{w}}  {'PSI':>7}  {'band':<8}  {'KS D':>5}  "
-                 f"{'KS p':>8}  {'missing A->B':>13}  {'median A -> B':<23}  explained by")
+                 f"{'KS p':>8}  {'missing A->B':>13}  {'median A -> B':<27}  explained by")
     for r in t.head(n).itertuples():
         miss = f"{100 * r.missing_a:.0f}->{100 * r.missing_b:.0f} %"
-        med = f"{_num(r.median_a)} -> {_num(r.median_b)}"
+        med = _median_change(r.median_a, r.median_b, r.unit)
         lines.append(f"  {r.rank:>3}  {r.feature:<{w}}  {_num(r.psi, '{:.3f}'):>7}  "
                      f"{r.band:<8}  {_num(r.ks_statistic, '{:.2f}'):>5}  "
-                     f"{_num(r.ks_pvalue, '{:.1e}'):>8}  {miss:>13}  {med:<23}  "
+                     f"{_num(r.ks_pvalue, '{:.1e}'):>8}  {miss:>13}  {med:<27}  "
                      f"{r.explained_by.replace(';', ', ')}")
     if result.priors is not None:
         p = result.priors
@@ -158,7 +144,7 @@ def format_drift_text(result: DriftResult, top: int = 10) -> str:
 _CSS = """body{font-family:system-ui,sans-serif;margin:1.5em auto;max-width:70em;color:#222}
 table{border-collapse:collapse;margin:.5em 0 1.2em}td,th{padding:.2em .6em;border-bottom:1px
 solid #ddd;text-align:left;font-size:.9em}th{background:#f3f3f3}td.n{text-align:right;
-font-variant-numeric:tabular-nums}.major{color:#b00}.moderate{color:#a60}.charts{display:flex;
+font-variant-numeric:tabular-nums;white-space:nowrap}.major{color:#b00}.moderate{color:#a60}.charts{display:flex;
 flex-wrap:wrap;gap:1em}.note{color:#555;font-size:.9em}"""
 
 
@@ -178,10 +164,13 @@ def _histogram(name, a, b, result: DriftResult, unit: str) -> str:
     pooled = np.concatenate([fa, fb])
     if pooled.size == 0:
         return ""
+    factor = 1.0 if unit in ("1", "bool", "-") else DISPLAY_UNITS.get(unit, (unit, 1.0))[1]
+    fa, fb, pooled = fa * factor, fb * factor, pooled * factor
     lo, hi = np.percentile(pooled, [1, 99])
     if not hi > lo:
         lo, hi = float(pooled.min()) - 0.5, float(pooled.max()) + 0.5
-    label = name if unit in ("1", "bool", "-") else f"{name} ({unit})"
+    shown = display_unit(unit)
+    label = f"{name} ({shown})" if shown else name
     title = (f"{name}: missing {100 * (1 - fa.size / max(a.size, 1)):.0f} % -> "
              f"{100 * (1 - fb.size / max(b.size, 1)):.0f} %")
     return svgplot.histogram_chart([np.clip(fa, lo, hi), np.clip(fb, lo, hi)], bins=30,
@@ -250,11 +239,11 @@ def render_drift_html(result: DriftResult, feat_a: pd.DataFrame, feat_b: pd.Data
              _num(r.psi, "{:.3f}"), f'<span class="{r.band}">{r.band}</span>',
              _num(r.ks_statistic, "{:.3f}"), _num(r.ks_pvalue, "{:.2e}"),
              f"{100 * r.missing_a:.1f} -> {100 * r.missing_b:.1f} %",
-             f"{_num(r.median_a)} -> {_num(r.median_b)}",
+             escape(_median_change(r.median_a, r.median_b, r.unit)),
              escape(r.explained_by.replace(";", ", "))) for r in t.itertuples()]
     parts.append(_table(["#", "feature", "unit", "model", "PSI", "band", "KS D", "KS p",
                          "missing A -> B", "median A -> B", "explained by"], rows,
-                        numeric=(0, 4, 6, 7)))
+                        numeric=(0, 4, 6, 7, 8, 9)))
     parts.append("</body></html>\n")
     return "".join(parts)
 
@@ -264,9 +253,9 @@ def write_drift_html(result: DriftResult, feat_a: pd.DataFrame, feat_b: pd.DataF
     """Write :func:`render_drift_html` to ``path`` atomically; return the path."""
     path = Path(path)
     if path.is_dir():
-        raise IsADirectoryError(f"{path}: is a folder; --out names the report file")
+        raise InputError(f"{path}: is a folder; --out names the report file")
     if not path.parent.is_dir():
-        raise FileNotFoundError(f"{path.parent}: no such folder for the report")
+        raise InputError(f"{path.parent}: no such folder for the report")
     html = render_drift_html(result, feat_a, feat_b, top=top)
     atomic_write(path, html)
     return path

@@ -45,6 +45,8 @@ from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from features import InputError
+
 from .conformal import (
     apply_temperature,
     conformal_thresholds,
@@ -157,7 +159,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
     def _check_params(self):
         def check(name, ok, expected):
             if not ok:
-                raise ValueError(f"PulseClassifier: parameter {name!r} must be {expected}, got "
+                raise InputError(f"PulseClassifier: parameter {name!r} must be {expected}, got "
                                  f"{getattr(self, name)!r}")
 
         check("coverage", isinstance(self.coverage, numbers.Real)
@@ -276,7 +278,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         check_classification_targets(y)
         self.classes_, y_idx = np.unique(y, return_inverse=True)
         if len(self.classes_) < 2:
-            raise ValueError(f"PulseClassifier needs labels of at least 2 classes; got 1 class "
+            raise InputError(f"PulseClassifier needs labels of at least 2 classes; got 1 class "
                              f"({self.classes_.tolist()})")
         n, n_classes = len(y_idx), len(self.classes_)
         w = (np.ones(n) if sample_weight is None

@@ -43,7 +43,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from features import schema
+from features import InputError, schema
 
 __all__ = ["adjust_priors", "estimate_priors_em", "PriorShift", "prior_shift"]
 
@@ -237,7 +237,7 @@ def _model_inputs(model, features: pd.DataFrame) -> pd.DataFrame:
     names = list(names) if names is not None else schema.model_feature_names()
     missing = [c for c in names if c not in features.columns]
     if missing:
-        raise ValueError(f"the feature table lacks the model's input column(s) {missing[:8]}")
+        raise InputError(f"the feature table lacks the model's input column(s) {missing[:8]}")
     return features[names].astype(np.float64)
 
 
@@ -264,7 +264,7 @@ def prior_shift(model, features: pd.DataFrame, *, max_iter: int = 1000,
     if "field_ok" in features.columns:
         use = features[features["field_ok"].astype(bool).to_numpy()]
     if use.empty:
-        raise ValueError("no pulse with a usable field record to estimate the class mix from")
+        raise InputError("no pulse with a usable field record to estimate the class mix from")
     proba = np.asarray(model.predict_proba(_model_inputs(model, use)), dtype=np.float64)
     train = np.asarray(model.class_priors_, dtype=np.float64)
     new, _, n_iter = estimate_priors_em(proba, train, max_iter=max_iter, tol=tol)

@@ -6,15 +6,23 @@ A model is a folder::
         model.skops    the fitted estimator (skops format: no pickle code runs on load)
         card.json      the model card, machine-readable
         card.md        the same card for people
-        SHA256SUMS     "<sha256>  <file>" for every other file
+        SHA256SUMS     "<sha256>  <file>" for every other file of the folder
 
-:func:`load_model` refuses a folder whose files do not match ``SHA256SUMS`` and a
-``model.skops`` holding any type outside :data:`ALLOWED_TYPES` (a plain pickle
-could run arbitrary code when loaded; skops only builds allow-listed types).
+:func:`verify_model_dir` refuses a folder unless ``SHA256SUMS`` lists every
+other file of the folder by its plain name (no paths, so nothing outside the
+folder is ever read), each one a regular file (not a link) whose SHA-256
+matches, and the card passes :func:`check_card`. :func:`load_model` then
+refuses a ``model.skops`` that is not a readable skops archive, that holds any
+type outside :data:`ALLOWED_TYPES` (a plain pickle could run arbitrary code
+when loaded; skops only builds allow-listed types), or whose object is not a
+fitted :class:`classify.models.PulseClassifier`. Every refusal is a
+:class:`features.InputError` naming the file.
 
 The registry is the parent folder of the model folders: ``registry.json`` names
 every version and the current one. Writes are atomic (temp file + rename) and
-serialised with a lock file.
+serialised with a lock file. :func:`resolve_model` is the one way a command
+turns what the user typed (a model folder, a registry folder, a version,
+``current``) into a model folder.
 """
 
 from __future__ import annotations
@@ -22,21 +30,37 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import fcntl
-import hashlib
 import json
 import os
 import shutil
 import tempfile
 from pathlib import Path
 
+from features import InputError
+from features._checks import describe_path_kind
 from features.atomic import _umask, atomic_write
 
-__all__ = ["ALLOWED_TYPES", "ModelRegistry", "save_model", "load_model", "verify_model_dir",
-           "file_sha256", "write_card_files"]
+from ._model_files import (
+    CARD_FILE,
+    MODEL_FILE,
+    SUMS_FILE,
+    VERSION_PATTERN,
+    _check_archive,
+    _check_model,
+    _parse_card,
+    _read_text,
+    check_card,
+    file_sha256,
+    read_card,
+    verify_model_dir,
+)
 
-MODEL_FILE = "model.skops"
-SUMS_FILE = "SHA256SUMS"
+__all__ = ["ALLOWED_TYPES", "ModelRegistry", "save_model", "load_model", "verify_model_dir",
+           "file_sha256", "write_card_files", "check_card", "read_card", "resolve_model",
+           "DEFAULT_REGISTRY"]
+
 REGISTRY_FILE = "registry.json"
+DEFAULT_REGISTRY = "models"
 
 #: Types a model file may contain beyond those skops trusts by default.
 ALLOWED_TYPES = (
@@ -45,56 +69,11 @@ ALLOWED_TYPES = (
 )
 
 
-def file_sha256(path) -> str:
-    """Hex SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
 
 def _write_sums(folder: Path) -> None:
     lines = [f"{file_sha256(p)}  {p.name}\n" for p in sorted(folder.iterdir())
-             if p.is_file() and p.name != SUMS_FILE and not p.name.startswith(".")]
+             if p.is_file() and p.name != SUMS_FILE]
     atomic_write(folder / SUMS_FILE, "".join(lines).encode())
-
-
-def verify_model_dir(folder) -> dict[str, str]:
-    """Check every file against ``SHA256SUMS``; return {file: sha256}.
-
-    Raises
-    ------
-    FileNotFoundError
-        If the folder, its model file or its checksum file is missing.
-    ValueError
-        If a file's SHA-256 differs from the recorded one (tampered or corrupted).
-    """
-    folder = Path(folder)
-    sums = folder / SUMS_FILE
-    if not (folder / MODEL_FILE).is_file():
-        raise FileNotFoundError(f"{folder}: no {MODEL_FILE}; is this a pulsesort model folder?")
-    if not sums.is_file():
-        raise FileNotFoundError(f"{folder}: no {SUMS_FILE}; refusing to load an unverified "
-                                "model")
-    recorded = {}
-    for i, line in enumerate(sums.read_text(encoding="utf-8").splitlines(), 1):
-        parts = line.split("  ", 1)
-        if len(parts) != 2 or len(parts[0]) != 64:
-            raise ValueError(f"{sums}:{i}: malformed line {line!r}")
-        recorded[parts[1]] = parts[0]
-    if MODEL_FILE not in recorded:
-        raise ValueError(f"{sums}: does not list {MODEL_FILE}")
-    for name, expected in recorded.items():
-        path = folder / name
-        if not path.is_file():
-            raise FileNotFoundError(f"{folder}: {name} is listed in {SUMS_FILE} but missing")
-        actual = file_sha256(path)
-        if actual != expected:
-            raise ValueError(f"{path}: SHA-256 is {actual}, but {SUMS_FILE} records "
-                             f"{expected}; the file was changed after the model was saved. "
-                             "Refusing to load it.")
-    return recorded
 
 
 def write_card_files(folder, card: dict, markdown: str) -> None:
@@ -113,9 +92,12 @@ def save_model(model, folder, card: dict, markdown: str, *, overwrite: bool = Fa
     at the end, so a crash never leaves a half-written model.
     """
     folder = Path(folder)
-    if folder.exists() and any(folder.iterdir()) and not overwrite:
-        raise FileExistsError(f"{folder}: already exists; choose another --out (model "
-                              "folders are immutable versions)")
+    if folder.exists() and (not folder.is_dir() or any(folder.iterdir())) and not overwrite:
+        raise InputError(f"{folder}: already exists; choose another --out (model folders "
+                         "are immutable versions)")
+    if not VERSION_PATTERN.fullmatch(folder.name):
+        raise InputError(f"{folder}: a model folder's name is its version: 1-128 letters, "
+                         "digits, '.', '_', '+' or '-' starting with a letter or digit")
     folder.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(dir=folder.parent, prefix=f".{folder.name}.tmp-"))
     os.chmod(tmp, 0o777 & ~_umask())
@@ -138,20 +120,34 @@ def load_model(folder):
 
     Raises
     ------
-    ValueError
-        On a checksum mismatch or a type outside :data:`ALLOWED_TYPES`.
+    features.InputError
+        On any failed check of :func:`verify_model_dir`, an archive that skops
+        cannot read, a type outside :data:`ALLOWED_TYPES`, an object that is not
+        a fitted ``PulseClassifier``, or a card whose classes, features or
+        feature schema do not match the model (or this pulsesort).
     """
     folder = Path(folder)
+    verify_model_dir(folder)
+    card = _parse_card(folder / CARD_FILE)
+    path = folder / MODEL_FILE
+    _check_archive(path)
     import skops.io as sio  # here, not at import: reading a card needs no scikit-learn
 
-    verify_model_dir(folder)
-    untrusted = sio.get_untrusted_types(file=folder / MODEL_FILE)
+    try:
+        untrusted = sio.get_untrusted_types(file=path)
+    except Exception as exc:  # noqa: BLE001 - any failure to parse the archive is bad input
+        raise InputError(f"{path}: not a readable skops model archive "
+                         f"({type(exc).__name__}: {str(exc)[:160]})") from None
     refused = sorted(set(untrusted) - set(ALLOWED_TYPES))
     if refused:
-        raise ValueError(f"{folder / MODEL_FILE}: contains types outside pulsesort's "
-                         f"allow-list: {refused}; refusing to load it")
-    model = sio.load(folder / MODEL_FILE, trusted=list(untrusted))
-    card = json.loads((folder / "card.json").read_text(encoding="utf-8"))
+        raise InputError(f"{path}: contains types outside pulsesort's allow-list: "
+                         f"{refused}; refusing to load it")
+    try:
+        model = sio.load(path, trusted=list(untrusted))
+    except Exception as exc:  # noqa: BLE001 - as above: the archive, not pulsesort, is wrong
+        raise InputError(f"{path}: the model archive cannot be loaded "
+                         f"({type(exc).__name__}: {str(exc)[:160]})") from None
+    _check_model(model, card, path)
     return model, card
 
 
@@ -163,7 +159,7 @@ class ModelRegistry:
     root : path, default "models"
     """
 
-    def __init__(self, root="models"):
+    def __init__(self, root=DEFAULT_REGISTRY):
         self.root = Path(root)
 
     @property
@@ -181,17 +177,32 @@ class ModelRegistry:
                 fcntl.flock(lock, fcntl.LOCK_UN)
 
     def read(self) -> dict:
-        """The registry as a dict (an empty one when there is none yet)."""
-        if not self.path.is_file():
+        """The registry as a dict (an empty one when there is none yet).
+
+        Raises
+        ------
+        features.InputError
+            If ``registry.json`` is not a registry: malformed JSON, or an entry
+            whose version or path is not a plain folder name of the registry.
+        """
+        if describe_path_kind(self.path) == "missing":
             return {"format": "pulsesort-model-registry", "version": 1, "current": None,
                     "models": []}
         try:
-            data = json.loads(self.path.read_text(encoding="utf-8"))
-        except json.JSONDecodeError as exc:
-            raise ValueError(f"{self.path}: not valid JSON ({exc.msg} at line {exc.lineno})"
-                             ) from exc
+            data = json.loads(_read_text(self.path, "the registry"))
+        except (ValueError, RecursionError) as exc:
+            raise InputError(f"{self.path}: not valid JSON ({str(exc)[:120]})") from None
         if not isinstance(data, dict) or not isinstance(data.get("models"), list):
-            raise ValueError(f"{self.path}: not a pulsesort model registry")
+            raise InputError(f"{self.path}: not a pulsesort model registry")
+        for i, m in enumerate(data["models"]):
+            if not (isinstance(m, dict) and isinstance(m.get("version"), str)
+                    and isinstance(m.get("path"), str)
+                    and VERSION_PATTERN.fullmatch(m["path"])):
+                raise InputError(f"{self.path}: models[{i}] must have a 'version' and a "
+                                 "'path' naming a folder directly in the registry")
+        current = data.get("current")
+        if current is not None and not isinstance(current, str):
+            raise InputError(f"{self.path}: 'current' must be a version name or null")
         return data
 
     def _write(self, data: dict) -> None:
@@ -200,26 +211,26 @@ class ModelRegistry:
     def register(self, folder, *, make_current: bool | None = None) -> str:
         """Add a saved model folder (inside ``root``); return its version.
 
-        The first model registered becomes current; later ones only when
-        ``make_current`` is true (see :meth:`promote`).
+        ``make_current``: True makes it current; None (default) makes it current
+        only when the registry has no current model yet; False never does.
         """
         folder = Path(folder).resolve()
         if folder.parent != self.root.resolve():
-            raise ValueError(f"{folder}: a registered model must sit directly in the "
+            raise InputError(f"{folder}: a registered model must sit directly in the "
                              f"registry folder {self.root.resolve()}")
         sums = verify_model_dir(folder)
-        card = json.loads((folder / "card.json").read_text(encoding="utf-8"))
+        card = _parse_card(folder / CARD_FILE)
         version = folder.name
         entry = {"version": version, "path": version,
                  "created_at": card.get("created_at"),
                  "model_sha256": sums[MODEL_FILE],
                  "training_catalogs": [c.get("catalog_id") for c in
                                        card.get("training_catalogs", [])],
-                 "macro_f1": card.get("metrics", {}).get("macro_f1")}
+                 "macro_f1": (card.get("metrics") or {}).get("macro_f1")}
         with self._locked():
             data = self.read()
             data["models"] = [m for m in data["models"] if m["version"] != version] + [entry]
-            if data.get("current") is None or make_current:
+            if make_current or (make_current is None and data.get("current") is None):
                 data["current"] = version
                 data.setdefault("history", []).append(
                     {"current": version, "at": _now()})
@@ -233,17 +244,22 @@ class ModelRegistry:
         return self.read().get("current")
 
     def resolve(self, name) -> Path:
-        """A model folder from a version name, "current", or a path."""
-        p = Path(name)
-        if (p / MODEL_FILE).is_file():
-            return p
+        """A model folder from a version name, "current", or a path: see
+        :func:`resolve_model` (this registry being the one to look in)."""
+        return resolve_model(name, self.root)
+
+    def _lookup(self, name: str) -> Path:
         data = self.read()
         version = data.get("current") if name == "current" else str(name)
+        if version is None:
+            raise InputError(f"{self.path if self.path.exists() else self.root}: no current "
+                             "model (train one, or promote a version)")
         for m in data["models"]:
             if m["version"] == version:
                 return self.root / m["path"]
         known = ", ".join(m["version"] for m in data["models"]) or "none"
-        raise FileNotFoundError(f"no model {name!r} in {self.path} (known versions: {known})")
+        where = self.path if self.path.exists() else f"{self.root} (no {REGISTRY_FILE})"
+        raise InputError(f"no model {str(name)!r} in {where} (known versions: {known})")
 
     def promote(self, version: str) -> None:
         """Make ``version`` the current model (after verifying its files)."""
@@ -251,11 +267,45 @@ class ModelRegistry:
         verify_model_dir(folder)
         with self._locked():
             data = self.read()
-            if not any(m["version"] == folder.name for m in data["models"]):
-                raise ValueError(f"{version!r} is not registered in {self.path}")
+            if folder.resolve().parent != self.root.resolve() or not any(
+                    m["version"] == folder.name for m in data["models"]):
+                raise InputError(f"{version!r} is not registered in {self.path}")
             data["current"] = folder.name
             data.setdefault("history", []).append({"current": folder.name, "at": _now()})
             self._write(data)
+
+
+def resolve_model(name, registry=None) -> Path:
+    """The model folder a user means: the one place commands resolve model names.
+
+    Parameters
+    ----------
+    name : str or path
+        A model folder (holding ``model.skops``), a registry folder (holding
+        ``registry.json``: its current model), or a version name or
+        ``"current"`` looked up in ``registry``.
+    registry : path, optional
+        The registry for version names; default ``models`` in the working folder.
+
+    Returns
+    -------
+    pathlib.Path
+        The model folder (not yet verified: :func:`load_model` does that).
+
+    Raises
+    ------
+    features.InputError
+        Naming what was looked for and where.
+    """
+    p = Path(name)
+    if (p / MODEL_FILE).exists():
+        return p
+    if (p / REGISTRY_FILE).exists():
+        return ModelRegistry(p)._lookup("current")
+    if p.is_dir():
+        raise InputError(f"{p}: neither a model folder ({MODEL_FILE}) nor a registry "
+                         f"({REGISTRY_FILE})")
+    return ModelRegistry(DEFAULT_REGISTRY if registry is None else registry)._lookup(str(name))
 
 
 def _now() -> str:

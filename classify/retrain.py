@@ -26,15 +26,20 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import logging
-from pathlib import Path
 
 import numpy as np
 
 from features import open_catalog
 
-from .registry import ModelRegistry, load_model, save_model, write_card_files
+from .registry import ModelRegistry, load_model, resolve_model, save_model, write_card_files
 from .stats import bootstrap_ci
-from .training import build_card, fit_classifier, model_card_markdown, training_table
+from .training import (
+    build_card,
+    check_model_out,
+    fit_classifier,
+    model_card_markdown,
+    training_table,
+)
 
 __all__ = ["NEW_WEIGHT", "retrain", "compare_on_season", "metric_vector"]
 
@@ -165,25 +170,41 @@ def _comparison_markdown(cmp: dict, decision: str) -> str:
 
 def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None,
             new_weight=NEW_WEIGHT, tolerance=0.005, ece_tolerance=0.02, force=False,
-            review_below=0.8, n_boot=1000, n_jobs=1, dask_address=None, chunk_size=512,
-            progress=None, random_state=0, station_variants=2, **params) -> dict:
+            promote_elsewhere=False, review_below=0.8, n_boot=1000, n_jobs=1,
+            dask_address=None, chunk_size=512, progress=None, random_state=0,
+            station_variants=2, **params) -> dict:
     """Train a challenger on old + new labels, compare with ``current`` on the new season.
 
     The challenger learns every labelled pulse also as ``station_variants`` other
     stations would record it (:func:`classify.training.training_table`); the comparison
     scores the new season's pulses as recorded.
 
+    Parameters
+    ----------
+    current : str or path
+        The champion, resolved by :func:`classify.registry.resolve_model` in
+        ``registry`` (default: the parent of ``out_dir``).
+    out_dir : path
+        The challenger's folder; it is registered in its parent folder's registry.
+    promote_elsewhere : bool, default=False
+        When ``out_dir`` lies in another registry than the champion's, a winning
+        challenger becomes that registry's current model only with this set;
+        otherwise the other registry's current model is never changed.
+
     Returns
     -------
     dict
         ``decision`` ("promoted", "kept", "forced"), ``reason``, ``comparison``
-        (see :func:`compare_on_season`, None without new labels), ``challenger_dir``.
+        (see :func:`compare_on_season`, None without new labels), ``challenger_dir``,
+        ``made_current`` (whether the challenger became its registry's current model).
     """
+    out_dir = check_model_out(out_dir)
     new_cat = open_catalog(new_catalog)
     olds = [open_catalog(p) for p in old_catalogs]
-    registry = ModelRegistry(registry or Path(out_dir).parent)
-    champ_dir = registry.resolve(current)
+    champ_dir = resolve_model(current, registry or out_dir.parent)
     champion, champ_card = load_model(champ_dir)
+    out_registry = ModelRegistry(out_dir.parent)
+    same_registry = champ_dir.resolve().parent == out_dir.parent.resolve()
     store.register_catalog(new_cat)
     n_new = len(store.current_labels([new_cat.catalog_id], status="labelled"))
     if n_new == 0:
@@ -191,7 +212,8 @@ def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None
                   "nothing to score a challenger on; the champion "
                   f"{champ_card['version']} is kept")
         return {"decision": "kept", "reason": reason, "comparison": None,
-                "challenger_dir": None, "champion": champ_card["version"]}
+                "challenger_dir": None, "champion": champ_card["version"],
+                "made_current": False}
     if any(c["catalog_id"] == new_cat.catalog_id for c in champ_card["training_catalogs"]):
         logger.warning("the champion was trained on %s: its scores on it are optimistic",
                        new_cat.catalog_id)
@@ -228,7 +250,11 @@ def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None
                   f"(tolerance -{tolerance}), ECE difference {d_ece:+.4f} (tolerance "
                   f"+{ece_tolerance})" + ("; promoted anyway (--force)" if force else
                                           f"; the champion {champ_card['version']} is kept"))
-    out_dir = Path(out_dir)
+    wins = decision in ("promoted", "forced")
+    make_current = wins and (same_registry or promote_elsewhere)
+    if wins and not make_current:
+        reason += (f"; not made current in {out_registry.root}: it is not the champion's "
+                   "registry (pass --promote to make it current there)")
     when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     section = {"season": new_cat.season, "catalog_id": new_cat.catalog_id, "when": when,
                "champion": champ_card["version"], "challenger": out_dir.name,
@@ -238,9 +264,10 @@ def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None
                       extra={"comparisons": [section], "new_season_weight": float(new_weight),
                              "parent": champ_card["version"]})
     save_model(challenger, out_dir, card, model_card_markdown(card))
-    registry.register(out_dir, make_current=decision in ("promoted", "forced"))
+    out_registry.register(out_dir, make_current=make_current)
     champ_card.setdefault("comparisons", []).append(section)
     write_card_files(champ_dir, json.loads(json.dumps(champ_card, default=str)),
                      model_card_markdown(champ_card))
     return {"decision": decision, "reason": reason, "comparison": cmp,
-            "challenger_dir": out_dir, "champion": champ_card["version"]}
+            "challenger_dir": out_dir, "champion": champ_card["version"],
+            "made_current": make_current}

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import logging
+import os
 import platform
 from pathlib import Path
 
@@ -17,15 +18,16 @@ import numpy as np
 import pandas as pd
 from sklearn import metrics
 
-from features import open_catalog, schema
+from features import InputError, open_catalog, schema
 from features.extract import extract_features
 
 from .models import ID_SEPARATOR, PulseClassifier
-from .registry import ModelRegistry, save_model
+from .registry import VERSION_PATTERN, ModelRegistry, save_model
 from .stats import empirical_coverage, expected_calibration_error, flash_groups
 
 __all__ = ["catalog_features", "training_table", "fit_classifier", "cv_metrics",
-           "feature_importance", "build_card", "train_from_store", "model_card_markdown"]
+           "feature_importance", "build_card", "check_model_out", "train_from_store",
+           "model_card_markdown"]
 
 logger = logging.getLogger("pulsesort")
 
@@ -84,7 +86,7 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
             parts.append(t)
     if not parts:
         names = ", ".join(c.catalog_id for c in catalogs)
-        raise ValueError(f"no labelled pulses for catalog(s) {names} in the store; import "
+        raise InputError(f"no labelled pulses for catalog(s) {names} in the store; import "
                          "labels first (pulsesort labels import ...)")
     table = pd.concat(parts, ignore_index=True)
     table["group"] = table["catalog_id"] + "/" + flash_groups(table["flash_id"],
@@ -306,6 +308,31 @@ def _importance_markdown(imp) -> list[str]:
                      f"{r['log_loss_increase_std']:.4f} | {r['macro_f1_drop']:.4f} ± "
                      f"{r['macro_f1_drop_std']:.4f} |")
     return lines
+def check_model_out(out_dir) -> Path:
+    """Check a new model folder the user named, before any work; return it.
+
+    Its name is the model's version (:data:`classify.registry.VERSION_PATTERN`),
+    it must not exist yet (or be empty), and its parent, the registry, must be a
+    folder or creatable.
+
+    Raises
+    ------
+    features.InputError
+    """
+    out_dir = Path(out_dir)
+    if not VERSION_PATTERN.fullmatch(out_dir.name):
+        raise InputError(f"--out {out_dir}: the folder's name is the model's version: 1-128 "
+                         "letters, digits, '.', '_', '+' or '-' starting with a letter or "
+                         "digit")
+    if out_dir.exists() and (not out_dir.is_dir() or any(out_dir.iterdir())):
+        raise InputError(f"--out {out_dir}: already exists; model folders are immutable, "
+                         "choose a new --out")
+    parent = out_dir.parent
+    while not parent.exists() and parent != parent.parent:
+        parent = parent.parent
+    if not parent.is_dir() or not os.access(parent, os.W_OK | os.X_OK):
+        raise InputError(f"--out {out_dir}: cannot create it under {parent}")
+    return out_dir
 
 
 def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
@@ -326,14 +353,11 @@ def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
         Station variants of every labelled pulse added to training
         (:func:`training_table`).
     """
+    out_dir = check_model_out(out_dir)
     catalogs = [open_catalog(p) for p in catalog_paths]
     ids = [c.catalog_id for c in catalogs]
     if len(set(ids)) != len(ids):
-        raise ValueError(f"the same catalog_id was given twice: {ids}")
-    out_dir = Path(out_dir)
-    if out_dir.exists() and any(out_dir.iterdir()):
-        raise FileExistsError(f"{out_dir}: already exists; model folders are immutable, "
-                              "choose a new --out")
+        raise InputError(f"the same catalog_id was given twice: {ids}")
     table = training_table(catalogs, store, n_jobs=n_jobs, dask_address=dask_address,
                            chunk_size=chunk_size, progress=progress,
                            station_variants=station_variants, seed=random_state)

@@ -7,15 +7,20 @@ can fix the input without reading code.
 from __future__ import annotations
 
 import math
+import os
+import stat
 from collections.abc import Iterable
+from dataclasses import dataclass
 from numbers import Real
 
 __all__ = [
     "InputError",
     "CatalogError",
+    "Plausible",
     "Problems",
     "check_option",
     "check_positive",
+    "describe_path_kind",
     "is_real_number",
 ]
 
@@ -82,13 +87,77 @@ class Problems:
 
 
 def is_real_number(value) -> bool:
-    """True for an int or float that is not a bool and is finite."""
-    return (isinstance(value, Real) and not isinstance(value, bool)
-            and math.isfinite(float(value)))
+    """True for an int or float that is not a bool and is finite as a float.
+
+    An integer too large for a float (more than about 309 digits) is not.
+    """
+    if not isinstance(value, Real) or isinstance(value, bool):
+        return False
+    try:
+        return math.isfinite(float(value))
+    except OverflowError:
+        return False
+
+
+@dataclass(frozen=True)
+class Plausible:
+    """A generous physical range for a number read from a user's file.
+
+    The ranges are wide on purpose: they refuse what no instrument could
+    record (a sample rate of 1e308 Hz, a decay time of 1e-308 s), which would
+    otherwise overflow or empty an array deep in the feature code, and let
+    every real instrument through. ``why`` says what the bounds rest on.
+
+    Attributes
+    ----------
+    low, high : float
+        Inclusive bounds, in ``unit``.
+    unit : str
+    why : str
+    """
+
+    low: float
+    high: float
+    unit: str
+    why: str
+
+    def contains(self, value: float) -> bool:
+        return self.low <= value <= self.high
+
+    def describe(self) -> str:
+        """``"1e+03 to 1e+11 Hz"``: the bounds for a message."""
+        unit = f" {self.unit}" if self.unit else ""
+        return f"{self.low:g} to {self.high:g}{unit}"
+
+
+def describe_path_kind(path) -> str | None:
+    """What a path is when it is not a regular file: None for a regular file.
+
+    Follows symbolic links, so a link to a device is reported as the device.
+    Returns ``"missing"``, ``"a folder"``, ``"a FIFO (named pipe)"``,
+    ``"a character device"``, ``"a block device"``, ``"a socket"``,
+    ``"a broken symbolic link"`` or ``"unreadable (<reason>)"``.
+    """
+    p = os.fspath(path)
+    try:
+        st = os.stat(p)
+    except FileNotFoundError:
+        return "a broken symbolic link" if os.path.islink(p) else "missing"
+    except (OSError, ValueError) as exc:  # ValueError: a NUL byte in the name
+        return f"unreadable ({getattr(exc, 'strerror', None) or exc})"
+    mode = st.st_mode
+    if stat.S_ISREG(mode):
+        return None
+    for test, what in ((stat.S_ISDIR, "a folder"), (stat.S_ISFIFO, "a FIFO (named pipe)"),
+                       (stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+                       (stat.S_ISSOCK, "a socket")):
+        if test(mode):
+            return what
+    return "not a regular file"
 
 
 def check_positive(value, where: str) -> float:
-    """Return ``float(value)`` or raise ``ValueError`` unless it is a finite number > 0.
+    """Return ``float(value)`` or raise :class:`InputError` unless it is a finite number > 0.
 
     Parameters
     ----------
@@ -98,14 +167,14 @@ def check_positive(value, where: str) -> float:
         Where it came from, e.g. ``"catalog.json: field.sample_rate_hz"``.
     """
     if not is_real_number(value) or float(value) <= 0:
-        raise ValueError(f"{where} must be a finite number > 0, got {value!r}")
+        raise InputError(f"{where} must be a finite number > 0, got {value!r}")
     return float(value)
 
 
 def check_option(value, allowed: Iterable, where: str):
-    """Return ``value`` or raise ``ValueError`` listing the allowed values."""
+    """Return ``value`` or raise :class:`InputError` listing the allowed values."""
     allowed = list(allowed)
     if value not in allowed:
         choices = ", ".join(repr(a) for a in allowed)
-        raise ValueError(f"{where} must be one of {choices}, got {value!r}")
+        raise InputError(f"{where} must be one of {choices}, got {value!r}")
     return value

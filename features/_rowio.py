@@ -16,6 +16,8 @@ import os
 
 import numpy as np
 
+from ._checks import InputError
+
 __all__ = ["NpyRows"]
 
 
@@ -55,7 +57,8 @@ class NpyRows:
             while done < len(buf):
                 got = os.preadv(fd, [view[done:]], pos + done)
                 if got <= 0:
-                    raise OSError(f"{self.path}: file ends before row {stop} (truncated?)")
+                    raise InputError(f"{self.path}: file ends before row {stop} (truncated "
+                                     "after the catalog was opened?)")
                 done += got
         finally:
             os.close(fd)
@@ -82,7 +85,8 @@ class NpyRows:
                 pos = base + (start + i) * self.row_bytes
                 got = os.preadv(fd, [raw[i]], pos)
                 if got != width * item:
-                    raise OSError(f"{self.path}: file ends before row {start + i} (truncated?)")
+                    raise InputError(f"{self.path}: file ends before row {start + i} "
+                                     "(truncated after the catalog was opened?)")
         finally:
             os.close(fd)
         return out

@@ -1,4 +1,5 @@
-"""Parsing and validation of the catalog's CSV tables (events.csv, sources.csv).
+"""Parsing and validation of the catalog's CSV tables: events.csv, the shared CSV
+checks, and :class:`SourceTable` (sources.csv is parsed in :mod:`features._sources`).
 
 Private to :mod:`features.catalog`. Every problem is collected in a
 :class:`~features._checks.Problems` list with the file name and the CSV line
@@ -7,32 +8,113 @@ Private to :mod:`features.catalog`. Every problem is collected in a
 
 from __future__ import annotations
 
+import csv
 import os
-import shutil
-import tempfile
-import weakref
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from ._checks import Problems
+from ._checks import Plausible, Problems
 
-__all__ = ["SourceTable", "read_events", "read_sources"]
+__all__ = ["SourceTable", "read_events", "TABLE_PLAUSIBLE"]
 
 EVENT_COLUMNS = ("event_id", "time_utc", "flash_id", "range_m")
 SOURCE_REQUIRED = ("event_id", "t_s", "azimuth_deg", "elevation_deg")
 SOURCE_XYZ = ("x_m", "y_m", "z_m")
 
-#: Above this many sources the parsed table is kept in memory-mapped files in a
-#: temporary folder instead of RAM (about 40 bytes per source either way).
-SOURCES_IN_MEMORY_MAX = 2_000_000
+#: Accepted range of the number columns of events.csv and sources.csv
+#: (inclusive; generous on purpose, like the manifest's ranges).
+TABLE_PLAUSIBLE = {
+    "range_m": Plausible(
+        0.0, 2e6, "m", "a single station records discharge pulses out to a few hundred "
+        "km; 2,000 km is beyond any of them; common practice, no source"),
+    "t_s": Plausible(
+        -10.0, 10.0, "s", "a source belongs to a pulse of a flash, and a flash lasts at most "
+        "a few seconds; common practice, no source"),
+    "x_m": Plausible(-2e6, 2e6, "m", "the same 2,000 km as range_m"),
+    "y_m": Plausible(-2e6, 2e6, "m", "the same 2,000 km as range_m"),
+    "z_m": Plausible(
+        -1e5, 1e5, "m", "discharges lie below the ionosphere, about 90 km up; common "
+        "practice, no source"),
+    "power_db": Plausible(
+        -1000.0, 1000.0, "dB", "no source power is a thousand orders of magnitude from its "
+        "reference; common practice, no source"),
+}
+
+#: An explicit ISO-8601 date *and* time, extended (2031-07-14T21:03:55.123Z) or
+#: basic (20310714T210355Z) form, with an optional zone. Words such as "now"
+#: or "today", and dates without a time, are refused.
+ISO_TIME = re.compile(
+    r"(?:\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?"
+    r"|\d{8}T\d{4}(?:\d{2}(?:[.,]\d+)?)?)"
+    r"(?:Z|[+-]\d{2}(?::?\d{2})?)?")
+
 _CSV_CHUNK_ROWS = 100_000
 
 
 def _line(i) -> str:
     return f"line {int(i) + 2}"
+
+
+def _raw_header(path: Path) -> tuple[list[str], int]:
+    """The header row as written (pandas renames a repeated name to ``name.1``) and
+    the number of fields of the first data row (0 when there is none)."""
+    with open(path, encoding="utf-8-sig", newline="") as fh:
+        reader = csv.reader(iter(lambda: fh.readline(1 << 20), ""))
+        header = [c.strip() for c in next(reader, [])]
+        first = next(reader, [])
+    return header, len(first)
+
+
+def _repeated(header: list[str]) -> list[str]:
+    return sorted({c for c in header if header.count(c) > 1})
+
+
+def _long_row(path: Path, fname: str, n_columns: int) -> str:
+    """Name the first row with more fields than the header (read only on that error)."""
+    with open(path, encoding="utf-8-sig", newline="") as fh:
+        reader = csv.reader(fh)
+        next(reader, None)
+        for row in reader:
+            if len(row) > n_columns:
+                hint = ("a trailing comma" if len(row) == n_columns + 1 and row[-1] == ""
+                        else "a comma inside an unquoted value?")
+                return (f"{fname} line {reader.line_num}: {len(row)} fields but the header "
+                        f"has {n_columns} columns ({hint})")
+    return f"{fname}: a row has more fields than the header's {n_columns} columns"
+
+
+def _read_csv_chunks(path: Path, **kwargs):
+    """pandas' chunked reader, with ``index_col=False``.
+
+    Without it pandas silently takes the first column as the index when the
+    first data row carries one field more than the header (a trailing comma);
+    the caller checks that row, and pandas refuses any later row with more
+    fields than the first (``ParserError``, naming the line).
+    """
+    return pd.read_csv(path, index_col=False, chunksize=_CSV_CHUNK_ROWS, encoding="utf-8",
+                       **kwargs)
+
+
+def _extra_fields(exc: Exception) -> bool:
+    text = str(exc)
+    return "Expected" in text and "fields" in text
+
+
+def _check_range(values: np.ndarray, raw: pd.Series, fname: str, column: str,
+                 problems: Problems, line_offset: int) -> None:
+    """Report finite values outside :data:`TABLE_PLAUSIBLE` and set them to NaN."""
+    rng = TABLE_PLAUSIBLE[column]
+    with np.errstate(invalid="ignore"):
+        out = (values < rng.low) | (values > rng.high)
+    for i in np.flatnonzero(out):
+        problems.add(f"{fname} {_line(i + line_offset)}: column '{column}' is "
+                     f"{raw.iloc[i]!r}, outside the accepted range {rng.describe()} "
+                     f"({rng.why})", key=f"{fname}:{column}:range")
+    values[out] = np.nan
 
 
 def _parse_float_column(values: pd.Series, fname: str, column: str, problems: Problems,
@@ -72,8 +154,10 @@ def _event_chunk(raw: pd.DataFrame, fname: str, offset: int, problems: Problems,
         problems.add(f"{fname} {_line(i + offset)}: column 'event_id' is empty",
                      key=f"{fname}:id-empty")
     text = raw["time_utc"].astype(str).str.strip()
-    times = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
-    bad_time = times.isna().to_numpy()
+    explicit = text.str.fullmatch(ISO_TIME).fillna(False).to_numpy(dtype=bool)
+    times = pd.to_datetime(text.where(explicit, ""), format="ISO8601", utc=True,
+                           errors="coerce")
+    bad_time = times.isna().to_numpy() | ~explicit
     for i in np.flatnonzero(bad_time):
         problems.add(f"{fname} {_line(i + offset)}: column 'time_utc' must be an ISO-8601 UTC "
                      f"time like 2031-07-14T21:03:55.123456Z, got {raw['time_utc'].iloc[i]!r}",
@@ -98,6 +182,7 @@ def _event_chunk(raw: pd.DataFrame, fname: str, offset: int, problems: Problems,
             problems.add(f"{fname} {_line(i + offset)}: column 'range_m' must be > 0 (metres), "
                          f"got {raw['range_m'].iloc[i]!r}", key=f"{fname}:range")
         rng[rng <= 0] = np.nan
+        _check_range(rng, raw["range_m"], fname, "range_m", problems, offset)
         out["range_m"] = rng
     else:
         out["range_m"] = np.full(len(raw), np.nan)
@@ -115,24 +200,29 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
     other columns as strings, or None when the file cannot be used at all.
     """
     fname = path.name
+    header = None
     try:
-        reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                             encoding="utf-8", skipinitialspace=False,
-                             chunksize=_CSV_CHUNK_ROWS)
-        parts, offset, header = [], 0, None
+        header, first_len = _raw_header(path)
+        dup_cols = _repeated(header)
+        if dup_cols:
+            problems.add(f"{fname}: the header repeats column(s) {dup_cols}; every column "
+                         "name must appear once")
+            return None
+        if first_len > len(header):
+            problems.add(_long_row(path, fname, len(header)))
+            return None
+        reader = _read_csv_chunks(path, dtype=str, keep_default_na=False, na_filter=False,
+                                  skipinitialspace=False)
+        parts, offset, seen = [], 0, False
         counts = {"no_zone": 0, "coarse": 0}
         for raw in reader:
             raw.columns = [str(c).strip() for c in raw.columns]
-            if header is None:
-                header = list(raw.columns)
-                missing = [c for c in ("event_id", "time_utc") if c not in header]
+            if not seen:
+                seen = True
+                missing = [c for c in ("event_id", "time_utc") if c not in raw.columns]
                 if missing:
                     problems.add(f"{fname}: required column(s) {missing} missing; header has "
-                                 f"{header}")
-                    return None
-                dup_cols = sorted({c for c in header if header.count(c) > 1})
-                if dup_cols:
-                    problems.add(f"{fname}: header repeats column(s) {dup_cols}")
+                                 f"{list(raw.columns)}")
                     return None
             parts.append(_event_chunk(raw, fname, offset, problems, counts))
             offset += len(raw)
@@ -143,7 +233,10 @@ def read_events(path: Path, problems: Problems, notes: list[str]) -> pd.DataFram
         problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
         return None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
-        problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
+        if header and _extra_fields(exc):
+            problems.add(_long_row(path, fname, len(header)))
+        else:
+            problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
         return None
     if not parts:
         problems.add(f"{fname}: no event rows after the header")
@@ -242,222 +335,3 @@ def _take(arr: np.ndarray, lo: int, hi: int) -> np.ndarray:
             os.close(fd)
         return np.frombuffer(data, dtype=arr.dtype).reshape((hi - lo,) + arr.shape[1:]).copy()
     return np.array(arr[lo:hi])
-
-
-#: Storage dtype of each source column (float32 keeps angles to ~1e-5 deg and
-#: positions to ~1 cm at 100 km; times stay float64).
-_SOURCE_DTYPES = {"event_index": np.int32, "t_s": np.float64, "azimuth_deg": np.float32,
-                  "elevation_deg": np.float32, "xyz_m": np.float32, "power_db": np.float32}
-
-
-class _Columns:
-    """Per-column storage: RAM for small tables, raw files in a temporary folder beyond.
-
-    Spilled columns are appended chunk by chunk, so parsing a 20-million-source
-    table never holds more than one CSV chunk in memory.
-    """
-
-    def __init__(self, spill: bool):
-        self.parts: dict[str, list[np.ndarray]] = {}
-        self.spill = spill
-        self.tmpdir = tempfile.mkdtemp(prefix="pulsesort-sources-") if spill else None
-        self.rows: dict[str, int] = {}
-        self.width: dict[str, tuple] = {}
-
-    def _file(self, key):
-        return os.path.join(self.tmpdir, f"{key}.bin")
-
-    def append(self, **arrays: np.ndarray) -> None:
-        for k, v in arrays.items():
-            v = np.ascontiguousarray(v, dtype=_SOURCE_DTYPES[k])
-            if self.spill:
-                with open(self._file(k), "ab") as fh:
-                    v.tofile(fh)
-                self.rows[k] = self.rows.get(k, 0) + len(v)
-                self.width[k] = v.shape[1:]
-            else:
-                self.parts.setdefault(k, []).append(v)
-
-    def column(self, key) -> np.ndarray:
-        """The whole column (a read-only memory map when spilled)."""
-        if not self.spill:
-            parts = self.parts.get(key, [])
-            return np.concatenate(parts) if parts else np.empty(0, _SOURCE_DTYPES[key])
-        n = self.rows.get(key, 0)
-        if n == 0:
-            return np.empty((0,) + self.width.get(key, ()), _SOURCE_DTYPES[key])
-        return np.memmap(self._file(key), dtype=_SOURCE_DTYPES[key], mode="r",
-                         shape=(n,) + self.width[key])
-
-    def finish(self, order: np.ndarray | None) -> dict[str, np.ndarray]:
-        """Every column, reordered by ``order`` when given."""
-        out = {}
-        for k in list(self.rows) if self.spill else list(self.parts):
-            col = self.column(k)
-            if order is not None:
-                col = np.asarray(col)[order]          # unsorted input only: one column at once
-                if self.spill:
-                    col.tofile(self._file(k))
-                    col = self.column(k)
-            out[k] = col
-        self.parts = {}
-        return out
-
-    def discard(self) -> None:
-        """Remove the temporary files (after a failed parse)."""
-        if self.tmpdir is not None:
-            shutil.rmtree(self.tmpdir, ignore_errors=True)
-
-
-def _decreases(ev: np.ndarray, block: int = 1 << 22) -> bool:
-    """Whether a (possibly memory-mapped) index column ever decreases, read in blocks."""
-    last = None
-    for lo in range(0, len(ev), block):
-        part = _take(ev, lo, min(lo + block, len(ev)))
-        if (np.diff(part) < 0).any() or (last is not None and part[0] < last):
-            return True
-        last = part[-1]
-    return False
-
-
-def read_sources(path: Path, event_ids: pd.Index, problems: Problems,
-                 notes: list[str]) -> SourceTable | None:
-    """Read and validate sources.csv in chunks; map event ids to event rows.
-
-    A first pass lets the CSV parser read the number columns as numbers (fast);
-    if any cell is not a number, or any check fails, the file is read again as
-    text so that every problem is reported with its line and its exact text.
-    """
-    trial, trial_notes = Problems(), []
-    try:
-        table = _read_sources_pass(path, event_ids, trial, trial_notes, numeric=True)
-    except ValueError:          # a number column holds text: the careful pass says where
-        table = None
-    if table is not None and not trial:
-        notes.extend(trial_notes)
-        return table
-    return _read_sources_pass(path, event_ids, problems, notes, numeric=False)
-
-
-_SOURCE_NUMBERS = ("t_s", "azimuth_deg", "elevation_deg", "x_m", "y_m", "z_m", "power_db")
-
-
-def _read_sources_pass(path: Path, event_ids: pd.Index, problems: Problems,
-                       notes: list[str], numeric: bool) -> SourceTable | None:
-    fname = path.name
-    n_events = len(event_ids)
-    try:
-        size = path.stat().st_size
-        if numeric:
-            header = [str(c).strip() for c in pd.read_csv(path, nrows=0, encoding="utf-8")]
-            dtypes = {c: np.float64 for c in header if c in _SOURCE_NUMBERS}
-            reader = pd.read_csv(path, dtype={**{c: str for c in header}, **dtypes},
-                                 keep_default_na=False, na_values={c: [""] for c in dtypes},
-                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
-        else:
-            reader = pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
-                                 encoding="utf-8", chunksize=_CSV_CHUNK_ROWS)
-    except FileNotFoundError:
-        problems.add(f"{fname}: file not found at {path} (declared in catalog.json 'sources')")
-        return None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
-        problems.add(f"{fname}: not a readable CSV with a header row ({exc})")
-        return None
-    # ~60 bytes per CSV line: spill big tables to disk, not RAM.
-    cols = _Columns(spill=size / 60 > SOURCES_IN_MEMORY_MAX)
-    has_xyz = has_power = None
-    offset = 0
-    wrapped = 0
-    try:
-        for chunk in reader:
-            chunk.columns = [str(c).strip() for c in chunk.columns]
-            if has_xyz is None:
-                missing = [c for c in SOURCE_REQUIRED if c not in chunk.columns]
-                if missing:
-                    problems.add(f"{fname}: required column(s) {missing} missing; header has "
-                                 f"{list(chunk.columns)}")
-                    cols.discard()
-                    return None
-                present = [c for c in SOURCE_XYZ if c in chunk.columns]
-                if 0 < len(present) < 3:
-                    problems.add(f"{fname}: columns x_m, y_m, z_m come together; found only "
-                                 f"{present}")
-                has_xyz = len(present) == 3
-                has_power = "power_db" in chunk.columns
-            idx = event_ids.get_indexer(chunk["event_id"].astype(str))
-            for i in np.flatnonzero(idx < 0):
-                problems.add(f"{fname} {_line(i + offset)}: event_id "
-                             f"{chunk['event_id'].iloc[i]!r} is not in events.csv",
-                             key=f"{fname}:event")
-            t = _parse_float_column(chunk["t_s"], fname, "t_s", problems,
-                                    allow_empty=False, line_offset=offset)
-            az = _parse_float_column(chunk["azimuth_deg"], fname, "azimuth_deg", problems,
-                                     allow_empty=False, line_offset=offset)
-            el = _parse_float_column(chunk["elevation_deg"], fname, "elevation_deg", problems,
-                                     allow_empty=False, line_offset=offset)
-            full_turn = az == 360.0   # the same direction as 0 (a writer's rounding)
-            if full_turn.any():
-                az[full_turn] = 0.0
-                wrapped += int(full_turn.sum())
-            for i in np.flatnonzero((az < 0) | (az >= 360)):
-                problems.add(f"{fname} {_line(i + offset)}: azimuth_deg must be in [0, 360), "
-                             f"got {chunk['azimuth_deg'].iloc[i]!r}", key=f"{fname}:az")
-            for i in np.flatnonzero((el < 0) | (el > 90)):
-                problems.add(f"{fname} {_line(i + offset)}: elevation_deg must be in [0, 90], "
-                             f"got {chunk['elevation_deg'].iloc[i]!r}", key=f"{fname}:el")
-            arrays = dict(event_index=idx.astype(np.int64), t_s=t, azimuth_deg=az,
-                          elevation_deg=el)
-            if has_xyz:
-                arrays["xyz_m"] = np.column_stack([
-                    _parse_float_column(chunk[c], fname, c, problems, allow_empty=True,
-                                        line_offset=offset) for c in SOURCE_XYZ])
-            if has_power:
-                arrays["power_db"] = _parse_float_column(chunk["power_db"], fname, "power_db",
-                                                         problems, allow_empty=True,
-                                                         line_offset=offset)
-            cols.append(**arrays)
-            offset += len(chunk)
-    except UnicodeDecodeError as exc:
-        problems.add(f"{fname}: not valid UTF-8 text ({exc.reason} at byte {exc.start})")
-        cols.discard()
-        return None
-    except pd.errors.ParserError as exc:
-        problems.add(f"{fname}: malformed CSV ({exc})")
-        cols.discard()
-        return None
-    except ValueError:
-        cols.discard()
-        raise
-    if has_xyz is None:  # header only
-        has_xyz, has_power = False, False
-    has_any = offset > 0
-    if wrapped:
-        notes.append(f"{fname}: {wrapped} azimuth_deg value(s) of exactly 360 read as 0")
-    if problems:
-        cols.discard()
-        return None
-    ev = cols.column("event_index") if has_any else np.empty(0, np.int32)
-    order = None
-    if ev.size and _decreases(ev):
-        order = np.argsort(np.asarray(ev), kind="stable")
-        notes.append(f"{fname}: rows are not in events.csv order; sorted on load")
-    del ev
-    arrays = cols.finish(order)
-    event_index = arrays["event_index"]
-    counts = np.zeros(n_events, dtype=np.int64)
-    for lo in range(0, len(event_index), 1 << 22):   # in blocks: no lasting memory map
-        part = _take(event_index, lo, min(lo + (1 << 22), len(event_index)))
-        counts += np.bincount(part, minlength=n_events)
-    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    table = SourceTable(
-        event_index=event_index,
-        t_s=arrays["t_s"],
-        azimuth_deg=arrays["azimuth_deg"],
-        elevation_deg=arrays["elevation_deg"],
-        xyz_m=arrays.get("xyz_m") if has_xyz else None,
-        power_db=arrays.get("power_db") if has_power else None,
-        offsets=offsets,
-    )
-    if cols.tmpdir is not None:
-        weakref.finalize(table, shutil.rmtree, cols.tmpdir, True)
-    return table

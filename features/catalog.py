@@ -21,7 +21,6 @@ Examples
 
 from __future__ import annotations
 
-import hashlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -30,11 +29,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ._checks import CatalogError, Problems
-from ._manifest import Channel, _channel, _file_in, _read_manifest
-from ._tables import SourceTable, read_events, read_sources
+from ._checks import CatalogError, InputError, Problems, describe_path_kind
+from ._hash import catalog_hash
+from ._manifest import Channel, _channel, _file_in, _read_manifest, _short
+from ._sources import read_sources
+from ._tables import SourceTable, read_events
 
-__all__ = ["Catalog", "Channel", "Chunk", "open_catalog", "scan_quality", "CatalogError"]
+__all__ = ["Catalog", "Channel", "Chunk", "open_catalog", "scan_quality", "catalog_hash",
+           "CatalogError"]
 
 @dataclass
 class Chunk:
@@ -82,9 +84,13 @@ class Catalog:
     vhf : Channel or None
     sources : SourceTable or None
     content_hash : str
-        ``"sha256:<hex>"`` of the manifest bytes and the events.csv bytes.
+        ``"sha256:<hex>"`` of the manifest, the whole events table and a sample of
+        every other data file (see :func:`catalog_hash`).
     notes : tuple of str
         Things worth knowing that are not errors (e.g. undeclared files ignored).
+    legacy_content_hash : str
+        The hash of earlier pulsesort versions (manifest and events table only),
+        which label stores and triage journals written by them recorded.
     """
 
     path: Path
@@ -95,6 +101,19 @@ class Catalog:
     sources: SourceTable | None
     content_hash: str
     notes: tuple[str, ...] = field(default_factory=tuple)
+    legacy_content_hash: str = ""
+
+    def __repr__(self) -> str:
+        channels = "+".join(n for n, present in (("field", True), ("vhf", self.vhf is not None),
+                                                  ("sources", self.sources is not None))
+                            if present)
+        return (f"Catalog(catalog_id={self.catalog_id!r}, n_events={self.n_events}, "
+                f"channels={channels}, path={str(self.path)!r})")
+
+    @property
+    def content_hashes(self) -> tuple[str, ...]:
+        """Every hash this catalog may have been recorded under, newest first."""
+        return tuple(h for h in (self.content_hash, self.legacy_content_hash) if h)
 
     @property
     def catalog_id(self) -> str:
@@ -233,18 +252,19 @@ def open_catalog(path) -> Catalog:
 
     Raises
     ------
-    FileNotFoundError
-        If ``path`` does not exist.
-    CatalogError
-        If the catalog breaks the format; ``error.problems`` lists every problem.
+    InputError
+        (alias ``CatalogError``) If ``path`` is not a catalog folder or the catalog
+        breaks the format; ``error.problems`` lists every problem.
     """
     folder = Path(path).expanduser()
-    if not folder.exists():
-        raise FileNotFoundError(f"{folder}: no such catalog folder")
-    if folder.is_file() and folder.name == "catalog.json":
+    kind = describe_path_kind(folder)
+    if kind == "missing":
+        raise InputError(f"{folder}: no such catalog folder")
+    if kind is None and folder.name == "catalog.json":
         folder = folder.parent
-    if not folder.is_dir():
-        raise CatalogError([f"{folder}: a catalog is a folder holding catalog.json"])
+    elif kind != "a folder":
+        raise InputError(f"{folder}: is {kind or 'a file'}; a catalog is a folder holding "
+                         "catalog.json")
     folder = folder.resolve()
     problems = Problems()
     notes: list[str] = []
@@ -255,14 +275,20 @@ def open_catalog(path) -> Catalog:
     ev_name = manifest.get("events", "events.csv")
     events = None
     if not isinstance(ev_name, str) or not ev_name.strip():
-        problems.add(f"catalog.json: 'events' must be the events file name, got {ev_name!r}")
+        problems.add(f"catalog.json: 'events' must be the events file name, "
+                     f"got {_short(repr(ev_name))}")
     else:
         ev_path = folder / ev_name
+        ev_kind = describe_path_kind(ev_path)
         if Path(ev_name).is_absolute() or ".." in Path(ev_name).parts:
             problems.add(f"catalog.json: 'events' must be a file inside the catalog folder, "
-                         f"got {ev_name!r}")
-        elif not ev_path.is_file():
-            problems.add(f"{ev_name}: file not found in {folder} (required)")
+                         f"got {_short(repr(ev_name))}")
+        elif ev_kind == "missing":
+            problems.add(f"{ev_name}: file not found in {folder} (required; named by "
+                         "catalog.json 'events')")
+        elif ev_kind is not None:
+            problems.add(f"{ev_name}: is {ev_kind} in {folder}, not a regular file "
+                         "(catalog.json 'events')")
         else:
             events = read_events(ev_path, problems, notes)
     n_events = None if events is None else len(events)
@@ -294,14 +320,12 @@ def open_catalog(path) -> Catalog:
 
     problems.raise_if_any()
     return_freed_memory()
-    h = hashlib.sha256()
-    h.update(mbytes)
-    h.update(b"\0")
-    with open(folder / ev_name, "rb") as fh:  # in blocks: a big events table is not held
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
+    data_files = [fld.file] + ([vhf.file] if vhf is not None else []) \
+        + ([src_path] if sources is not None else [])
+    content_hash, legacy = catalog_hash(mbytes, folder / ev_name, data_files)
     return Catalog(path=folder, manifest=manifest, events=events, field=fld, vhf=vhf,
-                   sources=sources, content_hash="sha256:" + h.hexdigest(), notes=tuple(notes))
+                   sources=sources, content_hash=content_hash, notes=tuple(notes),
+                   legacy_content_hash=legacy)
 
 
 def return_freed_memory() -> None:

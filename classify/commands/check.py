@@ -1,8 +1,14 @@
-"""``pulsesort check``: validate a catalog and print a short summary."""
+"""``pulsesort check``: validate a catalog and print a short summary.
+
+The validation is exactly the reader's (:func:`features.open_catalog`): a catalog
+that passes ``check`` is one that every other command opens.
+"""
 
 from __future__ import annotations
 
 from features import open_catalog, scan_quality
+
+from ._common import echo
 
 NAME = "check"
 HELP = "validate a catalog against the catalog v1 format and summarise it"
@@ -20,44 +26,47 @@ def _fmt_rate(hz):
 
 def run(args) -> int:
     cat = open_catalog(args.catalog)
+    lines: list[str] = []   # printed at the end unless -q
+    add = lines.append
     s = cat.summary()
     f = s["field"]
-    print(f"catalog {s['catalog_id']}  (station {s['station']}, season {s['season']})")
-    print(f"  folder      {s['path']}")
-    print(f"  events      {s['n_events']:,} in {s['n_flashes']:,} flashes "
+    add(f"catalog {s['catalog_id']}  (station {s['station']}, season {s['season']})")
+    add(f"  folder      {s['path']}")
+    add(f"  events      {s['n_events']:,} in {s['n_flashes']:,} flashes "
           f"({s['n_events_without_flash']:,} without flash_id)")
-    print(f"  time span   {s['first_time_utc']} .. {s['last_time_utc']}")
-    print(f"  range       {s['n_events_with_range']:,} of {s['n_events']:,} events have range_m")
+    add(f"  time span   {s['first_time_utc']} .. {s['last_time_utc']}")
+    add(f"  range       {s['n_events_with_range']:,} of {s['n_events']:,} events have range_m")
     decay = "none (DC)" if f["decay_time_s"] is None else f"{f['decay_time_s']:g} s"
-    print(f"  field       {_fmt_rate(f['sample_rate_hz'])}, {f['n_samples']} samples "
+    add(f"  field       {_fmt_rate(f['sample_rate_hz'])}, {f['n_samples']} samples "
           f"({f['window_s'] * 1e6:g} us, {f['pretrigger_s'] * 1e6:g} us pre-trigger), "
           f"{f['dtype']} {f['units']} x {f['scale']:g}, {f['sign_convention']} convention, "
           f"decay {decay}, "
           f"delay {f['delay_s'] * 1e9:g} ns, full scale {f['full_scale']}")
     v = s["vhf"]
     if v is None:
-        print("  vhf         none")
+        add("  vhf         none")
     else:
         band = "?" if v["band_hz"] is None else "-".join(f"{b / 1e6:g}" for b in v["band_hz"])
-        print(f"  vhf         {v['kind']}, {_fmt_rate(v['sample_rate_hz'])}, {v['n_samples']} "
+        add(f"  vhf         {v['kind']}, {_fmt_rate(v['sample_rate_hz'])}, {v['n_samples']} "
               f"samples ({v['window_s'] * 1e6:g} us), band {band} MHz, delay "
               f"{v['delay_s'] * 1e9:g} ns, {v['dtype']}, full scale {v['full_scale']}")
     src = s["sources"]
     if src is None:
-        print("  sources     none")
+        add("  sources     none")
     else:
-        print(f"  sources     {src['n_sources']:,} ({src['per_event_mean']:.1f} per event, max "
+        add(f"  sources     {src['n_sources']:,} ({src['per_event_mean']:.1f} per event, max "
               f"{src['per_event_max']}, {src['n_events_without_sources']:,} events without); "
               f"xyz {'yes' if src['has_xyz'] else 'no'}, power_db "
               f"{'yes' if src['has_power_db'] else 'no'}")
     if not args.no_scan:
         q = scan_quality(cat)
-        print(f"  quality     {q['n_rows_with_nan']:,} rows with NaN field samples "
+        add(f"  quality     {q['n_rows_with_nan']:,} rows with NaN field samples "
               f"({q['n_rows_missing_field']:,} all NaN), {q['n_rows_clipped']:,} rows clipped "
               f"(field {q['n_rows_field_clipped']:,}, VHF {q['n_rows_vhf_clipped']:,}), "
               f"{q['n_rows_missing_vhf']:,} rows without VHF")
-    print(f"  hash        {s['content_hash']}")
+    add(f"  hash        {s['content_hash']}")
     for note in s["notes"]:
-        print(f"  note: {note}")
-    print("ok: the catalog follows catalog v1")
+        add(f"  note: {note}")
+    add("ok: the catalog follows catalog v1")
+    echo(args, *lines)
     return 0

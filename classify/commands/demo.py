@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from ._common import jobs_int, positive_int
+from ._common import check_output_folder, echo, jobs_int, positive_int
 
 NAME = "demo"
 HELP = "run the whole job (simulate, label, train, triage) on the invented station hollowmere"
@@ -26,8 +26,11 @@ def run(args) -> int:
     from classify.demo import run_demo
     from classify.triage import print_summary
 
+    check_output_folder(args.dir, "--dir", must_be_new=True)
     s = run_demo(args.dir, events=args.events, next_events=args.next_events, seed=args.seed,
-                 n_jobs=args.jobs, echo=lambda m: print(m, flush=True))
+                 n_jobs=args.jobs, echo=lambda m: echo(args, m))
+    if args.quiet:
+        return 0
     print()
     print_summary(s["triage"], file=sys.stdout)
     print(f"against the simulator's truth: macro-F1 {s['macro_f1_vs_truth']:.4f}; "
@@ -44,8 +47,8 @@ def run(args) -> int:
           f"--out {d}/drift.html")
     print(f"  pulsesort labels import {s['new_labels']} --catalog {s['season_b']} "
           f"--store {store}")
-    print(f"  pulsesort retrain --store {store} --new {s['season_b']} --with {s['season_a']} "
+    print(f"  pulsesort retrain {s['season_b']} --store {store} --with {s['season_a']} "
           f"--current {s['model_dir']} --out {d}/models/hollowmere-2032-v1")
-    print(f"  pulsesort models --registry {d}/models list")
+    print(f"  pulsesort models list --registry {d}/models")
     print(f"  cat {s['card']}")
     return 0

@@ -6,7 +6,7 @@ import argparse
 import logging
 from pathlib import Path
 
-from ._common import jobs_int, positive_int
+from ._common import check_output_file, echo, jobs_int, positive_int, read_store
 
 NAME = "drift"
 HELP = ("compare catalog B with catalog A: instrument changes, ranked feature drift (PSI, "
@@ -20,8 +20,8 @@ def add_arguments(parser):
     parser.epilog = (
         "Prints the instrument changes read from the two manifests first (each with the\n"
         "features it is expected to move), then the features ranked by population\n"
-        "stability index of B against A, and writes an HTML report. Exit 0 whatever the\n"
-        "drift; 2 for bad input.")
+        "stability index of B against A, and writes an HTML report (by default beside\n"
+        "catalog B, in its parent folder). Exit 0 whatever the drift; 2 for bad input.")
     parser.add_argument("catalog_a", metavar="CATALOG_A", help="reference catalog folder "
                         "(e.g. the training season)")
     parser.add_argument("catalog_b", metavar="CATALOG_B", help="new catalog folder")
@@ -29,31 +29,26 @@ def add_arguments(parser):
                         "features` (default: computed now)")
     parser.add_argument("--features-b", metavar="CSV", help="features of B (default: "
                         "computed now)")
-    parser.add_argument("--model", metavar="MODEL_DIR", help="a model folder, or a registry "
-                        "folder (its current model): estimate B's class mix (EM) and, with "
-                        "--store, the model's calibration on B's labelled pulses")
+    parser.add_argument("--model", metavar="MODEL", help="a model folder, a registry folder "
+                        "(its current model), or a version or 'current' in --registry: "
+                        "estimate B's class mix (EM) and, with --store, the model's "
+                        "calibration on B's labelled pulses")
+    parser.add_argument("--registry", metavar="DIR", default=None,
+                        help="model registry for --model VERSION (default: models)")
     parser.add_argument("--store", metavar="PATH", help="label store holding labels of B "
                         "(with --model)")
     parser.add_argument("--out", "-o", metavar="REPORT.html", help="HTML report (default: "
-                        "drift_<A>_vs_<B>.html here)")
+                        "drift_<A>_vs_<B>.html in the folder that holds catalog B)")
     parser.add_argument("--top", type=positive_int, default=10, metavar="N",
                         help="features in the terminal table and charts (default 10)")
     parser.add_argument("--jobs", "-j", type=jobs_int, default=1, metavar="N",
                         help="worker processes for computing features (-1: one per core)")
 
 
-def _load_model(path):
-    from classify.registry import MODEL_FILE, REGISTRY_FILE, ModelRegistry, load_model
-
-    p = Path(path)
-    if not p.exists():
-        raise FileNotFoundError(f"{p}: no such model folder")
-    if not (p / MODEL_FILE).is_file():
-        if not (p / REGISTRY_FILE).is_file():
-            raise FileNotFoundError(f"{p}: neither a model folder ({MODEL_FILE}) nor a "
-                                    f"registry ({REGISTRY_FILE})")
-        p = ModelRegistry(p).resolve("current")
-    return load_model(p)
+def default_report_path(cat_a, cat_b) -> Path:
+    """``drift_<A>_vs_<B>.html`` in the folder that holds catalog B."""
+    name = f"drift_{cat_a.catalog_id}_vs_{cat_b.catalog_id}.html".replace("/", "_")
+    return Path(cat_b.path).parent / name
 
 
 def _features(cat, csv, jobs):
@@ -74,24 +69,23 @@ def run(args) -> int:
         write_drift_html,
     )
     from classify.priors import prior_shift
-    from features import open_catalog
+    from classify.registry import load_model, resolve_model
+    from features import InputError, open_catalog
 
     if args.store and not args.model:
-        raise ValueError("--store is used with --model (the model's calibration on B's "
+        raise InputError("--store is used with --model (the model's calibration on B's "
                          "labels); give --model MODEL_DIR too")
+    if args.out:
+        check_output_file(args.out, (".html",), "--out")
     cat_a, cat_b = open_catalog(args.catalog_a), open_catalog(args.catalog_b)
-    out = Path(args.out) if args.out else Path(
-        f"drift_{cat_a.catalog_id}_vs_{cat_b.catalog_id}.html".replace("/", "_"))
-    if out.is_dir() or not out.parent.is_dir():
-        raise ValueError(f"--out {out}: must be a file in an existing folder")
+    out = Path(args.out) if args.out else default_report_path(cat_a, cat_b)
+    check_output_file(out, (".html",), "--out")
     model = card = labels = None
-    if args.model:
-        model, card = _load_model(args.model)
     if args.store:
-        from classify.labels import LabelStore
-
-        with LabelStore(args.store, create=False) as store:
+        with read_store(args.store) as store:
             labels = store.current_labels([cat_b.catalog_id], status="labelled")
+    if args.model:
+        model, card = load_model(resolve_model(args.model, args.registry))
     feat_a = _features(cat_a, args.features_a, args.jobs)
     feat_b = _features(cat_b, args.features_b, args.jobs)
     result = compare_catalogs(cat_a, cat_b, feat_a, feat_b)
@@ -103,7 +97,7 @@ def run(args) -> int:
             if result.calibration is None:
                 logger.warning("%s: no labelled pulses of the model's classes in the store; "
                                "no calibration diagram", cat_b.catalog_id)
-    print(format_drift_text(result, top=args.top))
+    echo(args, format_drift_text(result, top=args.top))
     path = write_drift_html(result, feat_a, feat_b, out, top=args.top)
-    print(f"\nreport: {path}")
+    echo(args, "", f"report: {path}")
     return 0

@@ -7,6 +7,10 @@ from pathlib import Path
 
 import pandas as pd
 
+from features import InputError
+
+from ._common import check_output_file, deprecated, echo
+
 NAME = "labels"
 HELP = ("manage analysts' labels in the label store: import, export, stats, conflicts, "
         "resolve, history, retract, classes")
@@ -82,9 +86,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     p.add_argument("--note", metavar="TEXT", help="why")
     _store_arg(p)
 
-    p = add("history", _history, "every decision on an event: who decided what, when, why")
+    p = add("history", _history, "every decision on an event: who decided what, when, why "
+            "(CATALOG_ID EVENT_ID like resolve and retract; EVENT_ID alone: in every catalog)")
+    p.add_argument("catalog_id", metavar="CATALOG_ID", nargs="?", default=None)
     p.add_argument("event_id", metavar="EVENT_ID")
-    p.add_argument("--catalog", metavar="ID", help="only in this catalog")
+    # the old spelling `history EVENT_ID --catalog ID` keeps working (with a note)
+    p.add_argument("--catalog", dest="catalog_option", metavar="ID", help=argparse.SUPPRESS)
     _store_arg(p)
 
     p = add("retract", _retract, "withdraw an analyst's label on an event")
@@ -110,6 +117,7 @@ def run(args) -> int:
 
 
 def _open(args, *, create=False):
+    """The store of ``--store``; only ``import`` and ``classes --add`` may create one."""
     from classify.labels import LabelStore
 
     return LabelStore(args.store, create=create)
@@ -129,17 +137,18 @@ def _import(args) -> int:
         check_labels_file(args.file, cat, analyst=args.analyst)
     with _open(args, create=True) as store:
         rep = store.import_labels(args.file, cat, analyst=args.analyst)
-    print(f"{rep.path}: {rep.n_rows} rows for catalog {rep.catalog_id}: "
-          f"{rep.n_added} added, {rep.n_present} already in {path}"
-          + (f" (batch {rep.batch_id})" if rep.batch_id is not None else ""))
+    echo(args, f"{rep.path}: {rep.n_rows} rows for catalog {rep.catalog_id}: "
+               f"{rep.n_added} added, {rep.n_present} already in {path}"
+               + (f" (batch {rep.batch_id})" if rep.batch_id is not None else ""))
     return 0
 
 
 def _export(args) -> int:
+    check_output_file(args.out, (".csv",), "--out")
     with _open(args) as store:
         n = store.export_labels(args.out, args.catalog, history=args.history)
     what = "decisions" if args.history else "label rows"
-    print(f"{args.out}: {n} {what} written")
+    echo(args, f"{args.out}: {n} {what} written")
     return 0
 
 
@@ -178,13 +187,20 @@ def _resolve(args) -> int:
     with _open(args) as store:
         did = store.resolve(args.catalog_id, args.event_id, args.label,
                             analyst=args.analyst, note=args.note)
-    print(f"decision #{did}: {args.catalog_id} {args.event_id} resolved as {args.label}")
+    echo(args, f"decision #{did}: {args.catalog_id} {args.event_id} resolved as {args.label}")
     return 0
 
 
 def _history(args) -> int:
+    catalog = args.catalog_id
+    if args.catalog_option is not None:
+        deprecated("`labels history EVENT_ID --catalog ID`", "`labels history ID EVENT_ID`")
+        if catalog is not None and catalog != args.catalog_option:
+            raise InputError(f"labels history: catalog {catalog!r} and --catalog "
+                             f"{args.catalog_option!r} differ; give one")
+        catalog = args.catalog_option
     with _open(args) as store:
-        h = store.history(args.event_id, args.catalog)
+        h = store.history(args.event_id, catalog)
     if h.empty:
         print(f"no decisions on event {args.event_id!r}")
         return 0
@@ -200,19 +216,19 @@ def _retract(args) -> int:
     with _open(args) as store:
         did = store.retract(args.catalog_id, args.event_id, analyst=args.analyst,
                             note=args.note)
-    print(f"decision #{did}: label of {args.analyst} on {args.catalog_id} "
-          f"{args.event_id} retracted")
+    echo(args, f"decision #{did}: label of {args.analyst} on {args.catalog_id} "
+               f"{args.event_id} retracted")
     return 0
 
 
 def _classes(args) -> int:
     if args.description is not None and args.add is None:
-        raise ValueError("--description goes with --add NAME")
+        raise InputError("--description goes with --add NAME")
+    if args.add is not None and args.description is None:
+        raise InputError(f"--add {args.add}: give a --description of the class")
     with _open(args, create=args.add is not None) as store:
         if args.add is not None:
-            if args.description is None:
-                raise ValueError(f"--add {args.add}: give a --description of the class")
             store.add_class(args.add, args.description)
-            print(f"class {args.add!r} added")
+            echo(args, f"class {args.add!r} added")
         print(_show(store.class_table()))
     return 0

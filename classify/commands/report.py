@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from ._common import check_output_file, echo
+
 NAME = "report"
 HELP = "write a self-contained HTML summary of a triage (counts per hour, confidence, " \
        "review load, example waveforms)"
@@ -18,7 +20,14 @@ def add_arguments(parser):
 
 def run(args) -> int:
     from classify.report import write_report
+    from features import InputError
+    from features._checks import describe_path_kind
 
+    check_output_file(args.out, (".html",), "--out")
+    kind = describe_path_kind(args.results)
+    if kind is not None:
+        raise InputError(f"{args.results}: no such results file" if kind == "missing" else
+                         f"{args.results}: is {kind}, not a results file")
     out = write_report(args.results, args.out, catalog=args.catalog, title=args.title)
-    print(f"wrote {out}")
+    echo(args, f"wrote {out}")
     return 0

@@ -52,7 +52,7 @@ from ._query import STATUSES
 from ._schema import SCHEMA_VERSION
 from ._store import DEFAULT_STORE, DIRECT_ORIGINS, STORE_ENV, LabelStore, default_store_path
 from ._values import ORIGINS, STANDARD_CLASSES
-from ._writes import ImportReport
+from ._writes import ImportReport, same_content
 
 __all__ = [
     "DEFAULT_STORE",
@@ -67,4 +67,5 @@ __all__ = [
     "check_labels_file",
     "LabelStore",
     "default_store_path",
+    "same_content",
 ]

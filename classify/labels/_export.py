@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from features import InputError
 from features.atomic import atomic_open
 
 from . import _query
@@ -18,11 +19,11 @@ def export_frame(con, store_path, catalog_id, history: bool) -> pd.DataFrame:
     ids = [r[0] for r in con.execute("SELECT catalog_id FROM catalogs ORDER BY 1")]
     if catalog_id is None:
         if len(ids) != 1:
-            raise ValueError(f"{store_path} holds {len(ids)} catalogs "
+            raise InputError(f"{store_path} holds {len(ids)} catalogs "
                              f"({', '.join(ids) or 'none'}); choose one with --catalog")
         catalog_id = ids[0]
     elif catalog_id not in ids:
-        raise ValueError(f"catalog {catalog_id!r} is not registered in {store_path}")
+        raise InputError(f"catalog {catalog_id!r} is not registered in {store_path}")
     dec = _query.decisions(con, [catalog_id])
     if not history:
         lat = _query.latest(con, [catalog_id])

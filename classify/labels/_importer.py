@@ -28,7 +28,7 @@ import io
 from dataclasses import dataclass
 from pathlib import Path
 
-from features._checks import Problems
+from features._checks import InputError, Problems, describe_path_kind
 
 from ._values import (
     ORIGINS,
@@ -95,15 +95,19 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
 
     Raises
     ------
-    FileNotFoundError
-        If the file does not exist.
-    ValueError
-        Listing every bad row as ``FILE:LINE: problem``, one per line.
+    features.InputError
+        If the file is missing or not a regular file, or listing every bad row as
+        ``FILE:LINE: problem``, one per line.
     """
     path = Path(path)
-    if not path.is_file():
-        raise FileNotFoundError(f"{path}: no such labels file")
-    data = path.read_bytes()
+    kind = describe_path_kind(path)
+    if kind is not None:
+        raise InputError(f"{path}: no such labels file" if kind == "missing" else
+                         f"{path}: is {kind}, not a labels file")
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     sha = "sha256:" + hashlib.sha256(data).hexdigest()
     if data.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark (spreadsheet export)
         data = data[3:]
@@ -117,14 +121,14 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
     try:
         header = next(reader)
     except StopIteration:
-        raise ValueError(f"{where}: the file is empty; expected a header row "
+        raise InputError(f"{where}: the file is empty; expected a header row "
                          f"with at least {', '.join(REQUIRED_COLUMNS)}") from None
     except csv.Error as exc:
-        raise ValueError(f"{where}:1: cannot read the header row: {exc}") from None
+        raise InputError(f"{where}:1: cannot read the header row: {exc}") from None
     columns = [h.strip() for h in header]
     _check_header(columns, where, problems)
     if problems:
-        raise ValueError("\n".join(problems.items))
+        raise InputError(problems.items)
     col = {name: i for i, name in enumerate(columns)}
     classes = set(classes)
 
@@ -163,7 +167,7 @@ def read_labels_file(path, *, catalog_id: str, event_ids, classes, analyst=None)
         problems.summarise()
         head = (f"{where}: {n_bad} bad row(s); nothing was imported "
                 f"(fix every row listed and import again):")
-        raise ValueError("\n".join([head, *problems.items]))
+        raise InputError([head, *problems.items])
     return LabelsFile(path=path, sha256=sha, rows=tuple(rows))
 
 
@@ -171,7 +175,7 @@ def check_labels_file(path, catalog, *, classes=None, analyst=None) -> LabelsFil
     """Validate a labels file for ``catalog`` without touching any store.
 
     ``classes`` defaults to the four standard classes (those of a new store).
-    Raises ``ValueError`` listing every bad row, like
+    Raises :class:`features.InputError` listing every bad row, like
     :meth:`LabelStore.import_labels`.
     """
     if classes is None:

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import pandas as pd
 
+from features import InputError
+
 from . import _query, _schema, _writes
 from ._values import check_confidence, check_name, check_text, utc_now
 
@@ -22,7 +24,7 @@ def record(con, store_path, catalog_id, event_id, mark, *, analyst, note=None,
            model_version=None, confidence=None) -> int:
     """Validate and append one mark (the caller holds the write transaction); return its id."""
     if mark not in _schema.REVIEW_MARKS:
-        raise ValueError(f"mark must be one of {', '.join(_schema.REVIEW_MARKS)}, "
+        raise InputError(f"mark must be one of {', '.join(_schema.REVIEW_MARKS)}, "
                          f"got {mark!r}")
     check_name(analyst, "analyst")
     if note is not None:
@@ -39,7 +41,7 @@ def record(con, store_path, catalog_id, event_id, mark, *, analyst, note=None,
             " AND analyst = ? ORDER BY mark_id DESC LIMIT 1",
             (catalog_id, event_id, analyst)).fetchone()
         if last is None or last[0] == "withdrawn":
-            raise ValueError(f"analyst {analyst!r} has no review mark on event "
+            raise InputError(f"analyst {analyst!r} has no review mark on event "
                              f"{event_id!r} of catalog {catalog_id!r} to withdraw")
     cur = con.execute(
         "INSERT INTO review_marks (catalog_id, event_id, analyst, mark, note,"

@@ -14,6 +14,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
+from features import InputError
+
 STATUSES = ("labelled", "conflict", "unlabelled")
 
 DECISION_COLUMNS = ("decision_id", "catalog_id", "event_id", "label", "analyst",
@@ -192,7 +194,7 @@ def current_labels(con, catalog_ids=None, status=None, lat=None) -> pd.DataFrame
         wanted = [status] if isinstance(status, str) else list(status)
         bad = [s for s in wanted if s not in STATUSES]
         if bad:
-            raise ValueError(f"status must be among {', '.join(STATUSES)}, got {bad!r}")
+            raise InputError(f"status must be among {', '.join(STATUSES)}, got {bad!r}")
         df = df[df["status"].isin(wanted)]
     return df.reset_index(drop=True)
 

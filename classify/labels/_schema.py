@@ -21,6 +21,8 @@ import logging
 import sqlite3
 from pathlib import Path
 
+from features import InputError
+
 from ._values import ORIGINS, STANDARD_CLASSES, utc_now
 
 logger = logging.getLogger("pulsesort")
@@ -148,19 +150,23 @@ TABLES = ("schema_version", "catalogs", "events", "classes", "import_batches", "
 
 def connect(path: Path, timeout_s: float) -> sqlite3.Connection:
     """Open a connection in autocommit mode (transactions are explicit), WAL, FKs on."""
-    con = sqlite3.connect(str(path), timeout=timeout_s, isolation_level=None)
+    try:
+        con = sqlite3.connect(str(path), timeout=timeout_s, isolation_level=None)
+    except sqlite3.DatabaseError as exc:  # e.g. a folder without write permission
+        raise InputError(f"{path}: cannot be opened as a pulsesort label store ({exc})"
+                         ) from None
     try:
         con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
         con.execute("PRAGMA foreign_keys = ON")
         mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
         if str(mode).lower() != "wal":
-            raise ValueError(f"{path}: could not switch the label store to WAL mode "
+            raise InputError(f"{path}: could not switch the label store to WAL mode "
                              f"(journal mode is {mode!r}); is it on a network drive?")
         # FULL: a committed decision survives a power cut, not only a crash.
         con.execute("PRAGMA synchronous = FULL")
     except sqlite3.DatabaseError as exc:
         con.close()
-        raise ValueError(f"{path}: cannot be opened as a pulsesort label store ({exc})") from None
+        raise InputError(f"{path}: cannot be opened as a pulsesort label store ({exc})") from None
     except BaseException:
         con.close()
         raise
@@ -174,11 +180,11 @@ def current_version(con: sqlite3.Connection, path: Path) -> int | None:
     if not names:
         return None
     if "schema_version" not in names:
-        raise ValueError(f"{path}: this SQLite file is not a pulsesort label store "
+        raise InputError(f"{path}: this SQLite file is not a pulsesort label store "
                          f"(it has no schema_version table)")
     row = con.execute("SELECT MAX(version) FROM schema_version").fetchone()
     if row[0] is None:
-        raise ValueError(f"{path}: the label store's schema_version table is empty")
+        raise InputError(f"{path}: the label store's schema_version table is empty")
     return int(row[0])
 
 

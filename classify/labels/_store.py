@@ -10,6 +10,9 @@ from pathlib import Path
 
 import pandas as pd
 
+from features import InputError
+from features._checks import describe_path_kind
+
 from . import _export, _marks, _query, _schema, _writes
 from ._importer import read_labels_file
 from ._values import (
@@ -43,7 +46,8 @@ class LabelStore:
     path : str or os.PathLike or None
         The store file; None means :func:`default_store_path`.
     create : bool, default=True
-        Create the store if the file does not exist (else ``FileNotFoundError``).
+        Create the store if the file does not exist (else :class:`features.InputError`
+        naming the path). Commands that only read labels pass False.
     timeout_s : float, default=60.0
         How long a writer waits for another process's write to finish, in seconds.
 
@@ -57,12 +61,18 @@ class LabelStore:
 
     def __init__(self, path=None, *, create: bool = True, timeout_s: float = 60.0):
         self.path = Path(path) if path is not None else default_store_path()
-        if self.path.is_dir():
-            raise IsADirectoryError(f"{self.path}: is a folder; --store names a file")
-        if not create and not self.path.exists():
-            raise FileNotFoundError(
-                f"{self.path}: no label store here (import labels first, or pass "
-                f"--store PATH / set ${STORE_ENV})")
+        kind = describe_path_kind(self.path)
+        if kind == "missing":
+            if not create:
+                raise InputError(
+                    f"{self.path}: no label store here (import labels first, or pass "
+                    f"--store PATH / set ${STORE_ENV})")
+            parent = describe_path_kind(self.path.parent)
+            if parent != "a folder":
+                raise InputError(f"{self.path}: cannot create a label store here: its folder "
+                                 f"{self.path.parent} is {'missing' if parent == 'missing' else parent}")
+        elif kind is not None:
+            raise InputError(f"{self.path}: is {kind}; --store names a label store file")
         self._con = _schema.connect(self.path, timeout_s)
         try:
             with self._read():
@@ -71,7 +81,8 @@ class LabelStore:
                 self._prepare(version)
         except sqlite3.DatabaseError as exc:
             self._con.close()
-            raise ValueError(f"{self.path}: cannot be used as a pulsesort label store ({exc})") from None
+            raise InputError(f"{self.path}: cannot be used as a pulsesort label store "
+                             f"({exc})") from None
         except BaseException:
             self._con.close()
             raise
@@ -79,7 +90,7 @@ class LabelStore:
     def _prepare(self, version: int | None) -> None:
         """Create or upgrade the schema, under the write lock (another process may race)."""
         if version is not None and version > _schema.SCHEMA_VERSION:
-            raise ValueError(
+            raise InputError(
                 f"{self.path}: written by a newer pulsesort (schema v{version}; "
                 f"this one knows up to v{_schema.SCHEMA_VERSION}); upgrade pulsesort")
         if version is not None:  # older: copy it first, outside the write transaction
@@ -196,10 +207,10 @@ class LabelStore:
         check_class_name(name)
         check_text(description, "description", allow_newlines=False)
         if not description.strip():
-            raise ValueError(f"class {name!r}: give a --description of what it means")
+            raise InputError(f"class {name!r}: give a --description of what it means")
         with self._write() as con:
             if con.execute("SELECT 1 FROM classes WHERE name = ?", (name,)).fetchone():
-                raise ValueError(f"class {name!r} already exists in {self.path}")
+                raise InputError(f"class {name!r} already exists in {self.path}")
             con.execute("INSERT INTO classes (name, description, added_at) VALUES (?, ?, ?)",
                         (name, description, utc_now()))
 
@@ -236,10 +247,10 @@ class LabelStore:
             and returns the stored one's id, so a retried write is harmless.
         """
         if origin not in DIRECT_ORIGINS:
-            raise ValueError(f"origin must be one of {', '.join(DIRECT_ORIGINS)}, got "
+            raise InputError(f"origin must be one of {', '.join(DIRECT_ORIGINS)}, got "
                              f"{origin!r} (use import_labels, resolve or retract for the others)")
         if model_version is None and origin == "model-accepted":
-            raise ValueError("a 'model-accepted' decision needs the model_version")
+            raise InputError("a 'model-accepted' decision needs the model_version")
         if model_version is not None:
             check_name(model_version, "model_version")
         confidence = check_confidence(confidence)
@@ -261,7 +272,7 @@ class LabelStore:
                 " AND analyst = ? ORDER BY decided_at DESC, decision_id DESC LIMIT 1",
                 (catalog_id, event_id, analyst)).fetchone()
             if last is None or last[0] is None:
-                raise ValueError(f"analyst {analyst!r} has no label on event {event_id!r} of "
+                raise InputError(f"analyst {analyst!r} has no label on event {event_id!r} of "
                                  f"catalog {catalog_id!r} to retract")
             return _writes.insert(con, self.path, catalog_id, event_id, None, analyst, "retract", note,
                                 decided_at)
@@ -278,7 +289,7 @@ class LabelStore:
             cur = _query.rule(_query.latest(con, event=(catalog_id, event_id)))
             if cur.empty or not (cur["status"].iat[0] == "conflict" or cur["resolved"].iat[0]):
                 state = "unlabelled" if cur.empty else cur["status"].iat[0]
-                raise ValueError(
+                raise InputError(
                     f"event {event_id!r} of catalog {catalog_id!r} is not in conflict "
                     f"(status: {state}); record an ordinary decision instead")
             return _writes.insert(con, self.path, catalog_id, event_id, label, analyst, "resolve", note,
@@ -301,7 +312,7 @@ class LabelStore:
                 "  AND r.origin = 'retract' AND r.decision_id > d.decision_id)"
                 " ORDER BY d.decision_id DESC LIMIT 1", [analyst, *params]).fetchone()
             if row is None:
-                raise ValueError(f"analyst {analyst!r} has no decision to undo")
+                raise InputError(f"analyst {analyst!r} has no decision to undo")
             text = f"undo of decision #{row[0]}" + (f": {note}" if note else "")
             return _writes.insert(con, self.path, row[1], row[2], None, analyst, "retract", text, None)
 
@@ -349,8 +360,8 @@ class LabelStore:
         """Import a labels file for ``catalog``: all rows or none.
 
         Every row is checked first (unknown event_id or label, malformed time,
-        duplicate rows, missing analyst, non-UTF-8 text); any problem raises a
-        ``ValueError`` listing every bad row
+        duplicate rows, missing analyst, non-UTF-8 text); any problem raises an
+        :class:`features.InputError` listing every bad row
         and the store is left unchanged. Rows already in the store are
         skipped, so importing the same file twice adds nothing the second time
         (rows without ``decided_at`` get the time of the file's first import).
@@ -369,7 +380,7 @@ class LabelStore:
             row = con.execute("SELECT content_hash FROM catalogs WHERE catalog_id = ?",
                               (catalog.catalog_id,)).fetchone()
             classes = [r[0] for r in con.execute("SELECT name FROM classes")]
-        if row is not None and row[0] != catalog.content_hash:
+        if row is not None and not _writes.same_content(row[0], catalog):
             with self._write() as con:
                 _writes.register(con, self.path, catalog)  # raises the "seasons mixed" error
         parsed = read_labels_file(path, catalog_id=catalog.catalog_id,

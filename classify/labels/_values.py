@@ -11,6 +11,8 @@ import unicodedata
 from datetime import datetime, timezone
 from numbers import Real
 
+from features import InputError
+
 #: Where a decision came from. ``resolve`` settles a conflict; ``retract``
 #: withdraws the analyst's label (its ``label`` is NULL).
 ORIGINS = ("import", "review", "rule", "model-accepted", "resolve", "retract")
@@ -64,7 +66,7 @@ def parse_time(value) -> str:
 
     Raises
     ------
-    ValueError
+    InputError
         If ``value`` is not an ISO-8601 date/time (the message says what was
         expected; the caller adds the place).
     """
@@ -72,11 +74,11 @@ def parse_time(value) -> str:
         dt = value if value.tzinfo is not None else value.replace(tzinfo=timezone.utc)
         return format_time(dt)
     if not isinstance(value, str):
-        raise ValueError(f"expected an ISO-8601 time such as 2031-07-14T21:03:55Z, "
+        raise InputError(f"expected an ISO-8601 time such as 2031-07-14T21:03:55Z, "
                          f"got {value!r}")
     m = _ISO_RE.fullmatch(value.strip())
     if m is None:
-        raise ValueError(f"expected an ISO-8601 time such as 2031-07-14T21:03:55Z, "
+        raise InputError(f"expected an ISO-8601 time such as 2031-07-14T21:03:55Z, "
                          f"got {value!r}")
     text = m["date"]
     if m["hm"]:
@@ -94,12 +96,12 @@ def parse_time(value) -> str:
     try:
         dt = datetime.fromisoformat(text)
     except ValueError as exc:  # e.g. month 13, hour 25
-        raise ValueError(f"not a valid time: {value!r} ({exc})") from None
+        raise InputError(f"not a valid time: {value!r} ({exc})") from None
     return format_time(dt)
 
 
 def check_text(value, what: str, *, allow_newlines: bool) -> str:
-    """Return ``value`` unchanged if it is acceptable free text, else raise ``ValueError``.
+    """Return ``value`` unchanged if it is acceptable free text, else raise ``InputError``.
 
     Any printable text is accepted verbatim, including quotes and SQL
     fragments (they are bound as parameters, never executed). Refused: a
@@ -107,15 +109,15 @@ def check_text(value, what: str, *, allow_newlines: bool) -> str:
     only where ``allow_newlines``), and text that is not valid Unicode.
     """
     if not isinstance(value, str):
-        raise ValueError(f"{what} must be text, got {type(value).__name__} {value!r}")
+        raise InputError(f"{what} must be text, got {type(value).__name__} {value!r}")
     try:
         value.encode("utf-8")
     except UnicodeEncodeError:
-        raise ValueError(f"{what} is not valid Unicode text: {value[:40]!r}") from None
+        raise InputError(f"{what} is not valid Unicode text: {value[:40]!r}") from None
     allowed = "\n\r\t" if allow_newlines else ""
     for ch in value:
         if ch not in allowed and unicodedata.category(ch) == "Cc":
-            raise ValueError(f"{what} must not contain control characters such as "
+            raise InputError(f"{what} must not contain control characters such as "
                              f"{ch!r}, got {_short(value)}")
     return value
 
@@ -124,16 +126,16 @@ def check_name(value, what: str) -> str:
     """An analyst name or id: non-empty, one line, no surrounding spaces."""
     check_text(value, what, allow_newlines=False)
     if not value.strip():
-        raise ValueError(f"{what} must not be empty")
+        raise InputError(f"{what} must not be empty")
     if value != value.strip():
-        raise ValueError(f"{what} must not start or end with spaces, got {_short(value)}")
+        raise InputError(f"{what} must not start or end with spaces, got {_short(value)}")
     return value
 
 
 def check_class_name(value, what: str = "class name") -> str:
     """A class name: lower-case letters, digits and underscores, 1-40 characters."""
     if not isinstance(value, str) or CLASS_NAME_RE.fullmatch(value) is None:
-        raise ValueError(f"{what} must be 1-40 characters of a-z, 0-9 and '_' starting "
+        raise InputError(f"{what} must be 1-40 characters of a-z, 0-9 and '_' starting "
                          f"with a letter (e.g. 'other'), got {value!r}")
     return value
 
@@ -146,10 +148,10 @@ def check_confidence(value, what: str = "confidence") -> float | None:
         try:
             value = float(value)
         except ValueError:
-            raise ValueError(f"{what} must be a number in [0, 1], got {value!r}") from None
+            raise InputError(f"{what} must be a number in [0, 1], got {value!r}") from None
     if (not isinstance(value, Real) or isinstance(value, bool)
             or not math.isfinite(float(value)) or not 0.0 <= float(value) <= 1.0):
-        raise ValueError(f"{what} must be a number in [0, 1], got {value!r}")
+        raise InputError(f"{what} must be a number in [0, 1], got {value!r}")
     return float(value)
 
 

@@ -1,7 +1,7 @@
 """Write side of the label store: registration, decisions, import batches.
 
 Functions take an open connection inside the caller's ``BEGIN IMMEDIATE``
-transaction; they validate what they write and raise ``ValueError`` with a
+transaction; they validate what they write and raise ``InputError`` with a
 message naming the value, so that the transaction rolls back whole.
 """
 
@@ -14,6 +14,8 @@ import time
 from dataclasses import dataclass
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
+
+from features import InputError
 
 from ._values import check_name, check_text, parse_time, utc_now
 
@@ -58,6 +60,18 @@ class ImportReport:
     registered: bool
 
 
+def same_content(recorded_hash: str, catalog) -> bool:
+    """Whether a hash recorded in the store is ``catalog``'s.
+
+    Stores written before the content hash covered the waveform files recorded
+    the hash of the manifest and events table only; such a row is accepted
+    through ``catalog.legacy_content_hash`` (an immutable row is never rewritten,
+    so both hashes stay valid for it).
+    """
+    hashes = getattr(catalog, "content_hashes", None) or (catalog.content_hash,)
+    return recorded_hash in hashes
+
+
 def register(con, store_path, catalog) -> bool:
     """Register ``catalog`` (or check it is the one registered); True if new."""
     cid = check_name(catalog.catalog_id, "catalog_id")
@@ -65,8 +79,8 @@ def register(con, store_path, catalog) -> bool:
     row = con.execute("SELECT content_hash, path FROM catalogs WHERE catalog_id = ?",
                       (cid,)).fetchone()
     if row is not None:
-        if row[0] != catalog.content_hash:
-            raise ValueError(
+        if not same_content(row[0], catalog):
+            raise InputError(
                 f"catalog {cid!r} at {path} is not the catalog registered under that id "
                 f"in {store_path} (registered from {row[1]} with content hash {row[0]}; "
                 f"this one has {catalog.content_hash}). Seasons must not be mixed: "
@@ -84,20 +98,20 @@ def register(con, store_path, catalog) -> bool:
         con.executemany("INSERT INTO events (catalog_id, event_id, row_index)"
                         " VALUES (?, ?, ?)", ((cid, e, i) for i, e in enumerate(ids)))
     except sqlite3.IntegrityError:
-        raise ValueError(f"catalog {cid!r}: event ids are not unique") from None
+        raise InputError(f"catalog {cid!r}: event ids are not unique") from None
     logger.info("catalog %s: registered (%d events)", cid, len(ids))
     return True
 
 
 def check_event(con, store_path, catalog_id, event_id) -> None:
-    """Raise ``ValueError`` unless the event belongs to a registered catalog."""
+    """Raise ``InputError`` unless the event belongs to a registered catalog."""
     if con.execute("SELECT 1 FROM events WHERE catalog_id = ? AND event_id = ?",
                    (catalog_id, event_id)).fetchone():
         return
     if not con.execute("SELECT 1 FROM catalogs WHERE catalog_id = ?",
                        (catalog_id,)).fetchone():
-        raise ValueError(f"catalog {catalog_id!r} is not registered in {store_path}")
-    raise ValueError(f"event {event_id!r} is not an event of catalog {catalog_id!r}")
+        raise InputError(f"catalog {catalog_id!r} is not registered in {store_path}")
+    raise InputError(f"event {event_id!r} is not an event of catalog {catalog_id!r}")
 
 
 def insert(con, store_path, catalog_id, event_id, label, analyst, origin, note, decided_at,
@@ -110,7 +124,7 @@ def insert(con, store_path, catalog_id, event_id, label, analyst, origin, note, 
     if label is not None and not con.execute(
             "SELECT 1 FROM classes WHERE name = ?", (label,)).fetchone():
         known = ", ".join(r[0] for r in con.execute("SELECT name FROM classes"))
-        raise ValueError(f"unknown label {label!r}; known classes: {known}")
+        raise InputError(f"unknown label {label!r}; known classes: {known}")
     # A retraction or resolution must be newer than what it overrides.
     if origin == "resolve":
         prev = con.execute("SELECT MAX(decided_at) FROM decisions WHERE catalog_id = ?"
@@ -128,7 +142,7 @@ def insert(con, store_path, catalog_id, event_id, label, analyst, origin, note, 
     else:
         at = parse_time(decided_at)
         if prev is not None and at <= prev:
-            raise ValueError(f"decided_at {at} is not after the latest decision it "
+            raise InputError(f"decided_at {at} is not after the latest decision it "
                              f"overrides ({prev})")
     same = con.execute(
         "SELECT decision_id, label FROM decisions WHERE catalog_id = ? AND event_id = ?"
@@ -137,7 +151,7 @@ def insert(con, store_path, catalog_id, event_id, label, analyst, origin, note, 
         if lab == label:
             return int(did)
     if same:
-        raise ValueError(f"analyst {analyst!r} already has another decision on event "
+        raise InputError(f"analyst {analyst!r} already has another decision on event "
                          f"{event_id!r} at {at} (decision #{same[0][0]})")
     cur = con.execute(
         "INSERT INTO decisions (catalog_id, event_id, label, analyst, decided_at, origin,"
@@ -185,7 +199,7 @@ def import_rows(con, parsed, cid, analyst, registered) -> ImportReport:
                                f"has decision #{other[0]} ({other[1]!r}) on event "
                                f"{r.event_id!r} at {at}")
     if clashes:
-        raise ValueError("\n".join([f"{parsed.path}: {len(clashes)} row(s) contradict "
+        raise InputError("\n".join([f"{parsed.path}: {len(clashes)} row(s) contradict "
                                     "the store; nothing was imported:", *clashes[:200]]))
     if added:
         con.execute("UPDATE import_batches SET n_added = ? WHERE batch_id = ?", (added, bid))

@@ -122,7 +122,7 @@ def test_stats_conflicts_resolve_history_retract(season, capsys):
     code, out, _ = _run(capsys, "labels", "retract", CID, "NA", "--analyst", "wren",
                         "--note", "second look")
     assert code == 0 and "retracted" in out
-    code, out, _ = _run(capsys, "labels", "history", "NA", "--catalog", CID)
+    code, out, _ = _run(capsys, "labels", "history", CID, "NA")
     assert "(retracted)" in out and "second look" in out
     code, _, err = _run(capsys, "labels", "resolve", CID, "ev000", "recoil",
                         "--analyst", "analyst_a")

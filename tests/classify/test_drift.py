@@ -22,7 +22,7 @@ from classify.drift import (
     read_feature_table,
 )
 from classify.drift_report import format_drift_text, render_drift_html, write_drift_html
-from features import open_catalog, schema
+from features import InputError, open_catalog, schema
 from features.extract import extract_features, write_features
 from tests.conftest import bipolar_field
 
@@ -187,7 +187,7 @@ def test_decay_change_end_to_end(decay_pair):
     text = format_drift_text(result, top=5)
     assert text.index("instrument changes") < text.index("field.decay_time_s") < text.index(
         "feature drift")
-    assert "none -> 2e-05 s" in text
+    assert "none -> 20 µs" in text                # display units, classify.display
 
 
 def test_html_report_is_self_contained_and_complete(decay_pair, tmp_path):
@@ -251,7 +251,7 @@ def test_read_feature_table_round_trip_and_errors(decay_pair, tmp_path):
     df.to_csv(tmp_path / "short.csv", index=False)
     with pytest.raises(ValueError, match=r"1 of the catalog's missing \(first 'p000'\)"):
         read_feature_table(tmp_path / "short.csv", ca)
-    with pytest.raises(FileNotFoundError, match="no such features file"):
+    with pytest.raises(InputError, match="nothing.csv: no such features file"):
         read_feature_table(tmp_path / "nothing.csv", ca)
 
 
@@ -284,6 +284,41 @@ def test_cli_exit_codes(decay_pair, tmp_path, capsys):
                  "--features-a", str(fa), "--features-b", str(fb)]) == 2
     assert main(["drift", str(ca.path), str(cb.path), "--model", str(tmp_path)]) == 2
     assert "neither a model folder" in capsys.readouterr().err
+    assert main(["drift", str(ca.path), str(cb.path), "--out", str(tmp_path / "r.htm")]) == 2
+    assert "must end in .html" in capsys.readouterr().err
+
+
+def test_cli_writes_beside_catalog_b_by_default(decay_pair, tmp_path, capsys, monkeypatch):
+    """Without --out the report goes to the folder holding catalog B, and its path is
+    printed; nothing is written to the working folder; -q prints nothing."""
+    ca, cb = decay_pair
+    fa = write_features(ca, tmp_path / "fa.csv")
+    fb = write_features(cb, tmp_path / "fb.csv")
+    work = tmp_path / "elsewhere"
+    work.mkdir()
+    monkeypatch.chdir(work)
+    assert main(["drift", str(ca.path), str(cb.path), "--features-a", str(fa),
+                 "--features-b", str(fb)]) == 0
+    want = cb.path.parent / "drift_testsite-2040_vs_testsite-2041.html"
+    assert want.is_file() and f"report: {want}" in capsys.readouterr().out
+    assert list(work.iterdir()) == []
+    want.unlink()
+    assert main(["-q", "drift", str(ca.path), str(cb.path), "--features-a", str(fa),
+                 "--features-b", str(fb)]) == 0
+    assert want.is_file() and capsys.readouterr().out == ""
+
+
+def test_html_medians_in_display_units_that_do_not_wrap(decay_pair):
+    """Medians read '2.4 µs -> 2.97 µs' (not 2.4e-06) in cells that never wrap."""
+    ca, cb = decay_pair
+    fa, fb = extract_features(ca), extract_features(cb)
+    html = render_drift_html(compare_catalogs(ca, cb, fa, fb), fa, fb, top=2)
+    assert "white-space:nowrap" in html
+    row = html[html.index("<td>initial_half_cycle_s</td>"):]
+    row = row[:row.index("</tr>")]
+    medians = [c for c in row.split("<td") if "-&gt;" in c and "µs" in c]
+    assert medians and 'class="n"' in medians[0]
+    assert "e-0" not in medians[0]
     assert json.loads((ca.path / "catalog.json").read_text())["catalog_id"] == "testsite-2040"
 
 

@@ -34,10 +34,25 @@ def test_champion_calibration_matches_the_ece_of_the_labelled_rows():
 
 
 def test_format_value_units():
-    """Units from the setting name; fractions of events as percentages; None as none."""
-    assert format_value("field.sample_rate_hz", 2e7) == "2e+07 Hz"
+    """Display units from the setting name; fractions of events as percentages; None as none."""
+    assert format_value("field.sample_rate_hz", 2e7) == "20 MHz"
+    assert format_value("field.pretrigger_s", 1e-4) == "100 µs"
     assert format_value("field.decay_time_s", None) == "none"
-    assert format_value("vhf.band_hz", (2.5e7, 8.5e7)) == "2.5e+07-8.5e+07 Hz"
+    assert format_value("vhf.band_hz", (2.5e7, 8.5e7)) == "25-85 MHz"
+    assert format_value("field.scale", 0.5) == "0.5"
     assert format_value("events.range_m", 0.5) == "50 % of events"
     assert format_value("sources.xyz", True) == "yes"
     assert format_value("field.sign_convention", "physics") == "physics"
+
+
+def test_display_units_table():
+    """One table turns SI values into engineering units for people."""
+    from classify.display import DISPLAY_UNITS, display_unit, display_value
+
+    assert display_value(3.59e-07, "s") == "0.359 µs"      # the drift page's old '3.59e-07'
+    assert display_value(1.2e5, "m/s") == "120 km/s"
+    assert display_value(2.5e4, "A") == "25 kA"
+    assert display_value(0.25, "1") == "0.25" and display_unit("bool") == ""
+    assert display_value(float("nan"), "s") == "" and display_value(None, "m") == ""
+    for unit, (shown, factor) in DISPLAY_UNITS.items():
+        assert shown and factor > 0, unit

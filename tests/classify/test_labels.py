@@ -12,6 +12,7 @@ from sklearn.metrics import cohen_kappa_score
 
 from classify.labels import STANDARD_CLASSES, LabelStore
 from classify.labels._values import parse_time
+from features import InputError
 
 from ._labels_testkit import TRICKY_IDS, tiny_catalog, write_labels
 
@@ -50,7 +51,7 @@ def test_new_store_has_schema_tables_and_standard_classes(tmp_path):
 
 def test_open_missing_store_without_create_names_the_file(tmp_path):
     """Reading commands do not create a store: a missing file is a clear error."""
-    with pytest.raises(FileNotFoundError, match="no label store here"):
+    with pytest.raises(InputError, match="absent.sqlite: no label store here"):
         LabelStore(tmp_path / "absent.sqlite", create=False)
     assert not (tmp_path / "absent.sqlite").exists()
 
@@ -302,7 +303,7 @@ def test_import_refuses_unknown_columns_and_missing_required(store, cat, tmp_pat
     (tmp_path / "empty.csv").write_text("")
     with pytest.raises(ValueError, match="the file is empty"):
         store.import_labels(tmp_path / "empty.csv", cat, analyst="wren")
-    with pytest.raises(FileNotFoundError, match="no such labels file"):
+    with pytest.raises(InputError, match="absent.csv: no such labels file"):
         store.import_labels(tmp_path / "absent.csv", cat, analyst="wren")
 
 

@@ -18,6 +18,7 @@ import pytest
 from classify.labels import LabelStore
 from classify.labels._schema import SCHEMA_V1
 from classify.labels._writes import PAUSE_ENV
+from features import InputError
 
 from ._labels_testkit import tiny_catalog, write_labels
 
@@ -200,7 +201,7 @@ def test_quoted_multiline_note_reports_true_line_numbers(tmp_path):
             s.import_labels(f, cat)
 
 
-def _write_v1_store(path, cat):
+def _write_v1_store(path, cat, content_hash=None):
     """A store as schema v1 wrote it: no model_version/confidence, no classes.added_at."""
     con = sqlite3.connect(path, isolation_level=None)
     con.executescript("PRAGMA journal_mode = WAL;\nBEGIN;\n" + SCHEMA_V1 + "\nCOMMIT;")
@@ -209,8 +210,8 @@ def _write_v1_store(path, cat):
                     [("narrow_bipolar", "NBE"), ("stepped_leader", "SL"), ("recoil", "K"),
                      ("energetic_in_cloud", "EIP"), ("other", "anything else")])
     con.execute("INSERT INTO catalogs VALUES (?, ?, ?, ?, ?, ?, ?)",
-                (CID, "hollowmere", "2031", str(cat.path), cat.content_hash, cat.n_events,
-                 "2031-06-01T00:00:00.000000Z"))
+                (CID, "hollowmere", "2031", str(cat.path), content_hash or cat.content_hash,
+                 cat.n_events, "2031-06-01T00:00:00.000000Z"))
     con.executemany("INSERT INTO events VALUES (?, ?, ?)",
                     [(CID, e, i) for i, e in enumerate(cat.event_ids)])
     con.executemany(
@@ -252,6 +253,30 @@ def test_v1_store_is_upgraded_in_place_with_a_backup(tmp_path):
     with LabelStore(path) as s:
         assert s.schema_version == 2 and len(s.decisions()) == 3
     assert sorted(p.name for p in tmp_path.glob("labels.sqlite.v*")) == ["labels.sqlite.v1.bak"]
+
+
+def test_catalog_registered_under_the_earlier_hash_still_matches(tmp_path):
+    """Stores registered catalogs by a hash of manifest + events only: both hashes match.
+
+    The registered row is immutable (a trigger refuses to change its hash), so
+    the store accepts the catalog's legacy hash as well as the new one that also
+    samples the waveform files; another season under the same id is still refused.
+    """
+    from classify.cards import render_data_card
+
+    cat = tiny_catalog(tmp_path / "cat")
+    assert cat.legacy_content_hash and cat.legacy_content_hash != cat.content_hash
+    path = tmp_path / "labels.sqlite"
+    _write_v1_store(path, cat, content_hash=cat.legacy_content_hash)
+    labels = write_labels(tmp_path / "l.csv", [["ev003", "recoil", "wren", "", ""]])
+    with LabelStore(path) as s:
+        assert s.register_catalog(cat) == CID
+        assert s.import_labels(labels, cat).n_added == 1
+        assert "ev003" in set(s.current_labels([CID], status="labelled")["event_id"])
+        assert "hollowmere" in render_data_card(cat, s)
+        other = tiny_catalog(tmp_path / "other", season="2032", seed=1)
+        with pytest.raises(InputError, match="Seasons must not be mixed"):
+            s.register_catalog(other)
 
 
 def test_store_from_a_newer_version_is_refused(tmp_path):

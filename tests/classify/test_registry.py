@@ -9,6 +9,7 @@ import skops.io as sio
 from classify.cli import main
 from classify.models import PulseClassifier
 from classify.registry import ModelRegistry, load_model, save_model, verify_model_dir
+from features import InputError
 
 
 class NotAllowed:
@@ -46,9 +47,9 @@ def test_tampered_model_is_refused(tmp_path):
     data = bytearray((folder / "model.skops").read_bytes())
     data[len(data) // 2] ^= 0xFF
     (folder / "model.skops").write_bytes(bytes(data))
-    with pytest.raises(ValueError, match="model.skops: SHA-256 is .* Refusing to load"):
+    with pytest.raises(InputError, match="model.skops: SHA-256 is .* Refusing to load"):
         load_model(folder)
-    assert main(["models", "--registry", str(tmp_path / "models"), "show", str(folder)]) == 2
+    assert main(["models", "show", str(folder), "--registry", str(tmp_path / "models")]) == 2
 
 
 def test_tampered_card_is_refused(tmp_path):
@@ -80,17 +81,17 @@ def test_registry_register_promote_and_resolve(tmp_path, capsys):
     reg.register(b)
     assert reg.current() == "v1"
     assert reg.resolve("current") == reg.root / "v1"
-    assert main(["models", "--registry", str(reg.root), "promote", "v2"]) == 0
+    assert main(["models", "promote", "v2", "--registry", str(reg.root)]) == 0
     assert reg.current() == "v2"
-    assert main(["models", "--registry", str(reg.root), "list"]) == 0
+    assert main(["models", "list", "--registry", str(reg.root)]) == 0
     out = capsys.readouterr().out
     assert "* v2" in out and "  v1" in out
-    with pytest.raises(FileNotFoundError, match="known versions: v1, v2"):
+    with pytest.raises(InputError, match="known versions: v1, v2"):
         reg.resolve("v9")
 
 
 def test_model_folders_are_immutable(tmp_path):
     """Saving into an existing model folder is refused."""
     _save(tmp_path, "v1")
-    with pytest.raises(FileExistsError, match="already exists"):
+    with pytest.raises(InputError, match="already exists"):
         _save(tmp_path, "v1")

@@ -63,7 +63,7 @@ def _import_b(seasons, store, tmp_path, n, seed=0):
 
 
 def _retrain(seasons, store, reg, out, *extra):
-    return main(["retrain", "--store", str(store), "--new", str(seasons["b"]), "--with",
+    return main(["retrain", str(seasons["b"]), "--store", str(store), "--with",
                  str(seasons["a"]), "--out", str(reg / out), *FAST, *extra])
 
 
@@ -189,3 +189,34 @@ def test_metric_vector_absent_and_unknown_classes():
     assert_allclose(v[2], np.mean(np.where(y_unknown >= 0, sets[np.arange(len(y)),
                                                                  np.clip(y_unknown, 0, k - 1)],
                                            False)), rtol=0, atol=1e-12)
+
+
+def test_out_into_another_registry_needs_promote(seasons, tmp_path, capsys, caplog):
+    """A challenger written into another registry never becomes its current model
+    without --promote, even when it wins (here by --force); the old --new spelling
+    still works, with a note."""
+    store, reg = _copy(seasons, tmp_path)
+    _import_b(seasons, store, tmp_path, 40, seed=2)
+    other = tmp_path / "other"
+    shutil.copytree(reg / "champ", other / "incumbent")
+    ModelRegistry(other).register(other / "incumbent")
+    base = ["retrain", "--store", str(store), "--new", str(seasons["b"]), "--current",
+            str(reg / "champ"), "--max-iter", "1", "--bootstrap", "100", "--force"]
+    assert main([*base, "--out", str(other / "c1")]) == 0
+    out = capsys.readouterr().out
+    assert "decision: forced" in out and "not made current in" in out
+    assert ModelRegistry(other).current() == "incumbent"
+    assert ModelRegistry(reg).current() == "champ"
+    assert "--new CATALOG` is deprecated" in caplog.text
+    assert main([*base, "--out", str(other / "c2"), "--promote"]) == 0
+    assert ModelRegistry(other).current() == "c2"
+    assert ModelRegistry(reg).current() == "champ"
+
+
+def test_mistyped_store_creates_nothing(seasons, tmp_path, capsys):
+    """Reading commands never create a store: a mistyped --store exits 2 naming it."""
+    typo = tmp_path / "lables.sqlite"
+    assert main(["retrain", str(seasons["b"]), "--store", str(typo), "--out",
+                 str(tmp_path / "reg" / "x")]) == 2
+    assert "lables.sqlite: no label store here" in capsys.readouterr().err
+    assert not typo.exists() and not (tmp_path / "reg").exists()

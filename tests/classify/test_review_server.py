@@ -30,8 +30,8 @@ from classify.review import (
 )
 from classify.review._server import LISTEN_BACKLOG, MAX_JSON_DEPTH, json_depth
 from classify.triage import read_results
-from features.waveform import ANALYSIS_WINDOW_S
 from features import open_catalog
+from features.waveform import ANALYSIS_WINDOW_S
 
 from ._review_testkit import XSS_ID, Client, triaged_catalog
 

@@ -223,8 +223,8 @@ def test_source_angles_out_of_range(make_catalog):
     path = make_catalog("angles", _field(), sources=src)
     with pytest.raises(CatalogError) as info:
         open_catalog(path)
-    assert "line 3: azimuth_deg must be in [0, 360)" in str(info.value)
-    assert "line 4: elevation_deg must be in [0, 90]" in str(info.value)
+    assert "line 3: column 'azimuth_deg' must be in [0, 360)" in str(info.value)
+    assert "line 4: column 'elevation_deg' must be in [0, 90]" in str(info.value)
 
 
 def test_partial_xyz_columns(make_catalog):
@@ -243,12 +243,12 @@ def test_missing_declared_files(make_catalog):
 
 
 def test_invalid_json_and_not_a_folder(tmp_path, make_catalog):
-    """Broken JSON names line and column; a missing folder is FileNotFoundError."""
+    """Broken JSON names line and column; a missing folder is an InputError naming it."""
     path = make_catalog("json", _field())
     (path / "catalog.json").write_text('{"format": "pulse-catalog",\n "version": }')
     with pytest.raises(CatalogError, match=r"invalid JSON at line 2"):
         open_catalog(path)
-    with pytest.raises(FileNotFoundError):
+    with pytest.raises(CatalogError, match=r"nowhere: no such catalog folder"):
         open_catalog(tmp_path / "nowhere")
     assert main(["check", str(tmp_path / "nowhere")]) == 2
 
@@ -307,7 +307,7 @@ def test_trigger_outside_the_record_is_noted(make_catalog):
 
 def test_large_source_tables_spill_to_disk(make_catalog, monkeypatch):
     """Above the in-memory limit, sources live in temporary files, read per chunk."""
-    import features._tables as tables
+    import features._sources as tables
 
     monkeypatch.setattr(tables, "SOURCES_IN_MEMORY_MAX", 1)
     ids = [f"e{i:04d}" for i in range(N)]

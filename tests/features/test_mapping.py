@@ -16,7 +16,6 @@ import features.mapping
 from features import InputError, schema
 from features._tables import SourceTable
 from features._trackfit import robust_velocity
-from features.simulate.dipole import tl_radiation_field_v_per_m
 from features.mapping import (
     EARTH_RADIUS_M,
     EFFECTIVE_EARTH_RADIUS_M,
@@ -26,6 +25,7 @@ from features.mapping import (
     grouped_median,
     source_features,
 )
+from features.simulate.dipole import tl_radiation_field_v_per_m
 
 A = EFFECTIVE_EARTH_RADIUS_M
 
