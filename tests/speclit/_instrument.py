@@ -275,7 +275,8 @@ class Stream:
             return np.zeros(0)
         pos0 = self.position(w.start)
         idx = np.repeat(pos0 - w.offsets[:-1], w.length) + np.arange(w.values.size)
-        buf = np.bincount(idx, weights=w.values, minlength=self.size)[: self.size]
+        buf = np.bincount(idx, weights=w.values, minlength=self.size)[: self.size].astype(
+            np.float64, copy=False)            # (an empty bincount comes back as int)
         if with_final:
             step = np.bincount(self.position(w.stop), weights=w.final,
                                minlength=self.size + 1)[: self.size]

@@ -23,15 +23,13 @@ uncatalogued neighbours, as an analyst's selection would leave them).
 from __future__ import annotations
 
 import numpy as np
-from scipy.signal import lfilter
 
 from features import InputError
 
-from . import _physics as ph
-from . import _vhf
 from ._classes import CLASSES, KIND, KINDS
-from ._flashes import FTYPES, PULSE_FIELDS, cg_scene, ic_scene, nbe_scene, pulses
-from ._instrument import Stream, Windows, coarse, digitize, field_windows, merge_spans
+from ._compose import Composer, segments, take, truth
+from ._flashes import FTYPES, PULSE_FIELDS, cg_scene, ic_scene, nbe_scene
+from ._instrument import Windows, coarse, field_windows, merge_spans
 
 __all__ = ["SHARES", "quotas", "Season"]
 
@@ -60,16 +58,7 @@ def quotas(n_events, classes, mix):
     return {k: v for k, v in base.items() if v > 0}
 
 
-def _segments(p, idx=None):
-    sel = (lambda a: a) if idx is None else (lambda a: a[idx])
-    return ph.Segments(**{k: sel(p[k]) for k in ph.Segments.FIELDS})
-
-
-def _take(p, idx):
-    return {k: v[idx] for k, v in p.items()}
-
-
-class Season:
+class Season(Composer):
     """Generates candidate events batch by batch (see :meth:`run`)."""
 
     def __init__(self, settings, n_events, seed):
@@ -152,7 +141,8 @@ class Season:
             plan = self._plan()
             if not plan:
                 return
-            if sum(self.n_scenes.values()) > 40 * sum(self.quota.values()) + 2000:
+            dead = [k for k in self.quota if self.made[k] == 0 and self.n_scenes[k[1]] >= 100]
+            if dead or sum(self.n_scenes.values()) > 40 * sum(self.quota.values()) + 2000:
                 short = {f"{c} ({t})": self.quota[(c, t)] - self.made[(c, t)]
                          for c, t in self.quota if self.made[(c, t)] < self.quota[(c, t)]}
                 raise InputError(f"could not reach the requested mix: still short of {short} "
@@ -211,7 +201,7 @@ class Season:
         else:
             look = capable
         lv = np.flatnonzero(live)
-        cz = coarse(_segments(allp, lv), fs, look=look[lv])
+        cz = coarse(segments(allp, lv), fs, look=look[lv])
         n_all = live.size
         peak = np.zeros(n_all)
         first = np.zeros(n_all, np.int64)
@@ -223,7 +213,7 @@ class Season:
         cands = [self._candidates(np.arange(bounds[i], bounds[i + 1]), capable, wanted, peak,
                                   first) for i in range(len(built))]
         ids1 = np.concatenate(cands) if cands else np.zeros(0, int)
-        w1 = field_windows(_segments(allp, ids1), fs, self.oversample)
+        w1 = field_windows(segments(allp, ids1), fs, self.oversample)
         exact = dict(zip(ids1.tolist(), range(ids1.size)))
         pk1, tr1 = w1.peak_abs(), w1.first_above(s["trigger_fraction"] * w1.peak_abs())
         # 2: exact triggers, records, and the other pulses inside the records
@@ -247,7 +237,7 @@ class Season:
         fresh = [np.setdiff1d(nd, ids1) for nd in needs]
         ids2 = np.concatenate(fresh) if fresh else np.zeros(0, int)
         stop2 = np.concatenate([np.full(f.size, st, np.int64) for f, st in zip(fresh, stops)])
-        w2 = field_windows(_segments(allp, ids2), fs, self.oversample, stop=stop2)
+        w2 = field_windows(segments(allp, ids2), fs, self.oversample, stop=stop2)
         exact2 = dict(zip(ids2.tolist(), range(ids2.size)))
         # 3: sferics and truth of the whole batch at once, then each scene's records
         rows = [i for i in range(len(built)) if picks[i][0].size]
@@ -257,13 +247,13 @@ class Season:
         sf_n = [t["kind"].size for t in sf_tabs]
         sf_all = {k: np.concatenate([t[k] for t in sf_tabs]) for k in PULSE_FIELDS}
         sf_stop = np.repeat([stops[i] for i in rows], sf_n).astype(np.int64)
-        wsf = field_windows(_segments(sf_all), fs, self.oversample, stop=sf_stop)
+        wsf = field_windows(segments(sf_all), fs, self.oversample, stop=sf_stop)
         scale = np.minimum(1.0, 0.7 * s["trigger_v_per_m"] / np.maximum(wsf.peak_abs(), 1e-30))
         wsf.values = wsf.values * np.repeat(scale, wsf.length)
         wsf.final = wsf.final * scale
         sf_off = np.concatenate([[0], np.cumsum(sf_n)])
         all_picks = np.concatenate([picks[i][0] for i in rows])
-        truth = _truth(_take(allp, all_picks))
+        facts = truth(take(allp, all_picks))
         t_off = np.concatenate([[0], np.cumsum([picks[i][0].size for i in rows])])
         out = []
         for r, i in enumerate(rows):
@@ -279,7 +269,7 @@ class Season:
                                  w2.subset(in2), Windows.steps(first[step], final[step]),
                                  wsf.subset(np.arange(sf_off[r], sf_off[r + 1]))])
             cand = self._compose(scene, p, pick_ids - lo, lo, pick_trig, wins, t0_ns, flash)
-            cand.update({k: v[t_off[r]:t_off[r + 1]] for k, v in truth.items()})
+            cand.update({k: v[t_off[r]:t_off[r + 1]] for k, v in facts.items()})
             cand["range_m"] = cand["horizontal_distance_m"] * (
                 1 + self.rng.normal(0, s["range_noise_fraction"], pick_ids.size))
             out.append(cand)
@@ -332,127 +322,6 @@ class Season:
                 next_ok = trig[j] + post
         keep = np.array(keep, int)
         return cand[keep], trig[keep]
-
-    def _compose(self, scene, p, gi, base, trig, wins, t0_ns, flash):
-        """Records, truth, VHF and sources of the catalogued pulses ``gi`` of a scene."""
-        s, rng, fs = self.s, self.rng, self.fs
-        rec_start = trig - self.n_pre
-        stream = Stream(wins, rec_start, self.n_rec)
-        x = stream.sum_windows(with_final=True)
-        if s["field_decay_s"] is not None:
-            x = stream.rc_highpass(x, s["field_decay_s"], fs)
-        for a, b in stream.record_spans():
-            x[a:b] += self._noise(b - a)
-        stored = digitize(x, units=s["field_units"], scale=s["field_scale_v_per_m"],
-                          full_scale=s["field_full_scale_v_per_m"], sign=s["field_sign"])
-        t_rel_ns = np.round(trig * (1e9 / fs) + s["field_delay_s"] * 1e9).astype(np.int64)
-        t_stamp = t_rel_ns / 1e9                           # time stamp on the scene clock
-        cand = {"time_ns": t0_ns + t_rel_ns, "label": np.array(KINDS)[p["kind"][gi]],
-                "ftype": self._ftype[gi + base], "accept": self._accept[gi + base],
-                "scene": np.full(gi.size, scene),
-                "flash": np.full(gi.size, flash), "field": stream.records(stored)}
-        b = self._near_records(_vhf.bursts(p, rng, s["vhf_gain"]), trig, t_stamp)
-        if s["vhf_kind"]:
-            cand["vhf"] = self._vhf(b, t_stamp)
-        cand["src"] = self._sources(b, trig, t_stamp)
-        return cand
-
-    def _near_records(self, b, trig, t_stamp):
-        """Only the bursts that can reach a field or VHF record (or its sources)."""
-        s = self.s
-        lo = [(trig - self.n_pre) / self.fs]
-        hi = [(trig - self.n_pre + self.n_rec) / self.fs]
-        if s["vhf_kind"]:
-            v0 = t_stamp - s["vhf_pretrigger_s"] - s["vhf_delay_s"]
-            lo.append(v0)
-            hi.append(v0 + s["vhf_record_s"])
-        lo, hi = np.concatenate(lo) - 10e-6, np.concatenate(hi)
-        order = np.argsort(lo)
-        lo, hi = lo[order], np.maximum.accumulate(hi[order])
-        k = np.searchsorted(lo, b["t_s"], side="right") - 1
-        keep = (k >= 0) & (b["t_s"] <= hi[np.maximum(k, 0)])
-        return {key: v[keep] for key, v in b.items()}
-
-    def _noise(self, n):
-        s = self.s
-        sig = s["field_noise_v_per_m"]
-        if n == 0 or sig == 0:
-            return np.zeros(n)
-        rho = np.exp(-1.0 / (20e-6 * self.fs))
-        slow = lfilter([np.sqrt(1 - rho * rho)], [1.0, -rho], self.rng.standard_normal(n))
-        return sig * self.rng.standard_normal(n) + 0.5 * sig * slow
-
-    def _sferic_pulses(self, rec_start):
-        """Distant return strokes arriving at random times in and before the records."""
-        s, rng, fs = self.s, self.rng, self.fs
-        lo, hi, _ = merge_spans(rec_start - self.n_rec, rec_start + self.n_rec)
-        total = float((hi - lo).sum())
-        n = rng.poisson(s["sferic_rate_hz"] * total / fs)
-        u = np.sort(rng.uniform(0, total, n))
-        cum = np.concatenate([[0], np.cumsum(hi - lo)])
-        k = np.searchsorted(cum, u, side="right") - 1
-        t_arr = (lo[k] + (u - cum[k])) / fs
-        d = np.exp(rng.uniform(np.log(3e5), np.log(2e6), n))
-        a = rng.uniform(0, 2 * np.pi, n)
-        start = np.column_stack([d * np.sin(a), d * np.cos(a), np.zeros(n)])
-        return pulses("sferic", rng, start, [0.0, 0.0, 1.0], t_arr - d / ph.C, 1.0)
-
-    def _vhf(self, b, t_stamp):
-        s, fv = self.s, self.fv
-        start = np.round((t_stamp - s["vhf_pretrigger_s"] - s["vhf_delay_s"]) * fv).astype(
-            np.int64)
-        wv = _vhf.vhf_windows(b, fv)
-        stream = Stream(wv, start, self.nv_rec)
-        sig = stream.sum_windows(with_final=False)
-        out = np.zeros(sig.size, np.float32)
-        for lo, hi in stream.record_spans():
-            out[lo:hi] = _vhf.detect(sig[lo:hi], kind=s["vhf_kind"], rate_hz=fv,
-                                     band_hz=s["vhf_band_hz"], floor=s["vhf_floor"],
-                                     full_scale=s["vhf_full_scale"], rng=self.rng)
-        return stream.records(out)
-
-    def _sources(self, b, trig, t_stamp):
-        s = self.s
-        if not s["sources"] or self.rng.random() < s["map_outage_fraction"]:
-            return [None] * trig.size
-        m = _vhf.map_sources(b, self.rng, floor=s["vhf_floor"], snr=s["map_snr"],
-                             max_range_m=s["map_max_range_m"],
-                             angle_noise_deg=s["map_angle_noise_deg"],
-                             time_noise_s=s["map_time_noise_s"])
-        lo = np.searchsorted(m["t_s"], (trig - self.n_pre) / self.fs)
-        hi = np.searchsorted(m["t_s"], (trig - self.n_pre + self.n_rec) / self.fs)
-        out = []
-        for j in range(trig.size):
-            part = {k: v[lo[j]:hi[j]] for k, v in m.items()}
-            part["t_s"] = part["t_s"] - t_stamp[j]
-            out.append(part)
-        return out
-
-
-def _truth(p):
-    """Physical truth of the pulses ``p`` (one row each)."""
-    seg = _segments(p)
-    nodes = ph.segment_nodes(seg, vertical_moment=True)
-    span = nodes["tau_s"][:, -1] + 10 * seg.tau2_s
-    grid = np.linspace(0, 1, 600)
-    row = np.repeat(np.arange(seg.n), grid.size)
-    t = (span[:, None] * grid[None, :]).ravel()
-    m = ph.evaluate(nodes, row, t).reshape(seg.n, grid.size)
-    at = np.argmax(np.abs(m), axis=1)
-    g_max, _ = ph.shape_peak(seg.tau1_s, seg.tau2_s)
-    q = (seg.tau2_s - seg.tau1_s) ** 2 / seg.tau2_s           # time integral of the shape
-    lam = seg.atten_m
-    eff = np.where(np.isfinite(lam), lam * (1 - np.exp(-seg.length_m / np.where(
-        np.isfinite(lam), lam, 1.0))), seg.length_m)
-    sign_up = np.sign(seg.polarity * seg.uz)
-    return {"source_altitude_m": seg.z0_m,
-            "horizontal_distance_m": np.hypot(seg.x0_m, seg.y0_m),
-            "azimuth_deg": np.degrees(np.arctan2(seg.x0_m, seg.y0_m)) % 360.0,
-            "current_moment_peak_a_m": m[np.arange(seg.n), at],
-            "charge_moment_change_c_m": seg.polarity * seg.current_a / g_max * q * eff * seg.uz,
-            "peak_current_a": sign_up * seg.current_a,
-            "velocity_east_m_per_s": p["ve_m_per_s"], "velocity_north_m_per_s": p["vn_m_per_s"],
-            "velocity_up_m_per_s": p["vu_m_per_s"]}
 
 
 def _concat_batch(items):
