@@ -4,13 +4,12 @@ distant sferics and the physical truth of each catalogued pulse."""
 from __future__ import annotations
 
 import numpy as np
-from scipy.signal import lfilter
 
 from . import _physics as ph
 from . import _vhf
 from ._classes import KINDS
 from ._flashes import pulses
-from ._instrument import Stream, digitize, merge_spans
+from ._instrument import Stream, Windows, digitize, merge_spans
 
 __all__ = ["Composer", "segments", "take", "truth"]
 
@@ -30,32 +29,67 @@ class Composer:
     """Record composition for :class:`~._season.Season` (needs its settings,
     ``rng``, ``fs``, ``n_rec``, ``n_pre`` and for VHF ``fv``, ``nv_rec``)."""
 
-    def _compose(self, scene, p, gi, base, trig, wins, t0_ns, flash):
-        """Records, truth, VHF and sources of the catalogued pulses ``gi`` of a scene."""
+    def _compose(self, items):
+        """Records, VHF and sources of the catalogued pulses of a batch of scenes.
+
+        ``items``: one dict per scene with ``scene, p, gi`` (catalogued rows of the
+        scene's pulse table ``p``), ``base`` (offset of ``p`` in the batch),
+        ``trig`` (trigger samples), ``wins`` (field windows), ``t0_ns``, ``flash``.
+        The scenes share one stream, each at its own offset of 2**32 samples: in
+        the gaps the RC state dies out, and for DC coupling a step after each
+        scene's last record takes its held field back to zero.
+        """
         s, rng, fs = self.s, self.rng, self.fs
-        rec_start = trig - self.n_pre
-        stream = Stream(wins, rec_start, self.n_rec)
+        big = np.int64(1) << 32
+        wins, recs, vstart, bursts, cand = [], [], [], [], []
+        for k, it in enumerate(items):
+            p, gi, trig = it["p"], it["gi"], it["trig"]
+            w = it["wins"]
+            if s["field_decay_s"] is None:
+                end = int(trig.max()) - self.n_pre + self.n_rec + 1
+                w = Windows.join([w, Windows.steps(np.array([end]), np.array([-w.final.sum()]))])
+            w.start = w.start + k * big
+            wins.append(w)
+            recs.append(trig - self.n_pre + k * big)
+            t_rel_ns = np.round(trig * (1e9 / fs) + s["field_delay_s"] * 1e9).astype(np.int64)
+            t_stamp = t_rel_ns / 1e9                       # time stamp on the scene clock
+            lo, hi = self._record_intervals(trig, t_stamp)
+            arrive = p["t0_s"] + np.sqrt(p["x0_m"] ** 2 + p["y0_m"] ** 2
+                                         + p["z0_m"] ** 2) / ph.C
+            near = _inside(arrive, lo - 200e-6, hi)       # bursts come <= 150 us after
+            b = _vhf.bursts(take(p, near), rng, s["vhf_gain"])
+            keep = _inside(b["t_s"], lo, hi)
+            b = {key: v[keep] for key, v in b.items()}
+            b["offset"] = np.full(b["t_s"].size, k * big)
+            bursts.append(b)
+            if s["vhf_kind"]:
+                vstart.append(np.round((t_stamp - s["vhf_pretrigger_s"] - s["vhf_delay_s"])
+                                       * self.fv).astype(np.int64) + k * big)
+            cand.append({"time_ns": it["t0_ns"] + t_rel_ns,
+                         "label": np.array(KINDS)[p["kind"][gi]],
+                         "ftype": self._ftype[gi + it["base"]],
+                         "accept": self._accept[gi + it["base"]],
+                         "scene": np.full(gi.size, it["scene"]),
+                         "flash": np.full(gi.size, it["flash"]),
+                         "src": self._sources(b, trig, t_stamp)})
+        out = {key: np.concatenate([c[key] for c in cand]) for key in cand[0] if key != "src"}
+        out["src"] = [x for c in cand for x in c["src"]]
+        stream = Stream(Windows.join(wins), np.concatenate(recs), self.n_rec)
         x = stream.sum_windows(with_final=True)
         if s["field_decay_s"] is not None:
             x = stream.rc_highpass(x, s["field_decay_s"], fs)
-        for a, b in stream.record_spans():
-            x[a:b] += self._noise(b - a)
+        at = _span_index(stream.record_spans())
+        x[at] += self._noise(at.size)
         stored = digitize(x, units=s["field_units"], scale=s["field_scale_v_per_m"],
                           full_scale=s["field_full_scale_v_per_m"], sign=s["field_sign"])
-        t_rel_ns = np.round(trig * (1e9 / fs) + s["field_delay_s"] * 1e9).astype(np.int64)
-        t_stamp = t_rel_ns / 1e9                           # time stamp on the scene clock
-        cand = {"time_ns": t0_ns + t_rel_ns, "label": np.array(KINDS)[p["kind"][gi]],
-                "ftype": self._ftype[gi + base], "accept": self._accept[gi + base],
-                "scene": np.full(gi.size, scene),
-                "flash": np.full(gi.size, flash), "field": stream.records(stored)}
-        b = self._near_records(_vhf.bursts(p, rng, s["vhf_gain"]), trig, t_stamp)
+        out["field"] = stream.records(stored)
         if s["vhf_kind"]:
-            cand["vhf"] = self._vhf(b, t_stamp)
-        cand["src"] = self._sources(b, trig, t_stamp)
-        return cand
+            b = {key: np.concatenate([x[key] for x in bursts]) for key in bursts[0]}
+            out["vhf"] = self._vhf(b, np.concatenate(vstart))
+        return out
 
-    def _near_records(self, b, trig, t_stamp):
-        """Only the bursts that can reach a field or VHF record (or its sources)."""
+    def _record_intervals(self, trig, t_stamp):
+        """Times (scene clock) covered by the field and VHF records, 10 us earlier on."""
         s = self.s
         lo = [(trig - self.n_pre) / self.fs]
         hi = [(trig - self.n_pre + self.n_rec) / self.fs]
@@ -65,19 +99,19 @@ class Composer:
             hi.append(v0 + s["vhf_record_s"])
         lo, hi = np.concatenate(lo) - 10e-6, np.concatenate(hi)
         order = np.argsort(lo)
-        lo, hi = lo[order], np.maximum.accumulate(hi[order])
-        k = np.searchsorted(lo, b["t_s"], side="right") - 1
-        keep = (k >= 0) & (b["t_s"] <= hi[np.maximum(k, 0)])
-        return {key: v[keep] for key, v in b.items()}
+        return lo[order], np.maximum.accumulate(hi[order])
 
     def _noise(self, n):
-        s = self.s
-        sig = s["field_noise_v_per_m"]
+        """Receiver noise, V/m: white, plus half as much slow noise (values drawn
+        every 10 us and interpolated linearly; our choice)."""
+        sig = self.s["field_noise_v_per_m"]
         if n == 0 or sig == 0:
             return np.zeros(n)
-        rho = np.exp(-1.0 / (20e-6 * self.fs))
-        slow = lfilter([np.sqrt(1 - rho * rho)], [1.0, -rho], self.rng.standard_normal(n))
-        return sig * self.rng.standard_normal(n) + 0.5 * sig * slow
+        rng = self.rng
+        step = max(1, int(round(10e-6 * self.fs)))
+        knots = rng.standard_normal(n // step + 2, dtype=np.float32)
+        slow = np.interp(np.arange(n) / step, np.arange(knots.size), knots)
+        return sig * rng.standard_normal(n, dtype=np.float32) + (0.5 * sig) * slow
 
     def _sferic_pulses(self, rec_start):
         """Distant return strokes arriving at random times in and before the records."""
@@ -85,6 +119,8 @@ class Composer:
         lo, hi, _ = merge_spans(rec_start - self.n_rec, rec_start + self.n_rec)
         total = float((hi - lo).sum())
         n = rng.poisson(s["sferic_rate_hz"] * total / fs)
+        if n == 0:
+            return None
         u = np.sort(rng.uniform(0, total, n))
         cum = np.concatenate([[0], np.cumsum(hi - lo)])
         k = np.searchsorted(cum, u, side="right") - 1
@@ -94,18 +130,23 @@ class Composer:
         start = np.column_stack([d * np.sin(a), d * np.cos(a), np.zeros(n)])
         return pulses("sferic", rng, start, [0.0, 0.0, 1.0], t_arr - d / ph.C, 1.0)
 
-    def _vhf(self, b, t_stamp):
+    def _vhf(self, b, start):
+        """VHF records starting at the (offset) VHF samples ``start``."""
         s, fv = self.s, self.fv
-        start = np.round((t_stamp - s["vhf_pretrigger_s"] - s["vhf_delay_s"]) * fv).astype(
-            np.int64)
         wv = _vhf.vhf_windows(b, fv)
+        wv.start = wv.start + b["offset"]
         stream = Stream(wv, start, self.nv_rec)
         sig = stream.sum_windows(with_final=False)
         out = np.zeros(sig.size, np.float32)
-        for lo, hi in stream.record_spans():
-            out[lo:hi] = _vhf.detect(sig[lo:hi], kind=s["vhf_kind"], rate_hz=fv,
-                                     band_hz=s["vhf_band_hz"], floor=s["vhf_floor"],
-                                     full_scale=s["vhf_full_scale"], rng=self.rng)
+        kw = dict(kind=s["vhf_kind"], rate_hz=fv, band_hz=s["vhf_band_hz"],
+                  floor=s["vhf_floor"], full_scale=s["vhf_full_scale"], rng=self.rng)
+        spans = stream.record_spans()
+        if s["vhf_kind"] == "power":                      # sample by sample: all at once
+            at = _span_index(spans)
+            out[at] = _vhf.detect(sig[at], **kw)
+        else:                                             # band-limited: span by span
+            for lo, hi in spans:
+                out[lo:hi] = _vhf.detect(sig[lo:hi], **kw)
         return stream.records(out)
 
     def _sources(self, b, trig, t_stamp):
@@ -150,3 +191,16 @@ def truth(p):
             "peak_current_a": sign_up * seg.current_a,
             "velocity_east_m_per_s": p["ve_m_per_s"], "velocity_north_m_per_s": p["vn_m_per_s"],
             "velocity_up_m_per_s": p["vu_m_per_s"]}
+
+
+def _inside(t, lo, hi):
+    """Whether each time lies in one of the intervals (``lo`` sorted, ``hi`` running max)."""
+    k = np.searchsorted(lo, t, side="right") - 1
+    return (k >= 0) & (t <= hi[np.maximum(k, 0)])
+
+
+def _span_index(spans):
+    """Buffer positions of all the ``(lo, hi)`` spans, concatenated."""
+    lo = np.array([a for a, _ in spans], np.int64)
+    n = np.array([b - a for a, b in spans], np.int64)
+    return np.repeat(lo - (np.cumsum(n) - n), n) + np.arange(int(n.sum()))

@@ -192,7 +192,7 @@ def field_windows(seg: ph.Segments, rate_hz: float, oversample: int, stop=None) 
 def coarse(seg: ph.Segments, rate_hz: float, look=None, n_points: int = 40):
     """A cheap look at each pulse: window extent, static value, estimated peak |E|.
 
-    The field is computed with at most 16 elements; for the pulses ``look``
+    The field is computed with at most 8 elements; for the pulses ``look``
     (boolean, default all) it is also evaluated at ``n_points`` times spaced
     geometrically from a tenth of the rise constant to the window's end, for an
     estimated peak (a screen; exact waveforms come from :func:`field_windows`).
@@ -208,7 +208,7 @@ def coarse(seg: ph.Segments, rate_hz: float, look=None, n_points: int = 40):
         z = np.zeros(0)
         return {"peak": z, "first": z.astype(np.int64), "last": z.astype(np.int64),
                 "final": z}
-    nodes = ph.segment_nodes(seg, kmax=16)
+    nodes = ph.segment_nodes(seg, kmax=8)
     first, last = extent(nodes, rate_hz)
     peak = np.zeros(n)
     rows = np.arange(n) if look is None else np.flatnonzero(look)

@@ -244,8 +244,10 @@ class Season(Composer):
         if not rows:
             return None
         sf_tabs = [self._sferic_pulses(picks[i][1] - self.n_pre) for i in rows]
-        sf_n = [t["kind"].size for t in sf_tabs]
-        sf_all = {k: np.concatenate([t[k] for t in sf_tabs]) for k in PULSE_FIELDS}
+        sf_n = [0 if t is None else t["kind"].size for t in sf_tabs]
+        sf_tabs = [t for t in sf_tabs if t is not None]
+        sf_all = {k: np.concatenate([t[k] for t in sf_tabs] + [np.zeros(0)])
+                  for k in PULSE_FIELDS}
         sf_stop = np.repeat([stops[i] for i in rows], sf_n).astype(np.int64)
         wsf = field_windows(segments(sf_all), fs, self.oversample, stop=sf_stop)
         scale = np.minimum(1.0, 0.7 * s["trigger_v_per_m"] / np.maximum(wsf.peak_abs(), 1e-30))
@@ -254,8 +256,7 @@ class Season(Composer):
         sf_off = np.concatenate([[0], np.cumsum(sf_n)])
         all_picks = np.concatenate([picks[i][0] for i in rows])
         facts = truth(take(allp, all_picks))
-        t_off = np.concatenate([[0], np.cumsum([picks[i][0].size for i in rows])])
-        out = []
+        items = []
         for r, i in enumerate(rows):
             scene, p, t0_ns, flash = built[i]
             pick_ids, pick_trig = picks[i]
@@ -268,12 +269,22 @@ class Season(Composer):
             wins = Windows.join([w1.subset(in1).truncate(np.full(in1.size, stops[i])),
                                  w2.subset(in2), Windows.steps(first[step], final[step]),
                                  wsf.subset(np.arange(sf_off[r], sf_off[r + 1]))])
-            cand = self._compose(scene, p, pick_ids - lo, lo, pick_trig, wins, t0_ns, flash)
-            cand.update({k: v[t_off[r]:t_off[r + 1]] for k, v in facts.items()})
-            cand["range_m"] = cand["horizontal_distance_m"] * (
-                1 + self.rng.normal(0, s["range_noise_fraction"], pick_ids.size))
-            out.append(cand)
-        return _concat_batch(out)
+            items.append({"scene": scene, "p": p, "gi": pick_ids - lo, "base": lo,
+                          "trig": pick_trig, "wins": wins, "t0_ns": t0_ns, "flash": flash})
+        out, size, group = [], 0, []
+        for it in items:                       # bound the shared stream to ~4e6 samples
+            group.append(it)
+            size += int(it["wins"].length.sum()) + it["trig"].size * self.n_rec
+            if size > 4_000_000:
+                out.append(self._compose(group))
+                group, size = [], 0
+        if group:
+            out.append(self._compose(group))
+        out = _concat_batch(out)
+        out.update(facts)
+        out["range_m"] = out["horizontal_distance_m"] * (
+            1 + self.rng.normal(0, s["range_noise_fraction"], all_picks.size))
+        return out
 
     def _candidates(self, idx, capable, wanted, peak, first):
         """Pulses of one scene to look at exactly (global indices)."""

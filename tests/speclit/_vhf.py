@@ -8,9 +8,9 @@ velocity (the leader's for leader pulses, the wave's otherwise), at most
 units; ``P`` the emitted power in W) and decays as ``exp(-t / burst_tau_s)``.
 
 Receiver, ``power`` kind: the detected power of a band-limited signal is
-``(signal + noise floor)`` times speckle, a Gamma variate of two degrees of
-freedom per sample (mean 1; our choice for a detector averaging ~2 independent
-looks). ``voltage`` kind: white Gaussian noise with variance
+``(signal + noise floor)`` times speckle, the mean of two unit exponential
+variates per sample (a Gamma variate of shape 2, mean 1; our choice for a
+detector averaging ~2 independent looks). ``voltage`` kind: white Gaussian noise with variance
 ``(signal + floor) / 2`` filtered to the band, so that the squared magnitude of
 its analytic signal has mean ``signal + floor`` (as the catalog spec defines
 power). Both clip at ``full_scale``.
@@ -75,7 +75,9 @@ def detect(signal, *, kind, rate_hz, band_hz, floor, full_scale, rng):
     """Receiver output for a contiguous stretch of received signal power."""
     total = signal + floor
     if kind == "power":
-        out = total * rng.gamma(2.0, 0.5, signal.size)
+        n = signal.size
+        out = total * (0.5 * (rng.standard_exponential(n, dtype=np.float32)
+                              + rng.standard_exponential(n, dtype=np.float32)))
     else:
         n = signal.size
         w = rng.standard_normal(n) * np.sqrt(total / 2.0)

@@ -179,19 +179,24 @@ def _assemble(s, profile, seed, meta, sources, files, keep, cat):
 
 
 def _copy_rows(files, name, keep, target):
+    """Write the rows ``keep`` of the batch files ``<name>-*.npy`` to one .npy file."""
     parts = [f for f in files if f.name.startswith(name + "-")]
-    arrays = [np.load(f, mmap_mode="r") for f in parts]
-    first = arrays[0]
-    out = np.lib.format.open_memmap(target, mode="w+", dtype=first.dtype,
-                                    shape=(keep.size, first.shape[1]))
-    base = pos = 0
-    for a in arrays:
-        sel = keep[(keep >= base) & (keep < base + a.shape[0])] - base
-        out[pos:pos + sel.size] = a[sel]
-        pos += sel.size
-        base += a.shape[0]
-    out.flush()
-    del out
+    shapes, dtype = [], None
+    for f in parts:
+        a = np.load(f, mmap_mode="r")
+        shapes.append(a.shape)
+        dtype = a.dtype
+        del a
+    header = {"descr": np.lib.format.dtype_to_descr(dtype), "fortran_order": False,
+              "shape": (int(keep.size), int(shapes[0][1]))}
+    base = 0
+    with open(target, "wb") as fh:
+        np.lib.format.write_array_header_1_0(fh, header)
+        for f, shape in zip(parts, shapes):
+            sel = keep[(keep >= base) & (keep < base + shape[0])] - base
+            if sel.size:
+                fh.write(np.ascontiguousarray(np.load(f)[sel]).tobytes())
+            base += shape[0]
 
 
 def _write_sources(s, parts, ids, path):
@@ -205,15 +210,13 @@ def _write_sources(s, parts, ids, path):
         return
     cat = {k: np.concatenate([p[k] for _, p in rows]) for k in rows[0][1]}
     owner = np.repeat([i for i, _ in rows], [p["t_s"].size for _, p in rows])
-    az = np.round(cat["azimuth_deg"], 4) % 360.0
-    df = pd.DataFrame({"event_id": ids[owner],
-                       "t_s": np.char.mod("%.6e", cat["t_s"]),
-                       "azimuth_deg": np.char.mod("%.4f", az),
-                       "elevation_deg": np.char.mod("%.4f", cat["elevation_deg"])})
+    df = pd.DataFrame({"event_id": ids[owner], "t_s": np.round(cat["t_s"], 9),
+                       "azimuth_deg": np.round(cat["azimuth_deg"], 4) % 360.0,
+                       "elevation_deg": np.round(cat["elevation_deg"], 4)})
     if s["sources_xyz"]:
         for k in ("x_m", "y_m", "z_m"):
-            df[k] = np.char.mod("%.1f", cat[k])
-    df["power_db"] = np.char.mod("%.2f", cat["power_db"])
+            df[k] = np.round(cat[k], 1)
+    df["power_db"] = np.round(cat["power_db"], 2)
     df.to_csv(path, index=False, lineterminator="\n")
 
 
