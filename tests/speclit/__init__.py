@@ -34,6 +34,13 @@ sub-pulses, recoil leaders in quick succession, pulses on the decaying tails
 of earlier ones, distant sferics at random times (below the trigger level).
 The label of an event is the class of the pulse at its trigger.
 
+Times: ``time_utc`` is the trigger as the field digitizer stamps it (physical
+arrival plus ``field.delay_s``); VHF rows start ``vhf.pretrigger_s`` before it
+on the VHF channel's own clock (so they carry that channel's delay); a mapped
+source's ``t_s`` is its physical arrival at the station minus ``time_utc``.
+``range_m`` is the ground distance of the triggering pulse's start with 2 %
+error.
+
 Profiles (``PROFILES``; every key can be overridden by keyword)
 ---------------------------------------------------------------
 ========  ========  ======  ===========  ======  =========  =====  ========  =======  ======
@@ -61,7 +68,7 @@ leader steps, 30 % recoil, 15 % EIP). Practice ``every`` keeps at most
 ``max_per_flash`` (8) events of one class per flash, chosen at random.
 
 Main physical ranges (sources beside each in ``_classes``, from memory):
-NBE 20-120 kA, half-cycle ~2-8 us, 200-1000 m at 3e7-1.2e8 m/s, 7-20 km;
+NBE 25-150 kA, half-cycle ~2-8 us, 200-1000 m at 3e7-1.2e8 m/s, 7-20 km;
 EIP 100-400 kA, 10-30 us transit on upward negative leaders at 8-13 km;
 leader steps 1-8 kA, ~1 us, 10-50 us apart near the end of a 10-40 ms
 descent at 1e5-1e6 m/s; recoil leaders 1e6-2e7 m/s, 2-20 kA pulses a few us

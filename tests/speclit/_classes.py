@@ -84,7 +84,7 @@ def draw(kind: str, rng, n: int, *, first=None) -> dict:
         # initial half-cycle ~2-8 us, total 10-30 us, TL currents tens of kA,
         # fast breakdown 1e7-1e8 m/s over a few hundred metres; range-normalised
         # peaks ~10 V/m at 100 km.
-        w = _wave(rng, n, current_a=lambda k: logu(rng, 20e3, 120e3, k),
+        w = _wave(rng, n, current_a=lambda k: logu(rng, 25e3, 150e3, k),
                   tau1_s=lambda k: u(0.3, 1.0, k) * US, tau2_s=lambda k: u(1.0, 3.0, k) * US,
                   length_m=lambda k: logu(rng, 200.0, 1000.0, k),
                   speed_m_per_s=lambda k: logu(rng, 3e7, 1.2e8, k),
@@ -110,9 +110,8 @@ def draw(kind: str, rng, n: int, *, first=None) -> dict:
         w = _wave(rng, n, current_a=lambda k: logu(rng, 1e3, 8e3, k),
                   tau1_s=lambda k: u(0.05, 0.2, k) * US, tau2_s=lambda k: u(0.2, 0.8, k) * US,
                   speed_m_per_s=lambda k: u(0.5e8, 1.5e8, k),
-                  length_m=None, atten_m=lambda k: u(50.0, 300.0, k),
-                  transit_s=lambda k: np.zeros(k))
-        w["length_m"] = 3.0 * w["atten_m"]
+                  length_m=lambda k: np.zeros(k), atten_m=lambda k: u(50.0, 300.0, k))
+        w["length_m"] = 3.0 * w["atten_m"]               # the wave dies out (our choice)
         w.update(vhf_dbw=u(0.0, 20.0, n), n_bursts=rng.integers(1, 3, n),
                  burst_tau_s=u(0.1, 0.3, n) * US, vhf_span_s=u(0.1, 0.6, n) * US)
     elif kind == "recoil":

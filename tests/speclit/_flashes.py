@@ -96,11 +96,11 @@ def pulses(kind, rng, start, direction, t0, polarity, *, lead_v=None, **override
     return out
 
 
-def _recoils(rng, start, origin, t0, extra=0.0):
+def _recoils(rng, start, origin, t0):
     """Recoil leaders from ``start`` back toward ``origin`` along an old channel."""
     dirs = _unit(origin[None, :] - start)
     rec = pulses("recoil", rng, start, dirs, t0, -1.0)
-    path = np.linalg.norm(origin[None, :] - start, axis=1) + extra
+    path = np.linalg.norm(origin[None, :] - start, axis=1)
     speed = rec.pop("lead_speed")
     v = dirs * speed[:, None]
     rec["ve_m_per_s"], rec["vn_m_per_s"], rec["vu_m_per_s"] = v[:, 0], v[:, 1], v[:, 2]

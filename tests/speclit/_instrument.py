@@ -189,7 +189,7 @@ def field_windows(seg: ph.Segments, rate_hz: float, oversample: int, stop=None) 
     return w.subset(inv)
 
 
-def coarse(seg: ph.Segments, rate_hz: float, look=None, n_points: int = 40):
+def coarse(seg: ph.Segments, rate_hz: float, look=None, n_points: int = 32):
     """A cheap look at each pulse: window extent, static value, estimated peak |E|.
 
     The field is computed with at most 8 elements; for the pulses ``look``

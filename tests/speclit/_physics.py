@@ -50,7 +50,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import constants
 
-__all__ = ["EPS0", "C", "shape", "shape_peak", "Segments", "segment_nodes", "evaluate",
+__all__ = ["EPS0", "C", "shape", "shape_peak", "Segments", "node_weights", "segment_nodes",
+           "evaluate",
            "final_value", "geometry", "dipole_ez"]
 
 EPS0 = constants.epsilon_0          # F/m, CODATA via scipy
@@ -214,9 +215,9 @@ def dipole_ez(x, y, z, ux, uy, uz, p, m, dm):
 TERMS = ("static", "induction", "radiation")
 
 
-def segment_nodes(seg: Segments, *, retarded=True, vertical_moment=False, kmax=64,
-                  terms=TERMS):
-    """Node arrival times and the piecewise coefficients of the field.
+def node_weights(seg: Segments, *, retarded=True, vertical_moment=False, kmax=64,
+                 terms=TERMS):
+    """Node arrival times and the weights of ``J1``, ``J0`` and ``g`` at each node.
 
     Parameters
     ----------
@@ -233,9 +234,9 @@ def segment_nodes(seg: Segments, *, retarded=True, vertical_moment=False, kmax=6
     Returns
     -------
     dict
-        ``tau0_s`` (n,) absolute arrival of node 0; ``tau_s`` (n, K+1) node times
-        relative to it; ``coef`` (n, K+1, 5) piecewise coefficients; ``final``
-        (n,) the value after the pulse (V/m, or A m); ``tau1_s``, ``tau2_s``.
+        ``tau0_s`` (n,) absolute arrival of node 0 (s); ``tau_s`` (n, K+1) node
+        times relative to it (s); ``a``, ``b``, ``d`` (n, K+1) the node weights of
+        the charge-moment, current-moment and derivative shapes.
     """
     n = seg.n
     k_el = n_elements(seg, kmin=min(8, kmax), kmax=kmax)
@@ -277,8 +278,22 @@ def segment_nodes(seg: Segments, *, retarded=True, vertical_moment=False, kmax=6
         e = cel * gg
         node[name] = np.concatenate([e, np.zeros((n, 1))], 1) - np.concatenate(
             [np.zeros((n, 1)), e], 1)
-    coef, final = _piecewise(tau, node["a"], node["b"], node["d"], seg.tau1_s, seg.tau2_s)
-    return {"tau0_s": tau0, "tau_s": tau, "coef": coef, "final": final,
+    return {"tau0_s": tau0, "tau_s": tau, "a": node["a"], "b": node["b"], "d": node["d"]}
+
+
+def segment_nodes(seg: Segments, **kw):
+    """Node times and piecewise coefficients of the field (see :func:`node_weights`).
+
+    Returns
+    -------
+    dict
+        ``tau0_s`` and ``tau_s`` as :func:`node_weights`; ``coef`` (n, K+1, 5)
+        piecewise coefficients; ``final`` (n,) the value after the pulse (V/m,
+        or A m); ``tau1_s``, ``tau2_s``.
+    """
+    w = node_weights(seg, **kw)
+    coef, final = _piecewise(w["tau_s"], w["a"], w["b"], w["d"], seg.tau1_s, seg.tau2_s)
+    return {"tau0_s": w["tau0_s"], "tau_s": w["tau_s"], "coef": coef, "final": final,
             "tau1_s": seg.tau1_s, "tau2_s": seg.tau2_s}
 
 

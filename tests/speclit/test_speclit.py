@@ -163,49 +163,38 @@ def test_shape_peak_table_matches_bisection():
     assert_allclose(ta, tb, rtol=1e-5)
 
 
-def test_piecewise_sum_equals_direct_element_sum():
+@pytest.mark.parametrize("length, speed, atten, tau1, tau2", [
+    (900.0, 8e7, 400.0, 0.4 * US, 2 * US),        # cumulative sums
+    (3000.0, 1e7, 1000.0, 0.2 * US, 1 * US)])     # transit/tau1 > 600: node-by-node path
+def test_piecewise_sum_equals_direct_element_sum(length, speed, atten, tau1, tau2):
     """Self-consistency: the collapsed coefficients reproduce the element-by-element sum."""
-    seg = _segment(x0_m=7e3, y0_m=2e3, z0_m=6e3, ux=0.48, uy=0.0, uz=-0.8772, length_m=900,
-                   atten_m=400.0, speed_m_per_s=8e7, tau1_s=0.4 * US, tau2_s=2 * US)
+    u = np.array([0.48, 0.0, -0.8772])
+    seg = _segment(x0_m=7e3, y0_m=2e3, z0_m=6e3, ux=u[0], uy=u[1], uz=u[2], length_m=length,
+                   atten_m=atten, speed_m_per_s=speed, tau1_s=tau1, tau2_s=tau2)
     nodes = ph.segment_nodes(seg)
     k = ph.n_elements(seg)[0]
-    s = np.linspace(0, 900, k + 1)
-    px, py, pz = 7e3 + 0.48 * s, 2e3 + 0 * s, 6e3 - 0.8772 * s
-    tau = s / 8e7 + np.sqrt(px ** 2 + py ** 2 + pz ** 2) / C
+    s = np.linspace(0, length, k + 1)
+    px, py, pz = 7e3 + u[0] * s, 2e3 + u[1] * s, 6e3 + u[2] * s
+    tau = s / speed + np.sqrt(px ** 2 + py ** 2 + pz ** 2) / C
     tau -= tau[0]
     gs, gi, gr = ph.geometry((px[1:] + px[:-1]) / 2, (py[1:] + py[:-1]) / 2,
-                             (pz[1:] + pz[:-1]) / 2, 0.48, 0.0, -0.8772)
-    w = 400.0 / np.diff(s) * (np.exp(-s[:-1] / 400.0) - np.exp(-s[1:] / 400.0))
+                             (pz[1:] + pz[:-1]) / 2, *u)
+    w = atten / np.diff(s) * (np.exp(-s[:-1] / atten) - np.exp(-s[1:] / atten))
     g_max, _ = ph.shape_peak(seg.tau1_s, seg.tau2_s)
     coef = 3e4 / g_max[0] * w * np.diff(s) / np.diff(tau)
-    t = np.linspace(-1 * US, 60 * US, 777)
+    t = np.linspace(-1 * US, tau[-1] + 20 * tau2, 777)
     direct = np.zeros_like(t)
     for i in range(k):
-        a = ph.shape(t - tau[i], 0.4 * US, 2 * US)
-        b = ph.shape(t - tau[i + 1], 0.4 * US, 2 * US)
+        a = ph.shape(t - tau[i], tau1, tau2)
+        b = ph.shape(t - tau[i + 1], tau1, tau2)
         direct += coef[i] * (gs[i] * (a[2] - b[2]) + gi[i] * (a[1] - b[1])
                              + gr[i] * (a[0] - b[0]))
     got = ph.evaluate(nodes, np.zeros(t.size, int), t)
-    assert_allclose(got, direct, rtol=1e-9, atol=1e-12 * np.abs(direct).max())
-    loop, _ = ph._piecewise_loop(*_node_inputs(seg))
+    assert_allclose(got, direct, rtol=1e-9, atol=1e-11 * np.abs(direct).max())
+    nw = ph.node_weights(seg)
+    loop, _ = ph._piecewise_loop(nw["tau_s"], nw["a"], nw["b"], nw["d"], seg.tau1_s,
+                                 seg.tau2_s)
     assert_allclose(nodes["coef"], loop, rtol=1e-9, atol=1e-12 * np.abs(loop).max())
-
-
-def _node_inputs(seg):
-    """Re-derive (tau, a, b, d, tau1, tau2) as segment_nodes builds them."""
-    captured = {}
-    original = ph._piecewise
-
-    def spy(*args):
-        captured["args"] = args
-        return original(*args)
-
-    ph._piecewise = spy
-    try:
-        ph.segment_nodes(seg)
-    finally:
-        ph._piecewise = original
-    return captured["args"]
 
 
 def test_rc_decay_is_exponential_across_gaps():
