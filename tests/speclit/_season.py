@@ -3,8 +3,9 @@
 Cataloguing practices:
 
 - ``every``: every pulse whose own field peak at the station reaches the trigger
-  level is catalogued (its trigger sample is the first at ``trigger_fraction``
-  of that peak); its neighbours are inside its record.
+  level is a candidate (its trigger sample is the first at ``trigger_fraction``
+  of that peak; its neighbours are inside its record); at most
+  ``max_per_flash`` of one class per flash are kept, at random.
 - ``records``: the digitizer takes ONE record per trigger and is then dead for
   the rest of the record plus ``dead_time_s``: later pulses are inside the record
   or lost. The event's label is the class of the pulse that triggered.
@@ -15,9 +16,15 @@ time, but their records are not catalogued.
 
 The requested mix is met exactly: each class's quota is split between the
 flash types that make it (table ``SHARES``, our choice), scenes are drawn for
-the stratum furthest behind its quota, and the surplus of each stratum is left
-out of the catalog at random at the end (those pulses stay in the records as
-uncatalogued neighbours, as an analyst's selection would leave them).
+the stratum furthest behind its quota, strata running ahead keep their new
+candidates with a probability (``Season._acceptance``) that spreads them over
+the whole season, and the surplus of each stratum is left out of the catalog
+at random at the end. Left-out pulses stay in the records as uncatalogued
+neighbours, as an analyst's selection would leave them.
+
+Cost: every pulse gets a cheap look (8 elements, 32 times) for its window and
+static field; exact waveforms are computed only for candidates and for the
+pulses inside their records; earlier pulses enter as held static steps.
 """
 
 from __future__ import annotations
