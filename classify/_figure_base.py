@@ -27,14 +27,14 @@ def _mpl():
     try:
         from matplotlib.figure import Figure
     except ImportError as exc:
-        raise ValueError("figures need the optional extra: pip install 'pulsesort[figures]'"
+        raise InputError("figures need the optional extra: pip install 'pulsesort[figures]'"
                          ) from exc
     return Figure
 
 
 def check_size(size: str) -> float:
     if size not in SIZES:
-        raise ValueError(f"size must be one of {sorted(SIZES)}, got {size!r}")
+        raise InputError(f"size must be one of {sorted(SIZES)}, got {size!r}")
     return SIZES[size]
 
 
@@ -65,7 +65,7 @@ def check_figure_path(path) -> str:
         raise InputError(f"{path}: unknown figure format {path.suffix or '(none)'!r}; use "
                          + ", ".join(f".{f}" for f in FORMATS))
     if not path.parent.is_dir():
-        raise FileNotFoundError(f"{path.parent}: no such folder for the figure")
+        raise InputError(f"{path.parent}: no such folder for the figure")
     return fmt
 
 

@@ -33,7 +33,7 @@ EXIT_BAD_INPUT = 2
 #: input; their owners convert them to ``InputError``. When False, only
 #: ``InputError`` (and argparse usage errors) exit 2, and a ``ValueError`` from
 #: NumPy or an ``OSError`` from a bug exits 1 as the bug it is.
-LEGACY_VALUEERROR_IS_INPUT = True
+LEGACY_VALUEERROR_IS_INPUT = False
 #: What the switch keeps mapping to exit 2 (the CLI's old list).
 LEGACY_INPUT_ERRORS = (ValueError, FileNotFoundError, NotADirectoryError, IsADirectoryError,
                        PermissionError, FileExistsError, sqlite3.DatabaseError)

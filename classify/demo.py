@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from features import open_catalog
+from features import InputError, open_catalog
 
 from .cards import write_data_card
 from .labels import LabelStore
@@ -58,7 +58,7 @@ def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo
 
     folder = Path(folder)
     if folder.exists() and any(folder.iterdir()):
-        raise FileExistsError(f"{folder}: not empty; the demo runs in a fresh folder "
+        raise InputError(f"{folder}: not empty; the demo runs in a fresh folder "
                               "(remove it or give another --dir)")
     folder.mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()

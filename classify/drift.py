@@ -354,7 +354,7 @@ def feature_drift(feat_a: pd.DataFrame, feat_b: pd.DataFrame, *, changes=(),
     names = [f.name for f in schema.FEATURES if f.group != "id" and f.unit != "-"
              and f.name in feat_a.columns and f.name in feat_b.columns]
     if not names:
-        raise ValueError("the feature tables share no schema feature column")
+        raise InputError("the feature tables share no schema feature column")
     rows = []
     for name in names:
         a, b = _numeric(feat_a[name]), _numeric(feat_b[name])

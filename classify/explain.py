@@ -67,7 +67,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from features import schema
+from features import InputError, schema
 
 from ._tree_paths import apply_tables, score_tables, tree_score_contributions
 
@@ -132,7 +132,7 @@ def _pairs(proba, classes, against):
         return k, runner
     names = [str(c) for c in classes]
     if against not in names:
-        raise ValueError(f"against must be 'runner_up' or one of the model's classes "
+        raise InputError(f"against must be 'runner_up' or one of the model's classes "
                          f"{names}, got {against!r}")
     j = np.full(len(k), names.index(against))
     return k, np.where(j == k, runner, j)

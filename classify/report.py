@@ -25,10 +25,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from features import InputError
 from features.atomic import atomic_write
 
 from . import svgplot
-from .review._queue import probability_columns
+from ._feature_values import MAIN_FEATURES, feature_values, result_classes
 
 logger = logging.getLogger("pulsesort")
 
@@ -40,12 +41,6 @@ REASONS = ("low_confidence", "ambiguous_set", "empty_set", "novel", "clipped", "
            "field_unusable")
 MAX_HOUR_ROWS = 200
 _REQUIRED = ("event_id", "label", "confidence", "needs_review", "time_utc")
-
-
-def result_classes(results: pd.DataFrame) -> list[str]:
-    """The model's classes (``p_`` columns), then any other label seen."""
-    classes = [c[2:] for c in probability_columns(results)]
-    return classes + sorted(set(results["label"].astype(str)) - set(classes))
 
 
 def hourly_counts(results: pd.DataFrame) -> pd.DataFrame:
@@ -98,7 +93,7 @@ def distribution_samples(results: pd.DataFrame, name: str, absolute: bool = Fals
                          classes=None):
     """One feature's values per predicted class, as the report's histograms show them.
 
-    Values are in display units (:func:`classify.figures.feature_values`);
+    Values are in display units (:func:`classify._feature_values.feature_values`);
     where they span decades the histogram is of their base-10 logarithm.
 
     Returns
@@ -110,7 +105,6 @@ def distribution_samples(results: pd.DataFrame, name: str, absolute: bool = Fals
         With the unit in parentheses, e.g. ``"width (µs)"`` or
         ``"log10 of width (µs)"``.
     """
-    from .figures import feature_values
 
     classes = result_classes(results) if classes is None else classes
     v, label, log = feature_values(results, name, absolute)
@@ -121,7 +115,6 @@ def distribution_samples(results: pd.DataFrame, name: str, absolute: bool = Fals
 
 
 def _distributions(results, classes) -> str:
-    from .figures import MAIN_FEATURES
 
     figs = []
     for name, absolute in MAIN_FEATURES:
@@ -190,7 +183,7 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
     """
     missing = [c for c in _REQUIRED if c not in results.columns]
     if missing:
-        raise ValueError(f"the results table lacks column(s) {missing}; is it a "
+        raise InputError(f"the results table lacks column(s) {missing}; is it a "
                          "'pulsesort triage' output?")
     n = len(results)
     needs = results["needs_review"].astype(bool)
@@ -200,7 +193,7 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
     versions = sorted(set(results.get("model_version", pd.Series([], dtype=str)).dropna()
                           .astype(str)))
     if catalog is not None and cids and cids != [catalog.catalog_id]:
-        raise ValueError(f"the results are of catalog(s) {', '.join(cids)}, not of "
+        raise InputError(f"the results are of catalog(s) {', '.join(cids)}, not of "
                          f"{catalog.catalog_id} at {catalog.path}")
     title = title or f"Triage of {', '.join(cids) or 'a catalog'}"
     t = pd.to_datetime(results["time_utc"], utc=True)
@@ -320,7 +313,7 @@ def write_report(results_path, out, *, catalog=None, title=None) -> Path:
 
     out = Path(out)
     if not out.parent.is_dir():
-        raise FileNotFoundError(f"{out.parent}: no such folder for the report")
+        raise InputError(f"{out.parent}: no such folder for the report")
     results = read_results(results_path)
     if catalog is not None and not hasattr(catalog, "catalog_id"):
         catalog = open_catalog(catalog)

@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from features import schema
+from features import InputError, schema
 from features.catalog import return_freed_memory
 from features.csvio import csv_text
 from features.extract import DEFAULT_CHUNK_SIZE, compute_chunk, plan_chunks, run_jobs
@@ -300,13 +300,13 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     partial = out.with_name(out.name + ".partial")
     journal = out.with_name(out.name + ".partial.json")
     if not 0 <= review_below <= 1:
-        raise ValueError(f"review_below must be in [0, 1], got {review_below}")
+        raise InputError(f"review_below must be in [0, 1], got {review_below}")
     t0 = time.perf_counter()
     plan = plan_chunks(cat, chunk_size)
     adapted = {"priors": None, "thresholds": None, "n_sample": 0}
     if model_dir is None:
         if adapt_priors:
-            raise ValueError("--adapt-priors needs a model (--model), not --rules")
+            raise InputError("--adapt-priors needs a model (--model), not --rules")
     else:
         adapted = season_adaptation(cat, model_dir, adapt_priors=adapt_priors,
                                     adapt_sets=adapt_sets, n_jobs=n_jobs,
@@ -322,7 +322,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     if resume and journal.is_file() and partial.is_file():
         state = json.loads(journal.read_text())
         if state.get("key") != key:
-            raise ValueError(f"{journal}: the interrupted run used another catalog, model or "
+            raise InputError(f"{journal}: the interrupted run used another catalog, model or "
                              "settings; run without --resume to start again")
         done, offset = int(state["chunks_done"]), int(state["bytes"])
         totals = state["totals"]
@@ -382,21 +382,21 @@ def read_results(path) -> pd.DataFrame:
     if not path.is_file():
         partial = path.with_name(path.name + ".partial")
         hint = " (an unfinished run exists: rerun triage with --resume)" if partial.exists() else ""
-        raise FileNotFoundError(f"{path}: no such results file{hint}")
+        raise InputError(f"{path}: no such results file{hint}")
     df = pd.read_csv(path, dtype={"event_id": str, "catalog_id": str, "flash_id": str,
                                   "label": str, "prediction_set": str, "review_reason": str,
                                   "model_version": str},
                      keep_default_na=False, na_values=[""])
     missing = [c for c in RESULT_COLUMNS if c not in df.columns]
     if missing:
-        raise ValueError(f"{path}: not a pulsesort triage results file (missing columns "
+        raise InputError(f"{path}: not a pulsesort triage results file (missing columns "
                          f"{missing})")
     for c in BOOL_COLUMNS:
         if c in df.columns and df[c].dtype != bool:   # pandas reads true/false itself
             df[c] = df[c].astype(str)
             bad = ~df[c].isin(["true", "false"])
             if bad.any():
-                raise ValueError(f"{path}: column {c!r} must be true/false; line "
+                raise InputError(f"{path}: column {c!r} must be true/false; line "
                                  f"{int(np.flatnonzero(bad.to_numpy())[0]) + 2} has "
                                  f"{df[c][bad].iloc[0]!r}")
             df[c] = df[c].eq("true")

@@ -29,8 +29,9 @@ SOURCE_XYZ = ("x_m", "y_m", "z_m")
 #: (inclusive; generous on purpose, like the manifest's ranges).
 TABLE_PLAUSIBLE = {
     "range_m": Plausible(
-        0.0, 2e6, "m", "a single station records discharge pulses out to a few hundred "
-        "km; 2,000 km is beyond any of them; common practice, no source"),
+        1.0, 2e6, "m", "a single station records discharge pulses out to a few hundred "
+        "km; 2,000 km is beyond any of them, and a source closer than a metre is inside "
+        "the antenna; common practice, no source"),
     "t_s": Plausible(
         -10.0, 10.0, "s", "a source belongs to a pulse of a flash, and a flash lasts at most "
         "a few seconds; common practice, no source"),

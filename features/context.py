@@ -31,6 +31,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ._checks import InputError
+
 __all__ = ["REUSE_CELL_M", "REUSE_CELL_DEG", "REUSE_MIN_AGE_S", "flash_context"]
 
 #: Grid cell of the channel-reuse test with 3-D positions, metres.
@@ -126,7 +128,7 @@ def _channel_reuse(flash_code, time_ns, sources):
     if sources is None or sources.n_sources == 0:
         return out
     if flash_code.max(initial=0) >= 1 << 23:
-        raise ValueError("channel reuse supports up to 8 million flashes per catalog")
+        raise InputError("channel reuse supports up to 8 million flashes per catalog")
     counts = sources.counts()
     n_src = counts.astype(np.float64)
     n_reused = np.zeros(n)

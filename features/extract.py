@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from . import schema
+from ._checks import InputError
 from ._tables import SourceTable
 from .augment import StationVariant, apply_field, apply_vhf, draw_variant
 from .catalog import Catalog, Channel, return_freed_memory
@@ -275,7 +276,7 @@ def _run_dask(func, jobs, address, extra_args=()):
     try:
         from distributed import Client
     except ImportError as exc:  # pragma: no cover - depends on the extra
-        raise ValueError("--dask needs the optional extra: pip install 'pulsesort[dask]'"
+        raise InputError("--dask needs the optional extra: pip install 'pulsesort[dask]'"
                          ) from exc
     with Client(address) as client:
         window = max(4, 4 * len(client.nthreads()))
@@ -380,7 +381,7 @@ def write_features(catalog: Catalog, out_path, **kwargs) -> Path:
         try:
             import pyarrow  # noqa: F401
         except ImportError as exc:
-            raise ValueError("Parquet output needs the optional extra: "
+            raise InputError("Parquet output needs the optional extra: "
                              "pip install 'pulsesort[parquet]'") from exc
         df = extract_features(catalog, **kwargs)
         df.to_parquet(tmp, index=False)

@@ -136,6 +136,7 @@ FEATURES: tuple[Feature, ...] = (
     # ---------------------------------------------------------------- mapping
     Feature("n_sources", "1", "mapped VHF sources of the pulse (NaN: catalog has no "
             "sources)", "mapping",
+            model=False,
             requires=frozenset({"sources"})),
     Feature("speed_m_per_s", "m/s", "speed from a robust (Huber) straight-line fit of mapped "
             "positions vs time (3-D if xyz, else from range and angles), less its noise "
@@ -185,6 +186,7 @@ FEATURES: tuple[Feature, ...] = (
             requires=frozenset({"sources"})),
     Feature("source_duration_s", "s", "time from the first to the last mapped source",
             "mapping",
+            model=False,
             requires=frozenset({"sources"})),
     Feature("source_range_m", "m", "median horizontal distance of the sources (xyz only)",
             "mapping", model=False,

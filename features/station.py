@@ -303,7 +303,7 @@ def load_station(path) -> StationDescription:
     """
     path = Path(path).expanduser().resolve()
     if not path.is_file():
-        raise FileNotFoundError(f"{path}: no such station description")
+        raise InputError(f"{path}: no such station description")
     raw = _parse(path)
     base, fname = path.parent, path.name
     problems = Problems()

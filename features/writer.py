@@ -93,9 +93,9 @@ def staged_folder(folder, *, overwrite: bool = False) -> Iterator[Path]:
     """
     out = Path(folder).expanduser()
     if out.exists() and not out.is_dir():
-        raise FileExistsError(f"{out}: exists and is not a folder")
+        raise InputError(f"{out}: exists and is not a folder")
     if out.exists() and any(out.iterdir()) and not overwrite:
-        raise FileExistsError(f"{out}: folder exists and is not empty (pass overwrite=True, "
+        raise InputError(f"{out}: folder exists and is not empty (pass overwrite=True, "
                               "or --overwrite on the command line, to replace it)")
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.parent / f".{out.name}.partial"

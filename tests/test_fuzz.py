@@ -399,11 +399,7 @@ VHF_SMOOTHING_TOO_LONG = ("feature code: the VHF smoothing window is longer than
 
 #: Variants that crash inside the feature code on valid input, with the issue: strict
 #: xfails, so each turns into a failure (to remove from here) once the code is fixed.
-FEATURE_CODE_ISSUES: dict[int, str] = {
-    161: VHF_WINDOW_EMPTY,          # vhf.pretrigger_s = 4.2e-4 s, record 20 us
-    181: VHF_SMOOTHING_TOO_LONG,    # vhf.sample_rate_hz = 1.8e10 Hz, 500 samples
-    196: VHF_WINDOW_EMPTY,          # vhf.delay_s = 5.5e-5 s, record 20 us
-}
+FEATURE_CODE_ISSUES: dict[int, str] = {}
 
 _VARIANTS = variants()
 
@@ -434,7 +430,6 @@ def test_variant_gets_a_clean_answer(base, tmp_path, capsys, index):
     assert outcome.handled, (" + ".join(map(str, _VARIANTS[index])), outcome.problems)
 
 
-@pytest.mark.xfail(strict=True, reason=VHF_WINDOW_EMPTY)
 def test_vhf_record_ending_before_the_trigger(base, tmp_path, capsys):
     """Reproducer: a VHF pre-trigger of 1 ms on a 20 us record (valid: the trigger may lie
     after the record; the reader notes it) must give features, not a crash."""
@@ -443,7 +438,6 @@ def test_vhf_record_ending_before_the_trigger(base, tmp_path, capsys):
     assert outcome.handled, outcome.problems
 
 
-@pytest.mark.xfail(strict=True, reason=VHF_SMOOTHING_TOO_LONG)
 def test_vhf_smoothing_window_longer_than_the_record(base, tmp_path, capsys):
     """Reproducer: VHF at 10 GS/s with 500 samples (50 ns) is within the accepted rates;
     the features must come out, not a broadcast error."""

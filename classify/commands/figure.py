@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from features import InputError
+
 NAME = "figure"
 HELP = ("draw a figure for a paper: one pulse, per-class feature distributions, a pairwise "
         "scatter or the confidence histogram (PNG, PDF or SVG by the extension)")
@@ -45,7 +47,7 @@ def run(args) -> int:
     out = Path(args.out)
     figures.check_figure_path(out)   # before any work
     if args.dpi < 50:
-        raise ValueError(f"--dpi must be >= 50, got {args.dpi}")
+        raise InputError(f"--dpi must be >= 50, got {args.dpi}")
     size = args.size or ("column" if args.kind == "confidence" else "page")
     if args.kind == "pulse":
         from features import open_catalog

@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from features import InputError
+
 from ._common import positive_int
 
 NAME = "review"
@@ -58,7 +60,7 @@ def run(args) -> int:
     from features import open_catalog
 
     if not 0 <= args.port <= 65535:
-        raise ValueError(f"--port must be in 0..65535, got {args.port}")
+        raise InputError(f"--port must be in 0..65535, got {args.port}")
     results = read_results(args.results)
     cat = open_catalog(args.catalog)
     model, card = find_model(results, args.model, args.registry)
@@ -69,7 +71,7 @@ def run(args) -> int:
     try:
         server = make_server(session, args.host, args.port)
     except OSError as exc:
-        raise ValueError(f"cannot listen on {args.host}:{args.port} ({exc.strerror or exc})"
+        raise InputError(f"cannot listen on {args.host}:{args.port} ({exc.strerror or exc})"
                          ) from None
     if not is_loopback(args.host):
         print(f"WARNING: listening on {args.host}, which is not a loopback address: other "

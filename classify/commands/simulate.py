@@ -7,6 +7,7 @@ import json
 import re
 from pathlib import Path
 
+from features import InputError
 from features.simulate import PRESETS, labels_path, simulate_season
 
 NAME = "simulate"
@@ -95,7 +96,7 @@ def _class_mix(text):
         except ValueError:
             sep = ""
         if not sep:
-            raise ValueError(f"option --class-mix: expected CLASS=FRACTION pairs, got {part!r}")
+            raise InputError(f"option --class-mix: expected CLASS=FRACTION pairs, got {part!r}")
     return mix
 
 
@@ -132,7 +133,7 @@ def run(args) -> int:
                               overwrite=args.overwrite, **settings)
     except ValueError as exc:
         option = _option_of(str(exc))
-        raise ValueError(f"{exc}" + (f" (option {option})" if option else "")) from exc
+        raise InputError(f"{exc}" + (f" (option {option})" if option else "")) from exc
     manifest = json.loads((out / "catalog.json").read_text(encoding="utf-8"))
     summary = manifest["simulation"]["summary"]
     twin = " (noise-free truth twin)" if manifest["simulation"].get("truth_twin") else ""

@@ -6,7 +6,7 @@ import sys
 
 from classify.registry import ModelRegistry
 from classify.triage import print_summary, triage_catalog
-from features import open_catalog
+from features import InputError, open_catalog
 
 from ._common import add_parallel_arguments
 
@@ -17,7 +17,7 @@ HELP = "classify every pulse of a catalog with a confidence and a review flag"
 def _unit_interval(text):
     v = float(text)
     if not 0 <= v <= 1:
-        raise ValueError(f"--review-below must be between 0 and 1, got {v}")
+        raise InputError(f"--review-below must be between 0 and 1, got {v}")
     return v
 
 

@@ -53,7 +53,7 @@ import logging
 import numpy as np
 import pandas as pd
 
-from features import schema
+from features import InputError, schema
 
 logger = logging.getLogger("pulsesort")
 
@@ -257,27 +257,27 @@ def build_queue(results: pd.DataFrame, store=None, catalog_id=None, budget=None,
     """
     for col in ("event_id", "needs_review"):
         if col not in results.columns:
-            raise ValueError(f"the results table has no {col!r} column; is it a "
+            raise InputError(f"the results table has no {col!r} column; is it a "
                              "'pulsesort triage' output?")
     if budget is not None and (int(budget) != budget or budget < 1):
-        raise ValueError(f"budget must be a whole number >= 1, got {budget!r}")
+        raise InputError(f"budget must be a whole number >= 1, got {budget!r}")
     if not 0.0 <= lam <= 1.0:
-        raise ValueError(f"lam must be in [0, 1], got {lam!r}")
+        raise InputError(f"lam must be in [0, 1], got {lam!r}")
     results = results.reset_index(drop=True)
     if "catalog_id" in results.columns:
         ids = list(dict.fromkeys(results["catalog_id"].astype(str)))
         if catalog_id is None:
             if len(ids) > 1:
-                raise ValueError(f"the results hold several catalogs ({', '.join(ids)}); "
+                raise InputError(f"the results hold several catalogs ({', '.join(ids)}); "
                                  "name one with catalog_id")
             catalog_id = ids[0] if ids else None
         elif catalog_id not in ids:
-            raise ValueError(f"catalog {catalog_id!r} is not in the results (they hold "
+            raise InputError(f"catalog {catalog_id!r} is not in the results (they hold "
                              f"{', '.join(ids) or 'nothing'})")
         results = results[results["catalog_id"].astype(str) == catalog_id].reset_index(
             drop=True)
     elif catalog_id is None and store is not None:
-        raise ValueError("the results have no catalog_id column: pass catalog_id")
+        raise InputError("the results have no catalog_id column: pass catalog_id")
     uncertainty, novelty, priority = priority_scores(results, novelty_weight=novelty_weight)
     needs = results["needs_review"].map(_as_bool).to_numpy(dtype=bool)
     taken = _unavailable(store, catalog_id, analyst, revisit)
@@ -312,6 +312,6 @@ def build_queue(results: pd.DataFrame, store=None, catalog_id=None, budget=None,
 def _as_bool(v) -> bool:
     if isinstance(v, str):
         if v not in ("true", "false"):
-            raise ValueError(f"needs_review must be 'true' or 'false', got {v!r}")
+            raise InputError(f"needs_review must be 'true' or 'false', got {v!r}")
         return v == "true"
     return bool(v)

@@ -30,6 +30,7 @@ from collections import OrderedDict
 import pandas as pd
 
 from classify.labels import LabelStore
+from features import InputError
 
 from ._help import REVIEW_REASONS, priority_parts, priority_rule
 from ._lookalike import LookAlikes, lookalike_classes, store_labels
@@ -86,18 +87,18 @@ class ReviewSession:
                  catalog_paths=None, revisit=False, n_lookalikes=3, trace=None,
                  attributions=None):
         if not isinstance(analyst, str) or not analyst.strip() or analyst != analyst.strip():
-            raise ValueError(f"--analyst must be a non-empty name without surrounding "
+            raise InputError(f"--analyst must be a non-empty name without surrounding "
                              f"spaces, got {analyst!r}")
         cid = catalog.catalog_id
         if "catalog_id" in results.columns:
             other = sorted(set(results["catalog_id"].astype(str)) - {cid})
             if other:
-                raise ValueError(f"the results are of catalog(s) {', '.join(other)}, not of "
+                raise InputError(f"the results are of catalog(s) {', '.join(other)}, not of "
                                  f"the catalog given ({cid} at {catalog.path})")
         rows = {e: i for i, e in enumerate(map(str, catalog.event_ids))}
         unknown = [e for e in results["event_id"].astype(str) if e not in rows]
         if unknown:
-            raise ValueError(f"{len(unknown)} event id(s) of the results are not in catalog "
+            raise InputError(f"{len(unknown)} event id(s) of the results are not in catalog "
                              f"{cid} at {catalog.path}, e.g. {unknown[0]!r}: were the results "
                              "made from another catalog?")
         self.results = results.reset_index(drop=True)
@@ -200,14 +201,14 @@ class ReviewSession:
             pulse on screen (a second click, or a stale page).
         """
         if action not in ACTIONS:
-            raise ValueError(f"action must be one of {', '.join(ACTIONS)}, got {action!r}")
+            raise InputError(f"action must be one of {', '.join(ACTIONS)}, got {action!r}")
         if note is not None and not isinstance(note, str):
-            raise ValueError("note must be text")
+            raise InputError("note must be text")
         note = (note or "").strip() or None
         if note is not None and len(note) > MAX_NOTE_CHARS:
-            raise ValueError(f"note is longer than {MAX_NOTE_CHARS} characters")
+            raise InputError(f"note is longer than {MAX_NOTE_CHARS} characters")
         if action == "label" and label not in self.classes:
-            raise ValueError(f"unknown class {label!r}; classes: {', '.join(self.classes)}")
+            raise InputError(f"unknown class {label!r}; classes: {', '.join(self.classes)}")
         with self._lock:
             i = self._current_index()
             if i is None or self._queue_ids[i] != event_id:
@@ -242,7 +243,7 @@ class ReviewSession:
         """Withdraw this session's last decision; that pulse is on screen again."""
         with self._lock:
             if not self._history:
-                raise ValueError("nothing to undo in this session")
+                raise InputError("nothing to undo in this session")
             act = self._history[-1]
             cid, eid = self.catalog.catalog_id, act["event_id"]
             with LabelStore(self.store_path) as store:

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from .._checks import InputError
-from ..station import ATTR, ChannelSpec
+from ..station import ATTR, ChannelSpec, StationDescription
 
 __all__ = ["Record", "cut_windows", "open_records", "parse_utc_ns"]
 
@@ -166,3 +166,52 @@ def cut_windows(data, starts: np.ndarray, length: int, out: np.ndarray,
         out[order[i:j]] = block
         i = j
     return padded
+
+
+def _given_triggers(d: StationDescription, rec_labels: list[str], starts_ns) -> pd.DataFrame:
+    spec = d.triggers
+    where = spec.file.name
+    df = pd.read_csv(spec.file, dtype=str, keep_default_na=False)
+    df.columns = [str(c).strip() for c in df.columns]
+    need = [c for c in (spec.time_column, spec.record_column, spec.event_id_column,
+                        spec.range_column) if c]
+    missing = [c for c in need if c not in df.columns]
+    if missing:
+        raise InputError(f"{where}: column(s) {missing} named in [triggers] are not in its "
+                         f"header {list(df.columns)}")
+    if spec.time == "utc":
+        t = pd.to_datetime(df[spec.time_column].str.strip(), format="ISO8601", utc=True,
+                           errors="coerce")
+        bad = np.flatnonzero(t.isna().to_numpy())
+        if bad.size:
+            raise InputError([f"{where} line {i + 2}: column {spec.time_column!r} must be an "
+                              f"ISO-8601 UTC time, got {df[spec.time_column].iloc[i]!r}"
+                              for i in bad[:10]])
+        ns = t.astype("datetime64[ns, UTC]").astype("int64").to_numpy()
+    else:
+        rel = pd.to_numeric(df[spec.time_column], errors="coerce").to_numpy(np.float64)
+        names = {lab: i for i, lab in enumerate(rec_labels)}
+        names.update({lab.split(":")[0]: i for i, lab in enumerate(rec_labels)})
+        rix = df[spec.record_column].str.strip().map(names)
+        bad = np.flatnonzero(~np.isfinite(rel) | rix.isna().to_numpy())
+        if bad.size:
+            raise InputError([f"{where} line {i + 2}: needs a number of seconds in "
+                              f"{spec.time_column!r} and a known record in "
+                              f"{spec.record_column!r} (records: {rec_labels[:5]}...)"
+                              for i in bad[:10]])
+        ns = starts_ns[rix.to_numpy(np.int64)] + np.round(rel * 1e9).astype(np.int64)
+    out = pd.DataFrame({"time_ns": ns})
+    used = {spec.time_column, spec.record_column, spec.event_id_column, spec.range_column}
+    for c in df.columns:  # other columns (e.g. flash_id) are carried to events.csv
+        if c not in used and c not in ("event_id", "time_utc", "range_m"):
+            out[c] = df[c].to_numpy()
+    if spec.event_id_column:
+        out["event_id"] = df[spec.event_id_column].str.strip().to_numpy()
+        dup = out["event_id"][out["event_id"].duplicated()]
+        if len(dup):
+            raise InputError(f"{where}: event ids repeat: {list(dup.unique()[:5])}")
+    if spec.range_column:
+        r = pd.to_numeric(df[spec.range_column].replace("", np.nan), errors="coerce")
+        out["range_m"] = r.to_numpy(np.float64)
+    out["line"] = np.arange(len(df)) + 2
+    return out

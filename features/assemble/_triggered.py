@@ -10,7 +10,7 @@ from numpy.lib.format import open_memmap
 
 from .._checks import InputError
 from ..station import ATTR, ChannelSpec, StationDescription
-from ._records import Record, parse_utc_ns
+from ._records import Record, _given_triggers, parse_utc_ns
 
 __all__ = ["stack_triggered"]
 
@@ -83,7 +83,6 @@ def stack_triggered(d: StationDescription, recs, vrecs, tmp: Path, info: dict):
         trig = pd.DataFrame({"time_ns": np.array(times, np.int64)})
         info["pulses"] = "trigger times stored with the records"
     else:
-        from . import _given_triggers
 
         if d.triggers.time != "utc":
             raise InputError(f"{d.triggers.file.name}: triggered records need UTC trigger "

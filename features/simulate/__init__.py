@@ -31,6 +31,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .._checks import InputError
 from ._classes import ALL_CLASSES, CLASSES, EXTRA_CLASSES, MARGIN, MARGIN_FRACTION, PARAMS
 from ._earth import (
     EARTH_RADIUS_M,
@@ -56,9 +57,9 @@ logger = logging.getLogger("pulsesort")
 
 def _check_counts(n_events, seed):
     if not isinstance(n_events, Integral) or isinstance(n_events, bool) or n_events < 1:
-        raise ValueError(f"n_events must be an integer >= 1, got {n_events!r}")
+        raise InputError(f"n_events must be an integer >= 1, got {n_events!r}")
     if not isinstance(seed, Integral) or isinstance(seed, bool) or seed < 0:
-        raise ValueError(f"seed must be an integer >= 0, got {seed!r}")
+        raise InputError(f"seed must be an integer >= 0, got {seed!r}")
     return int(n_events), int(seed)
 
 
@@ -151,12 +152,12 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
     out = Path(out_dir)
     labels = labels_path(out)
     if out.exists() and not out.is_dir():
-        raise FileExistsError(f"{out}: exists and is not a folder")
+        raise InputError(f"{out}: exists and is not a folder")
     if out.exists() and any(out.iterdir()) and not overwrite:
-        raise FileExistsError(f"{out}: folder exists and is not empty (pass overwrite=True, "
+        raise InputError(f"{out}: folder exists and is not empty (pass overwrite=True, "
                               "or --overwrite on the command line, to replace it)")
     if labels.exists() and not overwrite:
-        raise FileExistsError(f"{labels}: labels file exists (pass overwrite=True, or "
+        raise InputError(f"{labels}: labels file exists (pass overwrite=True, or "
                               "--overwrite on the command line, to replace it)")
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.parent / f".{out.name}.partial"

@@ -11,7 +11,7 @@ import math
 import re
 from dataclasses import asdict, dataclass, fields, replace
 
-from .._checks import check_option, is_real_number
+from .._checks import InputError, check_option, is_real_number
 from ._classes import ALL_CLASSES
 from ._stress import stress_settings
 
@@ -155,14 +155,14 @@ def _pos(name, value, *, integer=False, allow_zero=False):
         bad = int(value) != value
     if bad:
         what = "an integer" if integer else "a finite number"
-        raise ValueError(f"setting {name!r} must be {what} {'>=' if allow_zero else '>'} 0, "
+        raise InputError(f"setting {name!r} must be {what} {'>=' if allow_zero else '>'} 0, "
                          f"got {value!r}")
     return int(value) if integer else float(value)
 
 
 def _fraction(name, value):
     if not is_real_number(value) or not 0 <= value < 1:
-        raise ValueError(f"setting {name!r} must be a number in [0, 1), got {value!r}")
+        raise InputError(f"setting {name!r} must be a number in [0, 1), got {value!r}")
     return float(value)
 
 
@@ -170,32 +170,32 @@ def _pair(name, value):
     try:
         lo, hi = (float(v) for v in value)
     except (TypeError, ValueError):
-        raise ValueError(f"setting {name!r} must be two numbers (low, high), got {value!r}"
+        raise InputError(f"setting {name!r} must be two numbers (low, high), got {value!r}"
                          ) from None
     if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo <= hi):
-        raise ValueError(f"setting {name!r} must satisfy 0 < low <= high, got {value!r}")
+        raise InputError(f"setting {name!r} must satisfy 0 < low <= high, got {value!r}")
     return (lo, hi)
 
 
 def _bool(name, value):
     if not isinstance(value, bool):
-        raise ValueError(f"setting {name!r} must be True or False, got {value!r}")
+        raise InputError(f"setting {name!r} must be True or False, got {value!r}")
     return value
 
 
 def _class_mix(value):
     if not isinstance(value, dict) or not value:
-        raise ValueError(f"setting 'class_mix' must be a dict class -> fraction, got {value!r}")
+        raise InputError(f"setting 'class_mix' must be a dict class -> fraction, got {value!r}")
     mix = {}
     for key, frac in value.items():
         check_option(key, ALL_CLASSES, "setting 'class_mix' key")
         if not is_real_number(frac) or frac < 0:
-            raise ValueError(f"setting 'class_mix' fraction of {key!r} must be >= 0, "
+            raise InputError(f"setting 'class_mix' fraction of {key!r} must be >= 0, "
                              f"got {frac!r}")
         mix[key] = float(frac)
     total = sum(mix.values())
     if total <= 0:
-        raise ValueError(f"setting 'class_mix' needs a fraction > 0, got {value!r}")
+        raise InputError(f"setting 'class_mix' needs a fraction > 0, got {value!r}")
     return {k: mix.get(k, 0.0) / total for k in ALL_CLASSES}
 
 
@@ -224,11 +224,11 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
     check_option(preset, list(PRESETS), "setting 'preset'")
     unknown = sorted(set(overrides) - set(_NAMES))
     if unknown:
-        raise ValueError(f"unknown setting(s) {', '.join(map(repr, unknown))}; "
+        raise InputError(f"unknown setting(s) {', '.join(map(repr, unknown))}; "
                          f"known: {', '.join(n for n in _NAMES if n != 'preset')}")
     given = dict(overrides)
     if given.get("full_scale") is not None and given.get("clip_fraction") is not None:
-        raise ValueError("settings 'full_scale' and 'clip_fraction' exclude each other: "
+        raise InputError("settings 'full_scale' and 'clip_fraction' exclude each other: "
                          "give the clip level or the fraction of rows to clip, not both")
     s = dict(_REFERENCE)
     s.update(PRESETS[preset])
@@ -236,7 +236,7 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
         member = given.get("member")
         s.update(stress_settings(0 if member is None else member))
     elif given.get("member") is not None:
-        raise ValueError(f"setting 'member' applies to preset 'stress' only, got member="
+        raise InputError(f"setting 'member' applies to preset 'stress' only, got member="
                          f"{given['member']!r} with preset {preset!r}")
     if given.get("full_scale") is not None:
         s["clip_fraction"] = None
@@ -254,23 +254,23 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
             try:
                 s["decay_time_s"] = float(text)
             except ValueError:
-                raise ValueError(f"setting 'decay_time_s' must be a number of seconds or "
+                raise InputError(f"setting 'decay_time_s' must be a number of seconds or "
                                  f"'none', got {text!r}") from None
 
     for name in ("station", "season"):
         if not isinstance(s[name], str) or not s[name].strip():
-            raise ValueError(f"setting {name!r} must be a non-empty string, got {s[name]!r}")
+            raise InputError(f"setting {name!r} must be a non-empty string, got {s[name]!r}")
     if s["catalog_id"] is None:
         s["catalog_id"] = f"{s['station']}-{s['season']}"
     if not isinstance(s["catalog_id"], str) or not s["catalog_id"].strip():
-        raise ValueError(f"setting 'catalog_id' must be a non-empty string, "
+        raise InputError(f"setting 'catalog_id' must be a non-empty string, "
                          f"got {s['catalog_id']!r}")
     for name in ("field_rate_hz", "pretrigger_s", "vhf_gain", "sources_per_event"):
         s[name] = _pos(name, s[name])
     for name in ("field_samples", "chunk_size", "field_bits"):
         s[name] = _pos(name, s[name], integer=True)
     if not 8 <= s["field_bits"] <= 24:
-        raise ValueError(f"setting 'field_bits' must be in 8..24, got {s['field_bits']!r}")
+        raise InputError(f"setting 'field_bits' must be in 8..24, got {s['field_bits']!r}")
     for name in ("field_delay_s", "vhf_delay_s", "field_noise_v_per_m", "vhf_noise_floor",
                  "angle_noise_deg", "xyz_noise_m"):
         s[name] = _pos(name, s[name], allow_zero=True)
@@ -289,7 +289,7 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
     _check_station(s)
 
     if s["pretrigger_s"] >= s["field_samples"] / s["field_rate_hz"]:
-        raise ValueError(f"setting 'pretrigger_s' ({s['pretrigger_s']!r} s) must be shorter "
+        raise InputError(f"setting 'pretrigger_s' ({s['pretrigger_s']!r} s) must be shorter "
                          f"than the field record ({s['field_samples']} samples at "
                          f"{s['field_rate_hz']!r} Hz)")
     voltage = s["vhf_kind"] == "voltage"
@@ -297,7 +297,7 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
         s["vhf_rate_hz"] = 250e6 if voltage else 25e6
     s["vhf_rate_hz"] = _pos("vhf_rate_hz", s["vhf_rate_hz"])
     if voltage and s["vhf_rate_hz"] <= 2 * s["band_hz"][1]:
-        raise ValueError(f"setting 'vhf_rate_hz' ({s['vhf_rate_hz']!r} Hz) must exceed twice "
+        raise InputError(f"setting 'vhf_rate_hz' ({s['vhf_rate_hz']!r} Hz) must exceed twice "
                          f"the top of 'band_hz' ({s['band_hz'][1]!r} Hz) for vhf_kind "
                          "'voltage'")
     if s["vhf_samples"] is None:
@@ -308,7 +308,7 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
         s["vhf_pretrigger_s"] = min(s["pretrigger_s"], 0.5 * vhf_window)
     s["vhf_pretrigger_s"] = _pos("vhf_pretrigger_s", s["vhf_pretrigger_s"], allow_zero=True)
     if s["vhf_pretrigger_s"] >= vhf_window:
-        raise ValueError(f"setting 'vhf_pretrigger_s' ({s['vhf_pretrigger_s']!r} s) must be "
+        raise InputError(f"setting 'vhf_pretrigger_s' ({s['vhf_pretrigger_s']!r} s) must be "
                          f"shorter than the VHF record ({vhf_window!r} s)")
 
     if s["units"] == "counts":
@@ -317,19 +317,19 @@ def resolve_settings(preset: str = "reference", **overrides) -> Settings:
         s["scale"] = _pos("scale", s["scale"])
     else:
         if s["scale"] not in (None, 1, 1.0):
-            raise ValueError(f"setting 'scale' applies to units 'counts' only; with units "
+            raise InputError(f"setting 'scale' applies to units 'counts' only; with units "
                              f"'V/m' it must be 1 or None, got {s['scale']!r}")
         s["scale"] = 1.0
     if s["clip_fraction"] is not None:
         s["clip_fraction"] = _fraction("clip_fraction", s["clip_fraction"])
         s["full_scale"] = None
     elif s["full_scale"] is None:
-        raise ValueError("one of the settings 'full_scale' (clip level in V/m) or "
+        raise InputError("one of the settings 'full_scale' (clip level in V/m) or "
                          "'clip_fraction' must be given")
     else:
         s["full_scale"] = _pos("full_scale", s["full_scale"])
         if s["units"] == "counts" and s["full_scale"] / s["scale"] < 1:
-            raise ValueError(f"setting 'full_scale' ({s['full_scale']!r} V/m) is below one "
+            raise InputError(f"setting 'full_scale' ({s['full_scale']!r} V/m) is below one "
                              f"count ({s['scale']!r} V/m)")
     s["preset"] = preset
     return Settings(**{k: s[k] for k in _NAMES})

@@ -54,6 +54,8 @@ from numbers import Integral
 
 import numpy as np
 
+from .._checks import InputError
+
 __all__ = ["STRESS_STREAM", "stress_settings"]
 
 #: First word of every stress member's random stream ("stress" in hexspeak-ish digits).
@@ -106,7 +108,7 @@ def stress_settings(member) -> dict:
     True
     """
     if not isinstance(member, Integral) or isinstance(member, bool) or member < 0:
-        raise ValueError(f"setting 'member' must be an integer >= 0, got {member!r}")
+        raise InputError(f"setting 'member' must be an integer >= 0, got {member!r}")
     member = int(member)
     rng = np.random.default_rng([STRESS_STREAM, member])
     out: dict = {"member": member, "season": f"2040-m{member}"}

@@ -258,9 +258,12 @@ def test_clear_pulses_are_explained_by_shape_or_context(season):
     truth = pd.read_csv(f"{cat_dir}.labels.csv").set_index("event_id")["label"]
     y = truth.loc[feats["event_id"]].to_numpy()
     X = feats[list(model.feature_names_in_)].astype(float)
+    # widths and shape, the pulse train in the record, and the flash context
     shape_or_context = {"width_s", "initial_half_cycle_s", "fwhm_s", "bipolarity",
-                        "rise_time_s", "zero_crossing_s", "isolation_s", "isolation_any_s",
-                        "time_in_flash_s", "flash_n_pulses", "channel_reuse"}
+                        "rise_time_s", "zero_crossing_s", "neighbours_before",
+                        "neighbours_after", "nearest_neighbour_s", "neighbour_interval_s",
+                        "largest_neighbour_ratio", "pre_level_ratio", "time_in_flash_s",
+                        "channel_reuse"}
     for cls, other in [("narrow_bipolar", "stepped_leader"),
                        ("stepped_leader", "narrow_bipolar")]:
         expl = explain_pulses(model, X, against=other)
@@ -327,7 +330,8 @@ def test_model_card_lists_importances(season):
     assert sorted(feats) == sorted(card["features"])
     inc = [r["log_loss_increase"] for r in imp["features"]]
     assert inc == sorted(inc, reverse=True)
-    assert imp["n_rows"] == card["n_training_pulses"]
+    # every training row: the pulses as recorded and their station variants
+    assert imp["n_rows"] == card["n_training_pulses"] + card["n_station_variant_rows"]
     md = (model_dir / "card.md").read_text()
     section = md.split("## Feature importance")[1].split("\n## ")[0]
     rows = [ln for ln in section.splitlines() if ln.startswith("| ") and ln[2].isdigit()]

@@ -476,12 +476,15 @@ def test_extent_neighbours_and_why_are_drawn_from_the_pulse_json(browser, triage
         assert {"rise_time_s", "bipolarity", "width_s", "+0.80", "-0.30"} <= set(bars)
         assert page.is_hidden("#why-none")
         assert errors == []
-    with served_page(browser, cat_dir, out, tmp_path / "t.sqlite") as (page, _, _, errors):
+    with served_page(browser, cat_dir, out, tmp_path / "t.sqlite") as (page, server, _,
+                                                                        errors):
         assert page.is_visible("#why-none")
         assert page.text_content("#why-none") == "not available for this model"
-        assert "pulse extent: not available" in page.text_content("#legend-field")
-        assert page.locator("#plot-field rect.extent").count() == 0
-        assert page.locator("#plot-field line.neighbour").count() == 0
+        # by default the page shows the extent the features measured (features.trace)
+        pulse = server.session.current()["pulse"]
+        assert pulse["trace"]["extent_s"] is not None
+        assert "pulse extent: not available" not in page.text_content("#legend-field")
+        assert page.locator("#plot-field rect.extent").count() == 1
 
 
 def test_lookalikes_are_grouped_by_class_on_the_pulse_time_axis(browser, triaged, tmp_path):

@@ -106,7 +106,7 @@ def _events(n=N, **columns):
 
 def test_absurd_table_numbers_are_refused(make_catalog):
     """range_m and the source columns outside their ranges name file, line and column."""
-    ev = _events(range_m=["1e308", "12000", "", "3e6"])
+    ev = _events(range_m=["1e308", "12000", "1e-320", "3e6"])
     src = pd.DataFrame({"event_id": ["e0", "e1", "e2", "e3"],
                         "t_s": [1e308, 1e-6, -11.0, 0.0],
                         "azimuth_deg": [10.0] * 4, "elevation_deg": [5.0] * 4,
@@ -115,7 +115,8 @@ def test_absurd_table_numbers_are_refused(make_catalog):
     path = make_catalog("tables", _field(), events=ev, sources=src)
     _refused(path,
              "events.csv line 2: column 'range_m' is '1e308', outside the accepted range "
-             "0 to 2e+06 m",
+             "1 to 2e+06 m",
+             "events.csv line 4: column 'range_m' is '1e-320'",
              "events.csv line 5: column 'range_m' is '3e6'",
              "sources.csv line 2: column 't_s' is",
              "outside the accepted range -10 to 10 s",

@@ -16,7 +16,7 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from classify.cli import main
-from features import open_catalog
+from features import InputError, open_catalog
 from features.simulate import (
     CLASSES,
     draw_season,
@@ -330,7 +330,7 @@ def test_vhf_voltage_is_band_limited_with_the_power_as_envelope(tmp_path):
 
 def test_refuses_to_overwrite_and_leaves_nothing_half_written(base, tmp_path, monkeypatch):
     """An existing catalog is kept unless overwrite=True; a failure leaves no files."""
-    with pytest.raises(FileExistsError, match="not empty"):
+    with pytest.raises(InputError, match="not empty"):
         simulate_season(base, 10, 1, **SHORT)
     out = simulate_season(tmp_path / "re", 10, 1, **SHORT)
     simulate_season(out, 12, 2, overwrite=True, **SHORT)

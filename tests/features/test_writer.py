@@ -99,7 +99,7 @@ def test_existing_folder_is_kept_unless_overwrite(tmp_path):
     """No overwrite: FileExistsError and the old catalog intact; overwrite replaces it."""
     args = dict(field_meta=FIELD_META, catalog_id="hollowmere-x")
     out = write_catalog(tmp_path / "c", _events(2), np.ones((2, 400), np.float32), **args)
-    with pytest.raises(FileExistsError, match="not empty"):
+    with pytest.raises(InputError, match="not empty"):
         write_catalog(out, _events(3), np.zeros((3, 400), np.float32), **args)
     assert open_catalog(out).n_events == 2
     write_catalog(out, _events(3), np.zeros((3, 400), np.float32), overwrite=True, **args)
