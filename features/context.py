@@ -20,7 +20,8 @@ Definitions:
   in its own or an adjacent cube of ``REUSE_CELL_M`` (so always when closer
   than that, never when farther than about 1.7 cells); without x, y, z the
   same on the sky with cells of ``REUSE_CELL_DEG`` in azimuth (scaled by
-  cos elevation) and elevation. NaN for a pulse without sources. The age limit
+  cos elevation) and elevation. NaN for a pulse without sources or without a flash.
+  The age limit
   keeps a leader's own recent steps out: recoil leaders retrace channels made
   tens to hundreds of ms before (Rakov & Uman 2003, ch. 9; from memory),
   while a stepped leader keeps advancing into virgin air.
@@ -146,8 +147,8 @@ def _channel_reuse(flash_code, time_ns, sources):
             if len(ev):
                 hit = _reused_in_cells(fl, cell, t_abs, limit)
                 n_reused += np.bincount(ev, hit, minlength=n)
-    has = n_src > 0
-    out[has] = n_reused[has] / n_src[has]  # pulses without a flash: nothing to reuse (0)
+    has = (n_src > 0) & (flash_code >= 0)   # without a flash: unknown (NaN), not 0
+    out[has] = n_reused[has] / n_src[has]
     return out
 
 
@@ -167,7 +168,7 @@ def _reused_in_cells(fl, cell, t_abs, limit):
     return hit
 
 
-def flash_context(events, time_ns, sources=None):
+def flash_context(events, time_ns, sources=None, flash_codes=None):
     """Compute the flash-context features of every pulse of a catalog.
 
     Parameters
@@ -178,6 +179,10 @@ def flash_context(events, time_ns, sources=None):
         Trigger times, nanoseconds since 1970-01-01 UTC.
     sources : features._tables.SourceTable or None
         The catalog's sources.
+    flash_codes : ndarray of int, shape (n_events,), optional
+        Flash of every pulse (-1: none) to use instead of ``events["flash_id"]``: the
+        flashes grouped by :func:`features.flashes.group_flashes` for a catalog that
+        gives no flash ids.
 
     Returns
     -------
@@ -186,11 +191,15 @@ def flash_context(events, time_ns, sources=None):
         ``flash_n_pulses``, ``channel_reuse``.
     """
     n = len(events)
-    flash = events["flash_id"].astype(str).to_numpy(dtype=object)
-    has_flash = flash != ""
-    code = np.full(n, -1, dtype=np.int64)
-    if has_flash.any():
-        code[has_flash] = pd.factorize(flash[has_flash])[0]
+    if flash_codes is not None:
+        code = np.asarray(flash_codes, dtype=np.int64)
+        has_flash = code >= 0
+    else:
+        flash = events["flash_id"].astype(str).to_numpy(dtype=object)
+        has_flash = flash != ""
+        code = np.full(n, -1, dtype=np.int64)
+        if has_flash.any():
+            code[has_flash] = pd.factorize(flash[has_flash])[0]
     t = np.asarray(time_ns, dtype=np.int64)
     # each flash-less pulse is its own group for isolation within a flash
     groups = np.where(has_flash, code, -1 - np.arange(n))

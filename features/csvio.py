@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["csv_text", "format_for_csv"]
+__all__ = ["csv_text", "csv_rows", "csv_header", "format_for_csv"]
 
 
 def _quote(text: str) -> str:
@@ -49,9 +49,23 @@ def format_for_csv(df: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame({c: _column(df[c]) for c in df.columns}, index=df.index)
 
 
+def csv_rows(df: pd.DataFrame) -> list[str]:
+    """Each row of ``df`` as one CSV record in pulsesort's dialect (no line end).
+
+    A record may hold a line break inside a quoted text field, so records are kept as
+    a list rather than split from a text.
+    """
+    cols = [_column(df[c]) for c in df.columns]
+    return [",".join(row) for row in zip(*cols)]
+
+
+def csv_header(columns) -> str:
+    """The header record of the given column names."""
+    return ",".join(_quote(str(c)) for c in columns)
+
+
 def csv_text(df: pd.DataFrame, header: bool = True) -> str:
     """``df`` as CSV text in pulsesort's dialect (no index)."""
-    cols = [_column(df[c]) for c in df.columns]
-    lines = [",".join(_quote(str(c)) for c in df.columns)] if header else []
-    lines.extend(",".join(row) for row in zip(*cols))
+    lines = [csv_header(df.columns)] if header else []
+    lines.extend(csv_rows(df))
     return "\n".join(lines) + ("\n" if lines else "")

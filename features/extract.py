@@ -202,6 +202,25 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     return out
 
 
+def catalog_context(catalog: Catalog) -> dict:
+    """The flash context of every pulse of a catalog (:func:`features.context.flash_context`).
+
+    A catalog that gives no flash ids at all gets its flashes grouped in time and space
+    first (:func:`features.flashes.group_flashes`, documented thresholds), so a station
+    that does not group flashes still has each pulse's time in its flash and channel
+    reuse.
+    """
+    codes = None
+    flash = catalog.events["flash_id"].astype(str)
+    if catalog.n_events and not (flash != "").any():
+        from .flashes import group_flashes, pulse_positions_m
+
+        codes = group_flashes(catalog.time_ns, pulse_positions_m(catalog))
+    context = flash_context(catalog.events, catalog.time_ns, catalog.sources, codes)
+    return_freed_memory()
+    return context
+
+
 class ChunkPlan(Sequence):
     """The chunks of a catalog as a lazy sequence of :class:`ChunkJob` objects.
 
@@ -218,8 +237,7 @@ class ChunkPlan(Sequence):
                              f"{len(variants)} variants")
         self.variants = variants
         if context is None:
-            context = flash_context(catalog.events, catalog.time_ns, catalog.sources)
-            return_freed_memory()
+            context = catalog_context(catalog)
         self.context = context
         self._extra_columns = [c for c in catalog.events.columns
                                if c not in ("event_id", "range_m")]

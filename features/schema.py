@@ -6,7 +6,9 @@ its inputs from the entries with ``model=True``, and model files record
 :data:`SCHEMA_VERSION` so a model refuses features of another schema.
 
 ``model=False`` marks columns that are not physical properties of the pulse but
-of the instrument or the catalog (absolute VHF units, noise level, clipping),
+of the instrument, the geometry or the catalog (absolute VHF units, noise level,
+clipping, the field peak and angles that depend on the range, counts of sources and
+of catalogued neighbours that depend on the mapping and the cataloguing practice),
 which must not steer a classifier that is meant to work on other stations.
 """
 
@@ -57,7 +59,7 @@ FEATURES: tuple[Feature, ...] = (
     Feature("peak_field_v_per_m", "V/m", "signed peak of the catalogued pulse's initial "
             "half-cycle (physics convention, baseline line removed, decay-compensated): the "
             "largest |E| of the first lobe of the pulse at the trigger, measured within the "
-            "pulse's own extent", "field"),
+            "pulse's own extent", "field", model=False),
     Feature("polarity", "1", "+1 / -1: sign of the initial half-cycle", "field"),
     Feature("rise_time_s", "s", "10 % to 90 % of the peak on its leading edge (searched back "
             "from the peak, never before the previous pulse); NaN below 20 dB SNR or under one "
@@ -168,6 +170,7 @@ FEATURES: tuple[Feature, ...] = (
     Feature("angular_rate_deg_per_s", "deg/s", "angular speed on the sky from a robust fit "
             "of azimuth x cos(elevation) and elevation vs time, less its noise bias (as the "
             "speed)", "mapping",
+            model=False,
             requires=frozenset({"sources"})),
     Feature("angular_rate_se_deg_per_s", "deg/s", "standard error of the angular rate",
             "mapping", model=False,
@@ -183,6 +186,7 @@ FEATURES: tuple[Feature, ...] = (
             "mapping",
             requires=frozenset({"range", "sources"})),
     Feature("elevation_median_deg", "deg", "median source elevation", "mapping",
+            model=False,
             requires=frozenset({"sources"})),
     Feature("source_duration_s", "s", "time from the first to the last mapped source",
             "mapping",
@@ -205,8 +209,9 @@ FEATURES: tuple[Feature, ...] = (
             requires=frozenset({"flash"})),
     Feature("isolation_any_s", "s", "time to the nearest other catalogued pulse of any "
             "flash", "context", model=False),
-    Feature("time_in_flash_s", "s", "time since the first pulse of its flash (NaN without "
-            "flash_id)", "context",
+    Feature("time_in_flash_s", "s", "time since the first pulse of its flash (flashes "
+            "grouped in time and space when the catalog gives no flash ids; NaN for a pulse "
+            "without a flash)", "context",
             requires=frozenset({"flash"})),
     Feature("flash_n_pulses", "1", "catalogued pulses in its flash (1 without flash_id; NaN "
             "when the catalog has no flash ids at all)",
@@ -214,7 +219,8 @@ FEATURES: tuple[Feature, ...] = (
             model=False,
             requires=frozenset({"flash"})),
     Feature("channel_reuse", "1", "fraction of its sources within one 300 m cell (0.3 deg on "
-            "the sky without xyz) of a source mapped >= 5 ms earlier in its flash",
+            "the sky without xyz) of a source mapped >= 5 ms earlier in its flash (NaN without a "
+            "flash or sources)",
             "context",
             requires=frozenset({"flash", "sources"})),
     # ---------------------------------------------------------------- quality

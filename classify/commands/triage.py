@@ -2,13 +2,20 @@
 
 from __future__ import annotations
 
-import sys
+import io
 
-from classify.registry import ModelRegistry
+from classify.registry import resolve_model
 from classify.triage import print_summary, triage_catalog
 from features import InputError, open_catalog
 
-from ._common import add_parallel_arguments
+from ._common import (
+    add_parallel_arguments,
+    check_output_file,
+    echo,
+    fraction,
+    progress_of,
+    read_store,
+)
 
 NAME = "triage"
 HELP = "classify every pulse of a catalog with a confidence and a review flag"
@@ -27,32 +34,52 @@ def add_arguments(parser):
     src.add_argument("--model", metavar="MODEL",
                      help="model folder, a version in the registry, or 'current'")
     src.add_argument("--rules", action="store_true",
-                     help="no model: physics rules from published criteria (cold start)")
-    parser.add_argument("--registry", default="models",
+                     help="no model yet (a first season): physics rules, then a model "
+                          "self-trained on the season's confidently ruled pulses")
+    parser.add_argument("--registry", default=None,
                         help="model registry folder for version names (default: models)")
     parser.add_argument("--out", "-o", required=True, help="results CSV")
     parser.add_argument("--review-below", type=float, default=0.8, metavar="P",
                         help="pulses with a lower confidence need review (default 0.8)")
+    parser.add_argument("--coverage", type=fraction, default=None,
+                        help="target coverage of the prediction sets (default: the model's, "
+                             "0.95 for --rules)")
     parser.add_argument("--resume", action="store_true",
                         help="continue an interrupted run (same catalog, model, settings)")
     parser.add_argument("--adapt-priors", action="store_true",
-                        help="estimate the season's class mix (EM) and adjust for it")
+                        help="estimate the season's class mix (EM) and adjust the "
+                             "probabilities for it")
     parser.add_argument("--training-sets", action="store_true",
                         help="use the training split-conformal thresholds instead of adapting "
                              "them to this season")
+    parser.add_argument("--rules-only", action="store_true",
+                        help="with --rules: the rules alone, no self-training")
+    parser.add_argument("--store", default=None,
+                        help="with --rules: a label store whose analysts' labels of this "
+                             "catalog anchor the self-training")
     add_parallel_arguments(parser)
 
 
 def run(args) -> int:
     _unit_interval(args.review_below)
+    if (args.rules_only or args.store) and not args.rules:
+        raise InputError("--rules-only and --store go with --rules (the cold start)")
+    out = check_output_file(args.out, (".csv",), "--out")
     cat = open_catalog(args.catalog)
-    model_dir = None
-    if args.model:
-        model_dir = ModelRegistry(args.registry).resolve(args.model)
-    summary = triage_catalog(cat, args.out, model_dir=model_dir,
-                             review_below=args.review_below, chunk_size=args.chunk_size,
-                             n_jobs=args.jobs, dask_address=args.dask, resume=args.resume,
-                             progress=args.progress, adapt_priors=args.adapt_priors,
-                             adapt_sets=not args.training_sets)
-    print_summary(summary, file=sys.stdout)
+    model_dir = None if args.rules else resolve_model(args.model, args.registry)
+    store = read_store(args.store) if args.store else None
+    try:
+        summary = triage_catalog(cat, out, model_dir=model_dir,
+                                 review_below=args.review_below, chunk_size=args.chunk_size,
+                                 n_jobs=args.jobs, dask_address=args.dask, resume=args.resume,
+                                 progress=progress_of(args), adapt_priors=args.adapt_priors,
+                                 adapt_sets=not args.training_sets,
+                                 self_training=not args.rules_only, coverage=args.coverage,
+                                 store=store)
+    finally:
+        if store is not None:
+            store.close()
+    text = io.StringIO()
+    print_summary(summary, file=text)
+    echo(args, *text.getvalue().rstrip("\n").split("\n"))
     return 0

@@ -42,10 +42,17 @@ def test_results_columns_and_booleans(tmp_path, trained):
     header = out.read_text().splitlines()[0].split(",")
     assert header[:6] == HEAD
     assert header[6:8] == ["p_narrow_bipolar", "p_stepped_leader"]
-    assert header[8:12] == ["review_reason", "novelty_score", "model_version", "catalog_id"]
+    assert header[8:14] == ["review_reason", "review_why", "novelty_score", "model_version",
+                            "adaptation", "catalog_id"]
     df = read_results(out)
     assert len(df) == 60 and df["needs_review"].dtype == bool
-    assert df.loc[5, "needs_review"] and "clipped" in df.loc[5, "review_reason"]
+    # a clipped record is classified like any other: it is flagged, and goes to review
+    # only when its class depends on the clipped value
+    assert df.loc[5, "clipped"] and df.loc[5, "label"] != ""
+    assert set(df["review_reason"].str.split(";").explode()) <= {
+        "", "low_confidence", "ambiguous_set", "novel", "censored_decision", "field_unusable"}
+    assert (df["review_why"].ne("") == df["needs_review"]).all()
+    assert df["adaptation"].str.contains("sets adapted to the season").all()
     np.testing.assert_allclose(df[["p_narrow_bipolar", "p_stepped_leader"]].sum(axis=1), 1.0,
                                atol=1e-9)
 
@@ -72,11 +79,12 @@ def test_stop_and_resume_is_byte_identical(tmp_path, trained):
     out = tmp_path / "out.csv"
     r = triage_catalog(cat, out, model_dir=trained, chunk_size=16, stop_after_chunks=2)
     assert r["stopped"] and not out.exists()
-    assert (tmp_path / "out.csv.partial").exists()
+    assert (tmp_path / "out.csv.partial.d" / "chunks.json").exists()
     triage_catalog(cat, out, model_dir=trained, chunk_size=16, resume=True)
     assert out.read_bytes() == full.read_bytes()
     assert not (tmp_path / "out.csv.partial").exists()
     assert not (tmp_path / "out.csv.partial.json").exists()
+    assert not (tmp_path / "out.csv.partial.d").exists()
 
 
 def test_resume_refuses_changed_settings(tmp_path, trained):
@@ -96,7 +104,7 @@ def test_killed_process_resumes_byte_identical(tmp_path, trained):
     args = ["triage", str(cat), "--model", str(trained), "--chunk-size", "8"]
     assert main(args + ["--out", str(full)]) == 0
     out = tmp_path / "out.csv"
-    journal = tmp_path / "out.csv.partial.json"
+    journal = tmp_path / "out.csv.partial.d" / "chunks.json"      # the features phase
     code = f"import sys; from classify.cli import main; sys.exit(main({args + ['--out', str(out)]!r}))"
     env = dict(os.environ, OMP_NUM_THREADS="1")
     proc = subprocess.Popen([sys.executable, "-c", code], env=env, cwd=tmp_path)
@@ -104,7 +112,7 @@ def test_killed_process_resumes_byte_identical(tmp_path, trained):
     while time.time() < deadline:
         if journal.exists():
             try:
-                if json.loads(journal.read_text())["chunks_done"] >= 3:
+                if len(json.loads(journal.read_text())["offsets"]) >= 3:
                     break
             except (json.JSONDecodeError, KeyError):
                 pass
