@@ -41,6 +41,24 @@ def catalog_features(cat, **kwargs) -> pd.DataFrame:
 
 #: Chunk size of the station-variant passes (each chunk is one other station).
 VARIANT_CHUNK_SIZE = 64
+#: Station variants catalogue as a one-record-per-trigger station with this chance, with
+#: a dead time drawn log-uniformly in this range (s), and ignore the flash ids (which are
+#: then grouped) with the other chance (common practice, no source).
+VARIANT_ONE_PER_TRIGGER = 0.5
+VARIANT_DEAD_TIME_S = (2e-4, 2e-3)
+VARIANT_NO_FLASH_IDS = 0.3
+
+
+def _practice(cat, rng):
+    """Which pulses a station variant catalogues, and their flash context."""
+    from features.augment import practice_context
+
+    dead = None
+    if rng.random() < VARIANT_ONE_PER_TRIGGER:
+        lo, hi = VARIANT_DEAD_TIME_S
+        dead = float(np.exp(rng.uniform(np.log(lo), np.log(hi))))
+    return practice_context(cat, dead_time_s=dead,
+                            drop_flash_ids=bool(rng.random() < VARIANT_NO_FLASH_IDS))
 
 
 def training_table(catalogs, store, *, station_variants=0, seed=0,
@@ -53,8 +71,10 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
     store : classify.labels.LabelStore
     station_variants : int, default=0
         Also compute the labelled pulses' features as this many other stations would
-        record them (:mod:`features.augment`; each chunk of 64 pulses another station),
-        so the model learns what a pulse is, not what this station's records look like.
+        record them (:mod:`features.augment`; each chunk of 64 pulses another station)
+        and catalogue them (half the variants one record per trigger with a dead time,
+        some without flash ids: :func:`features.augment.practice_context`), so the model
+        learns what a pulse is, not what this station's records and catalogs look like.
     seed : int, default=0
         Seed of the stations drawn.
     **feature_kwargs
@@ -76,8 +96,10 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
         passes = [catalog_features(cat, **feature_kwargs)]
         kw = dict(feature_kwargs, chunk_size=VARIANT_CHUNK_SIZE)
         for k in range(station_variants):
-            passes.append(catalog_features(cat, variant_seed=seed * 1000 + ci * 100 + k + 1,
-                                           **kw))
+            vseed = seed * 1000 + ci * 100 + k + 1
+            keep, context = _practice(cat, np.random.default_rng(vseed))
+            feats = catalog_features(cat, variant_seed=vseed, context=context, **kw)
+            passes.append(feats[keep].reset_index(drop=True))
         for k, feats in enumerate(passes):
             t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")
             t.insert(2, "season", cat.season or "")

@@ -324,6 +324,23 @@ class SourceTable:
         )
 
 
+    def subset(self, rows) -> SourceTable:
+        """The sources of the events ``rows`` (ascending row numbers), renumbered 0..k-1."""
+        rows = np.asarray(rows, dtype=np.int64)
+        counts = self.counts()[rows]
+        offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+        starts = np.asarray(self.offsets[rows], dtype=np.int64)
+        idx = (np.repeat(starts - offsets[:-1], counts) + np.arange(offsets[-1])).astype(np.int64)
+
+        def take(a):
+            return None if a is None else np.asarray(a)[idx].astype(np.float64)
+
+        return SourceTable(event_index=np.repeat(np.arange(rows.size), counts).astype(np.int64),
+                           t_s=take(self.t_s), azimuth_deg=take(self.azimuth_deg),
+                           elevation_deg=take(self.elevation_deg), xyz_m=take(self.xyz_m),
+                           power_db=take(self.power_db), offsets=offsets)
+
+
 def _take(arr: np.ndarray, lo: int, hi: int) -> np.ndarray:
     """``arr[lo:hi]`` as a new array; a memory-mapped column is read with ``os.pread``."""
     if isinstance(arr, np.memmap) and arr.filename:

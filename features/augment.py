@@ -40,7 +40,8 @@ from ._manifest import Channel
 from .pulses import robust_sigma_diff
 from .waveform import decay_compensate
 
-__all__ = ["StationVariant", "VARIANT_RANGES", "draw_variant", "apply_field", "apply_vhf"]
+__all__ = ["StationVariant", "VARIANT_RANGES", "draw_variant", "apply_field", "apply_vhf",
+           "practice_context"]
 
 #: Ranges stations are drawn from (common practice for fast antennas and VHF receivers,
 #: no single source; they span the settings the catalog spec allows in use).
@@ -224,3 +225,57 @@ def apply_vhf(vhf: np.ndarray, ch: Channel, v: StationVariant, rng=None):
             x = np.clip(x, 0.0 if ch.kind == "power" else -level, level)
             full = level if full is None else min(full, level)
     return x, dataclasses.replace(ch, full_scale=full)
+
+
+def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False):
+    """The flash context of the pulses another cataloguing practice would have kept.
+
+    A station that records one window per trigger and is then dead for ``dead_time_s``
+    catalogues the first pulse of a train and none of the steps that follow within the
+    dead time (they are inside its record instead); a station that gives no flash ids
+    has its flashes grouped (:func:`features.flashes.group_flashes`). The context
+    features (:mod:`features.context`) of the kept pulses then differ from those of a
+    station that catalogues every pulse, and a model must not depend on the practice.
+
+    Parameters
+    ----------
+    catalog : Catalog
+    dead_time_s : float, optional
+        Dead time after each kept trigger, s (None: every pulse kept).
+    drop_flash_ids : bool, default=False
+        Ignore the catalog's flash ids (group flashes instead).
+
+    Returns
+    -------
+    keep : ndarray of bool, shape (n_events,)
+        The pulses that practice catalogues.
+    context : dict of str -> ndarray, shape (n_events,)
+        Their flash context (NaN for pulses not kept).
+    """
+    from .context import flash_context
+    from .flashes import group_flashes, pulse_positions_m
+
+    n = catalog.n_events
+    t = catalog.time_ns
+    keep = np.ones(n, dtype=bool)
+    if dead_time_s is not None and n:
+        keep[:] = False
+        dead_ns = int(round(dead_time_s * 1e9))
+        last = None
+        for i in np.argsort(t, kind="stable"):
+            if last is None or t[i] >= last + dead_ns:
+                keep[i] = True
+                last = int(t[i])
+    rows = np.flatnonzero(keep)
+    events = catalog.events.iloc[rows].reset_index(drop=True)
+    codes = None
+    if drop_flash_ids or not (events["flash_id"].astype(str) != "").any():
+        codes = group_flashes(t[rows], pulse_positions_m(catalog)[rows])
+    sources = None if catalog.sources is None else catalog.sources.subset(rows)
+    sub = flash_context(events, t[rows], sources, codes)
+    context = {}
+    for key, val in sub.items():
+        full = np.full(n, np.nan)
+        full[rows] = val
+        context[key] = full
+    return keep, context

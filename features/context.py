@@ -7,7 +7,7 @@ before the waveform chunks (:func:`flash_context`).
 Definitions:
 
 * ``time_in_flash_s``: trigger time minus the earliest trigger of the flash
-  (NaN when the pulse has no flash_id).
+  (NaN when the pulse has no flash, or is alone in it: no flash context).
 * ``isolation_s``: time to the nearest other catalogued pulse of the same
   flash (NaN when alone in its flash or without flash_id).
 * ``isolation_any_s``: time to the nearest other catalogued pulse of the
@@ -217,6 +217,12 @@ def flash_context(events, time_ns, sources=None, flash_codes=None):
     if not has_flash.any():
         size[:] = np.nan
     reuse = _channel_reuse(code, t, sources)
+    # a pulse alone in its flash has no flash context: unknown, not "first" or "no reuse"
+    # (a station that catalogues one record per trigger, or misses the rest of a flash,
+    # has many such pulses; their time in the flash is not 0)
+    alone = size == 1
+    t_in[alone] = np.nan
+    reuse[alone] = np.nan
     return {
         "time_in_flash_s": t_in,
         "isolation_s": isolation,

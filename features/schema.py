@@ -211,7 +211,7 @@ FEATURES: tuple[Feature, ...] = (
             "flash", "context", model=False),
     Feature("time_in_flash_s", "s", "time since the first pulse of its flash (flashes "
             "grouped in time and space when the catalog gives no flash ids; NaN for a pulse "
-            "without a flash)", "context",
+            "without a flash or alone in it)", "context",
             requires=frozenset({"flash"})),
     Feature("flash_n_pulses", "1", "catalogued pulses in its flash (1 without flash_id; NaN "
             "when the catalog has no flash ids at all)",
@@ -219,8 +219,8 @@ FEATURES: tuple[Feature, ...] = (
             model=False,
             requires=frozenset({"flash"})),
     Feature("channel_reuse", "1", "fraction of its sources within one 300 m cell (0.3 deg on "
-            "the sky without xyz) of a source mapped >= 5 ms earlier in its flash (NaN without a "
-            "flash or sources)",
+            "the sky without xyz) of a source mapped >= 5 ms earlier in its flash (NaN without "
+            "sources, or without a flash or alone in it)",
             "context",
             requires=frozenset({"flash", "sources"})),
     # ---------------------------------------------------------------- quality
