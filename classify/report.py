@@ -30,6 +30,7 @@ from features.atomic import atomic_write
 
 from . import svgplot
 from ._feature_values import MAIN_FEATURES, feature_values, result_classes
+from .decide import REVIEW_REASONS
 
 logger = logging.getLogger("pulsesort")
 
@@ -37,8 +38,7 @@ __all__ = ["result_classes", "hourly_counts", "review_load", "distribution_sampl
            "build_report", "write_report"]
 
 #: Review reasons, in the order the triage checks them.
-REASONS = ("low_confidence", "ambiguous_set", "empty_set", "novel", "clipped", "no_vhf",
-           "field_unusable")
+REASONS = tuple(REVIEW_REASONS)
 MAX_HOUR_ROWS = 200
 _REQUIRED = ("event_id", "label", "confidence", "needs_review", "time_utc")
 

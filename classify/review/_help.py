@@ -1,33 +1,20 @@
 """The words of the page's help: what each review reason means, how the queue's priority is made.
 
-The reasons are those :mod:`classify.triage` writes in ``review_reason`` (its
-module docstring defines them; ``tests/classify/test_review_queue.py`` checks
-that every one of :data:`classify.report.REASONS` is explained here). The
+The reasons are those triage writes in ``review_reason``, with the words of
+:data:`classify.decide.REVIEW_REASONS` (one table for the results, the page and the
+report). The
 priority rule is :mod:`classify.review._queue`'s, in words.
 """
 
 from __future__ import annotations
 
+from ..decide import REVIEW_REASONS as _DECIDE_REASONS
 from ._queue import NOVELTY_WEIGHT
 
 __all__ = ["REVIEW_REASONS", "priority_rule", "priority_parts"]
 
-#: review_reason code -> what it means, in words.
-REVIEW_REASONS = {
-    "low_confidence": "the model's probability for its own class is below the triage's "
-                      "review threshold (0.8 unless the triage was told otherwise)",
-    "ambiguous_set": "the prediction set holds two classes or more: at the chosen "
-                     "coverage the model cannot rule out either",
-    "empty_set": "the prediction set is empty: no class is plausible enough at the chosen "
-                 "coverage (a pulse unlike the training pulses, or a record with a quality "
-                 "problem)",
-    "novel": "the pulse is far from the model's labelled training pulses: its novelty "
-             "score (mean distance to the nearest of them) is above the model's threshold "
-             "(by default, the score of the 0.1 % most unusual training pulses)",
-    "clipped": "the field record reached the digitizer's full scale: the peak is cut off",
-    "no_vhf": "the catalog has a VHF channel but this pulse's VHF record is missing",
-    "field_unusable": "most of the field record is missing",
-}
+#: review_reason code -> what it means, in words (the triage's own table).
+REVIEW_REASONS = dict(_DECIDE_REASONS)
 
 
 def priority_rule(novelty_weight: float = NOVELTY_WEIGHT) -> list[str]:

@@ -225,6 +225,7 @@ def pulse_view(catalog, row: int, result: pd.Series, *, classes=None, trace=None
             "novel": bool(novel) if isinstance(novel, (bool, np.bool_)) else novel == "true",
             "novelty_score": display_value(res.get("novelty_score"), 1.0),
             "review_reason": reasons,
+            "review_why": [w for w in _text(res.get("review_why")).split("; ") if w],
             "vhf_lag_s": lag,
             "vhf_lag_text": vhf_lag_text(lag),
         },

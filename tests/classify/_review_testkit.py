@@ -39,10 +39,10 @@ def triaged_catalog(root: Path, *, events: int = 300, seed: int = 1, simulate_ar
     cat_dir, out = root / "hollowmere-2031", root / "results.csv"
     assert main(["-q", "simulate", str(cat_dir), "--events", str(events), "--seed", str(seed),
                  *SIMULATE_SHORT, *simulate_args]) == 0
-    assert main(["-q", "triage", str(cat_dir), "--rules", "--out", str(out)]) == 0
+    assert main(["-q", "triage", str(cat_dir), "--rules", "--rules-only", "--out", str(out)]) == 0
     first = build_queue(read_results(out))["event_id"].iat[0]
     _rename_event(cat_dir, first, XSS_ID)
-    assert main(["-q", "triage", str(cat_dir), "--rules", "--out", str(out)]) == 0
+    assert main(["-q", "triage", str(cat_dir), "--rules", "--rules-only", "--out", str(out)]) == 0
     return cat_dir, out
 
 

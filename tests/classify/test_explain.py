@@ -258,8 +258,11 @@ def test_clear_pulses_are_explained_by_shape_or_context(season):
     truth = pd.read_csv(f"{cat_dir}.labels.csv").set_index("event_id")["label"]
     y = truth.loc[feats["event_id"]].to_numpy()
     X = feats[list(model.feature_names_in_)].astype(float)
-    # widths and shape, the pulse train in the record, and the flash context
+    # widths and shape, the pulse train in the record, the VHF strength over its noise
+    # (NBEs are the strongest VHF emitters: Smith et al. 1999, from memory) and the flash
+    # context; never an instrument quantity (noise, absolute levels, record coverage)
     shape_or_context = {"width_s", "initial_half_cycle_s", "fwhm_s", "bipolarity",
+                        "vhf_snr_db", "vhf_width_s",
                         "rise_time_s", "zero_crossing_s", "neighbours_before",
                         "neighbours_after", "nearest_neighbour_s", "neighbour_interval_s",
                         "largest_neighbour_ratio", "pre_level_ratio", "time_in_flash_s",

@@ -126,12 +126,16 @@ def test_killed_process_resumes_byte_identical(tmp_path, trained):
 
 
 def test_rules_mode_needs_no_labels(tmp_path):
-    """`--rules` triages with the physics rules and marks the version."""
-    cat, _ = two_class_catalog(tmp_path / "c", n=40, seed=1)
+    """`--rules` triages without labels: rules, then self-training; `--rules-only` the rules."""
+    cat, truth = two_class_catalog(tmp_path / "c", n=200, seed=1)
     out = tmp_path / "r.csv"
     assert main(["triage", str(cat), "--rules", "--out", str(out)]) == 0
     df = read_results(out)
-    assert df["model_version"].eq("rules-2").all()
+    assert df["model_version"].eq("self-trained from rules-3").all()
+    assert df["adaptation"].str.startswith("self-trained from rules-3").all()
+    assert main(["triage", str(cat), "--rules", "--rules-only", "--out", str(out)]) == 0
+    df = read_results(out)
+    assert df["model_version"].eq("rules-3").all()
     assert {"p_narrow_bipolar", "p_stepped_leader", "p_recoil",
             "p_energetic_in_cloud"} <= set(df.columns)
 

@@ -130,12 +130,15 @@
     const ul = $("review-reason");
     ul.replaceChildren();
     const words = (state.session && state.session.reasons) || {};
-    for (const r of p.model.review_reason) {
+    const why = p.model.review_why || [];
+    p.model.review_reason.forEach((r, i) => {
+      // this pulse's own reason in words (from the triage), else the reason's meaning
       const li = el("li");
       li.appendChild(el("b", null, r.replace(/_/g, " ")));
-      if (words[r]) { li.appendChild(el("span", "reason-text", ": " + words[r])); }
+      const text = why.length === p.model.review_reason.length ? why[i] : words[r];
+      if (text) { li.appendChild(el("span", "reason-text", ": " + text)); }
       ul.appendChild(li);
-    }
+    });
     if (!p.model.review_reason.length) { ul.appendChild(el("li", null, "n/a")); }
     const q = p.queue || {};
     let line = "queue rank " + p.queue_rank + " of " + state.current.n_queued;
