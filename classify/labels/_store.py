@@ -363,6 +363,13 @@ class LabelStore(ClassesMixin):
         with self._write() as con:
             registered = _writes.register(con, self.path, catalog)
             report = _writes.import_rows(con, parsed, catalog.catalog_id, analyst, registered)
+            retired = _classes.label_map(con)
+        old = sorted({r.label for r in parsed.rows if r.label in retired})
+        if old:
+            logger.warning("%s: %d row(s) use retired class names; they count for the class "
+                           "each stands for now: %s", path,
+                           sum(r.label in retired for r in parsed.rows),
+                           ", ".join(f"{n} -> {retired[n]}" for n in old))
         logger.debug("%s: %d rows, %d added, %d already in the store", path, report.n_rows,
                     report.n_added, report.n_present)
         return report

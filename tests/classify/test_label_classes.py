@@ -6,6 +6,7 @@ self-consistency; the store is a real SQLite file.
 
 from __future__ import annotations
 
+import logging
 import sqlite3
 from pathlib import Path
 
@@ -98,12 +99,15 @@ def test_a_retired_name_is_refused_for_new_decisions(store):
         store.record_decision(CID, "ev005", "hail", analyst="wren", origin="review")
 
 
-def test_an_old_labels_file_imports_and_counts_for_the_successor(store, tmp_path):
+def test_an_old_labels_file_imports_and_counts_for_the_successor(store, tmp_path, caplog):
     """A labels file written before a rename imports; its rows count for the new name."""
     store.rename_class("recoil", "k_change", analyst="tamsin")
     f = write_labels(tmp_path / "old.csv", [["ev004", "recoil", "corvin", "", ""]])
-    rep = store.import_labels(f, tiny_catalog(tmp_path / "cat"))
+    with caplog.at_level(logging.WARNING, logger="pulsesort"):
+        rep = store.import_labels(f, tiny_catalog(tmp_path / "cat"))
     assert rep.n_added == 1
+    assert "1 row(s) use retired class names" in caplog.text
+    assert "recoil -> k_change" in caplog.text
     cur = _current(store).loc["ev004"]
     assert (cur["label"], cur["label_as_decided"]) == ("k_change", "recoil")
 
