@@ -128,6 +128,7 @@ class ReviewSession:
         self._history: list[dict] = []
         self._views: OrderedDict[str, dict] = OrderedDict()
         self._queue_ids = list(self.queue["event_id"].astype(str))
+        self._class_map = class_map
         # the results' probability columns that count for each store class
         self._p_columns = {c: [col for col in probability_columns(self.results)
                                if class_map.get(col[2:], col[2:]) == c] for c in self.classes}
@@ -173,6 +174,8 @@ class ReviewSession:
             m = view["model"]
             wanted = lookalike_classes(m["prediction_set"], [(p["class"], p["p"]) for p in
                                                              m["probabilities"]])
+            if self.lookalikes.source == "store":  # labels in the store's current classes
+                wanted = list(dict.fromkeys(self._class_map.get(c, c) for c in wanted))
             view["lookalikes"] = self.lookalikes.find(eid, wanted)
             view["why"] = _attributions(self.attributions, res)
             self._views[eid] = view
