@@ -261,12 +261,16 @@ def _history(args) -> int:
         catalog = args.catalog_option
     with _open(args) as store:
         h = store.history(args.event_id, catalog)
+        class_map = store.class_map()
     if h.empty:
         print(f"no decisions on event {args.event_id!r}")
         return 0
     cols = ["decision_id", "catalog_id", "decided_at", "analyst", "label", "origin", "note",
             "model_version", "confidence", "source_file"]
     h = h[cols].astype(object)
+    now = h["label"].map(lambda c: class_map.get(c, c) if isinstance(c, str) else None)
+    if (now.notna() & (now != h["label"])).any():  # a class renamed or merged since
+        h.insert(cols.index("label") + 1, "now", now.where(now != h["label"], None))
     h["label"] = h["label"].where(h["label"].notna(), "(retracted)")
     print(_show(h.where(h.notna(), "")))
     return 0

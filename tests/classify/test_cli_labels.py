@@ -203,6 +203,10 @@ def test_classes_rename_hide_merge_through_the_cli(season, capsys):
     assert code == 0 and "our term" in out and "tamsin" in out
     assert [line.split()[1] for line in out.splitlines()[1:]] == ["rename", "hide", "merge",
                                                                   "merge"]
+    code, out, _ = _run(capsys, "labels", "history", CID, "ev000", "--store", "s.sqlite")
+    header, row = out.splitlines()[:2]
+    assert header.split()[4:6] == ["label", "now"] and row.split()[5:7] == ["recoil",
+                                                                           "k_change"]
     with LabelStore("s.sqlite", create=False) as s:
         cur = s.current_labels(status="labelled")
         assert set(cur["label"]) == {"k_change"}
