@@ -1,8 +1,8 @@
 """Data cards: a Markdown datasheet for the labelled set of one catalog.
 
 A data card says what a labelled set is (station, season, instrument
-settings), what was labelled, by whom and how consistently (labels per class
-and per analyst, Cohen's kappa between analysts, origin of the decisions,
+settings), what was labelled, by whom and how consistently (the store's class
+set with its renames, merges and hidden classes, labels per class and per analyst, Cohen's kappa between analysts, origin of the decisions,
 their date range), and what is missing or doubtful (no range, no VHF, no
 mapped positions, clipped or NaN rows, conflicts). It is generated, never
 hand-written: the same catalog and label store give the same file, byte for
@@ -78,7 +78,8 @@ def render_data_card(cat, store, out_dir="data_cards") -> str:
             f"{cat.content_hash}); its labels do not describe this catalog")
     summary = cat.summary()
     quality = scan_quality(cat)
-    classes = store.classes()
+    classes = store.classes(include_hidden=True)
+    visible = store.classes()
     cur = store.current_labels([cid])
     dec = store.decisions([cid])
     parts = [
@@ -86,7 +87,7 @@ def render_data_card(cat, store, out_dir="data_cards") -> str:
         _instrument(cat),
         _events(summary),
         _labels(cat, store, classes, cur, dec),
-        _gaps(cat, summary, quality, classes, cur),
+        _gaps(cat, summary, quality, visible, cur),
         _regenerate(cat, store, out_dir),
     ]
     return "\n".join(parts).rstrip("\n") + "\n"
@@ -178,10 +179,15 @@ def _labels(cat, store, classes, cur, dec) -> str:
             "analyst's latest decision counts; analysts who disagree leave the event in "
             "conflict until it is resolved.\n\n" + _table(["status", "events", "share"], rows)
             + f"\nSettled by a resolution: {n_res} of {n_lab} labelled.\n")
+    text += _class_set(store)
     per = lab["label"].value_counts()
-    rows = [(f"`{c}`", str(int(per.get(c, 0))), _pct(int(per.get(c, 0)), len(lab)))
-            for c in classes]
-    text += "\n### Per class\n\n" + _table(["class", "events", "share of labelled"], rows)
+    hidden = set(classes) - set(store.classes())
+    rows = [(f"`{c}`" + (" (hidden)" if c in hidden else ""), str(int(per.get(c, 0))),
+             _pct(int(per.get(c, 0)), len(lab))) for c in classes]
+    text += ("\n### Per class\n\nCurrent labels, in the store's current classes (a label "
+             "given under a name since renamed or merged counts for the class it stands "
+             "for now); hidden classes are left out of training.\n\n"
+             + _table(["class", "events", "share of labelled"], rows))
 
     st = store.stats([cid])["analysts"]
     text += "\n### Per analyst\n\n"
@@ -234,6 +240,16 @@ def _labels(cat, store, classes, cur, dec) -> str:
              f"{last.strftime('%Y-%m-%d %H:%M:%S')} UTC ({len(dec)} decisions, "
              f"{dec['analyst'].nunique()} analysts).\n")
     return text
+
+
+def _class_set(store) -> str:
+    t = store.class_table()
+    rows = [(f"`{_code(r.name)}`", r.status, "" if r.current == r.name else
+             f"`{_code(r.current)}`", _md(r.history) if r.history else "")
+            for r in t.itertuples(index=False)]
+    return ("\n### Classes of the store\n\nThe group's class set (`pulsesort labels classes "
+            "list`): every name a class has had, what it is now and what happened to it.\n\n"
+            + _table(["class", "status", "now", "changes"], rows))
 
 
 def _gaps(cat, summary, quality, classes, cur) -> str:

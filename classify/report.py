@@ -9,6 +9,13 @@ a few example field changes per class (the most confident pulses that need no
 review; field change as on the review page). Every text from the data is
 HTML-escaped.
 
+Classes: the model's (the results' ``p_`` columns, in the model's order), then
+any other label seen, then, given the label store's classes, the store's
+visible classes the results lack (with no pulses: the model does not know them
+yet). With the store, the class table also says what each class is in the
+store now (a class of the store, hidden, renamed or merged into another, or not
+a store class).
+
 Examples
 --------
 >>> from classify.report import write_report
@@ -34,7 +41,7 @@ from .decide import REVIEW_REASONS
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["result_classes", "hourly_counts", "review_load", "distribution_samples",
+__all__ = ["result_classes", "report_classes", "store_status", "hourly_counts", "review_load", "distribution_samples",
            "build_report", "write_report"]
 
 #: Review reasons, in the order the triage checks them.
@@ -43,13 +50,44 @@ MAX_HOUR_ROWS = 200
 _REQUIRED = ("event_id", "label", "confidence", "needs_review", "time_utc")
 
 
-def hourly_counts(results: pd.DataFrame) -> pd.DataFrame:
+def report_classes(results: pd.DataFrame, store_classes=None) -> list[str]:
+    """The report's classes: :func:`result_classes`, then the store's classes not among them.
+
+    Parameters
+    ----------
+    results : pandas.DataFrame
+        Triage results.
+    store_classes : list of str, optional
+        The label store's visible classes (``LabelStore.classes()``), in its order.
+    """
+    classes = result_classes(results)
+    return classes + [c for c in (store_classes or []) if c not in classes]
+
+
+def store_status(name: str, store_classes, class_map) -> str:
+    """What class ``name`` of a report is in the label store now, in words.
+
+    ``store_classes`` are the store's visible classes; ``class_map`` maps every
+    name the store ever had to the class in use it stands for now
+    (``LabelStore.class_map()``).
+    """
+    now = class_map.get(name)
+    if now is None:
+        return "not a store class"
+    if now != name:
+        return f"now {now} (renamed or merged)"
+    return "store class" if name in store_classes else "hidden in the store"
+
+
+def hourly_counts(results: pd.DataFrame, classes=None) -> pd.DataFrame:
     """Pulses per predicted class in every UTC hour from the first to the last pulse.
 
     Parameters
     ----------
     results : pandas.DataFrame
         Triage results with ``time_utc`` (datetime64 UTC) and ``label``.
+    classes : list of str, optional
+        The columns, in order (default :func:`result_classes`).
 
     Returns
     -------
@@ -59,7 +97,7 @@ def hourly_counts(results: pd.DataFrame) -> pd.DataFrame:
     """
     t = pd.to_datetime(results["time_utc"], utc=True)
     hours = t.dt.floor("h")
-    classes = result_classes(results)
+    classes = result_classes(results) if classes is None else list(classes)
     if len(results) == 0:
         return pd.DataFrame(columns=classes, dtype="int64")
     table = pd.crosstab(hours, results["label"].astype(str))
@@ -169,7 +207,7 @@ def _examples(results, catalog, classes, per_class):
 
 
 def build_report(results: pd.DataFrame, *, catalog=None, title=None,
-                 examples_per_class: int = 3) -> str:
+                 examples_per_class: int = 3, store_classes=None, class_map=None) -> str:
     """The report as one HTML string (see the module docstring for its sections).
 
     Parameters
@@ -180,6 +218,11 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
         The catalog of the results, for example waveforms.
     title : str, optional
     examples_per_class : int, default=3
+    store_classes : list of str, optional
+        The label store's visible classes (``LabelStore.classes()``): listed too.
+    class_map : dict, optional
+        The store's ``LabelStore.class_map()``: with it, the class table says what
+        each class is in the store now.
     """
     missing = [c for c in _REQUIRED if c not in results.columns]
     if missing:
@@ -187,7 +230,7 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
                          "'pulsesort triage' output?")
     n = len(results)
     needs = results["needs_review"].astype(bool)
-    classes = result_classes(results)
+    classes = report_classes(results, store_classes)
     cids = sorted(set(results.get("catalog_id", pd.Series([], dtype=str)).dropna()
                       .astype(str)))
     versions = sorted(set(results.get("model_version", pd.Series([], dtype=str)).dropna()
@@ -215,13 +258,17 @@ def build_report(results: pd.DataFrame, *, catalog=None, title=None,
     conf = results.groupby(results["label"].astype(str))["confidence"].mean()
     rev = needs.groupby(results["label"].astype(str)).sum()
     out.append("<h2>Classes</h2>")
-    out.append(_table(["class", "pulses", "share", "mean confidence", "need review"],
-                      [(c, int(counts.get(c, 0)),
-                        f"{counts.get(c, 0) / n * 100 if n else 0:.1f} %",
-                        f"{conf.get(c, np.nan):.2f}" if c in conf else "n/a",
-                        int(rev.get(c, 0))) for c in classes], "num"))
+    header = ["class", "pulses", "share", "mean confidence", "need review"]
+    rows = [[c, int(counts.get(c, 0)), f"{counts.get(c, 0) / n * 100 if n else 0:.1f} %",
+             f"{conf.get(c, np.nan):.2f}" if c in conf else "n/a", int(rev.get(c, 0))]
+            for c in classes]
+    if class_map is not None:
+        header.append("in the label store")
+        for r in rows:
+            r.append(store_status(r[0], store_classes or [], class_map))
+    out.append(_table(header, rows, "num"))
 
-    hours = hourly_counts(results)
+    hours = hourly_counts(results, classes)
     out.append("<h2>Class counts per hour of the season</h2>")
     if len(hours):
         start = hours.index[0]
@@ -290,7 +337,7 @@ overflow-wrap:anywhere;max-width:300px}
 """.strip()
 
 
-def write_report(results_path, out, *, catalog=None, title=None) -> Path:
+def write_report(results_path, out, *, catalog=None, title=None, store=None) -> Path:
     """Read a results file and write its HTML report atomically (temp file + rename).
 
     Parameters
@@ -301,6 +348,8 @@ def write_report(results_path, out, *, catalog=None, title=None) -> Path:
         The HTML file to write (its folder must exist).
     catalog : path or Catalog, optional
         The catalog folder, for example waveforms.
+    store : path or classify.labels.LabelStore, optional
+        The label store whose classes the report also lists (read only).
 
     Returns
     -------
@@ -317,7 +366,17 @@ def write_report(results_path, out, *, catalog=None, title=None) -> Path:
     results = read_results(results_path)
     if catalog is not None and not hasattr(catalog, "catalog_id"):
         catalog = open_catalog(catalog)
-    html = build_report(results, catalog=catalog, title=title)
+    store_classes = class_map = None
+    if store is not None:
+        from .labels import LabelStore
+
+        if isinstance(store, LabelStore):
+            store_classes, class_map = store.classes(), store.class_map()
+        else:
+            with LabelStore(store, create=False) as s:
+                store_classes, class_map = s.classes(), s.class_map()
+    html = build_report(results, catalog=catalog, title=title, store_classes=store_classes,
+                        class_map=class_map)
     atomic_write(out, html)
     logger.info("report of %d pulses written to %s", len(results), out)
     return out

@@ -2,7 +2,10 @@
 
 The training table is the join, on ``(catalog_id, event_id)``, of every
 catalog's features with the label store's current labels (status "labelled";
-events in conflict or unlabelled are left out). Cross-validation groups are
+events in conflict or unlabelled are left out), in the store's current classes:
+labels map through the store's renames and merges, and pulses of hidden classes
+are left out (with a warning saying how many). The model's classes are thus
+the store's visible classes that have labels. Cross-validation groups are
 flashes (``catalog_id`` + ``flash_id``; a pulse without flash is its own group).
 """
 
@@ -84,14 +87,25 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
     -------
     pandas.DataFrame
         ``catalog_id, event_id, label, season, station, group, variant`` (0: as recorded;
-        1..: a station variant) then the features.
+        1..: a station variant) then the features. ``label`` is the current class in
+        the store (renames and merges applied); hidden classes are left out.
     """
     parts = []
+    visible = set(store.classes())
     for ci, cat in enumerate(catalogs):
         store.register_catalog(cat)
         labels = store.current_labels([cat.catalog_id], status="labelled")
+        hidden = ~labels["label"].isin(visible)
+        if hidden.any():
+            counts = labels.loc[hidden, "label"].value_counts()
+            logger.warning("%s: %d labelled pulse(s) of hidden class(es) left out of training "
+                           "(%s); 'pulsesort labels classes show NAME' brings a class back",
+                           cat.catalog_id, int(hidden.sum()),
+                           ", ".join(f"{c}: {n}" for c, n in sorted(counts.items())))
+            labels = labels[~hidden]
         if labels.empty:
-            logger.warning("%s: no labelled pulses in the store", cat.catalog_id)
+            logger.warning("%s: no labelled pulses of visible classes in the store",
+                           cat.catalog_id)
             continue
         passes = [catalog_features(cat, **feature_kwargs)]
         kw = dict(feature_kwargs, chunk_size=VARIANT_CHUNK_SIZE)
@@ -108,8 +122,8 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
             parts.append(t)
     if not parts:
         names = ", ".join(c.catalog_id for c in catalogs)
-        raise InputError(f"no labelled pulses for catalog(s) {names} in the store; import "
-                         "labels first (pulsesort labels import ...)")
+        raise InputError(f"no labelled pulses of visible classes for catalog(s) {names} in "
+                         "the store; import labels first (pulsesort labels import ...)")
     table = pd.concat(parts, ignore_index=True)
     table["group"] = table["catalog_id"] + "/" + flash_groups(table["flash_id"],
                                                              table["event_id"])

@@ -101,11 +101,71 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     p.add_argument("--note", metavar="TEXT", help="why")
     _store_arg(p)
 
-    p = add("classes", _classes, "list the classes, or add one")
-    p.add_argument("--add", metavar="NAME", help="new class name (a-z, 0-9, _)")
-    p.add_argument("--description", metavar="TEXT", help="what the new class means")
-    _store_arg(p)
+    p = add("classes", _classes, "the store's own classes: list, add, rename, hide, show, "
+            "merge (history kept; decisions keep the label they were made with)")
+    p.epilog = CLASSES_EPILOG
+    _classes_arguments(p)
     parser.set_defaults(_labels_parser=parser)
+
+
+CLASSES_EPILOG = """\
+classes:
+  Names are 1-40 characters of a-z, 0-9 and '_' starting with a letter, and are
+  never reused. A renamed or merged class keeps its decisions as they were
+  made; the current labels, training, the review page and reports use the new
+  class. A hidden class is not offered on the review page and its labelled
+  pulses are left out of training (its labels stay). Every change is recorded
+  with who, when and why ('labels classes list --history').
+"""
+
+
+def _classes_arguments(p: argparse.ArgumentParser) -> None:
+    """``labels classes ACTION ...``; the old spelling ``classes --add NAME`` still works."""
+    p.add_argument("--add", metavar="NAME", help=argparse.SUPPRESS)
+    p.add_argument("--description", metavar="TEXT", help=argparse.SUPPRESS)
+    _store_arg(p)
+    sub = p.add_subparsers(dest="classes_action", metavar="ACTION")
+
+    def action(name, help_):
+        q = sub.add_parser(name, help=help_, description=help_, epilog=CLASSES_EPILOG,
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        # SUPPRESS: an option not given here keeps the value given before the action
+        q.add_argument("--store", metavar="PATH", default=argparse.SUPPRESS,
+                       help="label store file (default: $PULSESORT_STORE, else "
+                            "./labels.sqlite)")
+        return q
+
+    def who(q, required):
+        q.add_argument("--analyst", metavar="NAME", required=required,
+                       default=argparse.SUPPRESS, help="who makes the change")
+        q.add_argument("--note", metavar="TEXT", default=argparse.SUPPRESS, help="why")
+
+    q = action("list", "every class name: status (visible, hidden, renamed, merged), the "
+               "class it stands for now, its history")
+    q.add_argument("--history", action="store_true", default=argparse.SUPPRESS,
+                   help="every change to the classes instead: who, when, why")
+    q = action("add", "add a class")
+    q.add_argument("name", metavar="NAME", help="new class name (a-z, 0-9, _)")
+    q.add_argument("--description", metavar="TEXT", required=True,
+                   default=argparse.SUPPRESS, help="what the class means")
+    who(q, False)
+    q = action("rename", "rename a class (its decisions keep the old name; current labels "
+               "use the new one)")
+    q.add_argument("old", metavar="OLD")
+    q.add_argument("new", metavar="NEW")
+    q.add_argument("--description", metavar="TEXT", default=argparse.SUPPRESS,
+                   help="a new description (default: the old one)")
+    who(q, True)
+    q = action("hide", "hide a class: not offered on the review page, left out of training")
+    q.add_argument("name", metavar="NAME")
+    who(q, False)
+    q = action("show", "show a hidden class again")
+    q.add_argument("name", metavar="NAME")
+    who(q, False)
+    q = action("merge", "merge classes into another: their current labels become it")
+    q.add_argument("sources", metavar="SOURCE", nargs="+", help="classes to merge")
+    q.add_argument("--into", metavar="TARGET", required=True, help="the class they become")
+    who(q, True)
 
 
 def run(args) -> int:
@@ -201,12 +261,16 @@ def _history(args) -> int:
         catalog = args.catalog_option
     with _open(args) as store:
         h = store.history(args.event_id, catalog)
+        class_map = store.class_map()
     if h.empty:
         print(f"no decisions on event {args.event_id!r}")
         return 0
     cols = ["decision_id", "catalog_id", "decided_at", "analyst", "label", "origin", "note",
             "model_version", "confidence", "source_file"]
     h = h[cols].astype(object)
+    now = h["label"].map(lambda c: class_map.get(c, c) if isinstance(c, str) else None)
+    if (now.notna() & (now != h["label"])).any():  # a class renamed or merged since
+        h.insert(cols.index("label") + 1, "now", now.where(now != h["label"], None))
     h["label"] = h["label"].where(h["label"].notna(), "(retracted)")
     print(_show(h.where(h.notna(), "")))
     return 0
@@ -222,13 +286,69 @@ def _retract(args) -> int:
 
 
 def _classes(args) -> int:
-    if args.description is not None and args.add is None:
-        raise InputError("--description goes with --add NAME")
-    if args.add is not None and args.description is None:
-        raise InputError(f"--add {args.add}: give a --description of the class")
-    with _open(args, create=args.add is not None) as store:
-        if args.add is not None:
+    action = args.classes_action
+    if action is None and args.add is None:
+        if args.description is not None:
+            raise InputError("--description goes with an action: labels classes add NAME "
+                             "--description TEXT")
+        action = "list"
+    elif action is None:  # the old spelling: labels classes --add NAME --description TEXT
+        deprecated("`labels classes --add NAME`", "`labels classes add NAME`")
+        if args.description is None:
+            raise InputError(f"--add {args.add}: give a --description of the class")
+        with _open(args, create=True) as store:
             store.add_class(args.add, args.description)
             echo(args, f"class {args.add!r} added")
-        print(_show(store.class_table()))
+            _print_classes(store)
+        return 0
+    elif args.add is not None:
+        raise InputError(f"--add goes without an action; use: labels classes add {args.add}")
+    analyst, note = getattr(args, "analyst", None), getattr(args, "note", None)
+    with _open(args, create=action == "add") as store:
+        if action == "list":
+            if getattr(args, "history", False):
+                _print_class_history(store)
+            else:
+                _print_classes(store)
+        elif action == "add":
+            store.add_class(args.name, args.description, analyst=analyst, note=note)
+            echo(args, f"class {args.name!r} added (visible)")
+        elif action == "rename":
+            store.rename_class(args.old, args.new, analyst=analyst, note=note,
+                               description=getattr(args, "description", None))
+            echo(args, f"class {args.old!r} renamed to {args.new!r}: decisions keep "
+                       f"{args.old!r}, current labels say {args.new!r}")
+        elif action in ("hide", "show"):
+            (store.hide_class if action == "hide" else store.show_class)(
+                args.name, analyst=analyst, note=note)
+            echo(args, f"class {args.name!r} hidden: not offered on the review page, its "
+                       "labelled pulses left out of training" if action == "hide" else
+                       f"class {args.name!r} shown again")
+        elif action == "merge":
+            store.merge_classes(args.sources, args.into, analyst=analyst, note=note)
+            names = ", ".join(repr(n) for n in args.sources)
+            echo(args, f"{names} merged into {args.into!r}: their current labels are "
+                       f"{args.into!r}")
     return 0
+
+
+def _print_classes(store) -> None:
+    t = store.class_table()
+    shown = t[["name", "status", "current"]].copy()
+    shown["current"] = shown["current"].where(shown["current"] != shown["name"], "")
+    shown["added"] = [a[:10] if isinstance(a, str) else "" for a in t["added_at"]]
+    shown["history"] = t["history"]
+    print(_show(shown.rename(columns={"current": "now"})))
+    print("\nDescriptions:")
+    for name, desc, status in zip(t["name"], t["description"], t["status"], strict=True):
+        if status in ("visible", "hidden"):
+            print(f"  {name}: {desc}")
+
+
+def _print_class_history(store) -> None:
+    h = store.class_history()
+    if h.empty:
+        print("no changes to the classes yet (the store's classes are as created)")
+        return
+    h = h.astype(object)
+    print(_show(h.where(h.notna(), "")))

@@ -16,6 +16,9 @@ def add_arguments(parser):
     parser.add_argument("--catalog", metavar="CATALOG", default=None,
                         help="the catalog folder, for example waveforms per class")
     parser.add_argument("--title", default=None, help="report title")
+    parser.add_argument("--store", metavar="PATH", default=None,
+                        help="label store: also list its classes and say what each class "
+                             "is in it now (renamed, merged, hidden)")
 
 
 def run(args) -> int:
@@ -28,6 +31,7 @@ def run(args) -> int:
     if kind is not None:
         raise InputError(f"{args.results}: no such results file" if kind == "missing" else
                          f"{args.results}: is {kind}, not a results file")
-    out = write_report(args.results, args.out, catalog=args.catalog, title=args.title)
+    out = write_report(args.results, args.out, catalog=args.catalog, title=args.title,
+                       store=args.store)
     echo(args, f"wrote {out}")
     return 0

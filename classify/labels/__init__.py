@@ -7,6 +7,8 @@ parameters). Later steps (training, review, retraining) use its Python API::
     store = LabelStore("labels.sqlite")          # opens, creates or upgrades
     store.import_labels("wren.csv", cat)         # all rows or none
     y = store.current_labels(["hollowmere-2031"], status="labelled")
+    store.rename_class("recoil", "k_change", analyst="wren", note="our term")
+    store.classes()                              # visible classes, stable order
 
 Store
 -----
@@ -16,8 +18,9 @@ keys on, every write one ``BEGIN IMMEDIATE`` transaction with a busy timeout,
 so several processes can write at once. Tables: ``catalogs`` (id, station,
 season, path, content hash of manifest + events table, event count, when
 registered), ``events`` (the event ids of each catalog), ``classes`` (name,
-description, when added), ``import_batches`` (file, SHA-256, when) and
-``decisions`` (plus ``review_marks``, the review page's "unsure"/"skip" marks,
+description, when added), ``class_events`` (the group's changes to its class
+set: add, rename, hide, show, merge; see :mod:`classify.labels._classes`),
+``import_batches`` (file, SHA-256, when) and ``decisions`` (plus ``review_marks``, the review page's "unsure"/"skip" marks,
 created on first use). Decisions are append-only: triggers refuse UPDATE and DELETE,
 a retraction is a new row whose label is NULL. ``schema_version`` records the
 schema; an older store is upgraded in place after a backup (see
@@ -30,7 +33,9 @@ confidence (the model the analyst was looking at, if any), import batch.
 
 Current-label rule
 ------------------
-For each (catalog, event):
+Every label is first mapped to the class it stands for now (through renames
+and merges); the decision keeps the label it was made with. Then, for each
+(catalog, event):
 
 1. Take every analyst's latest decision (by ``decided_at``, ties broken by
    the order of recording), leaving resolutions aside. A retraction as an

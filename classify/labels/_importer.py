@@ -239,7 +239,7 @@ def _check_row(cells, line, col, n_columns, catalog_id, event_ids, classes, defa
     elif label not in classes:
         msgs.append(("label", f"unknown label {_show(label)}; known classes: "
                               f"{', '.join(sorted(classes))} (add one with "
-                              f"'pulsesort labels classes --add NAME --description TEXT')"))
+                              f"'pulsesort labels classes add NAME --description TEXT')"))
     analyst = get("analyst") or default_analyst
     if analyst is None:
         msgs.append(("analyst", "no analyst: add an 'analyst' column or pass --analyst NAME"))

@@ -3,7 +3,9 @@
 Every function takes an open :class:`sqlite3.Connection` (the caller holds a
 read transaction, so all queries of one call see the same snapshot) and
 returns pandas objects. The current-label rule is documented in
-:mod:`classify.labels`.
+:mod:`classify.labels`. Labels are mapped to the store's current classes
+(renames and merges, :mod:`classify.labels._classes`) before the rule is
+applied, so two analysts who chose a class under its old and its new name agree.
 """
 
 from __future__ import annotations
@@ -16,12 +18,14 @@ import pandas as pd
 
 from features import InputError
 
+from . import _classes
+
 STATUSES = ("labelled", "conflict", "unlabelled")
 
 DECISION_COLUMNS = ("decision_id", "catalog_id", "event_id", "label", "analyst",
                     "decided_at", "origin", "note", "model_version", "confidence",
                     "batch_id", "source_file", "source_sha256", "recorded_at")
-CURRENT_COLUMNS = ("catalog_id", "event_id", "label", "status", "resolved", "resolved_by",
+CURRENT_COLUMNS = ("catalog_id", "event_id", "label", "label_as_decided", "status", "resolved", "resolved_by",
                    "n_analysts", "analysts", "decided_at")
 
 
@@ -63,8 +67,9 @@ def decisions(con, catalog_ids=None, event_id=None) -> pd.DataFrame:
 def latest(con, catalog_ids=None, event=None) -> pd.DataFrame:
     """Each analyst's latest non-resolve decision and each event's latest resolve.
 
-    Columns: decision_id, catalog_id, event_id, label, analyst, decided_at (text),
-    origin, is_resolve (bool).
+    Columns: decision_id, catalog_id, event_id, label (mapped to the current
+    class), analyst, decided_at (text), origin, is_resolve (bool),
+    label_as_decided (the label the decision was recorded with).
     """
     where, params = _in("catalog_id", catalog_ids)
     if event is not None:
@@ -84,7 +89,22 @@ def latest(con, catalog_ids=None, event=None) -> pd.DataFrame:
                                      "analyst", "decided_at", "origin"], dtype=object)
     df["decision_id"] = df["decision_id"].astype("int64")
     df["is_resolve"] = (df["origin"] == "resolve").to_numpy(dtype=bool)
+    df["label_as_decided"] = df["label"]
+    df["label"] = map_labels(df["label"].to_numpy(dtype=object), _classes.label_map(con))
     return df
+
+
+def map_labels(labels, mapping) -> np.ndarray:
+    """``labels`` (object array, None for none) with every name in ``mapping`` replaced.
+
+    Vectorised: the mapping is applied to the distinct labels only.
+    """
+    labels = np.asarray(labels, dtype=object)
+    if not mapping or not len(labels):
+        return labels.copy()
+    codes, uniques = pd.factorize(labels)  # a missing label gets code -1
+    new = np.array([mapping.get(u, u) for u in uniques] + [None], dtype=object)
+    return new[codes]
 
 
 def _last_per_group(code: np.ndarray, mask: np.ndarray):
@@ -116,6 +136,8 @@ def rule(lat: pd.DataFrame) -> pd.DataFrame:
     at = lat["decided_at"].to_numpy(dtype=object)
     did = lat["decision_id"].to_numpy(dtype=np.int64)
     label = lat["label"].to_numpy(dtype=object)
+    as_decided = lat["label_as_decided"].to_numpy(dtype=object) \
+        if "label_as_decided" in lat else label
     analyst = lat["analyst"].to_numpy(dtype=object)
     is_res = lat["is_resolve"].to_numpy(dtype=bool)
     has_label = pd.notna(label)
@@ -131,10 +153,12 @@ def rule(lat: pd.DataFrame) -> pd.DataFrame:
     pos, grp = _last_per_group(code, is_res)
     res_at, res_id = spread(pos, grp, at, ""), spread(pos, grp, did, -1)
     res_label, res_by = spread(pos, grp, label, None), spread(pos, grp, analyst, None)
+    res_as_decided = spread(pos, grp, as_decided, None)
     # standing labels: analysts' latest decisions that are not retractions
     live = ~is_res & has_label
     pos, grp = _last_per_group(code, live)
     live_at, any_label = spread(pos, grp, at, ""), spread(pos, grp, label, None)
+    live_as_decided = spread(pos, grp, as_decided, None)
     lc = code[live]
     n_analysts = np.bincount(lc, minlength=n_groups)
     lab_codes, lab_names = pd.factorize(label[live])
@@ -153,11 +177,14 @@ def rule(lat: pd.DataFrame) -> pd.DataFrame:
     status = np.where(wins | (n_labels == 1), "labelled",
                       np.where(n_labels > 1, "conflict", "unlabelled"))
     out_label = np.where(wins, res_label, np.where(n_labels == 1, any_label, None))
+    out_as_decided = np.where(wins, res_as_decided,
+                              np.where(n_labels == 1, live_as_decided, None))
     decided = np.where(wins, res_at, np.where(n_labels > 0, live_at, ana_at))
     return pd.DataFrame({
         "catalog_id": cat[first],
         "event_id": ev[first],
         "label": out_label.astype(object),
+        "label_as_decided": out_as_decided.astype(object),
         "status": status.astype(object),
         "resolved": wins,
         "resolved_by": np.where(wins, res_by, None).astype(object),
@@ -186,7 +213,8 @@ def current_labels(con, catalog_ids=None, status=None, lat=None) -> pd.DataFrame
     df["resolved"] = df["resolved"].fillna(False).astype(bool)
     df["n_analysts"] = df["n_analysts"].fillna(0).astype("int64")
     df["analysts"] = [a if isinstance(a, tuple) else () for a in df["analysts"]]
-    df["label"] = df["label"].astype(object).where(df["label"].notna(), None)
+    for c in ("label", "label_as_decided"):
+        df[c] = df[c].astype(object).where(df[c].notna(), None)
     df["resolved_by"] = df["resolved_by"].astype(object).where(df["resolved_by"].notna(), None)
     df["decided_at"] = _times(df["decided_at"].replace("", None))
     df = df[list(CURRENT_COLUMNS)]

@@ -5,11 +5,17 @@ Schema history
 v1
     catalogs, events, classes (name, description), import_batches, and the
     append-only decisions table (no ``model_version``/``confidence``).
-v2 (current)
+v2
     adds ``decisions.model_version`` and ``decisions.confidence`` (a decision
     made while looking at a model's output records that model and its
     probability) and ``classes.added_at`` (NULL for classes added before v2:
     the time is unknown).
+v3 (current)
+    adds ``class_events``, the append-only history of a group's own class set
+    (add, rename, hide, show, merge; who, when, why). A class's status and the
+    class its name maps to now are derived from that history at query time
+    (:mod:`classify.labels._classes`); decisions keep the label they were made
+    with. A v2 store gets an empty history: every class visible, as before.
 
 An older store is upgraded in place when opened, after a consistent copy of it
 is written to ``<store>.v<N>.bak``. Every migration runs in one transaction.
@@ -27,7 +33,7 @@ from ._values import ORIGINS, STANDARD_CLASSES, utc_now
 
 logger = logging.getLogger("pulsesort")
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 _ORIGIN_LIST = ", ".join(f"'{o}'" for o in ORIGINS)
 
@@ -115,6 +121,29 @@ ALTER TABLE decisions ADD COLUMN confidence REAL
 ALTER TABLE classes ADD COLUMN added_at TEXT;
 """
 
+#: What a class event does (see :mod:`classify.labels._classes`).
+CLASS_ACTIONS = ("add", "rename", "hide", "show", "merge")
+
+_V2_TO_V3 = f"""
+CREATE TABLE class_events (
+    class_event_id  INTEGER PRIMARY KEY AUTOINCREMENT,
+    action          TEXT NOT NULL CHECK (action IN ({", ".join(f"'{a}'" for a in CLASS_ACTIONS)})),
+    name            TEXT NOT NULL REFERENCES classes(name),
+    target          TEXT REFERENCES classes(name),
+    analyst         TEXT CHECK (analyst IS NULL OR length(analyst) > 0),
+    note            TEXT,
+    at              TEXT NOT NULL,
+    CHECK ((target IS NULL) = (action IN ('add', 'hide', 'show'))),
+    CHECK (target IS NULL OR target != name)
+);
+CREATE TRIGGER class_events_no_update BEFORE UPDATE ON class_events
+BEGIN SELECT RAISE(ABORT, 'class events are append-only'); END;
+CREATE TRIGGER class_events_no_delete BEFORE DELETE ON class_events
+BEGIN SELECT RAISE(ABORT, 'class events are append-only'); END;
+CREATE TRIGGER classes_same_name BEFORE UPDATE OF name ON classes
+BEGIN SELECT RAISE(ABORT, 'a class keeps its name: rename it with a class event'); END;
+"""
+
 #: What the review page records when an analyst looks at a pulse without
 #: labelling it: ``unsure``, ``skip``, or ``withdrawn`` (takes the analyst's
 #: standing mark on the event back). Not labels, so not in ``decisions``;
@@ -143,9 +172,10 @@ BEGIN SELECT RAISE(ABORT, 'review marks are append-only'); END;
 """
 
 #: Statements that take a store from version N to N + 1.
-MIGRATIONS = {1: _V1_TO_V2}
+MIGRATIONS = {1: _V1_TO_V2, 2: _V2_TO_V3}
 
-TABLES = ("schema_version", "catalogs", "events", "classes", "import_batches", "decisions")
+TABLES = ("schema_version", "catalogs", "events", "classes", "import_batches", "decisions",
+          "class_events")
 
 
 def connect(path: Path, timeout_s: float) -> sqlite3.Connection:
@@ -191,7 +221,7 @@ def current_version(con: sqlite3.Connection, path: Path) -> int | None:
 def create(con: sqlite3.Connection) -> None:
     """Create a current-version store (the caller holds a write transaction)."""
     now = utc_now()
-    for stmt in _statements(SCHEMA_V1 + _V1_TO_V2):
+    for stmt in _statements(SCHEMA_V1 + _V1_TO_V2 + _V2_TO_V3):
         con.execute(stmt)
     con.execute("INSERT INTO schema_version (version, applied_at) VALUES (?, ?)",
                 (SCHEMA_VERSION, now))

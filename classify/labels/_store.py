@@ -13,15 +13,10 @@ import pandas as pd
 from features import InputError
 from features._checks import describe_path_kind
 
-from . import _export, _marks, _query, _schema, _writes
+from . import _classes, _export, _marks, _query, _schema, _writes
+from ._classes import ClassesMixin
 from ._importer import read_labels_file
-from ._values import (
-    check_class_name,
-    check_confidence,
-    check_name,
-    check_text,
-    utc_now,
-)
+from ._values import check_confidence, check_name
 from ._writes import ImportReport
 
 logger = logging.getLogger("pulsesort")
@@ -38,7 +33,7 @@ def default_store_path() -> Path:
     return Path(os.environ.get(STORE_ENV) or DEFAULT_STORE)
 
 
-class LabelStore:
+class LabelStore(ClassesMixin):
     """Analysts' decisions in an SQLite file: append-only, with provenance.
 
     Parameters
@@ -53,6 +48,10 @@ class LabelStore:
 
     Notes
     -----
+    The class-set methods (``classes``, ``class_table``, ``add_class``,
+    ``rename_class``, ``hide_class``, ``show_class``, ``merge_classes``...) are
+    documented in :mod:`classify.labels._classes`.
+
     Opening a store written by an older schema upgrades it in place after a
     backup copy ``<store>.v<N>.bak``. Every write is one ``BEGIN IMMEDIATE``
     transaction: it either happens whole or not at all, and concurrent writers
@@ -188,31 +187,6 @@ class LabelStore:
             return pd.DataFrame(rows.fetchall(), columns=[
                 "catalog_id", "station", "season", "n_events", "content_hash", "path",
                 "registered_at"])
-
-    # ------------------------------------------------------------------ classes
-
-    def classes(self) -> list[str]:
-        """Class names, in the order they were added."""
-        with self._read() as con:
-            return [r[0] for r in con.execute("SELECT name FROM classes ORDER BY rowid")]
-
-    def class_table(self) -> pd.DataFrame:
-        """Classes with their description and when they were added (None: before v2)."""
-        with self._read() as con:
-            rows = con.execute("SELECT name, description, added_at FROM classes ORDER BY rowid")
-            return pd.DataFrame(rows.fetchall(), columns=["name", "description", "added_at"])
-
-    def add_class(self, name: str, description: str) -> None:
-        """Add a class (e.g. ``other``); classes are never removed."""
-        check_class_name(name)
-        check_text(description, "description", allow_newlines=False)
-        if not description.strip():
-            raise InputError(f"class {name!r}: give a --description of what it means")
-        with self._write() as con:
-            if con.execute("SELECT 1 FROM classes WHERE name = ?", (name,)).fetchone():
-                raise InputError(f"class {name!r} already exists in {self.path}")
-            con.execute("INSERT INTO classes (name, description, added_at) VALUES (?, ?, ?)",
-                        (name, description, utc_now()))
 
     # ------------------------------------------------------------------ decisions
 
@@ -389,6 +363,13 @@ class LabelStore:
         with self._write() as con:
             registered = _writes.register(con, self.path, catalog)
             report = _writes.import_rows(con, parsed, catalog.catalog_id, analyst, registered)
+            retired = _classes.label_map(con)
+        old = sorted({r.label for r in parsed.rows if r.label in retired})
+        if old:
+            logger.warning("%s: %d row(s) use retired class names; they count for the class "
+                           "each stands for now: %s", path,
+                           sum(r.label in retired for r in parsed.rows),
+                           ", ".join(f"{n} -> {retired[n]}" for n in old))
         logger.debug("%s: %d rows, %d added, %d already in the store", path, report.n_rows,
                     report.n_added, report.n_present)
         return report
@@ -421,9 +402,12 @@ class LabelStore:
         Returns
         -------
         pandas.DataFrame
-            Columns catalog_id, event_id, label (None unless labelled), status,
-            resolved (bool), resolved_by, n_analysts, analysts (tuple of names
-            with a standing label), decided_at (UTC); catalog row order.
+            Columns catalog_id, event_id, label (the current class, mapped through
+            renames and merges; None unless labelled), label_as_decided (the label
+            of the deciding decision as it was recorded: the resolution's, or the
+            newest agreeing analyst's), status, resolved (bool), resolved_by,
+            n_analysts, analysts (tuple of names with a standing label),
+            decided_at (UTC, of that decision); catalog row order.
         """
         with self._read() as con:
             return _query.current_labels(con, catalog_ids, status)
@@ -456,7 +440,7 @@ class LabelStore:
     def stats(self, catalog_ids=None) -> dict[str, pd.DataFrame]:
         """Counts: ``catalogs`` (by status), ``classes`` (per catalog), ``analysts``."""
         with self._read() as con:
-            classes = [r[0] for r in con.execute("SELECT name FROM classes ORDER BY rowid")]
+            classes = _classes.in_use(_classes.load(con), include_hidden=True)
             return _query.stats(con, classes, catalog_ids)
 
     def import_batches(self, catalog_ids=None) -> pd.DataFrame:

@@ -17,6 +17,7 @@ from pathlib import Path
 
 from features import InputError
 
+from . import _classes
 from ._values import check_name, check_text, parse_time, utc_now
 
 logger = logging.getLogger("pulsesort")
@@ -121,10 +122,12 @@ def insert(con, store_path, catalog_id, event_id, label, analyst, origin, note, 
     if note is not None:
         check_text(note, "note", allow_newlines=True)
     check_event(con, store_path, catalog_id, event_id)
-    if label is not None and not con.execute(
-            "SELECT 1 FROM classes WHERE name = ?", (label,)).fetchone():
-        known = ", ".join(r[0] for r in con.execute("SELECT name FROM classes"))
-        raise InputError(f"unknown label {label!r}; known classes: {known}")
+    if label is not None:
+        states = _classes.load(con)
+        if label not in states:
+            known = ", ".join(_classes.in_use(states, include_hidden=True))
+            raise InputError(f"unknown label {label!r}; known classes: {known}")
+        _classes.check_in_use(states, label, store_path, "label")  # a retired name
     # A retraction or resolution must be newer than what it overrides.
     if origin == "resolve":
         prev = con.execute("SELECT MAX(decided_at) FROM decisions WHERE catalog_id = ?"

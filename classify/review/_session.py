@@ -10,7 +10,10 @@ of the results row and the model's probability):
 ``label``
     ``LabelStore.record_decision(..., origin="review", confidence=p_<label>)``:
     the probability the page showed for the chosen class (None if the model
-    has no such class).
+    has no such class). A model trained before the store renamed or merged
+    classes has ``p_`` columns under the old names: the class's probability is
+    then the sum over the model classes that map to it (the probability of
+    their union).
 ``unsure`` / ``skip``
     ``LabelStore.record_review_mark(..., mark)`` with the model's confidence in
     its own top label: a review mark, not a label (no class is invented for
@@ -35,7 +38,7 @@ from features import InputError
 from ._help import REVIEW_REASONS, priority_parts, priority_rule
 from ._lookalike import LookAlikes, lookalike_classes, store_labels
 from ._pulse import pulse_view
-from ._queue import build_queue
+from ._queue import build_queue, probability_columns
 from ._sources import flash_codes
 
 logger = logging.getLogger("pulsesort")
@@ -108,7 +111,8 @@ class ReviewSession:
         self._rows = rows
         with LabelStore(store_path) as store:
             store.register_catalog(catalog)
-            self.classes = store.classes()
+            self.classes = store.classes()  # the visible classes, in the store's order
+            class_map = store.class_map()
             self.queue = build_queue(self.results, store, cid, budget, analyst=analyst,
                                      revisit=revisit)
             labels = store_labels(store, None if model is not None else [cid])
@@ -124,6 +128,10 @@ class ReviewSession:
         self._history: list[dict] = []
         self._views: OrderedDict[str, dict] = OrderedDict()
         self._queue_ids = list(self.queue["event_id"].astype(str))
+        self._class_map = class_map
+        # the results' probability columns that count for each store class
+        self._p_columns = {c: [col for col in probability_columns(self.results)
+                               if class_map.get(col[2:], col[2:]) == c] for c in self.classes}
         logger.info("review of %s by %s: %d pulses queued", cid, analyst, len(self.queue))
 
     # ------------------------------------------------------------------ reading
@@ -166,6 +174,8 @@ class ReviewSession:
             m = view["model"]
             wanted = lookalike_classes(m["prediction_set"], [(p["class"], p["p"]) for p in
                                                              m["probabilities"]])
+            if self.lookalikes.source == "store":  # labels in the store's current classes
+                wanted = list(dict.fromkeys(self._class_map.get(c, c) for c in wanted))
             view["lookalikes"] = self.lookalikes.find(eid, wanted)
             view["why"] = _attributions(self.attributions, res)
             self._views[eid] = view
@@ -219,7 +229,7 @@ class ReviewSession:
             cid = self.catalog.catalog_id
             with LabelStore(self.store_path) as store:
                 if action == "label":
-                    conf = _num(res.get(f"p_{label}"))
+                    conf = self._class_probability(res, label)
                     did = store.record_decision(cid, event_id, label, analyst=self.analyst,
                                                 origin="review", note=note,
                                                 model_version=version, confidence=conf)
@@ -238,6 +248,12 @@ class ReviewSession:
                 self._views.clear()  # look-alikes of the next pulses may change
             logger.info("review: %s %s %s", event_id, action, label or "")
             return self.current()
+
+    def _class_probability(self, res, label):
+        """The model's probability of store class ``label`` (None if no model class maps to it)."""
+        values = [_num(res.get(col)) for col in self._p_columns.get(label, [])]
+        values = [v for v in values if v is not None]
+        return min(1.0, sum(values)) if values else None
 
     def undo(self) -> dict:
         """Withdraw this session's last decision; that pulse is on screen again."""

@@ -147,3 +147,20 @@ def test_card_of_a_catalog_without_labels(tmp_path):
     assert "| unlabelled | 12 | 100.0 % |" in text
     assert "No decisions on this catalog in the store." in text
     assert "Fewer than two analysts" in text
+
+
+def test_card_shows_the_class_set_and_counts_in_current_classes(labelled):
+    """After a merge and a hide, the card counts mapped labels and lists the class changes."""
+    cat, store = labelled
+    store.merge_classes(["narrow_bipolar"], "recoil", analyst="wren", note="one kind here")
+    store.hide_class("stepped_leader", analyst="tamsin")
+    labels = _section(render_data_card(cat, store), "Labels")
+    # ev001 was a conflict recoil/narrow_bipolar: now both say recoil
+    assert "| labelled | 5 | 41.7 % |" in labels and "| conflict | 0 | 0.0 % |" in labels
+    assert "| `recoil` | 4 | 80.0 % |" in labels      # ev000, ev001, ev002, ev004
+    assert "| `stepped_leader` (hidden) | 1 | 20.0 % |" in labels
+    assert "`narrow_bipolar`" not in labels.split("### Per class", 1)[1].split("###")[0]
+    assert "| `narrow_bipolar` | merged | `recoil` | merged into recoil on " in labels
+    assert "| `stepped_leader` | hidden |  | hidden on " in labels and "by tamsin" in labels
+    gaps = _section(render_data_card(cat, store), "Known gaps and caveats")
+    assert "stepped_leader" not in gaps  # a hidden class is not a training gap

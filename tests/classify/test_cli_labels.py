@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import shutil
 from pathlib import Path
 
@@ -149,18 +150,93 @@ def test_export_round_trip_through_the_cli(season, capsys):
 
 
 def test_classes_list_and_add(season, capsys):
-    """labels classes lists the four standard classes; --add needs --description."""
+    """labels classes lists the four standard classes; add needs --description."""
     code, out, _ = _run(capsys, "labels", "classes")
     assert code == 2  # no store yet, and listing does not create one
-    code, out, _ = _run(capsys, "labels", "classes", "--add", "other", "--description",
+    code, out, _ = _run(capsys, "labels", "classes", "add", "other", "--description",
                         "fits no standard class")
     assert code == 0 and "class 'other' added" in out
+    code, out, _ = _run(capsys, "labels", "classes", "list")
     for name in ("narrow_bipolar", "stepped_leader", "recoil", "energetic_in_cloud", "other"):
         assert name in out
+    code, _, err = _run(capsys, "labels", "classes", "add", "spare")
+    assert code == 2 and "--description" in err
+    code, _, err = _run(capsys, "labels", "classes", "add", "Bad Name", "--description", "x")
+    assert code == 2 and "1-40 characters of a-z" in err
+
+
+def test_classes_old_add_spelling_still_works(season, capsys, caplog):
+    """The old `labels classes --add NAME --description TEXT` adds, with a note."""
+    with caplog.at_level(logging.WARNING, logger="pulsesort"):
+        code, out, _ = _run(capsys, "labels", "classes", "--add", "other", "--description",
+                            "fits no standard class")
+    assert code == 0 and "class 'other' added" in out and "narrow_bipolar" in out
+    assert "`labels classes --add NAME` is deprecated" in caplog.text
     code, _, err = _run(capsys, "labels", "classes", "--add", "spare")
     assert code == 2 and "give a --description" in err
-    code, _, err = _run(capsys, "labels", "classes", "--add", "Bad Name", "--description", "x")
-    assert code == 2 and "1-40 characters of a-z" in err
+
+
+def test_classes_rename_hide_merge_through_the_cli(season, capsys):
+    """rename, hide, show, merge and list --history, each with --store after the action."""
+    assert _run(capsys, "labels", "import", "wren.csv", "--catalog", CID,
+                "--store", "s.sqlite")[0] == 0
+    code, out, _ = _run(capsys, "labels", "classes", "rename", "recoil", "k_change",
+                        "--analyst", "wren", "--note", "our term", "--store", "s.sqlite")
+    assert code == 0 and "'recoil' renamed to 'k_change'" in out
+    code, out, _ = _run(capsys, "-q", "labels", "classes", "hide", "energetic_in_cloud",
+                        "--store", "s.sqlite")
+    assert code == 0 and out == ""  # -q drops the summary
+    code, out, _ = _run(capsys, "labels", "classes", "merge", "narrow_bipolar",
+                        "stepped_leader", "--into", "k_change", "--analyst", "tamsin",
+                        "--store", "s.sqlite")
+    assert code == 0 and "'narrow_bipolar', 'stepped_leader' merged into 'k_change'" in out
+    code, out, _ = _run(capsys, "labels", "classes", "--store", "s.sqlite", "list")
+    assert code == 0
+    table = out.split("\n\n")[0].splitlines()[1:]
+    rows = {line.split()[0]: line.split()[1:3] for line in table}
+    assert list(rows)[:3] == ["k_change", "energetic_in_cloud", "narrow_bipolar"]
+    assert rows["recoil"] == ["renamed", "k_change"]
+    assert rows["narrow_bipolar"] == ["merged", "k_change"]
+    assert rows["energetic_in_cloud"][0] == "hidden"
+    code, out, _ = _run(capsys, "labels", "classes", "list", "--history", "--store",
+                        "s.sqlite")
+    assert code == 0 and "our term" in out and "tamsin" in out
+    assert [line.split()[1] for line in out.splitlines()[1:]] == ["rename", "hide", "merge",
+                                                                  "merge"]
+    code, out, _ = _run(capsys, "labels", "history", CID, "ev000", "--store", "s.sqlite")
+    header, row = out.splitlines()[:2]
+    assert header.split()[4:6] == ["label", "now"] and row.split()[5:7] == ["recoil",
+                                                                           "k_change"]
+    with LabelStore("s.sqlite", create=False) as s:
+        cur = s.current_labels(status="labelled")
+        assert set(cur["label"]) == {"k_change"}
+        assert set(cur["label_as_decided"]) == {"recoil", "narrow_bipolar"}
+        assert set(s.decisions()["label"]) == {"recoil", "narrow_bipolar"}
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["rename", "recoil", "stepped_leader", "--analyst", "wren"],
+     "class name 'stepped_leader' is taken"),
+    (["rename", "hail", "ice", "--analyst", "wren"], "class 'hail' is not a class of"),
+    (["merge", "recoil", "--into", "hail", "--analyst", "wren"], "merge target 'hail'"),
+    (["hide", "Recoil"], "'Recoil' is not a class of"),
+    (["show", "recoil"], "already visible"),
+    (["rename", "recoil", "k"], "the following arguments are required: --analyst"),
+])
+def test_classes_bad_changes_exit_2(season, capsys, argv, message):
+    """Collisions and unknown names exit 2 with a message naming them; nothing changes."""
+    assert _run(capsys, "labels", "import", "wren.csv", "--catalog", CID)[0] == 0
+    code, _, err = _run(capsys, "labels", "classes", *argv)
+    assert code == 2 and message in err
+    with LabelStore("labels.sqlite", create=False) as s:
+        assert s.class_history().empty
+
+
+def test_classes_on_a_missing_store_create_nothing(season, capsys):
+    """Only 'add' may create a store; the other actions name the missing file."""
+    code, _, err = _run(capsys, "labels", "classes", "hide", "recoil", "--store", "no.sqlite")
+    assert code == 2 and "no.sqlite: no label store here" in err
+    assert not (season / "no.sqlite").exists()
 
 
 def test_help_documents_the_rule_and_the_store(capsys):

@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 from sklearn.metrics import cohen_kappa_score
 
-from classify.labels import STANDARD_CLASSES, LabelStore
+from classify.labels import SCHEMA_VERSION, STANDARD_CLASSES, LabelStore
 from classify.labels._values import parse_time
 from features import InputError
 
@@ -40,9 +40,9 @@ def _label(store, event_id):
 def test_new_store_has_schema_tables_and_standard_classes(tmp_path):
     """A new store is at the current schema with the four standard classes, in order."""
     s = LabelStore(tmp_path / "new.sqlite")
-    assert s.schema_version == 2
-    assert s.tables() == ["catalogs", "classes", "decisions", "events", "import_batches",
-                          "schema_version"]
+    assert s.schema_version == SCHEMA_VERSION == 3
+    assert s.tables() == ["catalogs", "class_events", "classes", "decisions", "events",
+                          "import_batches", "schema_version"]
     assert s.classes() == ["narrow_bipolar", "stepped_leader", "recoil", "energetic_in_cloud"]
     assert [c for c, _ in STANDARD_CLASSES] == s.classes()
     assert s.class_table()["added_at"].notna().all()

@@ -15,7 +15,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from classify.labels import LabelStore
+from classify.labels import SCHEMA_VERSION, LabelStore
 from classify.labels._schema import SCHEMA_V1
 from classify.labels._writes import PAUSE_ENV
 from features import InputError
@@ -132,7 +132,7 @@ def test_hostile_note_is_stored_verbatim(tmp_path, text):
         s.export_labels(tmp_path / "out.csv", history=True)
         notes = s.decisions()["note"].tolist()
         assert notes == [text, text]
-        assert s.tables() == ["catalogs", "classes", "decisions", "events",
+        assert s.tables() == ["catalogs", "class_events", "classes", "decisions", "events",
                               "import_batches", "schema_version"]
         assert s.check_integrity() == []
     back = LabelStore(tmp_path / "back.sqlite")
@@ -225,12 +225,12 @@ def _write_v1_store(path, cat, content_hash=None):
 
 
 def test_v1_store_is_upgraded_in_place_with_a_backup(tmp_path):
-    """Opening a v1 store backs it up to <store>.v1.bak, then upgrades it to v2."""
+    """Opening a v1 store backs it up to <store>.v1.bak, then upgrades it to the current schema."""
     cat = tiny_catalog(tmp_path / "cat")
     path = tmp_path / "labels.sqlite"
     _write_v1_store(path, cat)
     with LabelStore(path) as s:
-        assert s.schema_version == 2
+        assert s.schema_version == SCHEMA_VERSION == 3
         dec = s.decisions()
         assert dec["label"].tolist() == ["recoil", "other"]
         assert dec["note"].tolist() == ["old", None]
@@ -251,7 +251,7 @@ def test_v1_store_is_upgraded_in_place_with_a_backup(tmp_path):
     con.close()
     # opening again changes nothing and makes no second backup
     with LabelStore(path) as s:
-        assert s.schema_version == 2 and len(s.decisions()) == 3
+        assert s.schema_version == SCHEMA_VERSION == 3 and len(s.decisions()) == 3
     assert sorted(p.name for p in tmp_path.glob("labels.sqlite.v*")) == ["labels.sqlite.v1.bak"]
 
 
@@ -284,8 +284,10 @@ def test_store_from_a_newer_version_is_refused(tmp_path):
     path = tmp_path / "labels.sqlite"
     LabelStore(path).close()
     con = sqlite3.connect(path)
-    con.execute("INSERT INTO schema_version VALUES (3, '2032-01-01T00:00:00.000000Z')")
+    con.execute("INSERT INTO schema_version VALUES (?, '2032-01-01T00:00:00.000000Z')",
+                (SCHEMA_VERSION + 1,))
     con.commit()
     con.close()
-    with pytest.raises(ValueError, match="written by a newer pulsesort .schema v3"):
+    with pytest.raises(ValueError, match=f"written by a newer pulsesort .schema "
+                                         f"v{SCHEMA_VERSION + 1}"):
         LabelStore(path)

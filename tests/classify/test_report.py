@@ -161,3 +161,43 @@ def test_report_shows_feature_distributions_per_class(triaged):
         assert any(re.search(r"\([^()]+\)$", t) for t in texts), texts
     for c in res["label"].unique():
         assert f"&#9632; {c}</span>" in section
+
+
+def _class_rows(html: str) -> dict[str, list[str]]:
+    """The rows of the report's class table (the first table after <h2>Classes</h2>)."""
+    part = html.split("<h2>Classes</h2>", 1)[1].split("</table>", 1)[0]
+    rows = re.findall(r"<tr>(.*?)</tr>", part.split("<tbody>", 1)[1])
+    return {cells[0]: cells[1:] for cells in
+            (re.findall(r"<td>(.*?)</td>", r) for r in rows)}
+
+
+def test_report_lists_the_store_classes_and_their_state(triaged, tmp_path, capsys):
+    """With --store: the store's new classes are listed (0 pulses) and renamed ones say so."""
+    from classify.labels import LabelStore
+
+    cat_dir, out = triaged
+    store = tmp_path / "labels.sqlite"
+    with LabelStore(store) as s:
+        s.add_class("return_stroke", "CG return stroke", analyst="wren")
+        s.rename_class("recoil", "k_change", analyst="wren")
+        s.hide_class("energetic_in_cloud")
+    html_out = tmp_path / "r.html"
+    assert main(["-q", "report", str(out), "--out", str(html_out), "--store", str(store)]) == 0
+    html = html_out.read_text(encoding="utf-8")
+    rows = _class_rows(html)
+    # the rules' four classes (p_ columns), then the store's classes the results lack
+    assert list(rows) == ["energetic_in_cloud", "narrow_bipolar", "recoil", "stepped_leader",
+                          "k_change", "return_stroke"]
+    assert rows["return_stroke"][0] == "0" and rows["return_stroke"][-1] == "store class"
+    assert rows["recoil"][-1] == "now k_change (renamed or merged)"
+    assert rows["energetic_in_cloud"][-1] == "hidden in the store"
+    assert rows["narrow_bipolar"][-1] == "store class"
+    # the hourly table has a column for every listed class
+    assert "<th>return_stroke</th>" in html.split("Class counts per hour", 1)[1]
+    # without the store: the results' classes only, no store column
+    assert main(["-q", "report", str(out), "--out", str(html_out)]) == 0
+    rows = _class_rows(html_out.read_text(encoding="utf-8"))
+    assert list(rows) == ["energetic_in_cloud", "narrow_bipolar", "recoil", "stepped_leader"]
+    assert all(len(r) == 4 for r in rows.values())
+    code = main(["report", str(out), "--out", str(html_out), "--store", str(tmp_path / "no")])
+    assert code == 2 and "no label store here" in capsys.readouterr().err

@@ -517,3 +517,32 @@ def test_two_hundred_concurrent_connections_are_all_answered(served):
     with ThreadPoolExecutor(n) as pool:
         statuses = list(pool.map(one, range(n)))
     assert statuses == ["HTTP/1.1 200 OK"] * n, Counter(statuses)
+
+
+def test_class_buttons_and_lookalikes_follow_the_store_classes(triaged, tmp_path):
+    """After a rename and a hide, the page offers the store's visible classes in order, and
+    the rules' 'recoil' look-alikes (store mode) are the pulses labelled under 'k_change'."""
+    cat_dir, out = triaged
+    results, cat = read_results(out), open_catalog(cat_dir)
+    store = tmp_path / "labels.sqlite"
+    first = ReviewSession(results, cat, store, ANALYST)
+    eid = first.current()["pulse"]["event_id"]
+    first.decide(eid, "label", "recoil")
+    with LabelStore(store) as s:
+        s.add_class("return_stroke", "CG return stroke", analyst=ANALYST)
+        s.rename_class("recoil", "k_change", analyst=ANALYST)
+        s.hide_class("energetic_in_cloud")
+    session = ReviewSession(results, cat, store, ANALYST)
+    assert [(c["name"], c["key"]) for c in session.info()["classes"]] == [
+        ("narrow_bipolar", "1"), ("stepped_leader", "2"), ("k_change", "3"),
+        ("return_stroke", "4")]
+    seen = 0
+    for i in range(min(25, session.n_queued)):
+        groups = {g["class"]: g for g in session._view(i)["lookalikes"]}
+        assert "recoil" not in groups  # the rules' class, shown under its store name
+        if "k_change" in groups:
+            assert [it["event_id"] for it in groups["k_change"]["items"]] == [eid]
+            seen += 1
+    assert seen > 0
+    with pytest.raises(ValueError, match="unknown class 'recoil'"):
+        session.decide(session.current()["pulse"]["event_id"], "label", "recoil")
