@@ -16,7 +16,8 @@ A group's first season has no labels. :func:`cold_start` classifies it in two st
 
 Analysts' first labels of the season (``store``) are **anchors**: they join every
 round's training set with their own label (weight :data:`ANCHOR_WEIGHT`) and override
-the rules; a class the rules do not know (a group's own class) is learnt from them.
+the rules; a class the rules do not know (a group's own class) is learnt from them, and a
+pulse the rules call ``other`` that the model puts in such a class takes it.
 
 The results have the columns of a trained model's; ``model_version`` says
 ``self-trained from rules-3`` (or ``rules-3`` for the rules alone).
@@ -197,6 +198,12 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1) -> dict:
     proba = model.predict_proba(X)
     # the pulses the last fit trained on are scored out of fold (honest probabilities)
     proba[fit_rows] = model.oof_proba_
+    # a pulse the rules call "other" that the model gives a class only the analysts'
+    # labels taught it (a group's own class) takes that class
+    learnt = ~np.isin(classes, rules.CLASSES)
+    if learnt.any():
+        own = learnt[np.argmax(proba, axis=1)]
+        other = other & ~own
     relaxed = proba
     q = season_thresholds(proba[usable & ~other], coverage, model.conformal_thresholds_)
     sets = (1.0 - proba) <= q[None, :] + 1e-12

@@ -61,9 +61,17 @@ energetic_in_cloud (EIP)
     > 8 us, width > 25 us, FWHM > 3 us; bipolar; VHF weak for its size (not the season's
     strongest); at 7-14 km when known; early in its flash (< 20 ms) when known.
 other: return strokes
-    slow and long: initial half-cycle or zero crossing > 30 us, or unipolar with a width
-    > 40 us, with sources reaching near the ground (< 2 km) when known (Rakov & Uman
-    2003, ch. 4: return-stroke fields at 50-200 km cross zero after tens of us).
+    slow: initial half-cycle or zero crossing > 15-25 us (or, unipolar, a width > 40 us),
+    FWHM > 3-5 us, a small overshoot (bipolarity < 0.25-0.45), sources reaching low (< 2-4
+    km) when known, smaller than an EIP (TL current < 80-150 kA), after the leader (> 2-10
+    ms into the flash) when known (Rakov & Uman 2003, ch. 4: return-stroke fields at
+    50-200 km cross zero after tens of us; from memory).
+other: initial-breakdown pulses
+    bipolar (bipolarity > 0.2) and wide (15-60 us in all), in a train of comparable
+    pulses 30-300 us apart in the record, early in the flash (< 20 ms) when known, not
+    EIP-sized (TL current < 60-100 kA)
+    (Rakov & Uman 2003, ch. 4: preliminary-breakdown pulses of CG flashes, 20-40 us
+    wide, tens to hundreds of us apart, in the first milliseconds; from memory).
 """
 
 from __future__ import annotations
@@ -80,6 +88,9 @@ CLASSES = ("energetic_in_cloud", "narrow_bipolar", "recoil", "stepped_leader")
 SHARPNESS = 3.0
 #: Below this best score a pulse fits no class ("other").
 OTHER_BELOW = 0.3
+#: ... and so does a pulse the return-stroke or initial-breakdown criteria fit better than
+#: its best class by this margin.
+OTHER_MARGIN = 0.2
 _FLOOR = 0.02
 #: The leader's train criterion for a pulse alone in its record.
 NO_TRAIN = 0.35
@@ -237,22 +248,48 @@ def rule_scores(df: pd.DataFrame, reference=None) -> pd.DataFrame:
 
 def _return_stroke_score(df, reference=None):
     f = _get(df, reference)
-    slow = np.fmax(_ramp_up(f["initial_half_cycle_s"], 25e-6, 35e-6),
-                   _ramp_up(f["zero_crossing_s"], 25e-6, 35e-6))
-    long_unipolar = np.fmin(_ramp_down(f["bipolarity"], 0.05, 0.15, log=False),
-                            _ramp_up(f["width_s"], 40e-6, 60e-6))
-    shape = np.fmax(np.nan_to_num(slow), np.nan_to_num(long_unipolar))
-    low = _ramp_down(f["altitude_m"], 1.5e3, 3e3, log=False)
-    return _combine(shape, low)
+    slow = np.fmax(_ramp_up(f["initial_half_cycle_s"], 15e-6, 25e-6),
+                   _ramp_up(f["zero_crossing_s"], 15e-6, 25e-6))
+    slow = np.where(np.isnan(f["initial_half_cycle_s"]) & np.isnan(f["zero_crossing_s"]),
+                    _ramp_up(f["width_s"], 40e-6, 60e-6), slow)
+    return _combine(
+        slow,
+        _ramp_up(f["fwhm_s"], 3e-6, 5e-6),
+        _ramp_down(f["bipolarity"], 0.25, 0.45, log=False),
+        _ramp_down(f["altitude_m"], 2e3, 4e3, log=False),
+        _ramp_down(f["current"], 80e3, 150e3),
+        _ramp_up(f["time_in_flash_s"], 2e-3, 10e-3),
+    )
+
+
+def _initial_breakdown_score(df, reference=None):
+    f = _get(df, reference)
+    ratio = f["largest_neighbour_ratio"]
+    train = np.where(f["n_neighbours"] > 0, _ramp_up(ratio, 0.3, 0.6, log=False), 0.0)
+    train = np.where(np.isfinite(f["n_neighbours"]), train, np.nan)
+    return _combine(
+        _band(f["width_s"], 10e-6, 15e-6, 60e-6, 90e-6),
+        _ramp_up(f["bipolarity"], 0.15, 0.3, log=False),
+        train,
+        _band(f["neighbour_interval_s"], 15e-6, 30e-6, 300e-6, 500e-6),
+        _ramp_down(f["time_in_flash_s"], 20e-3, 50e-3),
+        _ramp_down(f["current"], 60e3, 100e3),
+        _ramp_down(f["norm_peak"], 8.0, 15.0),
+    )
 
 
 def other_pulses(df: pd.DataFrame, scores: pd.DataFrame | None = None,
                  reference=None) -> np.ndarray:
-    """Pulses that fit none of the four classes (bool, one per row)."""
+    """Pulses that fit none of the four classes (bool, one per row).
+
+    Those whose best class score is below :data:`OTHER_BELOW`, and those the return-stroke
+    or initial-breakdown criteria fit better than any class (by :data:`OTHER_MARGIN`).
+    """
     s = rule_scores(df, reference) if scores is None else scores
     best = s.to_numpy().max(axis=1)
     rs = _return_stroke_score(df, reference)
-    return (best < OTHER_BELOW) | (rs > best)
+    ib = _initial_breakdown_score(df, reference)
+    return (best < OTHER_BELOW) | (rs > best + OTHER_MARGIN) | (ib > best + OTHER_MARGIN)
 
 
 def rule_proba(df: pd.DataFrame, reference=None, scores=None) -> np.ndarray:
