@@ -7,7 +7,9 @@
 4. simulate the next season (hollowmere-2032) with other instrument settings
    (atmospheric sign convention, int16 counts, another field sample rate) and
    another class mix;
-5. triage it, and score the triage against the simulator's truth;
+5. triage it without any label first (the cold start a group's first season gets:
+   rules, then self-training), then with the 2031 model, and score both against the
+   simulator's truth;
 6. write the data card of the labelled season.
 
 Everything is invented (station, seasons, analysts); nothing is real data.
@@ -50,6 +52,19 @@ def _second_opinion(labels: pd.DataFrame, n: int, n_disagree: int, seed: int) ->
     sub["decided_at"] = "2031-11-02T09:30:00Z"
     sub["note"] = ""
     return sub
+
+
+def _score(results, truth):
+    """Macro-F1, share sent to review and accuracy of the rest, against the truth."""
+    from sklearn.metrics import f1_score
+
+    res = read_results(results)
+    joined = res.merge(truth[["event_id", "label"]], on="event_id", suffixes=("", "_true"))
+    f1 = f1_score(joined["label_true"], joined["label"], average="macro",
+                  labels=sorted(set(joined["label_true"])))
+    auto = joined[~joined["needs_review"]]
+    acc = float((auto["label"] == auto["label_true"]).mean()) if len(auto) else float("nan")
+    return float(f1), float(joined["needs_review"].mean()), acc
 
 
 def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo=print):
@@ -97,18 +112,21 @@ def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo
     season_b = simulate_season(folder / f"{STATION}-2032", next_events, seed + 1,
                                station=STATION, season="2032", preset="next")
 
-    echo("[5/6] triaging season 2032 with the 2031 model")
     cat_b = open_catalog(season_b)
+    truth_b = pd.read_csv(str(season_b) + ".labels.csv", dtype=str, keep_default_na=False)
+    echo("[5/6] triaging season 2032: first with no label at all (cold start: rules, then "
+         "self-training on the season), then with the 2031 model")
+    cold = folder / f"{STATION}-2032.coldstart.csv"
+    cold_summary = triage_catalog(cat_b, cold, model_dir=None, n_jobs=n_jobs)
+    cold_f1, cold_review, cold_auto = _score(cold, truth_b)
+    echo(f"      cold start ({cold_summary['model_version']}): macro-F1 {cold_f1:.3f} vs "
+         f"the truth, {cold_review:.1%} sent to review, {cold_auto:.2%} right among the "
+         "rest")
     results = folder / f"{STATION}-2032.triage.csv"
     summary = triage_catalog(cat_b, results, model_dir=model_dir, n_jobs=n_jobs)
-    res = read_results(results)
-    truth_b = pd.read_csv(str(season_b) + ".labels.csv", dtype=str, keep_default_na=False)
-    joined = res.merge(truth_b[["event_id", "label"]], on="event_id", suffixes=("", "_true"))
-    from sklearn.metrics import f1_score
-
-    f1 = f1_score(joined["label_true"], joined["label"], average="macro")
-    auto = joined[~joined["needs_review"]]
-    acc_auto = float((auto["label"] == auto["label_true"]).mean()) if len(auto) else float("nan")
+    f1, review, acc_auto = _score(results, truth_b)
+    echo(f"      2031 model ({summary['model_version']}): macro-F1 {f1:.3f}, {review:.1%} "
+         f"sent to review, {acc_auto:.2%} right among the rest")
 
     echo("[6/6] writing the data card of the labelled season")
     card_path = write_data_card(cat_a, store, folder / "data_cards")
@@ -121,6 +139,7 @@ def run_demo(folder, *, events=4000, next_events=4000, seed=2031, n_jobs=1, echo
     seconds = time.perf_counter() - t0
     return {"folder": folder, "season_a": season_a, "season_b": season_b,
             "store": store_path, "model_dir": model_dir, "results": results,
-            "card": card_path, "triage": summary, "new_labels": new_labels, "macro_f1_vs_truth": float(f1),
+            "card": card_path, "triage": summary, "new_labels": new_labels,
+            "macro_f1_vs_truth": float(f1), "coldstart": cold, "coldstart_macro_f1": cold_f1,
             "accuracy_not_reviewed": acc_auto, "n_conflicts": len(conflicts),
             "seconds": seconds}

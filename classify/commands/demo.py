@@ -35,6 +35,8 @@ def run(args) -> int:
     print_summary(s["triage"], file=sys.stdout)
     print(f"against the simulator's truth: macro-F1 {s['macro_f1_vs_truth']:.4f}; "
           f"{100 * s['accuracy_not_reviewed']:.2f} % right among pulses not sent to review")
+    print(f"with no label at all (cold start, {s['coldstart'].name}): macro-F1 "
+          f"{s['coldstart_macro_f1']:.4f}")
     print(f"demo finished in {s['seconds']:.0f} s; everything is in {s['folder']}/")
     d, store = s["folder"], s["store"]
     print("\nnext, try:")
