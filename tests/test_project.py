@@ -7,7 +7,9 @@ from features import schema
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
-TEST_COMMAND = 'pip install -e ".[test]" && python -m pytest -q'
+TEST_COMMAND = ('python3 -m venv .venv && . .venv/bin/activate && pip install -e ".[test]" '
+                '&& python -m pytest -q')
+DEMO_COMMAND = 'python3 -m venv .venv && . .venv/bin/activate && pip install -e . && pulsesort demo'
 
 
 def test_ci_runs_exactly_the_readme_test_command():
@@ -16,6 +18,11 @@ def test_ci_runs_exactly_the_readme_test_command():
     ci_lines = [ln for ln in (ROOT / ".ci/run").read_text().splitlines()
                 if ln.strip() and not ln.lstrip().startswith("#")]
     assert ci_lines[-1].strip() == TEST_COMMAND
+
+
+def test_readme_demo_command_makes_its_environment():
+    """The README's first command makes a venv, installs and runs the demo."""
+    assert DEMO_COMMAND in README
 
 
 def test_readme_states_the_caution():
