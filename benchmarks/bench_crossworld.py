@@ -47,6 +47,7 @@ def ensure_world(wd, world: xw.World, role: str, events: int, seed: int, log: li
                     "folder": out.name, "written": "reused"})
         return out
     marker.unlink(missing_ok=True)
+    features_csv(wd, out).unlink(missing_ok=True)
     m = c.run_measured(cmd, cwd=xw.REPO)
     marker.write_text(json.dumps({"command": cmd}))
     size = sum(p.stat().st_size for p in out.iterdir() if p.is_file())
@@ -55,8 +56,13 @@ def ensure_world(wd, world: xw.World, role: str, events: int, seed: int, log: li
     return out
 
 
+def features_csv(wd, catalog: Path) -> Path:
+    return wd.root / "features" / f"{catalog.name}.csv"
+
+
 def ensure_features(wd, catalog: Path, jobs: int) -> Path:
-    out = wd.root / "features" / f"{catalog.name}.csv"
+    """``pulsesort features`` of a catalog, once per written season."""
+    out = features_csv(wd, catalog)
     if not out.is_file():
         out.parent.mkdir(exist_ok=True)
         c.run_measured(xw.cmd_features(catalog, out, jobs))
@@ -174,6 +180,9 @@ def run(args) -> dict:
                         errors.append({"step": f"triage {test} ({v})", "error": row["error"]})
                 rows.append(row)
         workdir = str(wd.root)
+        if not args.keep:
+            for sub in ("features", "results"):
+                shutil.rmtree(wd.root / sub, ignore_errors=True)
     checks = [ck for r in rows for ck in xw.checks_of(r)]
     for mdl in models.values():
         mdl["model"] = str(mdl["model"])
