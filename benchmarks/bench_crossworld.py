@@ -107,7 +107,9 @@ def run(args) -> dict:
     for v in variants:
         if v not in xw.TRIAGE_VARIANTS:
             raise SystemExit(f"--variants: unknown {v!r}; known: {list(xw.TRIAGE_VARIANTS)}")
-    train_names = list(dict.fromkeys(t for t, _ in cells))
+    model_variants = [v for v in variants if xw.needs_model(v)]
+    zero_variants = [v for v in variants if not xw.needs_model(v)]
+    train_names = list(dict.fromkeys(t for t, _ in cells)) if model_variants else []
     test_names = list(dict.fromkeys(s for _, s in cells))
     rows, models, worlds_log, errors = [], {}, [], []
     t_start = time.perf_counter()
@@ -135,8 +137,6 @@ def run(args) -> dict:
                 print(models[name]["train_stdout"], flush=True)
             except RuntimeError as exc:
                 errors.append({"step": f"train on {name}", "error": _error(exc)})
-        model_variants = [v for v in variants if xw.needs_model(v)]
-        zero_variants = [v for v in variants if not xw.needs_model(v)]
         for train, test in cells:
             cell = xw.cell_name(train, test)
             ref = {}
@@ -183,6 +183,8 @@ def run(args) -> dict:
         if not args.keep:
             for sub in ("features", "results"):
                 shutil.rmtree(wd.root / sub, ignore_errors=True)
+            for marker in wd.root.glob("*.done.json"):   # their seasons go with the workdir
+                marker.unlink()
     checks = [ck for r in rows for ck in xw.checks_of(r)]
     for mdl in models.values():
         mdl["model"] = str(mdl["model"])
