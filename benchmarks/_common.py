@@ -12,8 +12,8 @@
   CATALOG --jobs N`` runs it as a subprocess so it can be sampled like the commands.
 * :class:`Cluster`: a ``distributed.LocalCluster`` of worker processes on 127.0.0.1, in
   its own process tree (``python benchmarks/_common.py cluster``).
-* :func:`machine_info`, :func:`print_table`, :func:`write_json`, :class:`Workdir`,
-  :func:`check_disk`, :func:`catalog_bytes`, :func:`warm_cache`.
+* :func:`machine_info`, :func:`print_table`, :func:`markdown_table`, :func:`write_json`,
+  :class:`Workdir`, :func:`check_disk`, :func:`catalog_bytes`, :func:`warm_cache`.
 
 Linux only (``/proc``). Only the standard library, numpy and scipy are imported at
 module level, so the floor subprocess starts as light as it can.
@@ -38,8 +38,8 @@ import numpy as np
 
 __all__ = ["TreeRSSSampler", "Measurement", "run_measured", "pulsesort", "reported_rate",
            "floor_pass", "run_floor", "simulate", "simulate_args", "machine_info",
-           "print_table", "write_json", "Workdir", "Cluster", "check_disk", "catalog_bytes",
-           "warm_cache", "base_parser", "fmt_bytes", "Timer", "MB"]
+           "print_table", "markdown_table", "write_json", "Workdir", "Cluster", "check_disk",
+           "catalog_bytes", "warm_cache", "base_parser", "fmt_bytes", "Timer", "MB"]
 
 MB = 1024 * 1024
 POLL_S = 0.02
@@ -432,6 +432,16 @@ def print_table(rows: list[dict], columns: list[str], title: str | None = None,
     return text
 
 
+def markdown_table(rows: list[dict], columns: list[str]) -> str:
+    """``rows`` (dicts) as a Markdown table, cells formatted as by :func:`print_table`."""
+    lines = ["| " + " | ".join(columns) + " |",
+             "|" + "|".join("---" if i == 0 else "---:" for i in range(len(columns))) + "|"]
+    for r in rows:
+        lines.append("| " + " | ".join(_cell(r.get(c)).replace("|", "\\|") for c in columns)
+                     + " |")
+    return "\n".join(lines)
+
+
 def _jsonable(x):
     if isinstance(x, dict):
         return {str(k): _jsonable(v) for k, v in x.items()}
@@ -499,7 +509,8 @@ class Workdir:
             return
         for p in self._big:
             shutil.rmtree(p, ignore_errors=True)
-            Path(str(p) + ".labels.csv").unlink(missing_ok=True)
+            for suffix in (".labels.csv", ".truth.csv"):    # the spec-literal writer's too
+                Path(str(p) + suffix).unlink(missing_ok=True)
 
     def __enter__(self):
         print(f"work folder: {self.root}")
