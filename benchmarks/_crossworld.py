@@ -56,16 +56,19 @@ WORLDS = {w.name: w for w in [
 #: (train world, test world). A train world and a test world of the same name are two
 #: seasons of it with different seeds.
 CELLS = ([("own:reference", name) for name in WORLDS if name != "own:reference"]
-         + [("own:stress-1", "own:reference"), ("own:stress-1", "speclit:shifted")])
+         + [("own:stress-1", "own:reference"), ("own:stress-1", "speclit:shifted"),
+            ("speclit:plain", "own:reference"), ("speclit:plain", "own:stress-3"),
+            ("speclit:plain", "speclit:records")])
 TRAIN_WORLDS = tuple(dict.fromkeys(t for t, _ in CELLS))
 MILD_CELL = ("own:reference", "own:next")
 
 #: Ways to triage a test world. A variant whose arguments hold "{model}" runs once per
 #: cell with the cell's model; any other is a zero-label variant, run once per test
-#: world. Add e.g. ``"rules-alone": ["--rules", "--no-self-training"]`` when it exists.
+#: world: the cold start (rules, then self-training on the season) and the rules alone.
 TRIAGE_VARIANTS = {
     "model": ["--model", "{model}"],
     "rules": ["--rules"],
+    "rules-only": ["--rules", "--rules-only"],
 }
 
 

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 from numpy.testing import assert_allclose
 from sklearn.metrics import f1_score
 
@@ -16,6 +17,7 @@ from classify.triage import read_results
 BENCHMARKS = Path(__file__).resolve().parent.parent / "benchmarks"
 
 
+@pytest.mark.slow
 def test_crossworld_runs_end_to_end(tmp_path, monkeypatch):
     """One cell (own simulator -> spec-literal writer) and its zero-label row, tiny sizes.
 
@@ -29,7 +31,7 @@ def test_crossworld_runs_end_to_end(tmp_path, monkeypatch):
     rc = bench_crossworld.main(["--train-events", "240", "--events", "90", "--jobs", "1",
                                 "--cells", "own:reference->speclit:plain", "--workdir",
                                 str(work), "--keep", "--json", str(out_json),
-                                "--markdown", str(out_md)])
+                                "--markdown", str(out_md), "--variants", "model", "rules"])
     assert rc == 0
     data = json.loads(out_json.read_text())
     assert data["errors"] == []
