@@ -192,6 +192,39 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     dict
         Summary: n, n_review, n_novel, per_class, reasons, seconds, pulses_per_s,
         model_version, adaptation, out.
+
+    See Also
+    --------
+    classify.predict.predict_catalog : the same columns and values, in memory.
+
+    Examples
+    --------
+    The rules alone (no model, no self-training) on a tiny invented catalog of the
+    fictional station hollowmere:
+
+    >>> import tempfile, numpy as np
+    >>> from features import write_catalog
+    >>> t = np.arange(2000) / 20e6 - 50e-6                       # s, 20 MS/s
+    >>> field = np.vstack([np.exp(-0.5 * (t / 1e-6) ** 2),        # V/m, invented pulses
+    ...                    -2 * np.exp(-0.5 * (t / 2e-6) ** 2)]).astype(np.float32)
+    >>> folder = write_catalog(
+    ...     tempfile.mkdtemp() + "/hollowmere-demo",
+    ...     {"event_id": ["a", "b"], "time_utc": ["2031-07-14T21:03:55.000001Z",
+    ...                                           "2031-07-14T21:03:55.250000Z"]},
+    ...     field, field_meta={"sample_rate_hz": 20e6, "pretrigger_s": 50e-6, "units": "V/m",
+    ...                        "sign_convention": "physics", "decay_time_s": None},
+    ...     catalog_id="hollowmere-demo", station="hollowmere")
+    >>> from features import open_catalog
+    >>> from classify import read_results, triage_catalog
+    >>> summary = triage_catalog(open_catalog(folder), folder.parent / "results.csv",
+    ...                          self_training=False)
+    >>> summary["n"], summary["model_version"]
+    (2, 'rules-3')
+    >>> read_results(summary["out"]).columns[:6].tolist()
+    ['event_id', 'label', 'confidence', 'needs_review', 'novel', 'prediction_set']
+
+    With a trained model: ``triage_catalog(cat, "results.csv", model_dir=
+    classify.registry.resolve_model("current"))``.
     """
     out = Path(out)
     if not 0 <= review_below <= 1:
