@@ -16,8 +16,10 @@ EPILOG = """\
 The page shows one pulse at a time: field change and VHF power on a shared time
 axis (zoom and pan), the whole record, the mapped sources (altitude against
 time, plan view and sky when positions exist, with the channel mapped earlier
-in the flash), why the pulse is in the queue, the model's probabilities, the
-nearest labelled pulses of each class in question, and the key features.
+in the flash), why the pulse is in the queue, the model's probabilities, why
+the model chose its class (the features' largest contributions, when the model
+is found), the nearest labelled pulses of each class in question, and the key
+features.
 Keys: 1-9 one per class of the label store, u unsure, s skip, z or Backspace
 undo the last decision, + and - zoom, arrows pan, 0 back to the pulse, ? help.
 Every decision is written to the label store at once (origin 'review'), so
@@ -84,6 +86,9 @@ def run(args) -> int:
         print("look-alikes: " + (f"the labelled training pulses of model {card['version']}"
                                  if model is not None else
                                  "the labelled pulses of this catalog in the store"))
+        print("why this class: " + ("the features' contributions to the class in model "
+                                    f"{card['version']}" if model is not None else
+                                    "not available without the model (--model)"))
         print(f"open {server.url}")
         print("(Ctrl-C to stop; every decision is already saved)", flush=True)
         server.serve_forever()
