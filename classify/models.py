@@ -325,7 +325,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
             each one: one step per fold model, then the calibration (temperatures,
             conformal thresholds and the novelty reference); ``step`` names the
             step just done (``"start"`` at first). The estimator never prints: the
-            caller draws a bar (:func:`classify.training.fit_progress`).
+            caller draws a bar (:class:`classify.training.FitProgress`).
 
         Returns
         -------

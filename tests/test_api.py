@@ -1,10 +1,15 @@
 """The public Python API: names, light imports, one prediction entry point, progress."""
 
+import json
+import os
 import re
 import shutil
+import signal
 import subprocess
 import sys
+import urllib.request
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -17,6 +22,7 @@ from classify.cli import main
 from classify.labels import LabelStore
 from classify.models import PulseClassifier
 from classify.predict import load_model, predict_catalog, predict_features
+from classify.review import TOKEN_HEADER
 from classify.triage import read_results, triage_catalog
 from features import InputError, open_catalog
 from features.extract import extract_features
@@ -234,10 +240,12 @@ def test_retrain_shows_the_fit_progress(season, tmp_path, capsys):
     assert re.search(r"fit: 100%\|.*\| (\d+)/\1 ", err), err
 
 
-def test_review_session_explains_the_class_with_the_model(season, tmp_path):
-    """With a model, the page's 'why this class' holds the largest contributions of
-    explain_pulses for the pulse on screen, labelled with the feature and its value."""
-    from classify.explain import display_spec, explain_pulses
+def test_review_explains_the_class_with_the_model(season, tmp_path):
+    """`pulsesort review` with a model: the page's 'why this class' holds the largest
+    contributions of explain_pulses for the pulse on screen, by feature (real server,
+    real HTTP); a session without attributions has none."""
+    from classify.commands.review import model_attributions
+    from classify.explain import explain_pulses
     from classify.review import ReviewSession
 
     cat = open_catalog(season["b"])
@@ -245,14 +253,68 @@ def test_review_session_explains_the_class_with_the_model(season, tmp_path):
     triage_catalog(cat, out, model_dir=season["model_dir"])
     results = read_results(out)
     model, _ = load_model(season["model_dir"])
-    session = ReviewSession(results, cat, tmp_path / "s.sqlite", "wren", model=model)
-    pulse = session.current()["pulse"]
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    proc = subprocess.Popen([sys.executable, "-m", "classify.cli", "review", str(out),
+                             "--catalog", str(season["b"]), "--store", str(tmp_path / "s.db"),
+                             "--analyst", "wren", "--model", str(season["model_dir"])],
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        lines = [proc.stdout.readline() for _ in range(4)]
+        assert lines[2].startswith("why this class: the features' contributions"), lines
+        url = lines[3].split()[1]
+        token = url.split("token=")[1]
+        req = urllib.request.Request(url.split("/?")[0] + "/api/current",
+                                     headers={TOKEN_HEADER: token})
+        with urllib.request.urlopen(req, timeout=60) as r:
+            pulse = json.loads(r.read())["pulse"]
+    finally:
+        proc.send_signal(signal.SIGINT)
+        proc.communicate(timeout=30)
     why = pulse["why"]
     assert len(why) == 6 and all(isinstance(label, str) for label, _ in why)
     row = results[results["event_id"] == pulse["event_id"]]
     expl = explain_pulses(model, row)[list(model.feature_names_in_)].iloc[0].astype(float)
     top = expl.abs().sort_values(ascending=False, kind="stable")
-    assert_allclose([v for _, v in why], expl[top.index[:6]].to_numpy(), rtol=1e-12)
-    assert why[0][0].startswith(display_spec(top.index[0])[0])
-    no_model = ReviewSession(results, cat, tmp_path / "s2.sqlite", "wren")
-    assert no_model.current()["pulse"]["why"] is None
+    assert_allclose([v for _, v in why], expl[top.index[:6]].to_numpy(), rtol=1e-9)
+    assert [name for name, _ in why] == top.index[:6].tolist()
+    assert model_attributions(model)(row.drop(columns="width_s").iloc[0]) is None
+    plain = ReviewSession(results, cat, tmp_path / "s2.sqlite", "wren", model=model)
+    assert plain.current()["pulse"]["why"] is None
+
+
+@pytest.mark.browser
+def test_why_panel_of_a_real_model_fits_its_plot_in_chromium(season, tmp_path):
+    """The model's 'why this class' bars, long feature names included, keep every text
+    inside the panel and apart (real Chromium, the page's own layout check)."""
+    from tests.classify.test_review_browser import (
+        _LABEL_CHECK,
+        CHROMIUM,
+        CHROMIUM_ARGS,
+        _need_browser,
+        _settled,
+        served_page,
+    )
+
+    _need_browser()
+    sync_api = pytest.importorskip("playwright.sync_api")
+    from classify.commands.review import model_attributions
+
+    out = tmp_path / "r.csv"
+    triage_catalog(open_catalog(season["b"]), out, model_dir=season["model_dir"])
+    model, _ = load_model(season["model_dir"])
+    with sync_api.sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            with served_page(browser, season["b"], out, tmp_path / "s.sqlite",
+                             size=(1920, 1080), model=model,
+                             attributions=model_attributions(model)) as (page, _, _, errors):
+                eid = page.evaluate("document.body.dataset.event")
+                for _ in range(3):
+                    bars = page.eval_on_selector_all("#plot-why svg rect", "rs => rs.length")
+                    assert bars == 6, eid
+                    assert page.evaluate(_LABEL_CHECK)["problems"] == [], eid
+                    page.keyboard.press("s")
+                    eid = _settled(page, eid)
+                assert errors == []
+        finally:
+            browser.close()

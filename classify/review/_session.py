@@ -43,7 +43,7 @@ from ._sources import flash_codes
 
 logger = logging.getLogger("pulsesort")
 
-__all__ = ["ReviewSession", "OutOfTurn", "ACTIONS", "MAX_NOTE_CHARS", "model_attributions"]
+__all__ = ["ReviewSession", "OutOfTurn", "ACTIONS", "MAX_NOTE_CHARS"]
 
 ACTIONS = ("label", "unsure", "skip")
 MAX_NOTE_CHARS = 2000
@@ -83,9 +83,10 @@ class ReviewSession:
     attributions : callable, optional
         ``attributions(result_row) -> [(feature, contribution), ...]`` or None:
         why the model chose its class, shown as a bar chart ("not available
-        for this model" without it). Default with a ``model``:
-        :func:`model_attributions` (its largest feature contributions,
-        :func:`classify.explain.explain_pulses`); none without one.
+        for this model" without it). ``pulsesort review`` passes
+        :func:`classify.commands.review.model_attributions` of the model behind
+        the results (its largest feature contributions,
+        :func:`classify.explain.explain_pulses`).
     """
 
     def __init__(self, results, catalog, store_path, analyst, *, budget=None, model=None,
@@ -123,8 +124,6 @@ class ReviewSession:
         self.lookalikes = LookAlikes(self.results, catalog, labels, catalog_paths=paths,
                                      model=model, k=n_lookalikes)
         self.trace = trace
-        if attributions is None and model is not None:
-            attributions = model_attributions(model)
         self.attributions = attributions
         self._flash_codes = flash_codes(catalog) if catalog.sources is not None else None
         self._lock = threading.RLock()
@@ -279,45 +278,6 @@ class ReviewSession:
                 self._views.clear()
             logger.info("review: undid %s on %s", act["action"], eid)
             return self.current()
-
-
-#: Contributions shown in the "why this class" panel (the largest first).
-WHY_FEATURES = 6
-
-
-def model_attributions(model, n: int = WHY_FEATURES):
-    """The "why this class" of a model, as a :class:`ReviewSession` ``attributions``.
-
-    Parameters
-    ----------
-    model : classify.models.PulseClassifier
-        The model behind the results.
-    n : int, default=6
-        Contributions per pulse.
-
-    Returns
-    -------
-    callable
-        ``attributions(result_row)``: the ``n`` largest contributions of the row's
-        features to its class against the runner-up (natural log-odds,
-        :func:`classify.explain.explain_pulses`), each labelled with the feature and its
-        value in display units (:func:`classify.explain.top_reasons`): ``[("width
-        14.2 µs", 0.83), ...]``; None when the row lacks the model's features.
-    """
-    from classify.explain import explain_pulses, top_reasons
-
-    def attributions(res):
-        X = pd.DataFrame([res])
-        try:
-            why = explain_pulses(model, X)
-        except InputError as exc:   # results of another schema: the panel says so
-            logger.info("why this class: not available for %s (%s)", res.get("event_id"),
-                        exc)
-            return None
-        reasons = top_reasons(why, X, n=n)
-        return list(zip(reasons["value_text"], reasons["contribution"]))
-
-    return attributions
 
 
 def _attributions(fn, res):
