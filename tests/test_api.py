@@ -130,15 +130,14 @@ def test_train_shows_the_fit_progress_unless_quiet(tmp_path, capsys):
 
 def test_predict_catalog_gives_what_triage_writes(season, tmp_path):
     """On a simulated season: the same columns, labels, confidences, sets, reasons and
-    features as `pulsesort triage`, with adapted and with training sets."""
+    features as `pulsesort triage`, with adapted sets, training sets, and the class mix
+    estimated by EM."""
     cat = open_catalog(season["b"])
-    for adapt in (True, False):
-        out = tmp_path / f"triage-{adapt}.csv"
-        triage_catalog(cat, out, model_dir=season["model_dir"], adapt_sets=adapt,
-                       chunk_size=64)
+    for i, options in enumerate([{}, {"adapt_sets": False}, {"adapt_priors": True}]):
+        out = tmp_path / f"triage-{i}.csv"
+        triage_catalog(cat, out, model_dir=season["model_dir"], chunk_size=64, **options)
         written = read_results(out)
-        res = predict_catalog(cat, "current", registry=season["root"] / "models",
-                              adapt_sets=adapt)
+        res = predict_catalog(cat, "current", registry=season["root"] / "models", **options)
         assert res.columns.tolist() == written.columns.tolist()
         for c in ("event_id", "label", "needs_review", "novel", "prediction_set",
                   "review_reason", "review_why", "model_version", "adaptation", "catalog_id"):
@@ -150,7 +149,10 @@ def test_predict_catalog_gives_what_triage_writes(season, tmp_path):
         assert res["model_version"].iloc[0] == MODEL
         assert res.attrs["reasons"]["low_confidence"] == written["review_reason"].str.contains(
             "low_confidence").sum()
-    assert "training sets" in res["adaptation"].iloc[0]
+        assert res.attrs["adaptation"] == written["adaptation"].iloc[0]
+    assert "class mix by EM on 300 pulses" in res["adaptation"].iloc[0]
+    assert set(res.attrs["priors"]) == {c[2:] for c in res.columns if c.startswith("p_")}
+    assert_allclose(sum(res.attrs["priors"].values()), 1.0, rtol=1e-9)
     # the simulator's truth (invented data; self-consistency): the model learnt the classes
     assert (res["label"].to_numpy() == season["truth_b"]["label"].to_numpy()).mean() > 0.9
 
