@@ -161,6 +161,24 @@ def explain_pulses(model, X, *, against="runner_up") -> pd.DataFrame:
         ``log p_predicted - log p_against``), then one column per feature:
         its contribution to the margin. ``base_value`` plus the contributions
         equals ``margin``.
+
+    Examples
+    --------
+    A model fitted on an invented features table (self-consistency only); the pulses to
+    explain may come as any wider table (a features or results table):
+
+    >>> import numpy as np, pandas as pd
+    >>> from classify.models import PulseClassifier
+    >>> rng = np.random.default_rng(0)
+    >>> X = pd.DataFrame({"bipolarity": rng.uniform(0, 1, 300),
+    ...                   "width_s": rng.uniform(1e-6, 3e-5, 300)})
+    >>> y = np.where(X["bipolarity"] > 0.5, "narrow_bipolar", "stepped_leader")
+    >>> m = PulseClassifier(max_iter=10, n_reference=50).fit(X, y)
+    >>> e = explain_pulses(m, X.assign(event_id="e").head(2))
+    >>> e["predicted"].tolist() == y[:2].tolist()
+    True
+    >>> bool(abs(e.loc[0, "bipolarity"]) > abs(e.loc[0, "width_s"]))   # the class's feature
+    True
     """
     Xv = model._validate(X)
     n, n_features = Xv.shape

@@ -56,7 +56,7 @@ from .conformal import (
 )
 
 __all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_euclidean",
-           "season_thresholds"]
+           "season_thresholds", "select_columns"]
 
 #: Held-out rows per fold masked for each pattern of missing column groups.
 MASKED_CALIBRATION_ROWS = 5000
@@ -66,6 +66,57 @@ MIN_CALIBRATION_ROWS = 200
 MIN_CONFORMAL_PER_CLASS = 30
 #: Joins catalog_id and event_id in ``sample_ids`` (a character no CSV id contains).
 ID_SEPARATOR = "\x1f"
+#: Columns listed by name in an error message, at most.
+MAX_NAMES_SHOWN = 8
+
+
+def select_columns(table, names):
+    """The columns ``names`` of a table, taken by name and in that order.
+
+    A model fitted on a feature table takes its own columns from any wider table
+    (a features file, a triage results file): the other columns are ignored and the
+    order of the table does not matter.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+    names : sequence of str
+        The columns wanted (a model's ``feature_names_in_``).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``table[names]`` (a copy).
+
+    Raises
+    ------
+    features.InputError
+        Naming every wanted column the table lacks (and, as a hint, the table's
+        columns that the model does not know, which may be their renamed forms).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> t = pd.DataFrame({"event_id": ["a"], "width_s": [2e-5], "bipolarity": [0.4]})
+    >>> select_columns(t, ["bipolarity", "width_s"]).columns.tolist()
+    ['bipolarity', 'width_s']
+    >>> select_columns(t, ["bipolarity", "rise_time_s"])
+    Traceback (most recent call last):
+    ...
+    features._checks.InputError: the feature table lacks the model's input column(s) ['rise_time_s']...
+    """
+    names = [str(n) for n in names]
+    have = set(table.columns)
+    missing = [n for n in names if n not in have]
+    if missing:
+        shown = missing[:MAX_NAMES_SHOWN] + (["..."] if len(missing) > MAX_NAMES_SHOWN else [])
+        unknown = [str(c) for c in table.columns if c not in set(names)]
+        hint = (f"; columns of the table the model does not use: "
+                f"{unknown[:MAX_NAMES_SHOWN] + (['...'] if len(unknown) > MAX_NAMES_SHOWN else [])}"
+                if unknown else "")
+        raise InputError(f"the feature table lacks the model's input column(s) {shown} "
+                         f"({len(missing)} of the {len(names)} it was fitted on){hint}")
+    return table[names]
 
 
 class PulseClassifier(ClassifierMixin, BaseEstimator):
@@ -250,7 +301,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         return list(cv.split(np.zeros(len(y_idx)), y_idx, groups))
 
     # ------------------------------------------------------------------ fit
-    def fit(self, X, y, groups=None, sample_weight=None, sample_ids=None, reference_rows=None):
+    def fit(self, X, y, groups=None, sample_weight=None, sample_ids=None, reference_rows=None,
+            progress=None):
         """Fit fold models, calibration, conformal thresholds and the novelty score.
 
         Parameters
@@ -268,6 +320,12 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         reference_rows : array-like of bool, shape (n_samples,), optional
             Rows the reference (look-alike) pulses may be taken from, e.g. the pulses
             as recorded and not their station variants (default: all).
+        progress : callable, optional
+            ``progress(done, total, step)`` is called before the first step and after
+            each one: one step per fold model, then the calibration (temperatures,
+            conformal thresholds and the novelty reference); ``step`` names the
+            step just done (``"start"`` at first). The estimator never prints: the
+            caller draws a bar (:class:`classify.training.FitProgress`).
 
         Returns
         -------
@@ -302,10 +360,15 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         natural = self._patterns(X)
         cal_raw, cal_y, cal_w, cal_pat = [], [], [], []
         self.estimators_ = []
+        n_steps = (1 if splits is None else len(splits)) + 1
+        if progress is not None:
+            progress(0, n_steps, "start")
         if splits is None:  # too little data to cross-validate: one model, T = 1
             Xa, ya, wa = self._augment(X, y_idx, w, rng)
             est = self._fit_tree_model(seed, Xa, ya, wa)
             self.estimators_.append(est)
+            if progress is not None:
+                progress(1, n_steps, "model 1 of 1")
             oof_raw = self._expand(est, est.predict_proba(X))
             cal_raw, cal_y, cal_w, cal_pat = [oof_raw], [y_idx], [w], [natural]
         else:
@@ -329,6 +392,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
                     cal_y.append(y_idx[rows])
                     cal_w.append(w[rows])
                     cal_pat.append(natural[rows] | code)
+                if progress is not None:
+                    progress(fold + 1, n_steps, f"fold model {fold + 1} of {len(splits)}")
         cal_raw, cal_y = np.vstack(cal_raw), np.concatenate(cal_y)
         cal_w, cal_pat = np.concatenate(cal_w), np.concatenate(cal_pat)
         self._fit_pattern_calibration(cal_raw, cal_y, cal_w, cal_pat, n_patterns,
@@ -348,6 +413,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         if ids.shape != (n,):
             raise ValueError(f"sample_ids must have one entry per row ({n}), got {ids.shape}")
         self.reference_ids_ = ids[self.reference_index_]
+        if progress is not None:
+            progress(n_steps, n_steps, "calibration")
         return self
 
     def _fit_pattern_calibration(self, raw, y, w, pattern, n_patterns, cross_fitted):
@@ -447,18 +514,43 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
 
     # ------------------------------------------------------------------ predict
     def _validate(self, X):
+        """``X`` as a float array of the fitted columns.
+
+        A DataFrame is taken by column name when the model was fitted on one
+        (:func:`select_columns`: extra columns ignored, any order, a missing column
+        an :class:`~features.InputError`); anything else is checked by scikit-learn.
+        """
         check_is_fitted(self, "estimators_")
+        names = getattr(self, "feature_names_in_", None)
+        if names is not None and hasattr(X, "columns"):
+            X = select_columns(X, names)
         return validate_data(self, X, reset=False, ensure_all_finite="allow-nan",
                              dtype=np.float64)
 
+    def _proba(self, Xv):
+        """Calibrated probabilities of validated rows (a float array)."""
+        raw = np.mean([self._expand(e, e.predict_proba(Xv)) for e in self.estimators_], axis=0)
+        return self._calibrate(raw, self._patterns(Xv))
+
     def predict_proba(self, X):
-        """Calibrated class probabilities, shape (n_samples, n_classes)."""
-        X = self._validate(X)
-        raw = np.mean([self._expand(e, e.predict_proba(X)) for e in self.estimators_], axis=0)
-        return self._calibrate(raw, self._patterns(X))
+        """Calibrated class probabilities.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like, shape (n_samples, n_features)
+            The pulses' features (SI units, NaN allowed). A DataFrame may hold more
+            columns than the model was fitted on, in any order: the model takes its
+            own by name (a missing one is an :class:`~features.InputError`).
+
+        Returns
+        -------
+        ndarray, shape (n_samples, n_classes)
+            Rows sum to 1; columns in the order of ``classes_``.
+        """
+        return self._proba(self._validate(X))
 
     def predict(self, X):
-        """Most probable class of every row."""
+        """Most probable class of every row (``X`` as for :meth:`predict_proba`)."""
         proba = self.predict_proba(X)
         return self.classes_[np.argmax(proba, axis=1)]
 
@@ -467,8 +559,9 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
 
         Parameters
         ----------
-        X : array-like, shape (n_samples, n_features)
-            The pulses (their missing column groups choose the thresholds).
+        X : DataFrame or array-like, shape (n_samples, n_features)
+            The pulses, as for :meth:`predict_proba` (their missing column groups
+            choose the thresholds).
         proba : ndarray, shape (n_samples, n_classes), optional
             Probabilities to use instead of ``predict_proba(X)`` (e.g. after a
             prior adjustment).
@@ -480,7 +573,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
             with a quality problem, sent to review anyway).
         """
         Xv = self._validate(X)
-        p = self.predict_proba(Xv) if proba is None else np.asarray(proba)
+        p = self._proba(Xv) if proba is None else np.asarray(proba)
         if thresholds is None:
             q = self.pattern_thresholds_[self._patterns(Xv)]
         else:
@@ -491,7 +584,11 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         return sets
 
     def novelty_score(self, X):
-        """Mean distance to the nearest reference pulses (larger = less familiar)."""
+        """Mean distance to the nearest reference pulses (larger = less familiar).
+
+        ``X`` as for :meth:`predict_proba`; returns an ndarray of shape (n_samples,), in
+        robust standardised units (NaN where no reference pulse shares a feature).
+        """
         X = self._validate(X)
         return self._knn_distance(self._standardise(X))
 
@@ -501,7 +598,10 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         return ~(s <= self.novelty_threshold_)
 
     def nearest_labelled(self, X, k=5):
-        """Indices into the reference set and distances of the ``k`` nearest, each (n, k)."""
+        """Indices into the reference set and distances of the ``k`` nearest, each (n, k).
+
+        ``X`` as for :meth:`predict_proba`.
+        """
         Z = self._standardise(self._validate(X))
         d = nan_euclidean(Z, self.reference_X_)
         d = np.where(np.isfinite(d), d, np.inf)

@@ -31,6 +31,7 @@ import numpy as np
 
 from features import open_catalog
 
+from .predict import predict_features
 from .registry import ModelRegistry, load_model, resolve_model, save_model, write_card_files
 from .stats import bootstrap_ci
 from .training import (
@@ -92,10 +93,14 @@ def metric_vector(y, proba, sets, novel, review_below):
     return np.concatenate([[macro, ece, in_set.mean(), load.mean()], recall])
 
 
-def _scores(model, X, proba=None):
-    proba = model.predict_proba(X) if proba is None else proba
-    sets = model.predict_set(X, proba=proba)
-    novel = model.is_novel(X)
+def _scores(model, rows, proba=None):
+    """``(proba, sets, novel)`` of a model on the rows of a features table
+    (:func:`classify.predict.predict_features`); ``proba`` replaces the model's
+    probabilities (e.g. out-of-fold ones) when given."""
+    pred = predict_features(model, rows, relax=False)
+    proba = pred["proba"] if proba is None else proba
+    sets = model.predict_set(rows, proba=proba)
+    novel = ~(pred["novelty"] <= pred["novelty_threshold"])
     return proba, sets, novel
 
 
@@ -224,14 +229,12 @@ def retrain(store, new_catalog, old_catalogs, current, out_dir, *, registry=None
     from_new = (table["catalog_id"] == new_cat.catalog_id).to_numpy()
     weights = np.where(from_new, float(new_weight), 1.0)
     challenger = fit_classifier(table, sample_weight=weights, random_state=random_state,
-                                **params)
+                                progress=progress, **params)
     is_new = from_new & (table["variant"] == 0).to_numpy()   # scored as recorded
     new_rows = table[is_new]
-    X_champ = new_rows[list(champion.feature_names_in_)].astype(float)
-    ch = (champion.classes_.astype(str), *_scores(champion, X_champ))
-    X_chal = new_rows[list(challenger.feature_names_in_)].astype(float)
+    ch = (champion.classes_.astype(str), *_scores(champion, new_rows))
     oof = challenger.oof_proba_[is_new]
-    cl = (challenger.classes_.astype(str), *_scores(challenger, X_chal, proba=oof))
+    cl = (challenger.classes_.astype(str), *_scores(challenger, new_rows, proba=oof))
     cmp = compare_on_season(new_rows["label"].to_numpy(), new_rows["group"].to_numpy(), ch,
                             cl, review_below=review_below, n_boot=n_boot,
                             random_state=random_state)

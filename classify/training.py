@@ -15,6 +15,7 @@ import datetime as _dt
 import logging
 import os
 import platform
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +29,7 @@ from .models import ID_SEPARATOR, PulseClassifier
 from .registry import VERSION_PATTERN, ModelRegistry, save_model
 from .stats import empirical_coverage, expected_calibration_error, flash_groups
 
-__all__ = ["catalog_features", "training_table", "fit_classifier", "cv_metrics",
+__all__ = ["catalog_features", "training_table", "fit_classifier", "FitProgress", "cv_metrics",
            "feature_importance", "build_card", "check_model_out", "train_from_store",
            "model_card_markdown"]
 
@@ -132,9 +133,41 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
     return table
 
 
+class FitProgress:
+    """A progress bar for :meth:`PulseClassifier.fit`: its ``progress`` callback.
+
+    One step per fold model, then the calibration, drawn with tqdm on stderr.
+
+    Parameters
+    ----------
+    enabled : bool or None
+        True: always; False: never; None: when stderr is a terminal.
+    """
+
+    def __init__(self, enabled: bool | None):
+        self.enabled = sys.stderr.isatty() if enabled is None else bool(enabled)
+        self.bar = None
+
+    def __call__(self, done: int, total: int, step: str) -> None:
+        if not self.enabled:
+            return
+        if self.bar is None:
+            from tqdm.auto import tqdm
+
+            self.bar = tqdm(total=total, desc="fit", unit="step", file=sys.stderr)
+        self.bar.set_postfix_str(step, refresh=False)
+        self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.bar.close()
+
+
 def fit_classifier(table, *, coverage=0.95, sample_weight=None, random_state=0,
-                   **params) -> PulseClassifier:
-    """Fit a :class:`PulseClassifier` on a training table's model features."""
+                   progress=None, **params) -> PulseClassifier:
+    """Fit a :class:`PulseClassifier` on a training table's model features.
+
+    ``progress`` (bool or None) shows a bar of the fit on stderr (:class:`FitProgress`;
+    None: on a terminal).
+    """
     names = schema.model_feature_names()
     X = table[names].astype(float)
     groups_idx = [[names.index(c) for c in cols]
@@ -145,7 +178,8 @@ def fit_classifier(table, *, coverage=0.95, sample_weight=None, random_state=0,
            + table["event_id"].astype(str)).to_numpy()
     recorded = (table["variant"] == 0).to_numpy() if "variant" in table else None
     return model.fit(X, table["label"].to_numpy(), groups=table["group"].to_numpy(),
-                     sample_weight=sample_weight, sample_ids=ids, reference_rows=recorded)
+                     sample_weight=sample_weight, sample_ids=ids, reference_rows=recorded,
+                     progress=FitProgress(progress))
 
 
 def cv_metrics(model: PulseClassifier, y, rows=None) -> dict:
@@ -191,7 +225,7 @@ def _versions() -> dict:
     import sklearn
     import skops
 
-    from . import __version__
+    from ._version import __version__
 
     return {"pulsesort": __version__, "python": platform.python_version(),
             "numpy": np.__version__, "scipy": scipy.__version__, "pandas": pd.__version__,
@@ -375,19 +409,55 @@ def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
                      dask_address=None, chunk_size=512, progress=None, random_state=0,
                      sample_weight_fn=None, make_current=None, station_variants=2,
                      **params):
-    """Train, save and register a model; return ``(model_dir, card)``.
+    """Train, save and register a model on the store's current labels of catalogs.
 
     Parameters
     ----------
     catalog_paths : list of path
+        Catalog folders whose labelled pulses are learnt.
     store : classify.labels.LabelStore
     out_dir : path
-        The new model folder; its parent is the registry.
+        The new model folder (its name is the version); its parent is the registry.
+    coverage : float, default=0.95
+        Target coverage of the conformal prediction sets.
+    n_jobs, dask_address, chunk_size
+        How the features are computed (:func:`features.extract.iter_features`).
+    progress : bool, optional
+        Progress bars of the features and of the fit (one step per fold model, then
+        the calibration) on stderr; None: on a terminal.
+    random_state : int, default=0
     sample_weight_fn : callable, optional
         ``f(table) -> weights`` (e.g. to weight a new season's labels more).
+    make_current : bool, optional
+        Make the model the registry's current one (None: only if it has none).
     station_variants : int, default=2
         Station variants of every labelled pulse added to training
         (:func:`training_table`).
+    **params
+        :class:`~classify.models.PulseClassifier` parameters (``max_iter``...).
+
+    Returns
+    -------
+    model_dir : pathlib.Path
+    card : dict
+        The model card (also ``card.json`` and ``card.md`` in the folder).
+
+    Raises
+    ------
+    features.InputError
+        A bad ``out_dir``, catalog or store, or no labelled pulse of a visible class.
+
+    Examples
+    --------
+    >>> from classify import LabelStore, train_from_store
+    >>> with LabelStore("labels.sqlite") as store:              # doctest: +SKIP
+    ...     model_dir, card = train_from_store(["hollowmere-2031"], store,
+    ...                                        "models/hollowmere-2031-v1")
+    >>> card["metrics"]["macro_f1"]                             # doctest: +SKIP
+    0.99...
+
+    (Skipped here: it needs a labelled season; ``tests/test_api.py`` runs it on a
+    simulated one.)
     """
     out_dir = check_model_out(out_dir)
     catalogs = [open_catalog(p) for p in catalog_paths]
@@ -399,7 +469,7 @@ def train_from_store(catalog_paths, store, out_dir, *, coverage=0.95, n_jobs=1,
                            station_variants=station_variants, seed=random_state)
     weights = None if sample_weight_fn is None else sample_weight_fn(table)
     model = fit_classifier(table, coverage=coverage, sample_weight=weights,
-                           random_state=random_state, **params)
+                           random_state=random_state, progress=progress, **params)
     version = out_dir.name
     card = build_card(model, table, catalogs, version)
     save_model(model, out_dir, card, model_card_markdown(card))

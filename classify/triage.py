@@ -40,7 +40,7 @@ from features.extract import DEFAULT_CHUNK_SIZE, _progress, compute_chunk, plan_
 from features.spill import FeatureSpill
 
 from . import coldstart
-from .decide import decide, relaxed_features
+from .predict import decision_table, predict_features, season_decisions
 from .registry import load_model, verify_model_dir
 
 __all__ = ["TriageSettings", "triage_catalog", "read_results", "print_summary",
@@ -103,30 +103,19 @@ def _predict_rows(block, model_dir: str, spill_folder: str, columns: tuple):
     """Calibrated probabilities, relaxed probabilities and novelty of spilled rows.
 
     ``block`` is ``(start, stop)``. A module-level function: joblib workers and Dask
-    workers run it on row blocks.
+    workers run it on row blocks (:func:`classify.predict.predict_features`).
     """
     start, stop = block
     model, _ = _cached_model(model_dir)
     arr = np.load(Path(spill_folder) / "numeric.npy", mmap_mode="r")
     frame = pd.DataFrame(np.array(arr[start:stop]), columns=list(columns))
-    names = list(model.feature_names_in_)
-    X = frame[names]
-    proba = model.predict_proba(X)
-    vc = frame["vhf_censored"].to_numpy() > 0
-    fc = frame["field_censored"].to_numpy() > 0
-    relaxed = proba.copy()
-    cens = vc | fc
-    if cens.any():
-        Xr = relaxed_features(X[cens], vc[cens], fc[cens])
-        relaxed[cens] = model.predict_proba(Xr)
-    return proba, relaxed, model.novelty_score(X)
+    p = predict_features(model, frame)
+    return p["proba"], p["relaxed"], p["novelty"]
 
 
 def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address):
-    """Everything phase 3 needs from a trained model, for every pulse of the spill."""
-    from .conformal import season_thresholds
-    from .priors import adjust_priors, estimate_priors_em
-
+    """Everything phase 3 needs from a trained model, for every pulse of the spill
+    (:func:`classify.predict.season_decisions`)."""
     model, card = _cached_model(settings.model_dir)
     n = spill.n_events
     blocks = [(a, min(a + DECIDE_BLOCK, n)) for a in range(0, n, DECIDE_BLOCK)]
@@ -137,50 +126,16 @@ def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address):
     novelty = np.concatenate([v for _, _, v in parts]) if parts else np.zeros(0)
     del parts
     usable = np.asarray(spill.numeric()[:, SPILL_COLUMNS.index("field_ok")]) > 0
-    classes = model.classes_.astype(str)
-    coverage = float(model.coverage if settings.coverage is None else settings.coverage)
-    notes = []
-    priors = None
-    if settings.adapt_priors and usable.sum() >= 20:
-        new_priors, _, n_iter = estimate_priors_em(proba[usable], model.class_priors_)
-        priors = dict(zip(classes.tolist(), map(float, new_priors)))
-        proba = adjust_priors(proba, model.class_priors_, new_priors)
-        relaxed = adjust_priors(relaxed, model.class_priors_, new_priors)
-        notes.append("class mix by EM on {:,} pulses ({})".format(
-            int(usable.sum()), ", ".join(f"{c} {p:.3f}" for c, p in zip(classes, new_priors))))
-    if settings.adapt_sets and usable.sum() >= 20:
-        q = season_thresholds(proba[usable], coverage, model.conformal_thresholds_)
-        sets = (1.0 - proba) <= q[None, :] + 1e-12
-        notes.append(f"sets adapted to the season at {coverage:.2f} on {int(usable.sum()):,} "
-                     "pulses")
-    else:
-        sets = model.predict_set(pd.DataFrame(np.array(spill.numeric()), columns=list(
-            SPILL_COLUMNS))[list(model.feature_names_in_)], proba=proba)
-        notes.append(f"training sets at {coverage:.2f}")
-    return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,
-            "novelty": novelty, "novelty_threshold": float(model.novelty_threshold_),
-            "usable": usable, "coverage": coverage, "version": card["version"],
-            "adaptation": "; ".join(notes) or "none", "other": None, "priors": priors}
+    return season_decisions(
+        model, {"proba": proba, "relaxed": relaxed, "novelty": novelty}, usable,
+        version=card["version"], adapt_priors=settings.adapt_priors,
+        adapt_sets=settings.adapt_sets, coverage=settings.coverage,
+        features=lambda: pd.DataFrame(np.array(spill.numeric()), columns=list(SPILL_COLUMNS)))
 
 
 # ---------------------------------------------------------------------- phase 3
 def _decision_records(d, a: int, b: int, settings: TriageSettings, event_ids, catalog_id):
-    cens_v = d["censored_v"][a:b] if "censored_v" in d else np.zeros(b - a, bool)
-    cens_f = d["censored_f"][a:b] if "censored_f" in d else np.zeros(b - a, bool)
-    channel = np.where(cens_v & cens_f, "field and VHF",
-                       np.where(cens_v, "VHF", np.where(cens_f, "field", "")))
-    out = decide(d["classes"], d["proba"][a:b], d["sets"][a:b], usable=d["usable"][a:b],
-                 review_below=settings.review_below, coverage=d["coverage"],
-                 novelty=d["novelty"][a:b], novelty_threshold=d["novelty_threshold"],
-                 relaxed_proba=d["relaxed"][a:b], censored_channel=channel,
-                 other=None if d["other"] is None else d["other"][a:b])
-    reasons = out.attrs["reasons"]
-    out.insert(0, "event_id", event_ids[a:b])
-    out["novelty_score"] = d["novelty"][a:b]
-    out["model_version"] = d["version"]
-    out["adaptation"] = d["adaptation"]
-    out["catalog_id"] = catalog_id
-    return out, reasons
+    return decision_table(d, settings.review_below, event_ids, catalog_id, a, b)
 
 
 def _merge_counts(total: dict, out: pd.DataFrame, reasons: dict) -> None:
@@ -237,6 +192,39 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     dict
         Summary: n, n_review, n_novel, per_class, reasons, seconds, pulses_per_s,
         model_version, adaptation, out.
+
+    See Also
+    --------
+    classify.predict.predict_catalog : the same columns and values, in memory.
+
+    Examples
+    --------
+    The rules alone (no model, no self-training) on a tiny invented catalog of the
+    fictional station hollowmere:
+
+    >>> import tempfile, numpy as np
+    >>> from features import write_catalog
+    >>> t = np.arange(2000) / 20e6 - 50e-6                       # s, 20 MS/s
+    >>> field = np.vstack([np.exp(-0.5 * (t / 1e-6) ** 2),        # V/m, invented pulses
+    ...                    -2 * np.exp(-0.5 * (t / 2e-6) ** 2)]).astype(np.float32)
+    >>> folder = write_catalog(
+    ...     tempfile.mkdtemp() + "/hollowmere-demo",
+    ...     {"event_id": ["a", "b"], "time_utc": ["2031-07-14T21:03:55.000001Z",
+    ...                                           "2031-07-14T21:03:55.250000Z"]},
+    ...     field, field_meta={"sample_rate_hz": 20e6, "pretrigger_s": 50e-6, "units": "V/m",
+    ...                        "sign_convention": "physics", "decay_time_s": None},
+    ...     catalog_id="hollowmere-demo", station="hollowmere")
+    >>> from features import open_catalog
+    >>> from classify import read_results, triage_catalog
+    >>> summary = triage_catalog(open_catalog(folder), folder.parent / "results.csv",
+    ...                          self_training=False)
+    >>> summary["n"], summary["model_version"]
+    (2, 'rules-3')
+    >>> read_results(summary["out"]).columns[:6].tolist()
+    ['event_id', 'label', 'confidence', 'needs_review', 'novel', 'prediction_set']
+
+    With a trained model: ``triage_catalog(cat, "results.csv", model_dir=
+    classify.registry.resolve_model("current"))``.
     """
     out = Path(out)
     if not 0 <= review_below <= 1:

@@ -36,6 +36,16 @@ class InputError(ValueError):
     problems : str or list of str
         Every problem found, each naming the file, row or key and what was
         expected. ``str(error)`` joins them one per line.
+
+    Examples
+    --------
+    >>> err = InputError(["events.csv:3: 'time_utc' must be ISO-8601 UTC, got 'noon'",
+    ...                   "catalog.json: 'field.sample_rate_hz' must be > 0, got -1"])
+    >>> isinstance(err, ValueError), len(err.problems)
+    (True, 2)
+    >>> print(err)
+    events.csv:3: 'time_utc' must be ISO-8601 UTC, got 'noon'
+    catalog.json: 'field.sample_rate_hz' must be > 0, got -1
     """
 
     def __init__(self, problems: str | Iterable[str]):

@@ -255,6 +255,29 @@ def open_catalog(path) -> Catalog:
     InputError
         (alias ``CatalogError``) If ``path`` is not a catalog folder or the catalog
         breaks the format; ``error.problems`` lists every problem.
+
+    Examples
+    --------
+    A tiny invented catalog (two pulses of the fictional station hollowmere):
+
+    >>> import tempfile, numpy as np
+    >>> from features import write_catalog
+    >>> t = np.arange(2000) / 20e6 - 50e-6                       # s, 20 MS/s
+    >>> field = np.vstack([np.exp(-0.5 * (t / 1e-6) ** 2),        # V/m, invented pulses
+    ...                    -2 * np.exp(-0.5 * (t / 2e-6) ** 2)]).astype(np.float32)
+    >>> folder = write_catalog(
+    ...     tempfile.mkdtemp() + "/hollowmere-demo",
+    ...     {"event_id": ["a", "b"], "time_utc": ["2031-07-14T21:03:55.000001Z",
+    ...                                           "2031-07-14T21:03:55.250000Z"]},
+    ...     field, field_meta={"sample_rate_hz": 20e6, "pretrigger_s": 50e-6, "units": "V/m",
+    ...                        "sign_convention": "physics", "decay_time_s": None},
+    ...     catalog_id="hollowmere-demo", station="hollowmere")
+    >>> cat = open_catalog(folder)
+    >>> cat.n_events, cat.catalog_id, cat.field.sample_rate_hz
+    (2, 'hollowmere-demo', 20000000.0)
+    >>> field_v_per_m, _ = cat.read_field(0, 2)              # SI units, physics convention
+    >>> float(field_v_per_m[1].min())
+    -2.0
     """
     folder = Path(path).expanduser()
     kind = describe_path_kind(folder)

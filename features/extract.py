@@ -373,7 +373,47 @@ def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_j
 
 
 def extract_features(catalog: Catalog, **kwargs) -> pd.DataFrame:
-    """All feature rows of ``catalog`` in one DataFrame (see :func:`iter_features`)."""
+    """All feature rows of ``catalog`` in one DataFrame.
+
+    Parameters
+    ----------
+    catalog : Catalog
+        An open catalog (:func:`features.open_catalog`).
+    **kwargs
+        ``chunk_size``, ``n_jobs``, ``dask_address``, ``progress``... of
+        :func:`iter_features`; the values do not depend on them.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per pulse in catalog order: ``event_id`` then every column of
+        :data:`features.schema.FEATURES`, each in its SI unit (the suffix of its name:
+        ``_s`` seconds, ``_v_per_m`` V/m, ``_m_per_s`` m/s...), then the events'
+        ``time_utc`` and ``flash_id``.
+
+    Examples
+    --------
+    A tiny invented catalog (two pulses of the fictional station hollowmere):
+
+    >>> import tempfile, numpy as np
+    >>> from features import write_catalog
+    >>> t = np.arange(2000) / 20e6 - 50e-6                       # s, 20 MS/s
+    >>> field = np.vstack([np.exp(-0.5 * (t / 1e-6) ** 2),        # V/m, invented pulses
+    ...                    -2 * np.exp(-0.5 * (t / 2e-6) ** 2)]).astype(np.float32)
+    >>> folder = write_catalog(
+    ...     tempfile.mkdtemp() + "/hollowmere-demo",
+    ...     {"event_id": ["a", "b"], "time_utc": ["2031-07-14T21:03:55.000001Z",
+    ...                                           "2031-07-14T21:03:55.250000Z"]},
+    ...     field, field_meta={"sample_rate_hz": 20e6, "pretrigger_s": 50e-6, "units": "V/m",
+    ...                        "sign_convention": "physics", "decay_time_s": None},
+    ...     catalog_id="hollowmere-demo", station="hollowmere")
+    >>> from features import extract_features, open_catalog
+    >>> F = extract_features(open_catalog(folder))
+    >>> F["event_id"].tolist(), F["polarity"].tolist()
+    (['a', 'b'], [1.0, -1.0])
+    >>> F["peak_field_v_per_m"].round(2).tolist()            # V/m
+    [1.0, -2.0]
+    """
     parts = list(iter_features(catalog, **kwargs))
     if not parts:
         return pd.DataFrame(columns=schema.feature_names())

@@ -10,6 +10,15 @@ of the instrument, the geometry or the catalog (absolute VHF units, noise level,
 clipping, the field peak and angles that depend on the range, counts of sources and
 of catalogued neighbours that depend on the mapping and the cataloguing practice),
 which must not steer a classifier that is meant to work on other stations.
+
+Examples
+--------
+>>> from features import schema
+>>> f = schema.get("rise_time_s")
+>>> f.unit, f.model
+('s', True)
+>>> "field_noise_v_per_m" in schema.model_feature_names()   # an instrument property
+False
 """
 
 from __future__ import annotations

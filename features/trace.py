@@ -46,10 +46,26 @@ def pulse_trace(catalog: Catalog, row: int, *, whole_record: bool = False) -> di
 
     Examples
     --------
-    >>> from features import open_catalog                     # doctest: +SKIP
-    >>> tr = pulse_trace(open_catalog("hollowmere-2031"), 0)  # doctest: +SKIP
-    >>> tr["extent_s"]                                        # doctest: +SKIP
-    (-1.2e-06, 9.8e-06)
+    A tiny invented catalog (two pulses of the fictional station hollowmere):
+
+    >>> import tempfile, numpy as np
+    >>> from features import write_catalog
+    >>> t = np.arange(2000) / 20e6 - 50e-6                       # s, 20 MS/s
+    >>> field = np.vstack([np.exp(-0.5 * (t / 1e-6) ** 2),        # V/m, invented pulses
+    ...                    -2 * np.exp(-0.5 * (t / 2e-6) ** 2)]).astype(np.float32)
+    >>> folder = write_catalog(
+    ...     tempfile.mkdtemp() + "/hollowmere-demo",
+    ...     {"event_id": ["a", "b"], "time_utc": ["2031-07-14T21:03:55.000001Z",
+    ...                                           "2031-07-14T21:03:55.250000Z"]},
+    ...     field, field_meta={"sample_rate_hz": 20e6, "pretrigger_s": 50e-6, "units": "V/m",
+    ...                        "sign_convention": "physics", "decay_time_s": None},
+    ...     catalog_id="hollowmere-demo", station="hollowmere")
+    >>> from features import open_catalog, pulse_trace
+    >>> tr = pulse_trace(open_catalog(folder), 1)
+    >>> abs(tr["peak_time_s"]) < 0.05e-6, round(tr["peak_field_v_per_m"], 2)  # s, V/m
+    (True, -2.0)
+    >>> tr["time_s"].shape == tr["field_v_per_m"].shape
+    True
     """
     if not 0 <= int(row) < catalog.n_events:
         raise IndexError(f"row {row} is outside the catalog ({catalog.n_events} pulses)")

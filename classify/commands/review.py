@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 
 from features import InputError
@@ -16,14 +17,58 @@ EPILOG = """\
 The page shows one pulse at a time: field change and VHF power on a shared time
 axis (zoom and pan), the whole record, the mapped sources (altitude against
 time, plan view and sky when positions exist, with the channel mapped earlier
-in the flash), why the pulse is in the queue, the model's probabilities, the
-nearest labelled pulses of each class in question, and the key features.
+in the flash), why the pulse is in the queue, the model's probabilities, why
+the model chose its class (the features' largest contributions, when the model
+is found), the nearest labelled pulses of each class in question, and the key
+features.
 Keys: 1-9 one per class of the label store, u unsure, s skip, z or Backspace
 undo the last decision, + and - zoom, arrows pan, 0 back to the pulse, ? help.
 Every decision is written to the label store at once (origin 'review'), so
 closing the page or stopping the server loses nothing; starting again resumes
 the queue. The server listens on 127.0.0.1 only, unless --host says otherwise.
 """
+
+
+#: Contributions shown in the "why this class" panel (the largest first).
+WHY_FEATURES = 6
+
+
+def model_attributions(model, n: int = WHY_FEATURES):
+    """The "why this class" of a model, as a review session's ``attributions``.
+
+    Parameters
+    ----------
+    model : classify.models.PulseClassifier
+        The model behind the results.
+    n : int, default=6
+        Contributions per pulse.
+
+    Returns
+    -------
+    callable
+        ``attributions(result_row)``: the ``n`` largest contributions of the row's
+        features to its class against the runner-up (natural log-odds,
+        :func:`classify.explain.explain_pulses`, :func:`classify.explain.top_reasons`)
+        as ``[(feature, contribution), ...]``, e.g. ``[("width_s", 0.83), ...]`` (the
+        page's features table shows the values); None when the row lacks the model's
+        features.
+    """
+    import pandas as pd
+
+    from classify.explain import explain_pulses, top_reasons
+
+    def attributions(res):
+        X = pd.DataFrame([res])
+        try:
+            why = explain_pulses(model, X)
+        except InputError as exc:   # results of another schema: the panel says so
+            logging.getLogger("pulsesort").info("why this class: not available for %s (%s)",
+                                                res.get("event_id"), exc)
+            return None
+        reasons = top_reasons(why, X, n=n)
+        return list(zip(reasons["feature"], reasons["contribution"]))
+
+    return attributions
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -67,7 +112,8 @@ def run(args) -> int:
     store = args.store if args.store is not None else default_store_path()
     session = ReviewSession(results, cat, store, args.analyst, budget=args.budget,
                             model=model, catalog_paths=card_catalog_paths(card),
-                            revisit=args.revisit)
+                            revisit=args.revisit,
+                            attributions=None if model is None else model_attributions(model))
     try:
         server = make_server(session, args.host, args.port)
     except OSError as exc:
@@ -84,6 +130,9 @@ def run(args) -> int:
         print("look-alikes: " + (f"the labelled training pulses of model {card['version']}"
                                  if model is not None else
                                  "the labelled pulses of this catalog in the store"))
+        print("why this class: " + ("the features' contributions to the class in model "
+                                    f"{card['version']}" if model is not None else
+                                    "not available without the model (--model)"))
         print(f"open {server.url}")
         print("(Ctrl-C to stop; every decision is already saved)", flush=True)
         server.serve_forever()

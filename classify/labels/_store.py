@@ -56,6 +56,18 @@ class LabelStore(ClassesMixin):
     backup copy ``<store>.v<N>.bak``. Every write is one ``BEGIN IMMEDIATE``
     transaction: it either happens whole or not at all, and concurrent writers
     (other processes) wait for each other.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from classify import LabelStore
+    >>> with LabelStore(tempfile.mkdtemp() + "/labels.sqlite") as store:
+    ...     store.classes()
+    ['narrow_bipolar', 'stepped_leader', 'recoil', 'energetic_in_cloud']
+
+    Labels come in with ``store.import_labels(csv_path, catalog)`` or
+    ``store.record_decision(...)``; ``store.current_labels([catalog_id])`` gives what
+    the analysts decided, one row per pulse.
     """
 
     def __init__(self, path=None, *, create: bool = True, timeout_s: float = 60.0):

@@ -25,6 +25,7 @@ import math
 import numpy as np
 import pandas as pd
 
+from classify.predict import model_inputs
 from features import open_catalog
 from features.trace import pulse_trace
 
@@ -155,9 +156,8 @@ class LookAlikes:
         i = self._res_row[event_id]
         if self.model is not None:
             ref = self._ref
-            names = list(getattr(self.model, "feature_names_in_", self.results.columns))
-            X = self.results.iloc[[i]][names].apply(pd.to_numeric, errors="coerce")
-            idx, dist = self.model.nearest_labelled(X.astype(float), k=len(ref))
+            X = model_inputs(self.model, self.results.iloc[[i]])
+            idx, dist = self.model.nearest_labelled(X, k=len(ref))
             idx, dist = np.asarray(idx)[0], np.asarray(dist)[0]
             keep = idx >= 0
             idx, dist = idx[keep], dist[keep]

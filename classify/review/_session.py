@@ -83,7 +83,10 @@ class ReviewSession:
     attributions : callable, optional
         ``attributions(result_row) -> [(feature, contribution), ...]`` or None:
         why the model chose its class, shown as a bar chart ("not available
-        for this model" without it).
+        for this model" without it). ``pulsesort review`` passes
+        :func:`classify.commands.review.model_attributions` of the model behind
+        the results (its largest feature contributions,
+        :func:`classify.explain.explain_pulses`).
     """
 
     def __init__(self, results, catalog, store_path, analyst, *, budget=None, model=None,

@@ -9,7 +9,7 @@ infrastructure, not a package: import it as ``tests.speclit`` from the
 repository root.
 
 >>> from tests.speclit import write_season, PROFILES                # doctest: +SKIP
->>> path, labels = write_season("out/hm", n_events=4000, seed=1, profile="shifted")
+>>> path, labels = write_season("out/hm", n_events=4000, seed=1, profile="shifted")  # doctest: +SKIP
 
 writes ``out/hm/`` (catalog.json, events.csv, field.npy, vhf.npy, sources.csv),
 ``out/hm.labels.csv`` (``event_id,label,analyst,decided_at,note``; analyst

@@ -363,8 +363,10 @@
     });
     el("line", { x1: zero, x2: zero, y1: 4, y2: 8 + row * items.length, stroke: "#555" }, svg);
     if (opt.xLabel) {
-      text(svg, (left + right) / 2, H - 4, opt.xLabel, { "text-anchor": "middle",
-                                                        class: "axis-label" });
+      // centred under the bars, but kept inside the plot when long labels narrow them
+      const half = textWidth(opt.xLabel) / 2 + 2;
+      const cx = Math.max(half, Math.min((left + right) / 2, W - half));
+      text(svg, cx, H - 4, opt.xLabel, { "text-anchor": "middle", class: "axis-label" });
     }
     return svg;
   }
