@@ -36,7 +36,6 @@
 from __future__ import annotations
 
 import numbers
-import warnings
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
@@ -54,6 +53,7 @@ from .conformal import (
     nan_euclidean,
     season_thresholds,
 )
+from .novelty import choose_reference, knn_mean_distance, robust_scaling, standardise
 
 __all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_euclidean",
            "season_thresholds", "select_columns"]
@@ -455,62 +455,25 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
 
     # ------------------------------------------------------------------ novelty
     def _standardise(self, X):
-        z = (X - self.center_) / self.scale_
-        return np.arcsinh(z)
+        return standardise(X, self.center_, self.scale_)
 
     def _fit_novelty(self, X, y_idx, rng, allowed):
-        with warnings.catch_warnings():  # all-NaN columns give NaN: handled below
-            warnings.simplefilter("ignore", RuntimeWarning)
-            center = np.nanmedian(X, axis=0)
-            q75, q25 = np.nanpercentile(X, [75, 25], axis=0)
-            spread = np.nanstd(X, axis=0)
-        scale = q75 - q25
-        scale = np.where(np.isfinite(scale) & (scale > 0), scale,
-                         np.where(np.isfinite(spread) & (spread > 0), spread, 1.0))
-        self.center_ = np.where(np.isfinite(center), center, 0.0)
-        self.scale_ = scale
+        """Robust scaling, the reference pulses and the threshold (see :mod:`.novelty`)."""
+        self.center_, self.scale_ = robust_scaling(X)
         n = len(X)
         m = min(self.n_reference, int(allowed.sum()))
-        # stratified choice of reference pulses: every class represented
-        order = rng.permutation(n)
-        order = order[allowed[order]]
-        per_class = [order[y_idx[order] == k] for k in range(len(self.classes_))]
-        take = []
-        quota = max(1, m // len(per_class))
-        for idx in per_class:
-            take.extend(idx[:quota].tolist())
-        chosen = set(take)
-        rest = [i for i in order if i not in chosen][: max(0, m - len(take))]
-        ref = np.sort(np.array(take + rest, dtype=np.intp))[:m]
+        ref = choose_reference(y_idx, len(self.classes_), allowed, m, rng)
         self.reference_index_ = ref
         self.reference_X_ = self._standardise(X[ref])
         self.reference_y_ = self.classes_[y_idx[ref]]
         # leave-self-out scores of (a sample of) the training pulses
         probe = rng.choice(n, size=min(n, 4000), replace=False)
-        scores = self._knn_distance(self._standardise(X[probe]),
-                                    exclude=ref.searchsorted(probe), exclude_ok=np.isin(probe,
-                                                                                          ref))
+        exclude = np.where(np.isin(probe, ref), ref.searchsorted(probe), -1)
+        scores = knn_mean_distance(self._standardise(X[probe]), self.reference_X_,
+                                   self.novelty_k, exclude=exclude)
         finite = scores[np.isfinite(scores)]
         self.novelty_threshold_ = (float(np.quantile(finite, self.novelty_quantile))
                                    if finite.size else np.inf)
-
-    def _knn_distance(self, Z, exclude=None, exclude_ok=None, k=None):
-        k = min(self.novelty_k if k is None else k, len(self.reference_X_))
-        out = np.empty(len(Z))
-        for s in range(0, len(Z), 1024):
-            d = nan_euclidean(Z[s:s + 1024], self.reference_X_)
-            if exclude is not None:
-                rows = np.arange(d.shape[0])
-                ex = exclude[s:s + 1024]
-                ok = exclude_ok[s:s + 1024]
-                d[rows[ok], ex[ok]] = np.inf
-            d = np.where(np.isfinite(d), d, np.inf)
-            kk = min(k, d.shape[1])
-            part = np.partition(d, kk - 1, axis=1)[:, :kk]
-            with np.errstate(invalid="ignore"):
-                out[s:s + 1024] = np.where(np.isfinite(part).all(axis=1), part.mean(axis=1),
-                                           np.nan)
-        return out
 
     # ------------------------------------------------------------------ predict
     def _validate(self, X):
@@ -590,7 +553,7 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         robust standardised units (NaN where no reference pulse shares a feature).
         """
         X = self._validate(X)
-        return self._knn_distance(self._standardise(X))
+        return knn_mean_distance(self._standardise(X), self.reference_X_, self.novelty_k)
 
     def is_novel(self, X):
         """True where the novelty score exceeds the training threshold (or is NaN)."""
