@@ -122,6 +122,7 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     start = np.asarray(start, dtype=np.float64)
     stop = np.asarray(stop, dtype=np.float64)
     ok = np.isfinite(start) & np.isfinite(stop)
+    duration = np.clip(stop - start, 0, None) * (1.0 / float(sample_rate_hz))   # s
     c0 = int(np.clip(np.floor(np.min(start[ok], initial=w)), 0, w - 1)) if w else 0
     c1 = int(np.clip(np.ceil(np.max(stop[ok], initial=0)) + 2, c0 + 1, w))
     # one zero column before the span, so that every row's integral starts from a zero
@@ -146,7 +147,6 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     # the induction term is ~ c T / R of the radiation term for a pulse lasting T (and the
     # electrostatic one ~ its square): rows where that is under half the tolerance are
     # done with the radiation term alone
-    duration = np.clip(stop - start, 0, None) * dt
     with np.errstate(divide="ignore", invalid="ignore"):
         small = _C * duration / r < 0.5 * INVERSION_TOLERANCE
     converged = np.isfinite(d) & (d > 0) & small
