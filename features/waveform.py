@@ -66,7 +66,6 @@ from ._rowops import (
     crossing_before,
     cumtrapz_rows,
     first_true,
-    interp_rows,
     last_true,
     moving_average_rows,
     parabolic_peak,
@@ -76,7 +75,7 @@ from .moments import (
     DEFAULT_ALTITUDE_M,
     NEAR_FIELD_RATIO,
     geometry_factor_m,
-    invert_moments,
+    moments_at,
 )
 
 __all__ = [
@@ -473,11 +472,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     known = np.isfinite(alt_given) & (alt_given >= 0)
     altitude = np.where(known, alt_given, DEFAULT_ALTITUDE_M)
     altitude_assumed = ~known
-    c0, mom, chg, converged = invert_moments(e, fs, np.where(ok, onset, np.nan),
-                                             np.where(ok, pulse_end, np.nan), rng, altitude)
-    m_at = np.where(has_zc, zc, pulse_end) - c0
-    current_moment = interp_rows(mom, m_at) if mom.shape[1] else np.full(n, np.nan)
-    charge_moment = interp_rows(chg, pulse_end - c0) if chg.shape[1] else np.full(n, np.nan)
+    current_moment, charge_moment, converged = moments_at(
+        e, fs, np.where(ok, onset, np.nan), np.where(ok, pulse_end, np.nan),
+        np.where(has_zc, zc, pulse_end), rng, altitude)
     geometry = geometry_factor_m(rng, altitude)
     peak_signed = polarity * peak
     k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry

@@ -4,7 +4,7 @@ import numpy as np
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import constants
 
-from features.moments import INVERSION_TOLERANCE, invert_moments
+from features.moments import INVERSION_TOLERANCE, invert_moments, moments_at
 
 FS = 20e6
 
@@ -59,3 +59,47 @@ def test_radiation_only_far_away_matches_the_radiation_term():
     expected = factor * np.sum(e) / FS              # the half-sine's integral, trapezoids
     assert_allclose(m[0, -1], expected, rtol=1e-9)
     assert conv[0]
+
+
+def test_moments_at_equals_the_batch_inversion_sampled():
+    """Invented pulses (self-consistency): moments_at gives invert_moments' values.
+
+    Rows of very different lengths and onsets (so moments_at groups them into separate
+    windows), near ones that iterate and far ones that do not, a row without onset and
+    one without range.
+    """
+    rng = np.random.default_rng(0)
+    n, w = 7, 6000
+    rows, start, stop = [], [], []
+    for i in range(n):
+        on = int(rng.integers(0, 3000))
+        width = (2500, 30, 300)[i % 3]
+        rows.append(_row(on, width, w=w, amp=rng.normal()))
+        start.append(on + rng.uniform(0, 0.9))
+        stop.append(min(on + width + 5.0 + rng.uniform(0, 1), w - 1.0))
+    e = np.stack(rows) + 1e-3 * rng.normal(size=(n, w))
+    start, stop = np.array(start), np.array(stop)
+    start[5] = np.nan                                     # no onset
+    d = rng.uniform(5e3, 150e3, n)
+    d[6] = np.nan                                         # no range
+    h = rng.uniform(3e3, 14e3, n)
+    d[0], h[0] = 2e3, 10e3              # close by and long: may not converge
+    d[1], h[1] = 140e3, 8e3             # far and short: radiation term only
+    at = start + 0.6 * (stop - start)
+    c0, m, q, conv = invert_moments(e, FS, start, stop, d, h)
+    cur, chg, conv_at = moments_at(e, FS, start, stop, at, d, h)
+
+    def sample(v, x):
+        j = np.floor(x - c0).astype(int)
+        a = (x - c0) - j
+        return v[np.arange(len(x)), j] * (1 - a) + v[np.arange(len(x)), j + 1] * a
+
+    good = np.isfinite(start) & np.isfinite(d)
+    assert_allclose(cur[good], sample(m[good], at[good]), rtol=1e-12)
+    assert_allclose(chg[good], sample(q[good], stop[good]), rtol=1e-12)
+    assert np.isnan(cur[~good]).all() and np.isnan(chg[~good]).all()
+    assert_array_equal(conv_at, conv)
+    assert not conv[6] and conv[5]                       # no range; nothing to invert
+    ctr = constants.c * (stop - start) / FS / np.hypot(d, h)
+    assert (ctr[good] > 0.5 * INVERSION_TOLERANCE).any()     # rows that iterate
+    assert (ctr[good] < 0.5 * INVERSION_TOLERANCE).any()     # rows that do not
