@@ -197,6 +197,19 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     usable = length >= BASELINE_MIN_SAMPLES
     sigma, quiet = _block_sigma(block, valid,
                                 max(int(round(BLOCK_S * fs)), BASELINE_MIN_SAMPLES), quantum)
+    sloped = usable & (length >= max(min(min_slope_s * fs, 1e18), BASELINE_MIN_SAMPLES))
+    if sloped.any():
+        slope = _two_half_slope(block, valid, start, length, sigma, sloped)
+    level = quiet if quiet_level else nanmedian_rows(block - slope[:, None] * cols)
+    level = np.where(usable & np.isfinite(level), level, 0.0)
+    sigma = np.where(usable, sigma, np.nan)
+    return level, slope, _noise_floor(sigma, quantum), start, np.where(usable, length, 0)
+
+
+def _two_half_slope(block, valid, start, length, sigma, sloped):
+    """Slope of each row's stretch (V/m per sample) from the medians of its two halves;
+    0 where not ``sloped`` or not significant."""
+    width = block.shape[1]
     half = length // 2
     first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
     second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block, np.nan)
@@ -205,7 +218,6 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     # centres of the two halves, in columns of e
     c1 = start + (half - 1) / 2.0
     c2 = start + half + (length - half - 1) / 2.0
-    sloped = usable & (length >= max(min(min_slope_s * fs, 1e18), BASELINE_MIN_SAMPLES))
     with np.errstate(divide="ignore", invalid="ignore"):
         slope = np.where(sloped, (m2 - m1) / (c2 - c1), 0.0)
         # a slope is kept only when significant: extrapolated, a slope of noise becomes
@@ -213,13 +225,8 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
         # (L/2) (Kendall & Stuart, from memory): the two-half slope's standard error is
         # sqrt(2 pi / L) sigma / (c2 - c1).
         se = np.sqrt(2 * np.pi / length) * sigma / np.maximum(c2 - c1, 1.0)
-    slope = np.where(np.isfinite(slope) & (np.abs(slope) > SLOPE_SIGNIFICANCE
-                                           * np.nan_to_num(se, nan=np.inf)), slope, 0.0)
-    resid = block - slope[:, None] * cols
-    level = quiet if quiet_level else nanmedian_rows(resid)
-    level = np.where(usable & np.isfinite(level), level, 0.0)
-    sigma = np.where(usable, sigma, np.nan)
-    return level, slope, _noise_floor(sigma, quantum), start, np.where(usable, length, 0)
+    return np.where(np.isfinite(slope) & (np.abs(slope) > SLOPE_SIGNIFICANCE
+                                          * np.nan_to_num(se, nan=np.inf)), slope, 0.0)
 
 
 def _noise_floor(sigma, quantum):
