@@ -274,6 +274,14 @@ class LobeTable:
         return int(self.row.size)
 
 
+def _run_starts(sorted_ids):
+    """Positions where a new value starts in a sorted array (``np.unique``'s first
+    indices, without its sort)."""
+    new = np.ones(sorted_ids.size, dtype=bool)
+    new[1:] = sorted_ids[1:] != sorted_ids[:-1]
+    return np.flatnonzero(new)
+
+
 def _segmented_cummax(values, seg, reverse=False):
     """Running maximum of non-negative ``values`` restarting at every new ``seg`` id."""
     if values.size == 0:
@@ -318,9 +326,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         e = ndimage.uniform_filter1d(e, smooth, axis=1, mode="nearest")
     sig = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf) / np.sqrt(smooth)
     lo = (low_sigma * sig)[:, None]
-    state = np.zeros((n, w), dtype=np.int8)
-    state[e >= lo] = 1
-    state[e <= -lo] = -1
+    state = (e >= lo).view(np.int8) - (e <= -lo).view(np.int8)      # +1, -1 or 0
     change = np.empty((n, w), dtype=bool)
     change[:, 0] = True
     np.not_equal(state[:, 1:], state[:, :-1], out=change[:, 1:])
@@ -355,17 +361,19 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         new_stretch[1:] = (np.diff(d_idx) != 1) | (owner[d_idx[1:]] != owner[d_idx[:-1]])
         stretch = np.cumsum(new_stretch) - 1
         key = np.lexsort((a_s[d_idx], stretch))
-        _, first = np.unique(stretch[key], return_index=True)
+        first = _run_starts(stretch[key])
         cut = d_idx[key[first]]                       # positions in the flat sample list
         boundary = np.zeros(flat.size, dtype=bool)
         boundary[cut] = True
         piece = owner + np.cumsum(boundary)             # new run ids, increasing
         # the cut sample itself starts the later piece
-        _, p_first = np.unique(piece, return_index=True)
+        new_piece = np.ones(piece.size, dtype=bool)
+        new_piece[1:] = piece[1:] != piece[:-1]
+        p_first = np.flatnonzero(new_piece)
         piece_start = flat[p_first]
         piece_stop = np.append(flat[p_first[1:] - 1] + 1, flat[-1] + 1)
         after = boundary[p_first]
-        owner = np.searchsorted(p_first, np.arange(flat.size), side="right") - 1
+        owner = np.cumsum(new_piece) - 1
         piece_max = np.maximum.reduceat(vals, p_first)
         big_enough = piece_max >= high_sigma * sig[piece_start // w]
         k_start, k_stop, run_peak = piece_start, piece_stop, piece_max
@@ -378,7 +386,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     # column of the maximum inside each run
     is_max = vals == run_peak[owner]
     hit = np.flatnonzero(is_max)
-    _, first_hit = np.unique(owner[hit], return_index=True)
+    first_hit = _run_starts(owner[hit])
     peak_flat = np.full(k_start.size, -1, dtype=np.intp)
     peak_flat[owner[hit[first_hit]]] = flat[hit[first_hit]]
     sel = big_enough
@@ -542,7 +550,8 @@ def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarra
     if cand.size == 0:
         return out
     order = cand[np.lexsort((-rel[cand], dist[cand], rank[cand], lobes.row[cand]))]
-    rows, first = np.unique(lobes.row[order], return_index=True)
+    first = _run_starts(lobes.row[order])          # order is sorted by row first
+    rows = lobes.row[order][first]
     out[rows] = lobe_pulse[order[first]]
     return out
 
