@@ -20,6 +20,7 @@ __all__ = [
     "cumtrapz_rows",
     "parabolic_peak",
     "moving_average_rows",
+    "median_rows",
     "nanmedian_rows",
 ]
 
@@ -219,10 +220,38 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Rows up to this long get their median from a full sort, longer ones from
+#: :func:`numpy.median`'s partition: NumPy's vectorised sort is several times faster
+#: than its partition on short rows (measured), and both give the same order statistics.
+SORT_MEDIAN_MAX = 512
+
+
+def median_rows(a: np.ndarray) -> np.ndarray:
+    """Median of each row of a NaN-free 2-D array, exactly as :func:`numpy.median`.
+
+    The middle value, or the mean of the two middle values, of each row (taken from a
+    sort for rows of up to :data:`SORT_MEDIAN_MAX` samples), bit for bit the same,
+    signed zeros included.
+    """
+    n, w = a.shape
+    if w > SORT_MEDIAN_MAX or w == 0 or n == 0:
+        return np.median(a, axis=1)
+    s = np.sort(a, axis=1)
+    h = w // 2
+    mid = s[:, h - 1 + w % 2:h + 1]
+    out = mid[:, 0].copy() if w % 2 else np.mean(mid, axis=1)
+    # a middle value of 0 may be -0.0 or +0.0 (they sort as equal): the partition
+    # decides which one numpy.median returns, so those rows take it
+    zero = (mid == 0).any(axis=1)
+    if zero.any():
+        out[zero] = np.median(a[zero], axis=1)
+    return out
+
+
 def nanmedian_rows(a: np.ndarray) -> np.ndarray:
     """Median of each row ignoring NaN (NaN for an all-NaN or empty row); vectorised.
 
-    Rows without NaN use :func:`numpy.median`; rows with NaN are sorted (NaN last) and
+    Rows without NaN use :func:`median_rows`; rows with NaN are sorted (NaN last) and
     the middle of their valid values taken, with no Python loop over rows (unlike
     :func:`numpy.nanmedian` on 2-D input).
     """
@@ -235,9 +264,9 @@ def nanmedian_rows(a: np.ndarray) -> np.ndarray:
     has_nan = nan.any(axis=1)
     clean = ~has_nan
     if clean.all():
-        return np.median(a, axis=1)
+        return median_rows(a)
     if clean.any():
-        out[clean] = np.median(a[clean], axis=1)
+        out[clean] = median_rows(a[clean])
     sub = np.sort(a[has_nan], axis=1)
     cnt = (~nan[has_nan]).sum(axis=1)
     lo = np.clip((cnt - 1) // 2, 0, w - 1)

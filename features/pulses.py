@@ -45,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from ._rowops import nanmedian_rows
+from ._rowops import median_rows, nanmedian_rows
 
 __all__ = [
     "BASELINE_MAX_S",
@@ -242,8 +242,8 @@ def robust_sigma_diff(e: np.ndarray) -> np.ndarray:
     sigma robustly (pulses occupy a small part of a record).
     """
     d = np.diff(e, axis=1)
-    med = np.median(d, axis=1)
-    return 1.4826 * np.median(np.abs(d - med[:, None]), axis=1) / np.sqrt(2.0)
+    med = median_rows(d)
+    return 1.4826 * median_rows(np.abs(d - med[:, None])) / np.sqrt(2.0)
 
 
 @dataclass(frozen=True)

@@ -39,7 +39,13 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import signal
 
-from ._rowops import crossing_after, crossing_before, nanmedian_rows, parabolic_peak
+from ._rowops import (
+    crossing_after,
+    crossing_before,
+    median_rows,
+    nanmedian_rows,
+    parabolic_peak,
+)
 
 __all__ = ["VHF_BIN_S", "VHF_SMOOTH_S", "VHF_SPAN_S", "vhf_power", "vhf_envelope",
            "vhf_features"]
@@ -147,7 +153,7 @@ def _noise_floor(env, inwin, n_bins):
     block = np.take_along_axis(env, np.clip(cols, 0, nb - 1), axis=1)
     block = np.where(cols < stop[:, None], block, np.nan)
     out = nanmedian_rows(block)
-    return np.where(np.isfinite(out), out, np.median(env, axis=1))
+    return np.where(np.isfinite(out), out, median_rows(env))
 
 
 def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay_s=0.0,
