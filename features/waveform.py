@@ -311,7 +311,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     alt_given = (np.full(n, np.nan) if altitude_m is None
                  else np.asarray(altitude_m, dtype=np.float64))
     x, missing = _fill_missing(x)
-    miss_frac = missing.mean(axis=1) if m else np.ones(n)
+    miss_frac = np.count_nonzero(missing, axis=1) / m if m else np.ones(n)
     censor_mask = None
     if full_scale_v_per_m is not None:
         censor_mask = np.abs(x) >= float(full_scale_v_per_m) * (1 - 1e-9)
