@@ -4,7 +4,13 @@ import numpy as np
 import pytest
 from numpy.testing import assert_array_equal
 
-from features._rowops import SORT_MEDIAN_MAX, median_rows, nanmedian_rows
+from features._rowops import (
+    SORT_MEDIAN_MAX,
+    crossing_after,
+    crossing_before,
+    median_rows,
+    nanmedian_rows,
+)
 
 
 @pytest.mark.parametrize("width", [1, 2, 7, 200, 201, SORT_MEDIAN_MAX, SORT_MEDIAN_MAX + 1, 900])
@@ -27,3 +33,63 @@ def test_nanmedian_rows_is_numpy_nanmedian():
     with pytest.warns(RuntimeWarning):
         expected = np.nanmedian(a, axis=1)
     assert_array_equal(nanmedian_rows(a), expected)
+
+
+def _crossing_before_by_definition(u, stop, level, start):
+    """The last j in [start, stop) with u[j] < level, interpolated to j + 1; row by row
+    (a flat step, or a level off the two samples, gives the nearer sample)."""
+    out = np.full(len(u), np.nan)
+    w = u.shape[1]
+    for i, row in enumerate(u):
+        cols = [j for j in range(w) if j >= start[i] and j < stop[i] and row[j] < level[i]]
+        if cols:
+            j = cols[-1]
+            u0, u1 = row[j], row[min(j + 1, w - 1)]
+            with np.errstate(all="ignore"):
+                a = np.clip(np.float64(level[i] - u0) / (u1 - u0), 0.0, 1.0)
+            out[i] = j + (a if np.isfinite(a) else 0.0)
+    return out
+
+
+def _crossing_after_by_definition(u, start, level, stop):
+    """The first j in (start, stop) with u[j] < level, interpolated from j - 1; row by row."""
+    out = np.full(len(u), np.nan)
+    w = u.shape[1]
+    for i, row in enumerate(u):
+        cols = [j for j in range(w) if j > start[i] and j < stop[i] and row[j] < level[i]]
+        if cols:
+            j = cols[0]
+            j0 = max(j - 1, 0)
+            u0, u1 = row[j0], row[j]
+            with np.errstate(all="ignore"):
+                a = np.clip(np.float64(u0 - level[i]) / (u0 - u1), 0.0, 1.0)
+            out[i] = j0 + (a if np.isfinite(a) else 1.0)
+    return out
+
+
+def test_crossing_searches_follow_their_definition():
+    """Invented rows (self-consistency): the windowed searches find what a plain scan of
+    every allowed column finds, near and far (beyond several search windows), with
+    float, NaN and out-of-range bounds."""
+    rng = np.random.default_rng(3)
+    n, w = 60, 3000
+    u = np.cumsum(rng.normal(size=(n, w)), axis=1)
+    level = rng.normal(0, 20, n)
+    level[7] = np.nan
+    a = rng.integers(-50, w + 50, n).astype(float)
+    b = rng.integers(-50, w + 50, n).astype(float)
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    lo[::5] += 0.5                                # fractional bounds
+    hi[::7] -= 0.25
+    lo[3] = np.nan
+    hi[4] = np.nan
+    before = crossing_before(u, hi, level, start=lo)
+    after = crossing_after(u, lo, level, stop=hi)
+    assert_array_equal(before, _crossing_before_by_definition(u, hi, level, lo))
+    assert_array_equal(after, _crossing_after_by_definition(u, lo, level, hi))
+    assert np.isfinite(before).sum() > 20 and np.isfinite(after).sum() > 20
+    ints = np.clip(np.nan_to_num(lo), 0, w - 1).astype(np.intp)
+    assert_array_equal(crossing_after(u, ints, level),
+                       _crossing_after_by_definition(u, ints, level, np.full(n, w)))
+    assert_array_equal(crossing_before(u, ints, level),
+                       _crossing_before_by_definition(u, ints, level, np.zeros(n)))
