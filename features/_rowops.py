@@ -65,70 +65,29 @@ def _span(w, lo, hi):
     return lo, max(hi, lo)
 
 
-#: Columns the crossing searches look at first, from where each row's search starts;
-#: rows without a crossing there look at four times as many next, and so on. Most
-#: crossings lie within a few tens of samples of the peak they are searched from, so
-#: the searches touch a small part of the rows, and give what a search of every
-#: allowed column gives.
-SEARCH_FIRST_COLUMNS = 32
-
-
-def _bound(x, w, default, round_up):
-    """Integer column bound in [0, w] from an int or float array (NaN: -1, nothing)."""
-    if x is None:
-        return default
-    x = np.asarray(x)
-    if x.dtype.kind in "iub":
-        return np.clip(x, 0, w).astype(np.intp)
-    r = np.ceil(x) if round_up else np.floor(x)
-    return np.where(np.isnan(r), -1, np.clip(np.nan_to_num(r), 0, w)).astype(np.intp)
-
-
-def _search(u, lo, hi, level, *, last, inclusive=False):
-    """Column of the first (last) sample below ``level`` within [lo, hi) of each row.
-
-    Searches outward from ``lo`` (from ``hi`` backwards when ``last``) in growing
-    windows, each row only as far as it needs. Returns the column and whether found.
-    """
-    n, w = u.shape
-    j = np.zeros(n, dtype=np.intp)
-    found = np.zeros(n, dtype=bool)
-    level = np.broadcast_to(np.asarray(level, dtype=np.float64), (n,))
-    edge = (hi if last else lo).copy()           # next column to look at, per row
-    todo = np.flatnonzero((lo >= 0) & (lo < hi))     # -1: a NaN bound, nothing to search
-    width = SEARCH_FIRST_COLUMNS
-    while todo.size:
-        first = edge[todo] - width if last else edge[todo]
-        cols = first[:, None] + np.arange(width)[None, :]
-        vals = u[todo[:, None], np.clip(cols, 0, max(w - 1, 0))]
-        below = (vals <= level[todo, None]) if inclusive else (vals < level[todo, None])
-        below &= (cols >= lo[todo, None]) & (cols < hi[todo, None])
-        k, hit = last_true(below) if last else first_true(below)
-        j[todo[hit]] = first[hit] + k[hit]
-        found[todo[hit]] = True
-        edge[todo] = first if last else first + width
-        more = ~hit & ((edge[todo] > lo[todo]) if last else (edge[todo] < hi[todo]))
-        todo = todo[more]
-        width *= 4
-    return j, found
-
-
 def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
                     start: np.ndarray | None = None) -> np.ndarray:
     """Fractional index where each row last rises through ``level`` before ``stop``.
 
     The crossing lies between the last sample ``j < stop`` with ``u[j] < level``
     and ``j + 1``; it is linearly interpolated. NaN where no sample in
-    ``[start, stop)`` is below the level. Each row is searched backwards from its
-    ``stop``, only as far as it needs.
+    ``[start, stop)`` is below the level. Only the columns between the smallest
+    start and the largest stop of the batch are searched.
     """
-    n, w = u.shape
-    if w == 0:
-        return np.full(n, np.nan)
-    lo = _bound(start, w, np.zeros(n, np.intp), round_up=True)
-    hi = _bound(stop, w, None, round_up=True)
-    j, found = _search(u, lo, hi, level, last=True)
-    r = np.arange(n)
+    w = u.shape[1]
+    c0, c1 = _span(w, 0 if start is None else np.min(start, initial=w),
+                   np.max(stop, initial=0))
+    sub = u[:, c0:c1]
+    cols = np.arange(c0, c1)
+    mask = (sub < level[:, None]) & (cols < stop[:, None])
+    if start is not None:
+        mask &= cols >= start[:, None]
+    if c1 > c0:
+        j, found = last_true(mask)
+        j = j + c0
+    else:
+        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
+    r = np.arange(u.shape[0])
     j1 = np.minimum(j + 1, w - 1)
     u0, u1 = u[r, j], u[r, j1]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -143,18 +102,24 @@ def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
 
     The crossing lies between the first sample ``j > start`` with ``u[j] < level``
     (``<=`` when ``inclusive``) and ``j - 1``; linearly interpolated. NaN where
-    none is found in ``(start, stop)``. Each row is searched forwards from its
-    ``start``, only as far as it needs.
+    none is found in ``(start, stop)``. Only the columns between the smallest
+    start and the largest stop of the batch are searched.
     """
-    n, w = u.shape
-    if w == 0:
-        return np.full(n, np.nan)
-    start = np.asarray(start)
-    lo = _bound(start + 1 if start.dtype.kind in "iu" else np.floor(start) + 1, w, None,
-                round_up=False)
-    hi = _bound(stop, w, np.full(n, w, np.intp), round_up=True)
-    j, found = _search(u, lo, hi, level, last=False, inclusive=inclusive)
-    r = np.arange(n)
+    w = u.shape[1]
+    c0, c1 = _span(w, np.min(start, initial=w) + 1,
+                   w if stop is None else np.max(stop, initial=0))
+    sub = u[:, c0:c1]
+    cols = np.arange(c0, c1)
+    below = (sub <= level[:, None]) if inclusive else (sub < level[:, None])
+    mask = below & (cols > start[:, None])
+    if stop is not None:
+        mask &= cols < stop[:, None]
+    if c1 > c0:
+        j, found = first_true(mask)
+        j = j + c0
+    else:
+        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
+    r = np.arange(u.shape[0])
     j0 = np.maximum(j - 1, 0)
     u0, u1 = u[r, j0], u[r, j]
     with np.errstate(divide="ignore", invalid="ignore"):
