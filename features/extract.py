@@ -18,6 +18,7 @@ import sys
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -25,13 +26,18 @@ import pandas as pd
 from . import schema
 from ._checks import InputError
 from ._tables import SourceTable
-from .augment import StationVariant, apply_field, apply_vhf, draw_variant
 from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import breakdown_polarity, source_features
 from .vhf import VHF_LEAD_S, VHF_MAX_WINDOW_S, VHF_SPAN_S, VHF_TRAIL_S, vhf_features
 from .waveform import ANALYSIS_WINDOW_S, PEAK_SEARCH_S, field_features
+
+if TYPE_CHECKING:
+    from .augment import StationVariant
+
+# features.augment (station variants, for training only) imports scipy.signal, which
+# takes most of a worker's start-up: it is imported where a variant is used.
 
 __all__ = ["ChunkJob", "ChunkPlan", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks",
            "iter_features",
@@ -169,6 +175,8 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     fch = dataclasses.replace(fch, pretrigger_s=fch.pretrigger_s - c0 / fch.sample_rate_hz,
                               n_samples=raw.shape[1])
     if job.variant is not None:   # the same pulses as another station records them
+        from .augment import apply_field, apply_vhf
+
         rng_v = np.random.default_rng([job.variant.seed, job.start])
         # (the variant's rows are physical already: factor None below)
         raw, fch = apply_field(_scaled(raw, fch.scale * fch.sign), fch, job.variant, rng_v)
@@ -384,6 +392,8 @@ def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_j
     """
     variants = None
     if variant_seed is not None:
+        from .augment import draw_variant
+
         rng = np.random.default_rng(variant_seed)
         variants = [draw_variant(rng) for _ in catalog.chunk_bounds(chunk_size)]
     plan = plan_chunks(catalog, chunk_size, context=context, variants=variants)

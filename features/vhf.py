@@ -37,7 +37,6 @@ import warnings
 
 import numpy as np
 from scipy import fft as sp_fft
-from scipy import signal
 
 from ._rowops import (
     crossing_after,
@@ -96,6 +95,9 @@ def vhf_power(vhf, kind):
         return out
     if kind != "voltage":
         raise ValueError(f"kind must be 'voltage' or 'power', got {kind!r}")
+    # imported here: scipy.signal is slow to import, and power records never need it
+    from scipy import signal
+
     out = np.empty_like(v)
     if v.shape[1] == 0:
         return out
