@@ -351,6 +351,13 @@ def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None,
 
     ``func`` must be importable by name (a module-level function) so that
     joblib's worker processes and Dask workers can run it.
+
+    Each joblib worker may use ``cores // n_jobs`` threads (at least one) in the
+    thread pools of NumPy's BLAS and of OpenMP, so that ``n_jobs`` workers use that
+    many cores and not ``n_jobs x cores`` competing threads. Dask workers are started
+    by the cluster: a nanny sets ``OMP_NUM_THREADS``, ``MKL_NUM_THREADS`` and
+    ``OPENBLAS_NUM_THREADS`` to 1 in its worker's environment (Dask's default
+    ``distributed.nanny.pre-spawn-environ``).
     """
     if dask_address:
         yield from _run_dask(func, jobs, dask_address, extra_args)
@@ -358,10 +365,13 @@ def run_jobs(func, jobs, *, n_jobs: int = 1, dask_address: str | None = None,
         for job in jobs:
             yield func(job, *extra_args)
     else:
-        from joblib import Parallel, delayed
+        from joblib import Parallel, delayed, effective_n_jobs, parallel_config
 
-        par = Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="2*n_jobs")
-        yield from par(delayed(func)(job, *extra_args) for job in jobs)
+        workers = effective_n_jobs(n_jobs)
+        threads = max((os.cpu_count() or 1) // workers, 1)
+        with parallel_config(backend="loky", inner_max_num_threads=threads):
+            par = Parallel(n_jobs=workers, return_as="generator", pre_dispatch="2*n_jobs")
+            yield from par(delayed(func)(job, *extra_args) for job in jobs)
 
 
 def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_jobs: int = 1,
