@@ -203,18 +203,13 @@ def _masked_max(values, lo, hi, transform=None):
     return v[np.arange(n), j], (j + c0).astype(np.intp)
 
 
-def _subtract_baseline(e0, e_a, level, slope, line_lo, line_hi, level_a):
+def _subtract_baseline(e0, level, slope, line_lo, line_hi):
     """``e0 - (level + slope * clip(column, line_lo, line_hi))`` for every row.
 
-    Rows without a slope subtract ``level + 0.0`` (what the line is there); those whose
-    level is stage A's (``e_a = e0 - level_a`` already) take their row of ``e_a``.
+    Rows without a slope subtract ``level + 0.0`` (what the line is there: the same
+    numbers), and only the sloped rows build the line.
     """
-    lv = level + 0.0
-    same = (slope == 0) & (lv == level_a) & ~np.signbit(level_a)
-    out = e_a.copy() if not same.all() else e_a
-    flat = np.flatnonzero(~same & (slope == 0))
-    if flat.size:
-        out[flat] = e0[flat] - lv[flat, None]
+    out = e0 - (level + 0.0)[:, None]
     sloped = np.flatnonzero(slope != 0)
     if sloped.size:
         cols = np.arange(e0.shape[1])[None, :]
@@ -373,7 +368,6 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         sigma = np.where(no_base, _pulses._noise_floor(
             _pulses.robust_sigma_diff(e0) if m > 2 else np.full(n, np.nan), q), sigma)
     e_a = e0 - level[:, None]
-    level_a = level
     # a noiseless record (a test, a model) still has a scale: 1e-7 of its largest value
     floor = RELATIVE_SIGMA_FLOOR * (np.maximum(e_a.max(axis=1), -e_a.min(axis=1)) if m
                                     else np.zeros(n))
@@ -402,7 +396,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         line_lo = np.where(use_b, start_b, 0)
         line_hi = np.where(use_b, table.stop[own_c], 0)
     baseline_short = used < _pulses.BASELINE_MIN_S * fs
-    e = _subtract_baseline(e0, e_a, level, slope, line_lo, line_hi, level_a)
+    e = _subtract_baseline(e0, level, slope, line_lo, line_hi)
 
     # the peak: the catalogued pulse's initial half-cycle, else the largest |E| near the
     # trigger (a pulse lost in the noise)
