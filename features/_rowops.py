@@ -163,7 +163,10 @@ def cumtrapz_rows(y: np.ndarray, dt: float) -> np.ndarray:
     """Cumulative trapezoidal integral along each row, starting at 0 (same shape)."""
     out = np.empty_like(y)
     out[:, 0] = 0.0
-    np.cumsum((y[:, 1:] + y[:, :-1]) * (0.5 * dt), axis=1, out=out[:, 1:])
+    if y.shape[1] > 1:
+        steps = y[:, 1:] + y[:, :-1]
+        steps *= 0.5 * dt
+        np.cumsum(steps, axis=1, out=out[:, 1:])
     return out
 
 
@@ -207,16 +210,27 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     out = y.copy()
     if w == 0:
         return out
+    cols = np.arange(w)
     for kk in np.unique(k):
         if kk == 1:
             continue
         rows = np.flatnonzero(k == kk)
         c = np.zeros((rows.size, w + 1))
         np.cumsum(y[rows], axis=1, out=c[:, 1:])
-        lo_half = (kk - 1) // 2
-        a_idx = np.clip(np.arange(w) - lo_half, 0, w)
-        b_idx = np.clip(np.arange(w) + kk - lo_half, 0, w)
-        out[rows] = (c[:, b_idx] - c[:, a_idx]) / (b_idx - a_idx)
+        lo = (kk - 1) // 2             # the window is columns j - lo .. j + hi - 1
+        hi = kk - lo
+        a_idx = np.clip(cols - lo, 0, w)
+        b_idx = np.clip(cols + hi, 0, w)
+        # c[b] - c[a]: shifted slices inside the record, gathers at its two ends
+        d = np.empty((rows.size, w))
+        j0, j1 = min(lo, w), max(min(w - hi + 1, w), min(lo, w))
+        d[:, j0:j1] = c[:, j0 + hi:j1 + hi] - c[:, j0 - lo:j1 - lo]
+        if j0:
+            d[:, :j0] = c[:, b_idx[:j0]] - c[:, a_idx[:j0]]
+        if j1 < w:
+            d[:, j1:] = c[:, b_idx[j1:]] - c[:, a_idx[j1:]]
+        d /= b_idx - a_idx
+        out[rows] = d
     return out
 
 

@@ -170,7 +170,10 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     y = np.asarray(y_v_per_m, dtype=np.float64)
     if decay_time_s is None:
         return y
-    return y + cumtrapz_rows(y, 1.0 / sample_rate_hz) / decay_time_s
+    out = cumtrapz_rows(y, 1.0 / sample_rate_hz)
+    out /= decay_time_s          # in place: y + cumtrapz / tau, one array, same numbers
+    out += y
+    return out
 
 
 def _fill_missing(x):

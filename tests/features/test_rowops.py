@@ -90,3 +90,19 @@ def test_crossing_searches_follow_their_definition():
                        _crossing_after_by_definition(u, ints, level, np.full(n, w)))
     assert_array_equal(crossing_before(u, ints, level),
                        _crossing_before_by_definition(u, ints, level, np.zeros(n)))
+
+
+@pytest.mark.parametrize("width", [1, 5, 40, 300])
+def test_moving_average_rows_is_the_centred_mean(width):
+    """Each row's centred moving average (shortened at the edges) is the plain mean of
+    its window, for windows shorter and longer than the row (invented rows)."""
+    from features._rowops import moving_average_rows
+
+    rng = np.random.default_rng(width)
+    y = rng.normal(size=(6, width))
+    k = np.array([1, 2, 3, 4, 7, 500])
+    out = moving_average_rows(y, k)
+    for i, kk in enumerate(np.clip(k, 1, width)):
+        lo = (kk - 1) // 2
+        expected = [y[i, max(j - lo, 0):min(j - lo + kk, width)].mean() for j in range(width)]
+        np.testing.assert_allclose(out[i], expected, rtol=1e-12, atol=1e-12)
