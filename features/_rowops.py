@@ -255,9 +255,10 @@ def median_rows(a: np.ndarray) -> np.ndarray:
     mid = s[:, h - 1 + w % 2:h + 1]
     out = mid[:, 0].copy() if w % 2 else np.mean(mid, axis=1)
     # a middle value of 0 may be -0.0 or +0.0 (they sort as equal): the partition
-    # decides which one numpy.median returns, so those rows take it
-    zero = (mid == 0).any(axis=1)
-    if zero.any():
+    # decides which one numpy.median returns, so rows holding a -0.0 take it
+    zero = np.flatnonzero((mid == 0).any(axis=1))
+    if zero.size:
+        zero = zero[(np.signbit(a[zero]) & (a[zero] == 0)).any(axis=1)]
         out[zero] = np.median(a[zero], axis=1)
     return out
 
