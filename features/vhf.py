@@ -42,6 +42,7 @@ from ._rowops import (
     crossing_after,
     crossing_before,
     median_rows,
+    moving_average_rows,
     nanmedian_rows,
     parabolic_peak,
 )
@@ -136,7 +137,10 @@ def vhf_envelope(power, sample_rate_hz, *, bin_s=VHF_BIN_S, smooth_s=VHF_SMOOTH_
     nb = power.shape[1] // k
     binned = _bin_means(power, k, nb)
     w = max(int(round(smooth_s * fs / k)), 1)
-    if w > 1 and nb:
+    if 1 < w <= nb:
+        binned = moving_average_rows(binned, np.full(binned.shape[0], w))
+    elif w > nb > 0:         # a window longer than the record (moving_average_rows
+        # would shorten it to the record's length)
         c = np.zeros((binned.shape[0], nb + 1))
         np.cumsum(binned, axis=1, out=c[:, 1:])
         lo = np.clip(np.arange(nb) - (w - 1) // 2, 0, nb)
