@@ -126,15 +126,14 @@ def _invert_block(src, on, dt, a0, a1, a2, iterate, own_end):
         with np.errstate(divide="ignore", invalid="ignore"):
             change = np.abs(q_end - q_prev) / np.maximum(
                 np.where(inside, np.abs(qi), 0.0).max(axis=1), 1e-300)
-        m[todo], q[todo] = mi, qi
         done = np.isfinite(change) & (change <= INVERSION_TOLERANCE)
         converged[todo[done]] = True
         keep = ~done & np.isfinite(change)
+        # rows leaving the iteration keep their last iterate (rows still iterating at
+        # the end get the radiation-only estimate back, which m and q still hold)
+        m[todo[~keep]], q[todo[~keep]] = mi[~keep], qi[~keep]
         todo, mi, qi, q_prev = todo[keep], mi[keep], qi[keep], q_end[keep]
-    # rows that never converged keep the radiation-only estimate
-    if todo.size:
-        m[todo] = (cumtrapz_rows(src[todo], dt) / a2[todo])
-        q[todo] = cumtrapz_rows(m[todo], dt)
+    # rows that never converged keep the radiation-only estimate (never overwritten)
     return m, q, converged
 
 

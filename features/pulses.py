@@ -289,7 +289,8 @@ def _segmented_cummax(values, seg, reverse=False):
     v, g = (values[::-1], seg[::-1]) if reverse else (values, seg)
     g = g - g.min() if not reverse else g.max() - g
     big = 2.0 * float(v.max()) + 1.0
-    out = np.maximum.accumulate(g * big + v) - g * big
+    gb = g * big
+    out = np.maximum.accumulate(gb + v) - gb
     return out[::-1] if reverse else out
 
 
