@@ -162,8 +162,40 @@ def vhf_window_s(f: dict, n: int) -> tuple[np.ndarray, np.ndarray]:
     return lo, hi
 
 
+#: glibc ``mallopt`` parameters (``M_TRIM_THRESHOLD``, ``M_MMAP_THRESHOLD``) and the
+#: values :func:`_keep_work_memory` gives them, bytes.
+_MALLOPT = ((-1, 256 * 1024 ** 2), (-3, 64 * 1024 ** 2))
+_work_memory_kept = False
+
+
+def _keep_work_memory() -> None:
+    """Let this process's allocator keep the memory of freed work arrays (glibc only).
+
+    By default glibc hands arrays of a few MB out as fresh memory maps and returns them
+    (or the top of its heap) to the system when they are freed: every step of every
+    chunk then page-faults its arrays back in, which cost a joblib worker 70 faults and
+    a quarter of its time per pulse (measured). Arrays up to 64 MB now come from the
+    heap, which keeps up to 256 MB of freed memory for the next chunk. Once per process;
+    elsewhere than glibc it does nothing.
+    """
+    global _work_memory_kept
+    if _work_memory_kept:
+        return
+    _work_memory_kept = True
+    import ctypes
+    import ctypes.util
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        for param, value in _MALLOPT:
+            libc.mallopt(param, value)
+    except (OSError, AttributeError):  # not glibc
+        pass
+
+
 def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     """Features of the rows of one :class:`ChunkJob`, as a DataFrame in schema order."""
+    _keep_work_memory()
     n = job.stop - job.start
     fch = job.field
     mapping = source_features(job.sources, job.range_m, n)
