@@ -96,6 +96,10 @@ def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
     return np.where(found, j + a, np.nan)
 
 
+#: Columns of a forward crossing search looked at first, for every row at once.
+SEARCH_FIRST_COLUMNS = 256
+
+
 def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
                    stop: np.ndarray | None = None, *, inclusive: bool = False) -> np.ndarray:
     """Fractional index where each row first falls through ``level`` after ``start``.
@@ -103,22 +107,36 @@ def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
     The crossing lies between the first sample ``j > start`` with ``u[j] < level``
     (``<=`` when ``inclusive``) and ``j - 1``; linearly interpolated. NaN where
     none is found in ``(start, stop)``. Only the columns between the smallest
-    start and the largest stop of the batch are searched.
+    start and the largest stop of the batch are searched, the first
+    :data:`SEARCH_FIRST_COLUMNS` of them first (then the rest for the rows without a
+    crossing there).
     """
     w = u.shape[1]
     c0, c1 = _span(w, np.min(start, initial=w) + 1,
                    w if stop is None else np.max(stop, initial=0))
-    sub = u[:, c0:c1]
-    cols = np.arange(c0, c1)
-    below = (sub <= level[:, None]) if inclusive else (sub < level[:, None])
-    mask = below & (cols > start[:, None])
-    if stop is not None:
-        mask &= cols < stop[:, None]
-    if c1 > c0:
-        j, found = first_true(mask)
-        j = j + c0
-    else:
-        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
+    rows = np.arange(u.shape[0])
+    j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
+    # the first SEARCH_FIRST_COLUMNS of the span first (most crossings lie there, and
+    # the first one found there is the first one of the row), then four times as far,
+    # then the rest of the span, each only for the rows still without one
+    edges = (c0, c0 + SEARCH_FIRST_COLUMNS, c0 + 4 * SEARCH_FIRST_COLUMNS, c1)
+    for a, b in zip(edges[:-1], edges[1:]):
+        b = min(b, c1)
+        if b <= a or not rows.size:
+            break
+        cols = np.arange(a, b)
+        sub = u[rows, a:b] if rows.size < u.shape[0] else u[:, a:b]
+        lv = level[rows, None]
+        mask = (sub <= lv) if inclusive else (sub < lv)
+        mask &= cols > start[rows, None]
+        if stop is not None:
+            mask &= cols < stop[rows, None]
+        jj, hit = first_true(mask)
+        j[rows[hit]] = jj[hit] + a
+        found[rows[hit]] = True
+        rows = rows[~hit]
+        if stop is not None:
+            rows = rows[stop[rows] > b]
     r = np.arange(u.shape[0])
     j0 = np.maximum(j - 1, 0)
     u0, u1 = u[r, j0], u[r, j]
