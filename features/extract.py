@@ -49,12 +49,12 @@ logger = logging.getLogger("pulsesort")
 #: (8,000 field + 10,000 VHF samples per row), so two workers and the main
 #: process triage a million-pulse season in under 1 GB.
 DEFAULT_CHUNK_SIZE = 256
-#: Rows whose field and VHF features are computed at once within a chunk. The work
-#: arrays of 64 rows (a few MB) stay in the processor's cache and are reused by the
-#: allocator, where those of a whole chunk (tens of MB) are returned to the system
-#: and page-faulted back for every step. Values do not depend on it: every feature is
-#: computed row by row (the tests compare chunk sizes byte for byte).
-ROWS_AT_ONCE = 64
+#: Rows whose field and VHF features are computed at once within a chunk: enough to
+#: spread the fixed cost of a call (about 3 ms of NumPy calls) thin, few enough that
+#: the (rows, samples) work arrays stay a few MB (measured best of 64, 128 and 256 at
+#: the reference shape). Values do not depend on it: every feature is computed row by
+#: row (the tests compare chunk sizes and row blocks byte for byte).
+ROWS_AT_ONCE = 128
 EVENT_PASS_THROUGH = ("time_utc", "flash_id")
 #: Names of triage output columns; an events.csv column of the same name (or
 #: starting with ``p_``) is carried through as ``events_<name>``.
