@@ -93,7 +93,7 @@ def _column_span(ch: Channel, before_s: float, after_s: float) -> tuple[int, int
     return i0, i1
 
 
-def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
+def _read_raw(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
     """The analysed span of some rows in file units, and whether it has clipped samples.
 
     Only that span is read: a clipped sample elsewhere in the record (a bigger
@@ -101,6 +101,12 @@ def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
     """
     raw = ch.read_rows(start, stop, columns=cols)
     return raw, ch.clipped_rows(raw)
+
+
+def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
+    """As :func:`_read_raw`, the rows as float64 (still in file units)."""
+    raw, clipped = _read_raw(ch, start, stop, cols)
+    return raw.astype(np.float64), clipped
 
 
 def _scaled(raw: np.ndarray, factor: float) -> np.ndarray:
@@ -202,7 +208,7 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     rng = np.where(np.isfinite(job.range_m), job.range_m, mapping["source_range_m"])
 
     c0, c1 = _column_span(fch, *ANALYSIS_WINDOW_S)
-    raw, fclip = _read_rows(fch, job.start, job.stop, (c0, c1))
+    raw, fclip = _read_raw(fch, job.start, job.stop, (c0, c1))
     # the span read is the channel from its column c0 on
     fch = dataclasses.replace(fch, pretrigger_s=fch.pretrigger_s - c0 / fch.sample_rate_hz,
                               n_samples=raw.shape[1])
@@ -228,7 +234,7 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     if job.vhf is not None:
         vch = job.vhf
         v0, v1 = _column_span(vch, VHF_SPAN_S[0] + vch.delay_s, VHF_SPAN_S[1] + vch.delay_s)
-        vraw, vclip = _read_rows(vch, job.start, job.stop, (v0, v1))
+        vraw, vclip = _read_raw(vch, job.start, job.stop, (v0, v1))
         if job.variant is not None:
             vraw, vch = apply_vhf(_scaled(vraw, vch.scale), vch, job.variant, rng_v)
             vlevel = clip_level(vch)
