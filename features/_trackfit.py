@@ -52,6 +52,21 @@ class TrackFit(NamedTuple):
     covariance: np.ndarray
 
 
+def group_order(values, groups):
+    """The permutation ``numpy.lexsort((values, groups))``: by group, then by value.
+
+    Two stable sorts (by value, then by group) give the same permutation (ties keep
+    their order in both), in a third of the time: the group sort is a radix sort on
+    16-bit keys when there are fewer than 32,768 groups.
+    """
+    groups = np.asarray(groups)
+    by_value = np.argsort(values, kind="stable")
+    g = groups[by_value]
+    if g.size and 0 <= g.min() and g.max() < 2 ** 15:
+        g = g.astype(np.int16)
+    return by_value[np.argsort(g, kind="stable")]
+
+
 def grouped_median(values, groups, n_groups):
     """Median of ``values`` within each group (NaN values ignored; NaN for empty groups).
 
@@ -65,19 +80,36 @@ def grouped_median(values, groups, n_groups):
     Returns
     -------
     ndarray, shape (n_groups,)
+
+    Notes
+    -----
+    Values sorted by group (as the source tables are) with groups of similar sizes are
+    sorted in one (groups, largest group) block, padded with infinity; otherwise, or when
+    a middle value is a zero and the values hold a -0.0 (the order of equal values then
+    decides the median's sign), the values are ordered by :func:`group_order`. Both give
+    the same order statistics.
     """
     values = np.asarray(values, dtype=np.float64)
     keep = np.isfinite(values)
     v, g = values[keep], np.asarray(groups)[keep]
-    order = np.lexsort((v, g))
-    v, g = v[order], g[order]
     counts = np.bincount(g, minlength=n_groups)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
     out = np.full(n_groups, np.nan)
-    has = counts > 0
-    lo = starts[has] + (counts[has] - 1) // 2
-    hi = starts[has] + counts[has] // 2
-    out[has] = 0.5 * (v[lo] + v[hi])
+    has = np.flatnonzero(counts > 0)
+    lo = (counts[has] - 1) // 2
+    hi = counts[has] // 2
+    width = int(counts.max(initial=0))
+    if (v.size and n_groups * width <= 4 * v.size + 4096
+            and (g.size < 2 or bool((g[1:] >= g[:-1]).all()))):
+        block = np.full((n_groups, width), np.inf)
+        block[g, np.arange(v.size) - starts[g]] = v
+        block.sort(axis=1)
+        a, b = block[has, lo], block[has, hi]
+        if not (((a == 0) | (b == 0)).any() and (np.signbit(v) & (v == 0)).any()):
+            out[has] = 0.5 * (a + b)
+            return out
+    v = v[group_order(v, g)]
+    out[has] = 0.5 * (v[starts[has] + lo] + v[starts[has] + hi])
     return out
 
 

@@ -29,7 +29,13 @@ import numpy as np
 from scipy import special
 
 from ._checks import InputError, is_real_number
-from ._trackfit import MIN_SOURCES_FOR_SPEED, debiased_norm, grouped_median, robust_velocity
+from ._trackfit import (
+    MIN_SOURCES_FOR_SPEED,
+    debiased_norm,
+    group_order,
+    grouped_median,
+    robust_velocity,
+)
 
 __all__ = ["COLUMNS", "EARTH_RADIUS_M", "EFFECTIVE_EARTH_RADIUS_M", "MIN_SOURCES_FOR_SPEED",
            "altitude_from_enu_m", "altitude_from_range_elevation_m", "breakdown_polarity",
@@ -216,7 +222,7 @@ def source_features(sources, range_m, n_events):
         return out
     g = np.asarray(sources.event_index, dtype=np.intp)
     t = np.asarray(sources.t_s, dtype=np.float64)
-    order = np.lexsort((t, g))
+    order = group_order(t, g)                     # = np.lexsort((t, g))
     g, t = g[order], t[order]
     az = np.asarray(sources.azimuth_deg, dtype=np.float64)[order]
     el = np.asarray(sources.elevation_deg, dtype=np.float64)[order]

@@ -34,7 +34,7 @@ from scipy import constants
 from ._rowops import cumtrapz_rows
 
 __all__ = ["DEFAULT_ALTITUDE_M", "NEAR_FIELD_RATIO", "INVERSION_TOLERANCE",
-           "geometry_factor_m", "radiation_factor_a_per_v", "invert_moments"]
+           "geometry_factor_m", "radiation_factor_a_per_v", "invert_moments", "moments_at"]
 
 #: Source height assumed when the mapped sources give none, m: the middle of in-cloud
 #: source heights (5-15 km; Rakov & Uman 2003, ch. 9; from memory). Flagged.
@@ -88,6 +88,89 @@ def radiation_factor_a_per_v(range_m, altitude_m):
     return 2.0 * np.pi * constants.epsilon_0 * _C ** 2 * geometry_factor_m(range_m, altitude_m)
 
 
+def _coefficients(range_m, altitude_m):
+    """a0 (per C m), a1 (per A m), a2 (per A m / s) of the three-term field, per row."""
+    d = np.asarray(range_m, dtype=np.float64)
+    h = np.asarray(altitude_m, dtype=np.float64)
+    r = np.sqrt(d * d + h * h)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a0 = _K * (2 * h * h - d * d) / r ** 5
+        a1 = _K * (2 * h * h - d * d) / (_C * r ** 4)
+        a2 = -_K * d * d / (_C ** 2 * r ** 3)
+    return a0, a1, a2, r
+
+
+def _invert_block(src, on, dt, a0, a1, a2, iterate, own_end):
+    """The inversion of a block of row windows (each starting two zero columns early).
+
+    ``src`` is the field where ``on`` (from the onset on), else 0; ``iterate`` marks the
+    rows that need the three-term iteration; ``own_end`` is each row's last column (its
+    convergence is judged there). Returns M, Q (same shape) and the converged rows.
+    """
+    a0, a1, a2 = a0[:, None], a1[:, None], a2[:, None]
+    m = cumtrapz_rows(src, dt) / a2                  # radiation only
+    q = cumtrapz_rows(m, dt)
+    converged = ~iterate
+    todo = np.flatnonzero(iterate)
+    w = src.shape[1]
+    q_prev = q[todo, own_end[todo]]
+    mi, qi = m[todo], q[todo]
+    for _ in range(INVERSION_ITERATIONS):
+        if not todo.size:
+            break
+        rhs = np.where(on[todo], src[todo] - a1[todo] * mi - a0[todo] * qi, 0.0)
+        mi = cumtrapz_rows(rhs, dt) / a2[todo]
+        qi = cumtrapz_rows(mi, dt)
+        q_end = qi[np.arange(todo.size), own_end[todo]]
+        inside = np.arange(w)[None, :] <= own_end[todo][:, None]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            change = np.abs(q_end - q_prev) / np.maximum(
+                np.where(inside, np.abs(qi), 0.0).max(axis=1), 1e-300)
+        done = np.isfinite(change) & (change <= INVERSION_TOLERANCE)
+        converged[todo[done]] = True
+        keep = ~done & np.isfinite(change)
+        # rows leaving the iteration keep their last iterate (rows still iterating at
+        # the end get the radiation-only estimate back, which m and q still hold)
+        m[todo[~keep]], q[todo[~keep]] = mi[~keep], qi[~keep]
+        todo, mi, qi, q_prev = todo[keep], mi[keep], qi[keep], q_end[keep]
+    # rows that never converged keep the radiation-only estimate (never overwritten)
+    return m, q, converged
+
+
+def _windows(e, rows, first, width, j_on):
+    """``width`` columns of the given rows of ``e`` from column ``first`` on, 0 before
+    the onset column ``j_on`` and beyond the record; and the onset mask."""
+    w = e.shape[1]
+    cols = first[:, None] + np.arange(width)[None, :]
+    on = (cols >= j_on[:, None]) & (cols < w)
+    src = np.where(on, e[rows[:, None], np.clip(cols, 0, max(w - 1, 0))], 0.0)
+    return src, on
+
+
+def _prepare(e, sample_rate_hz, start, stop, range_m, altitude_m):
+    """Shared set-up: the rows to invert, their windows and which ones iterate."""
+    e = np.asarray(e, dtype=np.float64)
+    start = np.asarray(start, dtype=np.float64)
+    stop = np.asarray(stop, dtype=np.float64)
+    dt = 1.0 / float(sample_rate_hz)
+    a0, a1, a2, r = _coefficients(range_m, altitude_m)
+    d = np.asarray(range_m, dtype=np.float64)
+    usable = np.isfinite(d) & (d > 0)
+    ok = np.isfinite(start) & np.isfinite(stop)
+    # the induction term is ~ c T / R of the radiation term for a pulse lasting T (and the
+    # electrostatic one ~ its square): rows where that is under half the tolerance are
+    # done with the radiation term alone
+    duration = np.clip(stop - start, 0, None) * dt       # s
+    with np.errstate(divide="ignore", invalid="ignore"):
+        small = _C * duration / r < 0.5 * INVERSION_TOLERANCE
+    # each row is integrated from the first column at or after its onset, in a window
+    # that starts two (zero) columns earlier and ends one column after its stop
+    j_on = np.ceil(np.where(ok, start, 0.0)).astype(np.intp)
+    first = j_on - 2
+    last = np.floor(np.where(ok, stop, 0.0)).astype(np.intp)
+    return e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last
+
+
 def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     """Current moment M(t) and charge moment Q(t) of each row from its field change.
 
@@ -97,10 +180,11 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
         Field change (baseline removed, decay-compensated, physics convention), V/m.
     sample_rate_hz : float
     start : ndarray of float, shape (n,)
-        Fractional column of the pulse's onset (integration starts there; NaN: none).
+        Fractional column of the pulse's onset (integration starts at the first column
+        at or after it; NaN: none).
     stop : ndarray of float, shape (n,)
         Column after which nothing is needed (the end of the pulse); only the columns
-        between the batch's first start and last stop are integrated.
+        between the batch's first start and last stop are returned.
     range_m, altitude_m : ndarray, shape (n,)
         Horizontal distance D and source height H, m (NaN range: no moments).
 
@@ -109,73 +193,116 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     c0 : int
         Column of ``e`` where the returned arrays start.
     m_a_m : ndarray, shape (n, w')
-        Current moment, A m, on columns ``c0 .. c0 + w'`` (0 before the onset; NaN rows
-        without range).
+        Current moment, A m, on columns ``c0 .. c0 + w'`` (0 before the onset and in rows
+        without an onset; NaN rows without range).
     q_c_m : ndarray, shape (n, w')
         Charge moment change since the onset, C m.
     converged : ndarray of bool, shape (n,)
-        True where the three-term inversion converged; elsewhere the radiation-only
-        estimate with the D^2/R^3 geometry is returned.
+        True where the three-term inversion converged (or had nothing to invert);
+        elsewhere the radiation-only estimate with the D^2/R^3 geometry is returned.
+
+    See Also
+    --------
+    moments_at : the same values at one column per row, integrating each row only over
+        its own pulse (what :func:`features.waveform.field_features` uses).
     """
-    e = np.asarray(e_v_per_m, dtype=np.float64)
+    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last = _prepare(
+        e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m)
     n, w = e.shape
-    start = np.asarray(start, dtype=np.float64)
-    stop = np.asarray(stop, dtype=np.float64)
-    ok = np.isfinite(start) & np.isfinite(stop)
-    c0 = int(np.clip(np.floor(np.min(start[ok], initial=w)), 0, w - 1)) if w else 0
-    c1 = int(np.clip(np.ceil(np.max(stop[ok], initial=0)) + 2, c0 + 1, w))
-    # one zero column before the span, so that every row's integral starts from a zero
-    # sample just before its onset whatever the batch (results do not depend on chunks)
-    e = np.concatenate([np.zeros((n, 1)), e[:, c0:c1]], axis=1)
-    c0 -= 1
-    start = start - c0
-    w = e.shape[1]
-    dt = 1.0 / float(sample_rate_hz)
-    d = np.asarray(range_m, dtype=np.float64)
-    h = np.asarray(altitude_m, dtype=np.float64)
-    r2 = d * d + h * h
-    r = np.sqrt(r2)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a0 = (_K * (2 * h * h - d * d) / r ** 5)[:, None]          # per C m
-        a1 = (_K * (2 * h * h - d * d) / (_C * r ** 4))[:, None]   # per A m
-        a2 = (-_K * d * d / (_C ** 2 * r ** 3))[:, None]           # per A m / s
-    on = np.arange(w)[None, :] >= np.nan_to_num(start, nan=w)[:, None]
-    src = np.where(on, e, 0.0)
-    m = cumtrapz_rows(src, dt) / a2                  # radiation only
-    q = cumtrapz_rows(m, dt)
-    # the induction term is ~ c T / R of the radiation term for a pulse lasting T (and the
-    # electrostatic one ~ its square): rows where that is under half the tolerance are
-    # done with the radiation term alone
-    duration = np.clip(stop - start, 0, None) * dt
-    with np.errstate(divide="ignore", invalid="ignore"):
-        small = _C * duration / r < 0.5 * INVERSION_TOLERANCE
-    converged = np.isfinite(d) & (d > 0) & small
-    todo = np.flatnonzero(np.isfinite(d) & (d > 0) & ~small)
-    # convergence is judged at each row's own end (never at the batch's)
-    own_end = np.clip(np.nan_to_num(stop - c0, nan=0).astype(np.intp), 0, w - 1)
-    q_prev = q[todo, own_end[todo]]
-    mi, qi = m[todo], q[todo]
-    for _ in range(INVERSION_ITERATIONS):
-        if not todo.size:
-            break
-        rhs = np.where(on[todo], e[todo] - a1[todo] * mi - a0[todo] * qi, 0.0)
-        mi = cumtrapz_rows(rhs, dt) / a2[todo]
-        qi = cumtrapz_rows(mi, dt)
-        q_end = qi[np.arange(todo.size), own_end[todo]]
-        inside = np.arange(w)[None, :] <= own_end[todo][:, None]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            change = np.abs(q_end - q_prev) / np.maximum(
-                np.where(inside, np.abs(qi), 0.0).max(axis=1), 1e-300)
-        m[todo], q[todo] = mi, qi
-        done = np.isfinite(change) & (change <= INVERSION_TOLERANCE)
-        converged[todo[done]] = True
-        keep = ~done & np.isfinite(change)
-        todo, mi, qi, q_prev = todo[keep], mi[keep], qi[keep], q_end[keep]
-    # rows that never converged keep the radiation-only estimate
-    if todo.size:
-        m[todo] = (cumtrapz_rows(src[todo], dt) / a2[todo])
-        q[todo] = cumtrapz_rows(m[todo], dt)
-    bad = ~np.isfinite(d) | (d <= 0)
-    m[bad] = np.nan
-    q[bad] = np.nan
+    c0 = int(np.clip(np.min(j_on[ok], initial=w), 0, max(w - 1, 0))) - 1
+    c1 = int(np.clip(np.max(last[ok], initial=0) + 2, c0 + 2, max(w, c0 + 2)))
+    width = c1 - c0
+    m = np.zeros((n, width))
+    q = np.zeros((n, width))
+    converged = usable.copy()
+    rows = np.flatnonzero(ok & usable)
+    if rows.size and width:
+        span = c1 - first[rows].min()
+        src, on = _windows(e, rows, first[rows], span, j_on[rows])
+        own_end = np.clip(last[rows] - first[rows], 0, span - 1)
+        mw, qw, conv = _invert_block(src, on, dt, a0[rows], a1[rows], a2[rows],
+                                     ~small[rows], own_end)
+        converged[rows] = conv
+        # row i's window column t is batch column first_i + t - c0
+        shift = first[rows] - c0
+        t = np.arange(width)[None, :] - shift[:, None]
+        inwin = (t >= 0) & (t < span)
+        tt = np.clip(t, 0, span - 1)
+        r = np.arange(rows.size)[:, None]
+        m[rows] = np.where(inwin, mw[r, tt], 0.0)
+        q[rows] = np.where(inwin, qw[r, tt], 0.0)
+    m[~usable] = np.nan
+    q[~usable] = np.nan
     return c0, m, q, converged
+
+
+def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
+    """The current moment at one column and the charge moment change at the end, per row.
+
+    The inversion of :func:`invert_moments`, integrating each row only over its own
+    pulse (from its onset to its stop): rows are grouped by the length of their pulse
+    (powers of two), so a long pulse in the batch does not make every row long.
+
+    Parameters
+    ----------
+    e_v_per_m : ndarray, shape (n, w)
+        Field change (baseline removed, decay-compensated, physics convention), V/m.
+    sample_rate_hz : float
+    start, stop : ndarray of float, shape (n,)
+        Fractional columns of the pulse's onset and end (NaN: no moments for the row).
+    at : ndarray of float, shape (n,)
+        Fractional column, between ``start`` and ``stop``, where the current moment is
+        wanted (linear interpolation between samples).
+    range_m, altitude_m : ndarray, shape (n,)
+        Horizontal distance D and source height H, m.
+
+    Returns
+    -------
+    current_moment_a_m : ndarray, shape (n,)
+        M at ``at``, A m (NaN without onset, stop or range).
+    charge_moment_c_m : ndarray, shape (n,)
+        Q at ``stop``, C m.
+    converged : ndarray of bool, shape (n,)
+        As in :func:`invert_moments`.
+    """
+    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last = _prepare(
+        e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m)
+    n, w = e.shape
+    at = np.asarray(at, dtype=np.float64)
+    cur = np.full(n, np.nan)
+    chg = np.full(n, np.nan)
+    converged = usable.copy()
+    todo = ok & usable & (w > 0)
+    # window widths, grouped by powers of two (at least 64 columns)
+    span = np.where(todo, last + 2 - first, 0)
+    group = np.ceil(np.log2(np.maximum(span, 64))).astype(np.intp)
+    for g in np.unique(group[todo]):
+        rows = np.flatnonzero(todo & (group == g))
+        width = int(span[rows].max())
+        src, on = _windows(e, rows, first[rows], width, j_on[rows])
+        own_end = last[rows] - first[rows]
+        m, q, conv = _invert_block(src, on, dt, a0[rows], a1[rows], a2[rows],
+                                   ~small[rows], own_end)
+        converged[rows] = conv
+        cur[rows] = _interp_window(m, at[rows], first[rows], w)
+        chg[rows] = _interp_window(q, stop[rows], first[rows], w)
+    return cur, chg, converged
+
+
+def _interp_window(values, x, first, n_cols):
+    """Linear interpolation of window rows at absolute fractional columns ``x``.
+
+    As :func:`features._rowops.interp_rows` on the record's columns (the next column
+    clipped to the record), NaN where ``x`` is NaN.
+    """
+    ok = np.isfinite(x)
+    xx = np.clip(np.where(ok, x, 0.0), 0, n_cols - 1)
+    j0 = np.floor(xx)
+    a = xx - j0
+    j0 = j0.astype(np.intp)
+    j1 = np.minimum(j0 + 1, n_cols - 1)
+    width = values.shape[1]
+    r = np.arange(values.shape[0])
+    v0 = values[r, np.clip(j0 - first, 0, width - 1)]
+    v1 = values[r, np.clip(j1 - first, 0, width - 1)]
+    return np.where(ok, v0 * (1 - a) + v1 * a, np.nan)

@@ -45,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from ._rowops import nanmedian_rows
+from ._rowops import median_rows, nanmedian_rows
 
 __all__ = [
     "BASELINE_MAX_S",
@@ -197,6 +197,19 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     usable = length >= BASELINE_MIN_SAMPLES
     sigma, quiet = _block_sigma(block, valid,
                                 max(int(round(BLOCK_S * fs)), BASELINE_MIN_SAMPLES), quantum)
+    sloped = usable & (length >= max(min(min_slope_s * fs, 1e18), BASELINE_MIN_SAMPLES))
+    if sloped.any():
+        slope = _two_half_slope(block, valid, start, length, sigma, sloped)
+    level = quiet if quiet_level else nanmedian_rows(block - slope[:, None] * cols)
+    level = np.where(usable & np.isfinite(level), level, 0.0)
+    sigma = np.where(usable, sigma, np.nan)
+    return level, slope, _noise_floor(sigma, quantum), start, np.where(usable, length, 0)
+
+
+def _two_half_slope(block, valid, start, length, sigma, sloped):
+    """Slope of each row's stretch (V/m per sample) from the medians of its two halves;
+    0 where not ``sloped`` or not significant."""
+    width = block.shape[1]
     half = length // 2
     first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
     second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block, np.nan)
@@ -205,7 +218,6 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     # centres of the two halves, in columns of e
     c1 = start + (half - 1) / 2.0
     c2 = start + half + (length - half - 1) / 2.0
-    sloped = usable & (length >= max(min(min_slope_s * fs, 1e18), BASELINE_MIN_SAMPLES))
     with np.errstate(divide="ignore", invalid="ignore"):
         slope = np.where(sloped, (m2 - m1) / (c2 - c1), 0.0)
         # a slope is kept only when significant: extrapolated, a slope of noise becomes
@@ -213,13 +225,8 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
         # (L/2) (Kendall & Stuart, from memory): the two-half slope's standard error is
         # sqrt(2 pi / L) sigma / (c2 - c1).
         se = np.sqrt(2 * np.pi / length) * sigma / np.maximum(c2 - c1, 1.0)
-    slope = np.where(np.isfinite(slope) & (np.abs(slope) > SLOPE_SIGNIFICANCE
-                                           * np.nan_to_num(se, nan=np.inf)), slope, 0.0)
-    resid = block - slope[:, None] * cols
-    level = quiet if quiet_level else nanmedian_rows(resid)
-    level = np.where(usable & np.isfinite(level), level, 0.0)
-    sigma = np.where(usable, sigma, np.nan)
-    return level, slope, _noise_floor(sigma, quantum), start, np.where(usable, length, 0)
+    return np.where(np.isfinite(slope) & (np.abs(slope) > SLOPE_SIGNIFICANCE
+                                          * np.nan_to_num(se, nan=np.inf)), slope, 0.0)
 
 
 def _noise_floor(sigma, quantum):
@@ -235,8 +242,8 @@ def robust_sigma_diff(e: np.ndarray) -> np.ndarray:
     sigma robustly (pulses occupy a small part of a record).
     """
     d = np.diff(e, axis=1)
-    med = np.median(d, axis=1)
-    return 1.4826 * np.median(np.abs(d - med[:, None]), axis=1) / np.sqrt(2.0)
+    med = median_rows(d)
+    return 1.4826 * median_rows(np.abs(d - med[:, None])) / np.sqrt(2.0)
 
 
 @dataclass(frozen=True)
@@ -267,6 +274,14 @@ class LobeTable:
         return int(self.row.size)
 
 
+def _run_starts(sorted_ids):
+    """Positions where a new value starts in a sorted array (``np.unique``'s first
+    indices, without its sort)."""
+    new = np.ones(sorted_ids.size, dtype=bool)
+    new[1:] = sorted_ids[1:] != sorted_ids[:-1]
+    return np.flatnonzero(new)
+
+
 def _segmented_cummax(values, seg, reverse=False):
     """Running maximum of non-negative ``values`` restarting at every new ``seg`` id."""
     if values.size == 0:
@@ -274,7 +289,8 @@ def _segmented_cummax(values, seg, reverse=False):
     v, g = (values[::-1], seg[::-1]) if reverse else (values, seg)
     g = g - g.min() if not reverse else g.max() - g
     big = 2.0 * float(v.max()) + 1.0
-    out = np.maximum.accumulate(g * big + v) - g * big
+    gb = g * big
+    out = np.maximum.accumulate(gb + v) - gb
     return out[::-1] if reverse else out
 
 
@@ -311,9 +327,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         e = ndimage.uniform_filter1d(e, smooth, axis=1, mode="nearest")
     sig = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf) / np.sqrt(smooth)
     lo = (low_sigma * sig)[:, None]
-    state = np.zeros((n, w), dtype=np.int8)
-    state[e >= lo] = 1
-    state[e <= -lo] = -1
+    state = (e >= lo).view(np.int8) - (e <= -lo).view(np.int8)      # +1, -1 or 0
     change = np.empty((n, w), dtype=bool)
     change[:, 0] = True
     np.not_equal(state[:, 1:], state[:, :-1], out=change[:, 1:])
@@ -348,17 +362,19 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         new_stretch[1:] = (np.diff(d_idx) != 1) | (owner[d_idx[1:]] != owner[d_idx[:-1]])
         stretch = np.cumsum(new_stretch) - 1
         key = np.lexsort((a_s[d_idx], stretch))
-        _, first = np.unique(stretch[key], return_index=True)
+        first = _run_starts(stretch[key])
         cut = d_idx[key[first]]                       # positions in the flat sample list
         boundary = np.zeros(flat.size, dtype=bool)
         boundary[cut] = True
         piece = owner + np.cumsum(boundary)             # new run ids, increasing
         # the cut sample itself starts the later piece
-        _, p_first = np.unique(piece, return_index=True)
+        new_piece = np.ones(piece.size, dtype=bool)
+        new_piece[1:] = piece[1:] != piece[:-1]
+        p_first = np.flatnonzero(new_piece)
         piece_start = flat[p_first]
         piece_stop = np.append(flat[p_first[1:] - 1] + 1, flat[-1] + 1)
         after = boundary[p_first]
-        owner = np.searchsorted(p_first, np.arange(flat.size), side="right") - 1
+        owner = np.cumsum(new_piece) - 1
         piece_max = np.maximum.reduceat(vals, p_first)
         big_enough = piece_max >= high_sigma * sig[piece_start // w]
         k_start, k_stop, run_peak = piece_start, piece_stop, piece_max
@@ -371,7 +387,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     # column of the maximum inside each run
     is_max = vals == run_peak[owner]
     hit = np.flatnonzero(is_max)
-    _, first_hit = np.unique(owner[hit], return_index=True)
+    first_hit = _run_starts(owner[hit])
     peak_flat = np.full(k_start.size, -1, dtype=np.intp)
     peak_flat[owner[hit[first_hit]]] = flat[hit[first_hit]]
     sel = big_enough
@@ -535,7 +551,8 @@ def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarra
     if cand.size == 0:
         return out
     order = cand[np.lexsort((-rel[cand], dist[cand], rank[cand], lobes.row[cand]))]
-    rows, first = np.unique(lobes.row[order], return_index=True)
+    first = _run_starts(lobes.row[order])          # order is sorted by row first
+    rows = lobes.row[order][first]
     out[rows] = lobe_pulse[order[first]]
     return out
 

@@ -66,7 +66,6 @@ from ._rowops import (
     crossing_before,
     cumtrapz_rows,
     first_true,
-    interp_rows,
     last_true,
     moving_average_rows,
     parabolic_peak,
@@ -76,7 +75,7 @@ from .moments import (
     DEFAULT_ALTITUDE_M,
     NEAR_FIELD_RATIO,
     geometry_factor_m,
-    invert_moments,
+    moments_at,
 )
 
 __all__ = [
@@ -171,7 +170,10 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     y = np.asarray(y_v_per_m, dtype=np.float64)
     if decay_time_s is None:
         return y
-    return y + cumtrapz_rows(y, 1.0 / sample_rate_hz) / decay_time_s
+    out = cumtrapz_rows(y, 1.0 / sample_rate_hz)
+    out /= decay_time_s          # in place: y + cumtrapz / tau, one array, same numbers
+    out += y
+    return out
 
 
 def _fill_missing(x):
@@ -186,17 +188,52 @@ def _fill_missing(x):
     return np.where(missing, med[:, None], x), missing
 
 
-def _masked_max(values, lo, hi):
-    """Largest value and its column within [lo, hi) of each row (-inf, lo if empty)."""
+def _masked_max(values, lo, hi, transform=None):
+    """Largest value and its column within [lo, hi) of each row (-inf, lo if empty).
+
+    ``transform`` (e.g. ``np.abs``), if given, is applied to the values first, on the
+    columns searched only.
+    """
     n, w = values.shape
     c0 = int(np.clip(np.nanmin(lo, initial=w), 0, w))
     c1 = int(np.clip(np.nanmax(hi, initial=0), c0, w))
     if c1 <= c0:
         return np.full(n, -np.inf), np.clip(np.nan_to_num(lo), 0, max(w - 1, 0)).astype(np.intp)
     cols = np.arange(c0, c1)
-    v = np.where((cols >= lo[:, None]) & (cols < hi[:, None]), values[:, c0:c1], -np.inf)
+    sub = values[:, c0:c1] if transform is None else transform(values[:, c0:c1])
+    v = np.where((cols >= lo[:, None]) & (cols < hi[:, None]), sub, -np.inf)
     j = v.argmax(axis=1)
     return v[np.arange(n), j], (j + c0).astype(np.intp)
+
+
+def _subtract_baseline(e0, level, slope, line_lo, line_hi):
+    """``e0 - (level + slope * clip(column, line_lo, line_hi))`` for every row.
+
+    Rows without a slope subtract ``level + 0.0`` (what the line is there: the same
+    numbers), and only the sloped rows build the line.
+    """
+    out = e0 - (level + 0.0)[:, None]
+    sloped = np.flatnonzero(slope != 0)
+    if sloped.size:
+        cols = np.arange(e0.shape[1])[None, :]
+        clamped = np.clip(cols, line_lo[sloped, None], line_hi[sloped, None])
+        out[sloped] = e0[sloped] - (level[sloped, None] + slope[sloped, None] * clamped)
+    return out
+
+
+def _last_at_least(values, level, start, stop):
+    """Last column in [start, stop) of each row where ``values >= level``, and whether
+    there is one (only the batch's span of columns is looked at)."""
+    n, w = values.shape
+    c0 = int(np.clip(np.min(start, initial=w), 0, w))
+    c1 = int(np.clip(np.max(stop, initial=0), c0, w))
+    if c1 <= c0:
+        return np.full(n, max(w - 1, 0), np.intp), np.zeros(n, dtype=bool)
+    cols = np.arange(c0, c1)[None, :]
+    mask = ((values[:, c0:c1] >= level[:, None]) & (cols >= start[:, None])
+            & (cols < stop[:, None]))
+    j, found = last_true(mask)
+    return j + c0, found
 
 
 def _mean_before(values, stop, width):
@@ -312,10 +349,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     alt_given = (np.full(n, np.nan) if altitude_m is None
                  else np.asarray(altitude_m, dtype=np.float64))
     x, missing = _fill_missing(x)
-    miss_frac = missing.mean(axis=1) if m else np.ones(n)
-    censor_mask = None
-    if full_scale_v_per_m is not None:
-        censor_mask = np.abs(x) >= float(full_scale_v_per_m) * (1 - 1e-9)
+    miss_frac = np.count_nonzero(missing, axis=1) / m if m else np.ones(n)
+    x_filled = x                                       # (for the clip test at the end)
     jt = pretrigger_s * fs                             # trigger column (fractional)
     inside = 0 <= jt < m
     q = float(quantum_v_per_m or 0.0)
@@ -337,7 +372,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
             _pulses.robust_sigma_diff(e0) if m > 2 else np.full(n, np.nan), q), sigma)
     e_a = e0 - level[:, None]
     # a noiseless record (a test, a model) still has a scale: 1e-7 of its largest value
-    floor = RELATIVE_SIGMA_FLOOR * (np.abs(e_a).max(axis=1) if m else np.zeros(n))
+    floor = RELATIVE_SIGMA_FLOOR * (np.maximum(e_a.max(axis=1), -e_a.min(axis=1)) if m
+                                    else np.zeros(n))
     sigma = np.fmax(sigma, np.maximum(floor, np.finfo(float).tiny))
     smooth = max(int(round(_pulses.DETECT_SMOOTH_S * fs)) | 1, 1)   # odd: centred
     lobes = _pulses.find_lobes(e_a, sigma, smooth=smooth)
@@ -363,8 +399,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         line_lo = np.where(use_b, start_b, 0)
         line_hi = np.where(use_b, table.stop[own_c], 0)
     baseline_short = used < _pulses.BASELINE_MIN_S * fs
-    clamped = np.clip(cols[None, :], line_lo[:, None], line_hi[:, None])
-    e = e0 - (level[:, None] + slope[:, None] * clamped)
+    e = _subtract_baseline(e0, level, slope, line_lo, line_hi)
 
     # the peak: the catalogued pulse's initial half-cycle, else the largest |E| near the
     # trigger (a pulse lost in the noise)
@@ -380,7 +415,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     # its window (a one-sample spike keeps its height)
     if smooth > 1 and m:
         half = smooth // 2
-        _, s_raw = _masked_max(np.abs(e_a), s - half, s + half + 1)
+        _, s_raw = _masked_max(e_a, s - half, s + half + 1, transform=np.abs)
         s = np.where(has, s_raw, s).astype(np.intp)
     polarity = np.where(take_rows(e, s) >= 0, 1.0, -1.0)
     if len(table):
@@ -434,23 +469,22 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     conf = crossing_after(u_s, s, -h_zc, stop=np.minimum(zc_stop, m))
     has_zc = np.isfinite(conf)
     jc = np.where(has_zc, np.ceil(np.nan_to_num(conf)), s).astype(np.intp)
-    zc = crossing_before(-u_s, jc, np.zeros(n), start=s)
+    nu_s = -u_s                                # the overshoot's side, searched upwards
+    zc = crossing_before(nu_s, jc, np.zeros(n), start=s)
     has_zc &= np.isfinite(zc)
     ihc = zc - onset
     lobe_stop = np.minimum(np.minimum(next_start, jc + np.ceil(10 * np.nan_to_num(ihc))
                                       .astype(np.intp) + 1), m)
-    back = crossing_after(-u_s, jc, -np.maximum(3 * sig_s, lvl(0.1)), stop=lobe_stop)
+    back = crossing_after(nu_s, jc, -np.maximum(3 * sig_s, lvl(0.1)), stop=lobe_stop)
     has_back = np.isfinite(back)
     jb = np.where(has_back, np.ceil(np.nan_to_num(back)), jc).astype(np.intp)
     lobe_back = crossing_before(u_s, jb, np.zeros(n), start=jc)
-    tail = (-u_s >= np.maximum(2 * sig_s, lvl(0.01))[:, None])
-    tail &= (cols > jc[:, None]) & (cols < lobe_stop[:, None])
-    j_tail, has_tail = last_true(tail)
+    j_tail, has_tail = _last_at_least(nu_s, np.maximum(2 * sig_s, lvl(0.01)), jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
                         np.where(has_tail, j_tail + 1.0, jc.astype(float)))
     lobe_end = np.minimum(lobe_end, m - 1.0)
     lobe_end = np.where(has_zc, lobe_end, np.nan)
-    overshoot, j_os = _masked_max(-u_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
+    overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
                                   np.where(has_zc, np.nan_to_num(lobe_end) + 1, 0))
     overshoot = np.where(has_zc, np.maximum(overshoot, 0.0), 0.0)
     resolvable = peak >= 20.0 * sig_s
@@ -460,7 +494,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
 
     f10 = crossing_after(u_s, s, lvl(0.1), stop=next_start)
     big_os = has_zc & (overshoot >= lvl(0.1))
-    os_fall = crossing_after(-u_s, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
+    os_fall = crossing_after(nu_s, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
                              + 1)
     end_w = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end), f10)
     end_w = np.where(lvl(0.1) >= 2 * sig_s, end_w, np.nan)
@@ -473,11 +507,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     known = np.isfinite(alt_given) & (alt_given >= 0)
     altitude = np.where(known, alt_given, DEFAULT_ALTITUDE_M)
     altitude_assumed = ~known
-    c0, mom, chg, converged = invert_moments(e, fs, np.where(ok, onset, np.nan),
-                                             np.where(ok, pulse_end, np.nan), rng, altitude)
-    m_at = np.where(has_zc, zc, pulse_end) - c0
-    current_moment = interp_rows(mom, m_at) if mom.shape[1] else np.full(n, np.nan)
-    charge_moment = interp_rows(chg, pulse_end - c0) if chg.shape[1] else np.full(n, np.nan)
+    current_moment, charge_moment, converged = moments_at(
+        e, fs, np.where(ok, onset, np.nan), np.where(ok, pulse_end, np.nan),
+        np.where(has_zc, zc, pulse_end), rng, altitude)
     geometry = geometry_factor_m(rng, altitude)
     peak_signed = polarity * peak
     k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry
@@ -493,11 +525,14 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         pre_level_ratio = np.where(np.isfinite(pre), pre / peak, 0.0)
         slope_ratio = polarity * slope * (10e-6 * fs) / peak
     censored = np.zeros(n, dtype=bool)
-    if censor_mask is not None:
+    if full_scale_v_per_m is not None and m:
         lo_c = np.floor(onset).astype(np.intp)
         hi_c = np.ceil(np.nan_to_num(pulse_end, nan=s)).astype(np.intp) + 1
-        band = (cols[None, :] >= lo_c[:, None]) & (cols[None, :] < hi_c[:, None])
-        censored = (censor_mask & band).any(axis=1)
+        b0 = int(np.clip(lo_c.min(initial=m), 0, m))
+        b1 = int(np.clip(hi_c.max(initial=0), b0, m))
+        band_cols = np.arange(b0, b1)[None, :]
+        censored = ((np.abs(x_filled[:, b0:b1]) >= float(full_scale_v_per_m) * (1 - 1e-9))
+                    & (band_cols >= lo_c[:, None]) & (band_cols < hi_c[:, None])).any(axis=1)
 
     # resolution: NaN rather than a number the record cannot carry
     rise = (c90 - c10) * dt

@@ -43,3 +43,17 @@ def test_channel_reuse_counts_only_old_nearby_sources():
     t_ns2 = np.array([0, 90_000_000, 92_000_000], dtype=np.int64)      # pulse 1 only 2 ms old
     ctx2 = flash_context(_events(["F", "F", "F"]), t_ns2, src)
     assert_allclose(ctx2["channel_reuse"], [0.0, 0.0, 0.5])
+
+
+def test_sorted_lookup_is_searchsorted():
+    """Invented keys (self-consistency): the merge lookup of the channel-reuse probes gives
+    numpy.searchsorted's positions, for sorted and unsorted probes."""
+    from features.context import _sorted_lookup
+
+    rng = np.random.default_rng(2)
+    for _ in range(50):
+        keys = np.unique(rng.integers(0, 1000, rng.integers(1, 300)))
+        probe = rng.integers(-10, 1010, rng.integers(1, 500))
+        np.testing.assert_array_equal(_sorted_lookup(keys, np.sort(probe)),
+                                      np.searchsorted(keys, np.sort(probe)))
+        np.testing.assert_array_equal(_sorted_lookup(keys, probe), np.searchsorted(keys, probe))

@@ -77,6 +77,44 @@ def test_jobs_and_chunks_do_not_change_the_csv(make_catalog, tmp_path):
     assert not list(tmp_path.glob("*.partial"))
 
 
+def test_row_blocks_within_a_chunk_do_not_change_the_rows(make_catalog, monkeypatch):
+    """Invented pulses (self-consistency): a chunk computed in blocks of 5 rows equals it
+    computed at once, as recorded and as a variant station (training augmentation)."""
+    from features import extract
+
+    cat = open_catalog(make_catalog("blocks", _pulses(20e6), events=_events()))
+    for seed in (None, 3):
+        monkeypatch.setattr(extract, "ROWS_AT_ONCE", N)
+        whole = extract_features(cat, chunk_size=N, variant_seed=seed)
+        monkeypatch.setattr(extract, "ROWS_AT_ONCE", 5)
+        pd.testing.assert_frame_equal(extract_features(cat, chunk_size=N, variant_seed=seed),
+                                      whole)
+
+
+def _thread_pools(_job):
+    """The thread pools (BLAS, OpenMP) loaded in the process that runs a job, and their
+    thread counts."""
+    import scipy.linalg  # noqa: F401 - loads the BLAS of a worker
+    import threadpoolctl
+
+    return [(p["user_api"], p["num_threads"]) for p in threadpoolctl.threadpool_info()]
+
+
+def test_joblib_workers_limit_their_thread_pools(monkeypatch):
+    """With --jobs 2 every worker's BLAS/OpenMP pools use cores // 2 threads (at least 1),
+    also when the environment sets no limit."""
+    import os
+
+    from features.extract import run_jobs
+
+    for name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        monkeypatch.delenv(name, raising=False)
+    limit = max((os.cpu_count() or 1) // 2, 1)
+    pools = [p for r in run_jobs(_thread_pools, range(4), n_jobs=2) for p in r]
+    assert any(api == "blas" for api, _ in pools)
+    assert all(n <= limit for _, n in pools), pools
+
+
 def test_features_cli(make_catalog, tmp_path, capsys):
     """`pulsesort features` writes one row per event; --list prints the schema."""
     path = make_catalog("cli", _pulses(20e6), events=_events())

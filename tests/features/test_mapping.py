@@ -9,13 +9,13 @@ import doctest
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
+from numpy.testing import assert_allclose, assert_array_equal
 from scipy import stats
 
 import features.mapping
 from features import InputError, schema
 from features._tables import SourceTable
-from features._trackfit import robust_velocity
+from features._trackfit import group_order, robust_velocity
 from features.mapping import (
     EARTH_RADIUS_M,
     EFFECTIVE_EARTH_RADIUS_M,
@@ -508,3 +508,22 @@ def test_breakdown_polarity_rejects_mismatched_arrays():
     """Arrays of different lengths: an InputError naming each argument and its shape."""
     with pytest.raises(InputError, match=r"'vertical_speed_m_per_s' \(2,\)"):
         breakdown_polarity([1], [1e6, 2e6], [1e5], [False])
+
+
+@pytest.mark.parametrize("sorted_groups", [True, False])
+def test_grouped_median_is_numpy_median_per_group(sorted_groups):
+    """Invented values (self-consistency): grouped_median equals numpy.median of each
+    group (NaN ignored, empty groups NaN), one very large group included, and
+    group_order is numpy.lexsort's permutation."""
+    rng = np.random.default_rng(4)
+    g = rng.integers(0, 40, 3000)
+    g[:400] = 7                                      # one group far larger than the rest
+    g[g == 3] = 4                                    # an empty group
+    if sorted_groups:
+        g = np.sort(g)
+    v = np.round(rng.normal(size=g.size), 2)         # ties
+    v[rng.random(g.size) < 0.05] = np.nan
+    assert_array_equal(group_order(v, g), np.lexsort((v, g)))
+    expected = [np.median(v[(g == k) & np.isfinite(v)]) if ((g == k) & np.isfinite(v)).any()
+                else np.nan for k in range(41)]
+    assert_array_equal(grouped_median(v, g, 41), expected)

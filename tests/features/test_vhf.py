@@ -1,10 +1,11 @@
 """VHF features against the analytic envelope and scipy.signal.hilbert."""
 
 import numpy as np
-from numpy.testing import assert_allclose
+import pytest
+from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
-from features.vhf import vhf_features, vhf_power
+from features.vhf import _bin_means, vhf_features, vhf_power
 
 FS = 250e6
 PRE = 100e-6
@@ -88,3 +89,35 @@ def test_speckled_burst_lag_jitter_and_pure_noise():
     quiet = vhf_features(noise, fs, "power", window, pretrigger_s=PRE)
     assert np.median(quiet["vhf_snr_db"]) < 3.0
     assert np.isnan(quiet["vhf_width_s"]).all()          # 10 % of the peak is under the noise
+
+
+@pytest.mark.parametrize("k", range(1, 12))
+def test_bin_means_are_numpy_means_bit_for_bit(k):
+    """The column-wise bin sums give reshape(...).mean(axis=2) exactly (signed zeros too)."""
+    rng = np.random.default_rng(k)
+    p = rng.exponential(size=(9, 1000))
+    p[:, ::5] = 0.0
+    p[2] = -0.0
+    nb = p.shape[1] // k
+    expected = p[:, : nb * k].reshape(9, nb, k).mean(axis=2)
+    assert_array_equal(_bin_means(p, k, nb).view(np.int64), expected.view(np.int64))
+
+
+@pytest.mark.parametrize("n_samples", [6, 40, 1000])
+def test_envelope_is_the_centred_mean_of_bin_means(n_samples):
+    """Invented power rows (self-consistency): each envelope bin is the mean of the bin
+    means within the smoothing window (shortened at the record's ends), records shorter
+    than the window included."""
+    from features.vhf import vhf_envelope
+
+    rng = np.random.default_rng(n_samples)
+    p = rng.exponential(size=(3, n_samples))
+    fs = 25e6                                 # bins of 2 samples, window of 5 bins
+    env, k = vhf_envelope(p, fs, bin_s=0.08e-6, smooth_s=0.4e-6)
+    assert k == 2
+    nb = n_samples // 2
+    bins = p[:, : 2 * nb].reshape(3, nb, 2).mean(axis=2)
+    lo = (5 - 1) // 2
+    expected = np.array([[bins[i, max(j - lo, 0):min(j - lo + 5, nb)].mean() for j in range(nb)]
+                         for i in range(3)])
+    assert_allclose(env, expected, rtol=1e-12)
