@@ -409,7 +409,7 @@ FEATURES: tuple[Feature, ...] = (
             "sqrt(x^2 + y^2 + (R + z)^2) - R with R = 6.371e6 m; from range D and elevation, "
             "a / (cos(D/a) - tan(el) sin(D/a)) - a with a = 4/3 R (standard refraction)",
             "mapping",
-            requires=frozenset({"range", "sources"}), tolerance=Tolerance(rel=0.10)),
+            requires=frozenset({"range", "sources"}), tolerance=Tolerance(rel=0.10, value=200.0)),
     Feature("elevation_median_deg", "deg", "median source elevation", "mapping",
             model=False,
             requires=frozenset({"sources"}), tolerance=Tolerance(rel=0.05, value=0.5)),
