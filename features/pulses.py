@@ -16,9 +16,10 @@ Definitions (the contract of :mod:`features.schema`):
   pulse. A stretch shorter than :data:`BASELINE_MIN_S` gives only a level (slope 0);
   none at all (a record that starts on the pulse) gives level 0 (``baseline_short``).
 * **noise** sigma: 1.4826 x the median absolute deviation of the quietest 10 us blocks of
-  that stretch (their standard deviation where the MAD is below one digitizer step),
-  combined in quadrature with the quantisation noise of the digitizer, step / sqrt(12)
-  (Widrow & Kollar 2008, ch. 4; from memory).
+  that stretch (on a quantised record their clipped standard deviation, which includes
+  the quantisation noise and does not snap to whole steps as the MAD does), never below
+  the quantisation noise of the digitizer, step / sqrt(12) (Widrow & Kollar 2008, ch. 4;
+  from memory).
 * **lobe**: a maximal run of samples of one sign beyond ``LOBE_LOW_SIGMA`` sigma (the
   hysteresis level) that reaches ``LOBE_HIGH_SIGMA`` sigma somewhere.
 * **pulse**: a lobe and the opposite-polarity lobes that follow it at once (its
@@ -114,10 +115,14 @@ def _block_sigma(block, valid, block_len, quantum):
     """Noise sigma of each row (its quietest sub-block's), and the median of that
     sub-block (the record's level where nothing happens).
 
-    Each sub-block of ``block_len`` samples gives 1.4826 x MAD about its own median (its
-    standard deviation where the MAD is below one digitizer step, as it is for noise of a
-    fraction of a count); a sub-block holding a pulse or a steep tail is loud, so the
-    noise of the quiet record is the mean over the blocks within 1.5 x the quietest.
+    Each sub-block of ``block_len`` samples gives 1.4826 x MAD about its own median; a
+    sub-block holding a pulse or a steep tail is loud, so the noise of the quiet record is
+    the mean over the blocks within 1.5 x the quietest. On a quantised record (``quantum``
+    > 0) the MAD snaps to multiples of half a step (1.4826 steps for any noise between
+    about 0.7 and 1.7 counts), so there each sub-block gives instead the standard
+    deviation of its samples within 5 x max(MAD, step) of the median: the spread of the
+    quantised noise, sqrt(sigma^2 + step^2 / 12) by Sheppard's correction (Widrow & Kollar
+    2008, ch. 4; from memory), which is what the record's noise is.
     """
     n, width = block.shape
     nb = max(width // block_len, 1)
@@ -130,9 +135,11 @@ def _block_sigma(block, valid, block_len, quantum):
     cnt = np.isfinite(flat).sum(axis=1)
     if quantum > 0:
         with np.errstate(invalid="ignore", divide="ignore"):
-            clip = np.where(dev <= 5 * np.maximum(mad, quantum)[:, None], dev, np.nan)
-            std = np.sqrt(np.nansum(clip ** 2, axis=1) / np.maximum(np.isfinite(clip).sum(1), 1))
-        mad = np.where(mad < quantum, std, mad)
+            kept = np.where(dev <= 5 * np.maximum(mad, quantum)[:, None], flat, np.nan)
+            k = np.isfinite(kept).sum(axis=1)
+            mean = np.nansum(kept, axis=1) / np.maximum(k, 1)
+            mad = np.sqrt(np.nansum((kept - mean[:, None]) ** 2, axis=1)
+                          / np.maximum(k - 1, 1))
     mad = np.where(cnt >= BASELINE_MIN_SAMPLES, mad, np.nan).reshape(n, nb)
     order = np.argsort(mad, axis=1)                     # NaN last
     good = np.isfinite(mad).sum(axis=1)
@@ -230,9 +237,16 @@ def _two_half_slope(block, valid, start, length, sigma, sloped):
 
 
 def _noise_floor(sigma, quantum):
-    """Noise sigma with quantisation noise added in quadrature (NaN stays NaN)."""
-    q2 = (quantum ** 2) / 12.0 if quantum > 0 else 0.0
-    return np.sqrt(sigma ** 2 + q2)
+    """Noise sigma of a record, never below its digitizer's quantisation noise.
+
+    ``sigma`` is measured on the quantised record, so it already holds the quantisation
+    noise (step^2 / 12 in variance; Widrow & Kollar 2008, ch. 4; from memory); adding it
+    again would count it twice. Only noise well below one step, which leaves a quiet
+    record constant, measures less than step / sqrt(12): that is the floor. NaN stays NaN.
+    """
+    floor = quantum / np.sqrt(12.0) if quantum > 0 else 0.0
+    with np.errstate(invalid="ignore"):
+        return np.where(np.isnan(sigma), np.nan, np.maximum(sigma, floor))
 
 
 def robust_sigma_diff(e: np.ndarray) -> np.ndarray:

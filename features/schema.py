@@ -464,7 +464,8 @@ FEATURES: tuple[Feature, ...] = (
             "horizontal distance)", "quality", model=False,
             tolerance=Tolerance(rel=0.01, value=100.0)),
     Feature("snr_db", "dB", "20 log10(peak / noise sigma); sigma: 1.4826 MAD about the "
-            "baseline line, with step^2/12 of an integer digitizer in quadrature",
+            "baseline line (an integer digitizer's clipped standard deviation, which holds "
+            "its step^2/12), at least step/sqrt(12)",
             "quality", model=False,
             tolerance=Tolerance(rel=0.15, sigma=2, noise="snr", db=20, bound="field_censored",
                                 truth="instrument")),

@@ -10,7 +10,7 @@ Steps and definitions (the contract of :mod:`features.schema`):
    dy/dt + y/tau = dE/dt, so E(t) = y(t) + (1/tau) int y dt (first-order high-pass
    inverted; common practice for fast antennas).
 2. **Baseline and noise** from whatever precedes the pulse (:func:`features.pulses.
-   baseline_fit`): a robust straight line and the noise sigma with quantisation noise.
+   baseline_fit`): a robust straight line and the noise sigma (quantisation noise included).
 3. **Every pulse in the record** (:mod:`features.pulses`): lobes with hysteresis
    (2 and 5 sigma), grouped into pulses with their overshoots; the catalogued one is the
    pulse at the trigger, and it is measured within its own extent: a neighbour
@@ -36,7 +36,7 @@ Steps and definitions (the contract of :mod:`features.schema`):
    its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
    below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
-   samples; width shorter than two samples or with its 10 % level under 2 sigma_s;
+   samples (the noise taken as at least half a digitizer step here); width shorter than two samples or with its 10 % level under 2 sigma_s;
    bipolarity of a unipolar-looking pulse whose noise could hide an overshoot of 15 %.
 9. **Moments and currents** (:mod:`features.moments`): the D^2/R^3 geometry of an
    elevated source (altitude from the mapped sources, else
@@ -312,8 +312,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     decay_time_s : float or None, default=None
         Fast-antenna RC constant in seconds (None: DC-coupled).
     quantum_v_per_m : float, default=0.0
-        One digitizer step in V/m (0 for float records); its noise step/sqrt(12) is part
-        of the noise sigma.
+        One digitizer step in V/m (0 for float records): the noise sigma is measured in a
+        way that does not snap to whole steps, and is at least step/sqrt(12).
     range_m, altitude_m : ndarray, shape (n_pulses,), optional
         Horizontal distance and source height in metres, NaN where unknown (an unknown
         altitude takes :data:`features.moments.DEFAULT_ALTITUDE_M`).
@@ -449,6 +449,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     k = np.clip(k, 1, max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
     u_s = moving_average_rows(u, k)
     sig_s = sigma / np.sqrt(k)
+    # a level is located no better than half a digitizer step (the largest rounding
+    # error), however quiet the record: the resolution tests use that at least
+    sigma_res = np.maximum(sigma, 0.5 * q)
     # the peak of the smoothed pulse near the raw one (the top of a slow pulse, not the
     # largest noise sample on it)
     _, s_top = _masked_max(u_s, np.where(np.isfinite(c50), np.floor(np.nan_to_num(c50)), s - k),
@@ -490,7 +493,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     resolvable = peak >= 20.0 * sig_s
     bipolarity = np.where(has_zc, overshoot / np.where(peak > 0, peak, 1.0),
                           np.where(resolvable, 0.0, np.nan))
-    bipolarity = np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma, bipolarity, np.nan)
+    bipolarity = np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma_res, bipolarity, np.nan)
 
     f10 = crossing_after(u_s, s, lvl(0.1), stop=next_start)
     big_os = has_zc & (overshoot >= lvl(0.1))
@@ -536,8 +539,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
 
     # resolution: NaN rather than a number the record cannot carry
     rise = (c90 - c10) * dt
-    rise = np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma) & (c90 - c10 >= 1.0), rise, np.nan)
-    fwhm = np.where((peak >= MIN_PEAK_SIGMA_FWHM * sigma) & (fwhm_samples >= 2.0),
+    rise = np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma_res) & (c90 - c10 >= 1.0), rise, np.nan)
+    fwhm = np.where((peak >= MIN_PEAK_SIGMA_FWHM * sigma_res) & (fwhm_samples >= 2.0),
                     fwhm_samples * dt, np.nan)
     width = np.where(width >= 2.0, width * dt, np.nan)
     sub = _first_subpeak(u, s, c50, peak, sigma, fs)
@@ -549,9 +552,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "polarity": polarity,
         "rise_time_s": rise,
         "fwhm_s": fwhm,
-        "initial_half_cycle_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma),
+        "initial_half_cycle_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma_res),
                                          ihc * dt, np.nan),
-        "zero_crossing_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma),
+        "zero_crossing_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma_res),
                                     (zc - s_frac) * dt, np.nan),
         "width_s": width,
         "bipolarity": bipolarity,

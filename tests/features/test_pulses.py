@@ -195,6 +195,26 @@ def test_few_count_digitizer():
     assert np.isfinite(big["rise_time_s"]).all()
 
 
+@pytest.mark.parametrize("sigma_counts", [0.6, 1.0, 1.3, 2.0, 3.5, 8.0])
+def test_noise_of_a_quantised_record_holds_its_quantisation_once(sigma_counts):
+    """Rounded Gaussian noise has the spread sqrt(sigma^2 + step^2/12) (Sheppard's
+    correction; Widrow & Kollar 2008, ch. 4; from memory): the estimate lands there, not
+    on the MAD's whole steps (1.4826 counts for anything from 0.7 to 1.7 counts), and the
+    quantisation noise is not added a second time."""
+    rng = np.random.default_rng(int(sigma_counts * 10))
+    t = _t()
+    offset = rng.uniform(-0.5, 0.5, (200, 1))          # the level between two codes
+    x = np.round(_bipolar(t, 1e-6, 3e-6, 0.3, amp=400.0)[None] + offset
+                 + rng.normal(0, sigma_counts, (200, M)))
+    out = field_features(x, FS, pretrigger_s=PRE, quantum_v_per_m=1.0)
+    expected = np.sqrt(sigma_counts ** 2 + 1 / 12)
+    assert_allclose(np.median(out["field_noise_v_per_m"]), expected, rtol=0.05)
+    # and a record in volts per metre with its step in the same unit agrees
+    scaled = field_features(x * 0.01, FS, pretrigger_s=PRE, quantum_v_per_m=0.01)
+    assert_allclose(scaled["field_noise_v_per_m"], out["field_noise_v_per_m"] * 0.01,
+                    rtol=1e-9)
+
+
 def test_lobes_and_pulses_of_a_record():
     """Two bipolar pulses and a unipolar one: three pulses, overshoots joined to theirs."""
     t = _t()
