@@ -271,7 +271,7 @@ def test_review_explains_the_class_with_the_model(season, tmp_path):
             pulse = json.loads(r.read())["pulse"]
     finally:
         proc.send_signal(signal.SIGINT)
-        proc.communicate(timeout=30)
+        proc.communicate(timeout=120)
     why = pulse["why"]
     assert len(why) == 6 and all(isinstance(label, str) for label, _ in why)
     row = results[results["event_id"] == pulse["event_id"]]

@@ -21,7 +21,6 @@ bipolar front moves, scaled to the pulse's VHF peak power at 100 km and by
 from __future__ import annotations
 
 import numpy as np
-from scipy import ndimage, signal
 
 from .dipole import (
     SPEED_OF_LIGHT_M_PER_S,
@@ -124,6 +123,8 @@ def _batches(rate, n):
 
 def field_supports(p, idx, s) -> Supports:
     """Recorded field (physics sign, V/m, before noise) of pulses ``idx`` on supports."""
+    from scipy import ndimage, signal  # here, not at import: the CLI starts faster
+
     idx = np.asarray(idx)
     rate = support_rate_hz(p, s.field_rate_hz)[idx]
     n = field_support_samples({k: v[idx] for k, v in p.items()}, rate)
@@ -141,6 +142,8 @@ def field_supports(p, idx, s) -> Supports:
         if ratio > 1:  # the digitizer's average over one sample period
             box = np.ones(ratio + 1)
             box[[0, -1]] = 0.5
+            from scipy import ndimage  # scipy.ndimage/signal imported when used (CLI start-up)
+
             e = ndimage.convolve1d(e, box / ratio, axis=1, mode="nearest")
         if s.decay_time_s is not None:
             a_rc = np.exp(-1.0 / (fine_hz * s.decay_time_s))
@@ -244,6 +247,8 @@ def assemble_windows(n_rows, rate_hz, n_samples, win_start_s, ev, sup, sup_index
     -------
     ndarray, shape (n_rows, n_samples), float64
     """
+    from scipy import signal  # here, not at import: the CLI starts faster
+
     out = np.zeros((n_rows, n_samples))
     fs = float(rate_hz)
     has = sup_index >= 0

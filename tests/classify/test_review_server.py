@@ -354,7 +354,7 @@ def _start_cli(args, env):
     proc = subprocess.Popen([sys.executable, "-m", "classify.cli", *args], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     lines = []
-    deadline = time.monotonic() + 60
+    deadline = time.monotonic() + 180
     while time.monotonic() < deadline:
         line = proc.stdout.readline()
         if not line:
@@ -377,12 +377,12 @@ def test_review_command_prints_the_address_and_warns_off_loopback(triaged, tmp_p
     assert url.startswith("http://127.0.0.1:") and "?token=" in url
     assert "5 pulse(s) of hollowmere-2031 queued for wren" in "".join(lines)
     proc.send_signal(signal.SIGINT)
-    stdout, stderr = proc.communicate(timeout=30)
+    stdout, stderr = proc.communicate(timeout=120)
     assert proc.returncode == 0, stderr
     assert "reviewed 0 of 5" in stdout and "WARNING" not in stderr
     proc, lines = _start_cli(base + ["--host", "0.0.0.0"], env)
     proc.send_signal(signal.SIGINT)
-    stdout, stderr = proc.communicate(timeout=30)
+    stdout, stderr = proc.communicate(timeout=120)
     assert "WARNING: listening on 0.0.0.0, which is not a loopback address" in stderr
 
 
