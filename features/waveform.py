@@ -2,7 +2,10 @@
 
 All functions take a batch of rows ``(n_pulses, n_samples)`` in V/m (physics
 convention, as :meth:`features.catalog.Catalog.read_field` returns them) and the
-channel's sample rate in Hz; they return one value per row, in SI units.
+channel's sample rate in Hz; they return one value per row, in SI units. This module
+holds decay compensation, the far-field moment factor and :func:`field_features`; the
+latter's row helpers (missing samples, baseline line, masked maxima, the first sub-peak)
+are in :mod:`features._waveform_rows`.
 
 Steps and definitions (the contract of :mod:`features.schema`):
 
@@ -55,21 +58,26 @@ definitions recalled from memory.
 
 from __future__ import annotations
 
-import warnings
-
 import numpy as np
-from scipy import constants, ndimage
+from scipy import constants
 
 from . import pulses as _pulses
 from ._rowops import (
     crossing_after,
     crossing_before,
     cumtrapz_rows,
-    first_true,
-    last_true,
     moving_average_rows,
     parabolic_peak,
     take_rows,
+)
+from ._waveform_rows import SUBPEAK_HALF_S as SUBPEAK_HALF_S
+from ._waveform_rows import (
+    _fill_missing,
+    _first_subpeak,
+    _last_at_least,
+    _masked_max,
+    _mean_before,
+    _subtract_baseline,
 )
 from .moments import (
     DEFAULT_ALTITUDE_M,
@@ -119,8 +127,6 @@ MIN_PEAK_SIGMA_OK = 3.0
 MAX_SMOOTH_S = 5e-6
 #: Smallest noise sigma, as a fraction of the row's largest |E| (noiseless records).
 RELATIVE_SIGMA_FLOOR = 1e-7
-#: Half-width of the local-maximum test of the first sub-peak, s.
-SUBPEAK_HALF_S = 0.25e-6
 
 
 def moment_factor_a_per_v(range_m):
@@ -173,122 +179,6 @@ def decay_compensate(y_v_per_m, sample_rate_hz, decay_time_s):
     out = cumtrapz_rows(y, 1.0 / sample_rate_hz)
     out /= decay_time_s          # in place: y + cumtrapz / tau, one array, same numbers
     out += y
-    return out
-
-
-def _fill_missing(x):
-    """NaN samples replaced by the row's median (0 for an all-NaN row); missing mask."""
-    missing = np.isnan(x)
-    if not missing.any():
-        return x, missing
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        med = np.nanmedian(x, axis=1)
-    med = np.where(np.isfinite(med), med, 0.0)
-    return np.where(missing, med[:, None], x), missing
-
-
-def _masked_max(values, lo, hi, transform=None):
-    """Largest value and its column within [lo, hi) of each row (-inf, lo if empty).
-
-    ``transform`` (e.g. ``np.abs``), if given, is applied to the values first, on the
-    columns searched only.
-    """
-    n, w = values.shape
-    c0 = int(np.clip(np.nanmin(lo, initial=w), 0, w))
-    c1 = int(np.clip(np.nanmax(hi, initial=0), c0, w))
-    if c1 <= c0:
-        return np.full(n, -np.inf), np.clip(np.nan_to_num(lo), 0, max(w - 1, 0)).astype(np.intp)
-    cols = np.arange(c0, c1)
-    sub = values[:, c0:c1] if transform is None else transform(values[:, c0:c1])
-    v = np.where((cols >= lo[:, None]) & (cols < hi[:, None]), sub, -np.inf)
-    j = v.argmax(axis=1)
-    return v[np.arange(n), j], (j + c0).astype(np.intp)
-
-
-def _subtract_baseline(e0, level, slope, line_lo, line_hi):
-    """``e0 - (level + slope * clip(column, line_lo, line_hi))`` for every row.
-
-    Rows without a slope subtract ``level + 0.0`` (what the line is there: the same
-    numbers), and only the sloped rows build the line.
-    """
-    out = e0 - (level + 0.0)[:, None]
-    sloped = np.flatnonzero(slope != 0)
-    if sloped.size:
-        cols = np.arange(e0.shape[1])[None, :]
-        clamped = np.clip(cols, line_lo[sloped, None], line_hi[sloped, None])
-        out[sloped] = e0[sloped] - (level[sloped, None] + slope[sloped, None] * clamped)
-    return out
-
-
-def _last_at_least(values, level, start, stop):
-    """Last column in [start, stop) of each row where ``values >= level``, and whether
-    there is one (only the batch's span of columns is looked at)."""
-    n, w = values.shape
-    c0 = int(np.clip(np.min(start, initial=w), 0, w))
-    c1 = int(np.clip(np.max(stop, initial=0), c0, w))
-    if c1 <= c0:
-        return np.full(n, max(w - 1, 0), np.intp), np.zeros(n, dtype=bool)
-    cols = np.arange(c0, c1)[None, :]
-    mask = ((values[:, c0:c1] >= level[:, None]) & (cols >= start[:, None])
-            & (cols < stop[:, None]))
-    j, found = last_true(mask)
-    return j + c0, found
-
-
-def _mean_before(values, stop, width):
-    """Mean of the ``width`` columns before ``stop`` in each row (fewer at the record's
-    start; NaN with none), gathered per row so batches do not change the sum."""
-    n, w = values.shape
-    cols = stop[:, None] - width + np.arange(width)[None, :]
-    valid = (cols >= 0) & (cols < w)
-    block = np.take_along_axis(values, np.clip(cols, 0, max(w - 1, 0)), axis=1)
-    cnt = valid.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(cnt > 0, np.where(valid, block, 0.0).sum(axis=1) / cnt, np.nan)
-
-
-def _first_subpeak(u, s, c50, peak, sigma, fs):
-    """Column of the first prominent local maximum of the leading half-cycle.
-
-    A local maximum (over +-``SUBPEAK_HALF_S``) between the 50 % point and the peak that
-    reaches half the peak and drops by max(3 sigma, 10 %) before being exceeded; the
-    peak itself when there is none.
-    """
-    n, w = u.shape
-    out = s.astype(np.float64).copy()
-    lo = np.where(np.isfinite(c50), np.ceil(np.nan_to_num(c50)), s).astype(np.intp)
-    c0 = int(np.clip(lo.min(initial=w), 0, w))
-    c1 = int(np.clip(s.max(initial=0) + 1, c0, w))
-    if c1 - c0 < 3:
-        return out
-    half = max(int(round(SUBPEAK_HALF_S * fs)), 1)
-    # the local-maximum filter sees `half` columns beyond the batch's span, so a row's
-    # result does not depend on which rows share its batch
-    e0, e1 = max(c0 - half, 0), min(c1 + half, w)
-    local = (u[:, e0:e1] >= ndimage.maximum_filter1d(u[:, e0:e1], 2 * half + 1, axis=1,
-                                                      mode="nearest"))[:, c0 - e0:c1 - e0]
-    sub = u[:, c0:c1]
-    cols = np.arange(c0, c1)
-    cand = (local & (sub >= 0.5 * peak[:, None]) & (cols >= lo[:, None])
-            & (cols < s[:, None]))
-    rows = np.arange(n)
-    todo = np.ones(n, dtype=bool)
-    for _ in range(3):
-        j, found = first_true(cand)
-        found &= todo
-        if not found.any():
-            break
-        uj = sub[rows, j]
-        after = cols[None, :] > (j + c0)[:, None]
-        exceed, hit = first_true(after & (sub >= uj[:, None]) & (cols <= s[:, None]))
-        k = np.where(hit, exceed + c0, s)          # never beyond the row's own peak
-        between = after & (cols[None, :] < k[:, None])
-        dip = np.where(between, sub, np.inf).min(axis=1)
-        prominent = found & (uj - dip >= np.maximum(3 * sigma, 0.1 * uj))
-        out = np.where(prominent, j + c0, out)
-        todo &= ~prominent
-        cand[rows[found], j[found]] = False
     return out
 
 
