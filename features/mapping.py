@@ -48,6 +48,14 @@ EARTH_RADIUS_M = 6.371e6
 #: Skolnik, Introduction to Radar Systems, from memory).
 EFFECTIVE_EARTH_RADIUS_M = 4.0 / 3.0 * EARTH_RADIUS_M
 MAX_ELEVATION_DEG = 89.9
+#: ``motion_elevation_deg`` is claimed where the 95 % half-width of the direction is at
+#: most this, degrees (our choice: a direction known no better is not a direction).
+MOTION_DIRECTION_HALF_WIDTH_DEG = 10.0
+#: ``net_to_path`` is claimed where the mean squared step between sources is at least
+#: this many times what the position noise adds to it, ``2 d sigma^2`` in d dimensions.
+#: A step of length L with noise then reads about ``L (1 + (d - 1) sigma^2 / L^2)``
+#: long (Rice 1945 at high signal-to-noise), 5 % long at this limit in 2-D (our choice).
+MIN_STEP_TO_NOISE = 5.0
 
 #: Columns returned by :func:`source_features`, in schema order.
 COLUMNS = ("n_sources", "speed_m_per_s", "speed_se_m_per_s", "speed_snr",
@@ -162,30 +170,84 @@ def source_positions_m(sources, range_m) -> np.ndarray:
                       np.asarray(sources.elevation_deg, dtype=np.float64), xyz, range_m)
 
 
-def _sky_unit(az_deg, el_deg):
-    az, el = np.radians(az_deg), np.radians(el_deg)
-    return np.column_stack([np.cos(el) * np.sin(az), np.cos(el) * np.cos(az), np.sin(el)])
+def _local_noise_var(t, pos, g, n):
+    """Per-axis noise variance of each group's positions from each source's offset to
+    the chord of its two neighbours in time, so that a track's turns barely count.
+
+    For a source between neighbours at fractions ``a`` and ``1 - a`` of the time between
+    them, the offset ``r = p_i - (a p_{i-1} + (1 - a) p_{i+1})`` of a straight, evenly
+    moving track is pure noise with variance ``(1 + a^2 + (1 - a)^2) sigma^2`` per axis,
+    so ``|r|^2 / (1 + a^2 + (1 - a)^2) / sigma^2`` is chi-square with d degrees of
+    freedom; its grouped median over the median of that chi-square (``2 ln 2`` for d = 2,
+    the Wilson-Hilferty approximation otherwise; from memory) estimates ``sigma^2``. A
+    few turns of a long track move the median little. NaN under 3 sources.
+    """
+    d = pos.shape[1]
+    out = np.full(n, np.nan)
+    if len(g) < 3:
+        return out
+    inner = (g[1:-1] == g[:-2]) & (g[1:-1] == g[2:])
+    span = t[2:] - t[:-2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(span > 0, (t[2:] - t[1:-1]) / span, 0.5)
+        r = pos[1:-1] - (a[:, None] * pos[:-2] + (1.0 - a)[:, None] * pos[2:])
+        z2 = (r ** 2).sum(axis=1) / (1.0 + a * a + (1.0 - a) ** 2)
+    med_chi2 = 2.0 * np.log(2.0) if d == 2 else d * (1.0 - 2.0 / (9.0 * d)) ** 3
+    return grouped_median(np.where(inner, z2, np.nan), g[1:-1], n) / med_chi2
 
 
-def _net_to_path(pos, g, n):
-    """Net displacement over path length of each group's time-ordered track."""
+def _net_to_path(pos, g, n, noise_var):
+    """Net displacement over path length of each group's time-ordered track.
+
+    ``noise_var`` (n,) is each position's noise variance per axis (units of ``pos``
+    squared); a track is claimed (else NaN) only where its mean squared step is at least
+    :data:`MIN_STEP_TO_NOISE` times the ``2 d sigma^2`` that noise adds to a step in d
+    dimensions (path lengths of noise-dominated tracks are sums of noise).
+    """
     valid = np.isfinite(pos).all(axis=1)
     pos, g = pos[valid], g[valid]
     counts = np.bincount(g, minlength=n)
     out = np.full(n, np.nan)
     if len(g) == 0:
         return out
-    step = np.sqrt((np.diff(pos, axis=0) ** 2).sum(axis=1))
+    d2 = (np.diff(pos, axis=0) ** 2).sum(axis=1)
+    step = np.sqrt(d2)
     same = g[1:] == g[:-1]
     path = np.bincount(g[1:][same], step[same], minlength=n)
+    mean_d2 = np.bincount(g[1:][same], d2[same], minlength=n) / np.maximum(counts - 1, 1)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-    has = counts >= MIN_SOURCES_FOR_SPEED
+    with np.errstate(invalid="ignore"):
+        clear = mean_d2 >= MIN_STEP_TO_NOISE * 2.0 * pos.shape[1] * noise_var
+    has = (counts >= MIN_SOURCES_FOR_SPEED) & clear
     first = pos[starts[has]]
     last = pos[starts[has] + counts[has] - 1]
     net = np.sqrt(((last - first) ** 2).sum(axis=1))
     with np.errstate(divide="ignore", invalid="ignore"):
         out[has] = np.where(path[has] > 0, net / path[has], np.nan)
     return out
+
+
+def _motion_direction(velocity, covariance, coslat, n_used):
+    """Direction of the apparent motion above the horizontal, deg, NaN where unsure.
+
+    ``velocity`` holds the rates of ``az cos(el)`` and ``el`` (deg/s). The tangential
+    and vertical speeds are proportional to ``az rate`` and ``sec^2(el) el rate``; the
+    direction's standard error is the delta method's ``sqrt(n' Cov n) / |w|`` with
+    ``n`` the unit vector across ``w`` (radians). It is claimed where its 95 % interval,
+    Student's t with ``n_used - 2`` degrees of freedom times that SE, is at most
+    :data:`MOTION_DIRECTION_HALF_WIDTH_DEG`.
+    """
+    scale = np.stack([1.0 / coslat, 1.0 / coslat ** 2], axis=1)
+    w = velocity * scale
+    cov = covariance * scale[:, :, None] * scale[:, None, :]
+    norm = np.hypot(w[:, 0], w[:, 1])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        across = np.stack([-w[:, 1], w[:, 0]], axis=1) / norm[:, None]
+        se = np.degrees(np.sqrt(np.einsum("ni,nij,nj->n", across, cov, across)) / norm)
+        dof = n_used - 2.0
+        half = special.stdtrit(np.where(dof >= 1, dof, np.nan), 0.975) * se
+    direction = np.degrees(np.arctan2(w[:, 1], np.abs(w[:, 0])))
+    return np.where(half <= MOTION_DIRECTION_HALF_WIDTH_DEG, direction, np.nan)
 
 
 def source_features(sources, range_m, n_events):
@@ -249,9 +311,12 @@ def source_features(sources, range_m, n_events):
     # direction and straightness are measured on the sky for every catalog (the
     # interferometer's own measurement), so they mean the same with or without xyz:
     # tangential speed D * az rate vs vertical speed D sec^2(el) * el rate
-    sec2 = 1.0 / coslat ** 2
-    mot_el = np.degrees(np.arctan2(ang.velocity[:, 1] * sec2,
-                                   np.abs(ang.velocity[:, 0] / coslat)))
+    n_used = np.bincount(g, np.isfinite(az_u) & np.isfinite(el) & np.isfinite(t),
+                         minlength=n_events).astype(np.float64)
+    mot_el = _motion_direction(ang.velocity, ang.covariance, coslat, n_used)
+    # path on the sky in degrees: az cos(median el), el (the fit's own axes)
+    sky = np.column_stack([az_u * coslat[g], el])
+    net_path = _net_to_path(sky, g, n_events, _local_noise_var(t, sky, g, n_events))
     if xyz is not None:
         src_range = grouped_median(np.hypot(xyz[:, 0], xyz[:, 1]), g, n_events)
     else:
@@ -271,7 +336,7 @@ def source_features(sources, range_m, n_events):
         "motion_elevation_deg": mot_el,
         "angular_rate_deg_per_s": ang_rate,
         "angular_rate_se_deg_per_s": ang_se,
-        "net_to_path": _net_to_path(_sky_unit(az, el), g, n_events),
+        "net_to_path": net_path,
         "altitude_m": grouped_median(pos[:, 2], g, n_events),
         "elevation_median_deg": el_med,
         "source_duration_s": t_last - t_first,
