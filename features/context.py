@@ -20,8 +20,11 @@ Definitions:
   in its own or an adjacent cube of ``REUSE_CELL_M`` (so always when closer
   than that, never when farther than about 1.7 cells); without x, y, z the
   same on the sky with cells of ``REUSE_CELL_DEG`` in azimuth (scaled by
-  cos elevation) and elevation. NaN for a pulse without sources or without a flash.
-  The age limit
+  cos elevation) and elevation. NaN for a pulse without sources or without a flash,
+  and for every pulse when the catalog's position noise (estimated from the sources
+  themselves, :func:`mapping_noise_cells`) exceeds ``REUSE_MAX_NOISE_CELLS`` of a cell:
+  two sources mapped at one spot then land cells apart, and whether a source meets an
+  earlier one is decided by the noise, not by the channel. The age limit
   keeps a leader's own recent steps out: recoil leaders retrace channels made
   tens to hundreds of ms before (Rakov & Uman 2003, ch. 9; from memory),
   while a stepped leader keeps advancing into virgin air.
@@ -35,13 +38,21 @@ import numpy as np
 import pandas as pd
 
 from ._checks import InputError
+from ._trackfit import chord_offsets_sq, group_order
 
-__all__ = ["REUSE_CELL_M", "REUSE_CELL_DEG", "REUSE_MIN_AGE_S", "flash_context"]
+__all__ = ["REUSE_CELL_M", "REUSE_CELL_DEG", "REUSE_MAX_NOISE_CELLS", "REUSE_MIN_AGE_S",
+           "flash_context", "mapping_noise_cells"]
 
 #: Grid cell of the channel-reuse test with 3-D positions, metres.
 REUSE_CELL_M = 300.0
 #: Grid cell of the channel-reuse test on the sky, degrees.
 REUSE_CELL_DEG = 0.3
+#: Largest position noise (rms per axis, in cells) at which channel reuse is measured:
+#: two sources at one spot then differ by sqrt(2) x 0.25 = 0.35 cell rms per axis, well
+#: inside the own-or-adjacent-cell test (our choice).
+REUSE_MAX_NOISE_CELLS = 0.25
+#: Most chord offsets kept per block for the catalog's noise estimate (a median).
+_NOISE_SAMPLES_PER_BLOCK = 200_000
 #: An earlier source counts for channel reuse only if at least this much older, s.
 REUSE_MIN_AGE_S = 5e-3
 
@@ -74,11 +85,7 @@ def _block_cells(flash_code, time_ns, part, b0):
     """Keys (flash, cell), absolute times and age limits of one block's sources."""
     ev = part.event_index + b0
     fl = flash_code[ev]
-    if part.xyz_m is not None:
-        pos = part.xyz_m / REUSE_CELL_M
-    else:
-        el, az = part.elevation_deg, part.azimuth_deg
-        pos = np.column_stack([az * np.cos(np.radians(el)), el]) / REUSE_CELL_DEG
+    pos = _cell_positions(part)
     keep = (fl >= 0) & np.isfinite(pos).all(axis=1)
     cell = np.floor(np.where(np.isfinite(pos), pos, 0.0)).astype(np.int64)
     # absolute source time in seconds (event trigger + t_s); float64 keeps ~0.5 us
@@ -133,6 +140,47 @@ def _flash_groups(flash_code, counts):
     return groups
 
 
+def _cell_positions(part):
+    """Positions of a block's sources in cells of the reuse grid (xyz, else the sky)."""
+    if part.xyz_m is not None:
+        return part.xyz_m / REUSE_CELL_M
+    el, az = part.elevation_deg, part.azimuth_deg
+    return np.column_stack([az * np.cos(np.radians(el)), el]) / REUSE_CELL_DEG
+
+
+def mapping_noise_cells(sources):
+    """The catalog's position noise, rms per axis, in cells of the channel-reuse grid.
+
+    The pooled median over the catalog of each source's offset to the chord of its
+    neighbours in time (:func:`features._trackfit.chord_offsets_sq`): one number for
+    the station's mapping, which the turns of a few tracks barely move.
+
+    Parameters
+    ----------
+    sources : features._tables.SourceTable or None
+
+    Returns
+    -------
+    float
+        Noise in cells (``REUSE_CELL_M`` with x, y, z, else ``REUSE_CELL_DEG``); NaN
+        without a pulse of 3 or more sources.
+    """
+    if sources is None or sources.n_sources == 0:
+        return float("nan")
+    n_events = len(sources.counts())
+    samples, med_chi2 = [], 1.0
+    for b0 in range(0, n_events, _BLOCK_EVENTS):
+        part = sources.rows(b0, min(b0 + _BLOCK_EVENTS, n_events))
+        order = group_order(part.t_s, part.event_index)
+        z2, med_chi2 = chord_offsets_sq(part.t_s[order], _cell_positions(part)[order],
+                                        part.event_index[order])
+        z2 = z2[np.isfinite(z2)]
+        step = max(1, z2.size // _NOISE_SAMPLES_PER_BLOCK)
+        samples.append(z2[::step])
+    z2 = np.concatenate(samples)
+    return float(np.sqrt(np.median(z2) / med_chi2)) if z2.size else float("nan")
+
+
 def _channel_reuse(flash_code, time_ns, sources):
     n = len(flash_code)
     out = np.full(n, np.nan)
@@ -140,6 +188,8 @@ def _channel_reuse(flash_code, time_ns, sources):
         return out
     if flash_code.max(initial=0) >= 1 << 23:
         raise InputError("channel reuse supports up to 8 million flashes per catalog")
+    if not mapping_noise_cells(sources) <= REUSE_MAX_NOISE_CELLS:
+        return out                          # noise decides, or no track to tell: unknown
     counts = sources.counts()
     n_src = counts.astype(np.float64)
     n_reused = np.zeros(n)

@@ -31,6 +31,7 @@ from scipy import special
 from ._checks import InputError, is_real_number
 from ._trackfit import (
     MIN_SOURCES_FOR_SPEED,
+    chord_offsets_sq,
     debiased_norm,
     group_order,
     grouped_median,
@@ -171,29 +172,13 @@ def source_positions_m(sources, range_m) -> np.ndarray:
 
 
 def _local_noise_var(t, pos, g, n):
-    """Per-axis noise variance of each group's positions from each source's offset to
-    the chord of its two neighbours in time, so that a track's turns barely count.
-
-    For a source between neighbours at fractions ``a`` and ``1 - a`` of the time between
-    them, the offset ``r = p_i - (a p_{i-1} + (1 - a) p_{i+1})`` of a straight, evenly
-    moving track is pure noise with variance ``(1 + a^2 + (1 - a)^2) sigma^2`` per axis,
-    so ``|r|^2 / (1 + a^2 + (1 - a)^2) / sigma^2`` is chi-square with d degrees of
-    freedom; its grouped median over the median of that chi-square (``2 ln 2`` for d = 2,
-    the Wilson-Hilferty approximation otherwise; from memory) estimates ``sigma^2``. A
-    few turns of a long track move the median little. NaN under 3 sources.
-    """
-    d = pos.shape[1]
-    out = np.full(n, np.nan)
-    if len(g) < 3:
-        return out
-    inner = (g[1:-1] == g[:-2]) & (g[1:-1] == g[2:])
-    span = t[2:] - t[:-2]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a = np.where(span > 0, (t[2:] - t[1:-1]) / span, 0.5)
-        r = pos[1:-1] - (a[:, None] * pos[:-2] + (1.0 - a)[:, None] * pos[2:])
-        z2 = (r ** 2).sum(axis=1) / (1.0 + a * a + (1.0 - a) ** 2)
-    med_chi2 = 2.0 * np.log(2.0) if d == 2 else d * (1.0 - 2.0 / (9.0 * d)) ** 3
-    return grouped_median(np.where(inner, z2, np.nan), g[1:-1], n) / med_chi2
+    """Per-axis noise variance of each group's positions (:func:`chord_offsets_sq`'s
+    grouped median over the median of chi-square with d degrees of freedom); NaN under
+    3 sources."""
+    z2, med_chi2 = chord_offsets_sq(t, pos, g)
+    if len(z2) == 0:
+        return np.full(n, np.nan)
+    return grouped_median(z2, g, n) / med_chi2
 
 
 def _net_to_path(pos, g, n, noise_var):

@@ -461,7 +461,9 @@ FEATURES: tuple[Feature, ...] = (
             requires=frozenset({"flash"}), tolerance=_EXACT),
     Feature("channel_reuse", "1", "fraction of its sources within one 300 m cell (0.3 deg on "
             "the sky without xyz) of a source mapped >= 5 ms earlier in its flash (NaN without "
-            "sources, or without a flash or alone in it)",
+            "sources, or without a flash or alone in it; NaN for every pulse when the catalog's "
+            "position noise, estimated from its sources, exceeds a quarter cell: the noise, "
+            "not the channel, then decides which sources meet)",
             "context",
             requires=frozenset({"flash", "sources"}), tolerance=Tolerance(value=0.10)),
     # ---------------------------------------------------------------- quality
