@@ -53,7 +53,8 @@ MAX_ELEVATION_DEG = 89.9
 #: most this, degrees (our choice: a direction known no better is not a direction).
 MOTION_DIRECTION_HALF_WIDTH_DEG = 10.0
 #: ``net_to_path`` is claimed where the mean squared step between sources is at least
-#: this many times what the position noise adds to it, ``2 d sigma^2`` in d dimensions.
+#: this many times what the position noise adds to it, ``2 d sigma^2`` in d dimensions
+#: (sigma: its upper 95 % bound from the track itself).
 #: A step of length L with noise then reads about ``L (1 + (d - 1) sigma^2 / L^2)``
 #: long (Rice 1945 at high signal-to-noise), 5 % long at this limit in 2-D (our choice).
 MIN_STEP_TO_NOISE = 5.0
@@ -171,20 +172,27 @@ def source_positions_m(sources, range_m) -> np.ndarray:
                       np.asarray(sources.elevation_deg, dtype=np.float64), xyz, range_m)
 
 
-def _local_noise_var(t, pos, g, n):
-    """Per-axis noise variance of each group's positions (:func:`chord_offsets_sq`'s
-    grouped median over the median of chi-square with d degrees of freedom); NaN under
-    3 sources."""
-    z2, med_chi2 = chord_offsets_sq(t, pos, g)
-    if len(z2) == 0:
-        return np.full(n, np.nan)
-    return grouped_median(z2, g, n) / med_chi2
+def _local_noise_var(t, pos, g, n, confidence=0.95):
+    """Upper confidence bound of the per-axis noise variance of each group's positions.
+
+    The sum of :func:`chord_offsets_sq` over a group's k inner sources is ``sigma^2``
+    times a chi-square with ``d k`` degrees of freedom for a straight, evenly moving
+    track, so ``sigma^2 <= sum z^2 / chi2_{1 - confidence}(d k)`` at ``confidence``
+    (a turn only raises the bound). NaN under 3 sources.
+    """
+    z2, _ = chord_offsets_sq(t, pos, g)
+    inner = np.isfinite(z2)
+    total = np.bincount(g[inner], z2[inner], minlength=n)
+    dof = pos.shape[1] * np.bincount(g[inner], minlength=n).astype(np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        q = special.chdtri(np.where(dof >= 1, dof, np.nan), confidence)
+        return total / q
 
 
 def _net_to_path(pos, g, n, noise_var):
     """Net displacement over path length of each group's time-ordered track.
 
-    ``noise_var`` (n,) is each position's noise variance per axis (units of ``pos``
+    ``noise_var`` (n,) bounds each position's noise variance per axis (units of ``pos``
     squared); a track is claimed (else NaN) only where its mean squared step is at least
     :data:`MIN_STEP_TO_NOISE` times the ``2 d sigma^2`` that noise adds to a step in d
     dimensions (path lengths of noise-dominated tracks are sums of noise).
@@ -217,14 +225,19 @@ def _motion_direction(velocity, covariance, coslat, n_used):
 
     ``velocity`` holds the rates of ``az cos(el)`` and ``el`` (deg/s). The tangential
     and vertical speeds are proportional to ``az rate`` and ``sec^2(el) el rate``; the
-    direction's standard error is the delta method's ``sqrt(n' Cov n) / |w|`` with
+    direction's standard error is the delta method's ``sqrt(n' Cov n) / |w|`` (Cov:
+    the two axes' slope variances pooled, the sky noise being isotropic) with
     ``n`` the unit vector across ``w`` (radians). It is claimed where its 95 % interval,
     Student's t with ``n_used - 2`` degrees of freedom times that SE, is at most
     :data:`MOTION_DIRECTION_HALF_WIDTH_DEG`.
     """
     scale = np.stack([1.0 / coslat, 1.0 / coslat ** 2], axis=1)
     w = velocity * scale
-    cov = covariance * scale[:, :, None] * scale[:, None, :]
+    # the angle noise is isotropic on the sky (arc on both axes): pool the two axes'
+    # variances, so that an axis whose readings are clipped (elevation at 0) does not
+    # pass for a noise-free one
+    pooled = 0.5 * np.trace(covariance, axis1=1, axis2=2)
+    cov = pooled[:, None, None] * (scale[:, :, None] * scale[:, None, :] * np.eye(2))
     norm = np.hypot(w[:, 0], w[:, 1])
     with np.errstate(divide="ignore", invalid="ignore"):
         across = np.stack([-w[:, 1], w[:, 0]], axis=1) / norm[:, None]

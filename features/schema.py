@@ -398,7 +398,7 @@ FEATURES: tuple[Feature, ...] = (
             "above the horizontal (+90 straight up, 0 sideways), from the fitted azimuth and "
             "elevation rates (elevation rate x sec^2(el) vs azimuth rate); NaN unless its 95 % "
             "interval (Student's t with n_sources - 2 degrees of freedom times the delta-method "
-            "SE) is within 10 deg: at the station's angle noise a slow or short track has no "
+            "SE, both axes' noise pooled) is within 10 deg: at the station's angle noise a slow or short track has no "
             "measurable direction", "mapping",
             requires=frozenset({"sources"}), tolerance=Tolerance(value=10.0)),
     Feature("angular_rate_deg_per_s", "deg/s", "angular speed on the sky from a robust fit "
@@ -415,8 +415,8 @@ FEATURES: tuple[Feature, ...] = (
     Feature("net_to_path", "1", "net displacement / path length of the time-ordered source "
             "track on the sky (1 = straight, near 0 = back and forth); angles only, so the "
             "same with or without xyz; NaN unless the mean squared step between sources is "
-            ">= 5 x the 4 sigma^2 the angle noise adds to it (sigma from each source's offset "
-            "to its neighbours' chord): noise alone makes a track look crooked",
+            ">= 5 x the 4 sigma^2 the angle noise adds to it (sigma: upper 95 % bound from each "
+            "source's offset to its neighbours' chord): noise alone makes a track look crooked",
             "mapping",
             requires=frozenset({"sources"}), tolerance=Tolerance(value=0.10)),
     Feature("altitude_m", "m", "median source altitude above the curved Earth: from xyz, "
