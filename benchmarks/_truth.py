@@ -40,7 +40,7 @@ CENSORED = "field censored"
 PHYSICAL = (
     ("current_moment_peak_a_m", "current_moment_peak_a_m", "tolerance"),
     ("charge_moment_change_c_m", "charge_moment_change_c_m", "tolerance"),
-    ("altitude_m", "source_altitude_m", "tolerance"),
+    ("altitude_m", "front_altitude_m", "tolerance"),
     ("speed_m_per_s", "front_speed_m_per_s", "tolerance"),
     ("vertical_speed_m_per_s", "front_vertical_speed_m_per_s", "sign"),
     ("breakdown_polarity", "current_direction x sign(front_vertical_speed)", "polarity"),
@@ -56,6 +56,7 @@ class Instrument:
     sample_s: float  # field sample interval, s
     digitizer: str  # "float" or "int16"
     mapped_ids: frozenset | None = None  # events with sources (None: no sources at all)
+    vhf_window_s: tuple | None = None  # the VHF record's span about the trigger, s
 
 
 def instrument_of(catalog_dir) -> Instrument:
@@ -71,8 +72,32 @@ def instrument_of(catalog_dir) -> Instrument:
     if "sources" in man:
         src = Path(catalog_dir) / man["sources"]["file"]
         mapped = frozenset(pd.read_csv(src, usecols=["event_id"], dtype=str)["event_id"])
+    lo = -float(sim["vhf_pretrigger_s"])
+    window = (lo, lo + float(sim["vhf_samples"]) / float(sim["vhf_rate_hz"]))
     return Instrument(sigma, float(sim["vhf_noise_floor"]), 1.0 / field["sample_rate_hz"],
-                      digitizer, mapped)
+                      digitizer, mapped, window)
+
+
+def front_altitude_m(world, inst) -> np.ndarray:
+    """Altitude of the sources' front at the middle of the time it is mapped, m.
+
+    ``altitude_m`` is the median altitude of the mapped VHF sources, which the simulator
+    draws uniformly in time along the front (``front_{z0,uz,speed,t0,t1}``) while its
+    emission reaches the station within the VHF record: the median of a linear motion
+    is its altitude at the middle of that span. This, not the field channel's mean
+    height (``source_altitude_m``), is what the column measures: the sources of an
+    energetic in-cloud pulse sit on its upward leader and those of a return stroke up
+    the leader channel, km from the current wave's mid-height.
+    """
+    if inst.vhf_window_s is None:
+        return np.full(len(world), np.nan)
+    travel = world["slant_m"].to_numpy(dtype=float) / 299_792_458.0
+    t0 = world["front_t0_s"].to_numpy(dtype=float)
+    t_a = np.maximum(t0, inst.vhf_window_s[0] - travel)
+    t_b = np.minimum(world["front_t1_s"].to_numpy(dtype=float), inst.vhf_window_s[1] - travel)
+    mid = np.where(t_b > t_a, 0.5 * (t_a + t_b), np.nan)
+    return (world["front_z0_m"].to_numpy(dtype=float) + world["front_uz"].to_numpy(dtype=float)
+            * world["front_speed_m_per_s"].to_numpy(dtype=float) * (mid - t0))
 
 
 def read_features(path) -> pd.DataFrame:
@@ -224,6 +249,7 @@ def judge_physical(case, noisy, twin, world, inst) -> pd.DataFrame:
     check_aligned(noisy, twin, world)
     frames = []
     truth_pol = _physical_polarity(world)
+    world = world.assign(front_altitude_m=front_altitude_m(world, inst))
     for source, df in (("noisy", noisy), ("twin", twin)):
         for col, truth_col, how in PHYSICAL:
             name = f"{col} vs {truth_col}"
