@@ -50,6 +50,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import _lobes
 from ._lobes import (
     BASELINE_MAX_S,
     BASELINE_MIN_S,
@@ -57,7 +58,6 @@ from ._lobes import (
     LobeTable,
     _run_starts,
     baseline_fit,
-    find_lobes,
 )
 
 # the rest of the lobe part's names, re-exported (`X as X`) for callers of this module
@@ -76,6 +76,7 @@ __all__ = [
     "BASELINE_MIN_S",
     "CONTEXT_S",
     "LobeTable",
+    "LobeTableWithBase",
     "PulseTable",
     "baseline_fit",
     "find_lobes",
@@ -121,6 +122,10 @@ class PulseTable:
     sign : ndarray of int8
         Sign of the initial half-cycle.
     n_lobes : ndarray of int
+    height : ndarray
+        The pulse's own height, V/m: the largest of its lobes' peaks less the level each
+        rides on (the |e| of the valley it was split from an earlier lobe at,
+        :class:`LobeTableWithBase`); ``peak`` for a pulse that starts from the baseline.
     """
 
     row: np.ndarray
@@ -131,9 +136,54 @@ class PulseTable:
     peak: np.ndarray
     sign: np.ndarray
     n_lobes: np.ndarray
+    height: np.ndarray
 
     def __len__(self) -> int:
         return int(self.row.size)
+
+
+@dataclass(frozen=True)
+class LobeTableWithBase(LobeTable):
+    """A :class:`LobeTable` with the level each lobe rides on.
+
+    Attributes
+    ----------
+    base : ndarray of float
+        |e| of the (smoothed) record at the lobe's first sample where the lobe was split
+        from the one before it at a valley (``after_valley``: it rides on that lobe's
+        tail), else 0, V/m. ``peak - base`` is the lobe's own height (its prominence).
+    """
+
+    base: np.ndarray = None
+
+
+def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
+               **levels) -> LobeTableWithBase:
+    """Every lobe of every row (:func:`features._lobes.find_lobes`) and its base level.
+
+    A pulse riding on the tail of an earlier one (an overshoot or an RC undershoot that
+    decays slowly, a leader step on a stroke's tail) is split from it at the valley
+    between them; its own height is its peak above that valley, not above the baseline
+    (the topographic prominence). Parameters as :func:`features._lobes.find_lobes`.
+
+    Returns
+    -------
+    LobeTableWithBase
+    """
+    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
+    base = np.zeros(len(lobes))
+    ride = np.flatnonzero(lobes.after_valley)
+    if ride.size:
+        # the smoothed record at the valley (find_lobes' centred moving average)
+        w = e.shape[1]
+        k = max(int(smooth), 1)
+        cols = lobes.start[ride, None] + np.arange(k)[None] - k // 2
+        vals = e[lobes.row[ride, None], np.clip(cols, 0, w - 1)]
+        base[ride] = np.minimum(np.abs(vals.mean(axis=1)), lobes.peak[ride])
+    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base)
+
+
+_LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
 
 
 def group_pulses(lobes: LobeTable, sample_rate_hz: float):
@@ -152,7 +202,10 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     m = len(lobes)
     if m == 0:
         z = np.zeros(0, np.intp)
-        return PulseTable(z, z, z, z, z, np.zeros(0), np.zeros(0, np.int8), z), lobes, z
+        return (PulseTable(z, z, z, z, z, np.zeros(0), np.zeros(0, np.int8), z, np.zeros(0)),
+                lobes, z)
+    base = getattr(lobes, "base", None)
+    base = np.zeros(m) if base is None else base
     same_row = np.zeros(m, dtype=bool)
     same_row[1:] = lobes.row[1:] == lobes.row[:-1]
     gap = np.zeros(m)
@@ -188,8 +241,9 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     ratio[1:] = l_peak[1:] / np.maximum(l_peak[:-1], 1e-300)
     flip = np.zeros(n_l, dtype=bool)
     flip[1:] = l_sign[1:] != l_sign[:-1]
-    join = (same_row & flip & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, prev_len))
-            & (ratio <= OVERSHOOT_MAX_RATIO))
+    close_small = (same_row & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, prev_len))
+                   & (ratio <= OVERSHOOT_MAX_RATIO))
+    join = close_small & flip
     # at most MAX_LOBES lobes per pulse: break a chain after every MAX_LOBES joins
     run = np.zeros(n_l, np.intp)
     if n_l:
@@ -197,6 +251,12 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
         seg = np.cumsum(~join) - 1
         run = np.arange(n_l) - starts[seg]
         join &= (run % MAX_LOBES) != 0
+    # an overshoot (or RC undershoot) broken by noise: a same-sign lobe close after a
+    # joined overshoot lobe, no larger, is its continuation (a pulse riding on the
+    # overshoot's tail was split at a valley instead and stands alone, with its height)
+    after_os = np.zeros(n_l, dtype=bool)
+    after_os[1:] = join[:-1]
+    join |= close_small & ~flip & after_os & ~lobes.after_valley[~split]
     pulse_of_lobe = np.cumsum(~join) - 1
     n_p = int(pulse_of_lobe[-1]) + 1
     first = np.flatnonzero(~join)
@@ -210,11 +270,17 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     n_lobes = np.bincount(pulse_of_lobe, minlength=n_p)
     # first_lobe indexes the merged-lobe arrays: return them through the table's first
     # lobe columns (start/peak of the initial half-cycle)
+    # a pulse's own height: its largest lobe above the valley that lobe rides on
+    l_base = base[~split]
+    p_height = np.zeros(n_p)
+    np.maximum.at(p_height, pulse_of_lobe, np.maximum(l_peak - l_base, 0.0))
     table = PulseTable(row=l_row[first], start=l_start[first], stop=p_stop,
                        first_lobe=first, peak_col=p_peak_col, peak=p_peak,
-                       sign=l_sign[first], n_lobes=n_lobes)
-    merged = LobeTable(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
-                       peak=l_peak, sign=l_sign, after_valley=lobes.after_valley[~split])
+                       sign=l_sign[first], n_lobes=n_lobes,
+                       height=p_height)
+    merged = LobeTableWithBase(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
+                               peak=l_peak, sign=l_sign,
+                               after_valley=lobes.after_valley[~split], base=l_base)
     return table, merged, pulse_of_lobe
 
 
@@ -325,7 +391,7 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
                        NEIGHBOUR_FRACTION * np.nan_to_num(own_peak))
     dt = (pulses.peak_col - own_peak_col[r]) / fs        # s, + after
     other = ok_row & ~self_
-    sig = other & (pulses.peak >= level[r])
+    sig = other & (pulses.height >= level[r])
     close = sig & (np.abs(dt) <= context_s)
     out["neighbours_before"] = np.where(has, np.bincount(r[close & (dt < 0)], minlength=n), np.nan)
     out["neighbours_after"] = np.where(has, np.bincount(r[close & (dt > 0)], minlength=n), np.nan)
@@ -333,7 +399,7 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
     np.minimum.at(near, r[sig], np.abs(dt[sig]))
     out["nearest_neighbour_s"] = np.where(np.isfinite(near), near, np.nan)
     big = np.zeros(n)
-    np.maximum.at(big, r[close], pulses.peak[close])
+    np.maximum.at(big, r[close], pulses.height[close])
     with np.errstate(divide="ignore", invalid="ignore"):
         out["largest_neighbour_ratio"] = np.where(has, big / own_peak, np.nan)
     # the train: the significant pulses within the context, and the pulse itself
