@@ -105,6 +105,16 @@ TRIGGER_SEARCH_S = 40e-6
 CONTEXT_S = 100e-6
 #: A neighbour counts if its peak reaches this fraction of the catalogued peak.
 NEIGHBOUR_FRACTION = 0.1
+#: An opposite-polarity lobe up to this far after the previous one still joins it when
+#: the record between them keeps its sign (a slow overshoot, or the reversed field of a
+#: current pulse reaching the end of its channel a few us later, broken by noise where it
+#: hovers near the detection level), s. Shorter than the 10-50 us between leader steps
+#: (Rakov & Uman 2003, ch. 4; from memory).
+BRIDGE_MAX_S = 10e-6
+#: ... its sign held by at least this many standard errors of the gap's mean ...
+BRIDGE_SIGMA = 3.0
+#: ... and this many noise sigmas (a baseline off by a fraction of a count is no bridge).
+BRIDGE_LEVEL = 0.5
 
 
 @dataclass(frozen=True)
@@ -152,9 +162,15 @@ class LobeTableWithBase(LobeTable):
         |e| of the (smoothed) record at the lobe's first sample where the lobe was split
         from the one before it at a valley (``after_valley``: it rides on that lobe's
         tail), else 0, V/m. ``peak - base`` is the lobe's own height (its prominence).
+    bridged : ndarray of bool
+        The record between the row's previous lobe and this one keeps this lobe's sign
+        on average (by at least max(``BRIDGE_SIGMA`` standard errors, ``BRIDGE_LEVEL``
+        sigma)): the field did not come back to the baseline in between, the two are one
+        swing broken where it hovered near the detection level.
     """
 
     base: np.ndarray = None
+    bridged: np.ndarray = None
 
 
 def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
@@ -180,7 +196,25 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         cols = lobes.start[ride, None] + np.arange(k)[None] - k // 2
         vals = e[lobes.row[ride, None], np.clip(cols, 0, w - 1)]
         base[ride] = np.minimum(np.abs(vals.mean(axis=1)), lobes.peak[ride])
-    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base)
+    bridged = np.zeros(len(lobes), dtype=bool)
+    if len(lobes) > 1:
+        # mean of the record in the gap after the previous lobe of the same row
+        j = np.flatnonzero(lobes.row[1:] == lobes.row[:-1]) + 1
+        a, b, r = lobes.stop[j - 1], lobes.start[j], lobes.row[j]
+        has_gap = b > a
+        j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
+        if j.size:
+            rows = np.unique(r)
+            cs = np.zeros((rows.size, e.shape[1] + 1))
+            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
+            ri = np.searchsorted(rows, r)
+            n_gap = b - a
+            mean = (cs[ri, b] - cs[ri, a]) / n_gap
+            sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
+            need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
+            bridged[j] = mean * lobes.sign[j] >= need
+    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
+                             bridged=bridged)
 
 
 _LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
@@ -206,6 +240,8 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
                 lobes, z)
     base = getattr(lobes, "base", None)
     base = np.zeros(m) if base is None else base
+    bridged = getattr(lobes, "bridged", None)
+    bridged = np.zeros(m, dtype=bool) if bridged is None else bridged
     same_row = np.zeros(m, dtype=bool)
     same_row[1:] = lobes.row[1:] == lobes.row[:-1]
     gap = np.zeros(m)
@@ -243,7 +279,9 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     flip[1:] = l_sign[1:] != l_sign[:-1]
     close_small = (same_row & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, prev_len))
                    & (ratio <= OVERSHOOT_MAX_RATIO))
-    join = close_small & flip
+    bridge = (same_row & bridged[~split] & (gap <= BRIDGE_MAX_S * fs)
+              & (ratio <= OVERSHOOT_MAX_RATIO))
+    join = (close_small | bridge) & flip
     # at most MAX_LOBES lobes per pulse: break a chain after every MAX_LOBES joins
     run = np.zeros(n_l, np.intp)
     if n_l:
@@ -280,7 +318,8 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
                        height=p_height)
     merged = LobeTableWithBase(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
                                peak=l_peak, sign=l_sign,
-                               after_valley=lobes.after_valley[~split], base=l_base)
+                               after_valley=lobes.after_valley[~split], base=l_base,
+                               bridged=bridged[~split])
     return table, merged, pulse_of_lobe
 
 
