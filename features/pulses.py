@@ -29,7 +29,9 @@ Definitions (the contract of :mod:`features.schema`):
   broken by noise, unless a deep valley split them.
 * **catalogued pulse**: the pulse holding the lobe at the trigger, else (within
   :data:`TRIGGER_TOLERANCE_S`) one starting just after it, or ending just before it,
-  else the lobe nearest to the trigger within :data:`TRIGGER_SEARCH_S`.
+  else the lobe nearest to the trigger within :data:`TRIGGER_SEARCH_S`; never a lobe
+  whose peak lies more than :data:`PEAK_BEFORE_TRIGGER_S` before the trigger (the tail
+  of an earlier pulse).
 * **neighbours**: the other pulses of the record whose peak reaches
   max(``LOBE_HIGH_SIGMA`` sigma, :data:`NEIGHBOUR_FRACTION` x the catalogued peak),
   counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak.
@@ -101,12 +103,18 @@ SAME_SIGN_GAP_FRACTION = 0.5
 TRIGGER_TOLERANCE_S = 0.5e-6
 #: Farthest from the trigger the catalogued pulse is looked for, s.
 TRIGGER_SEARCH_S = 40e-6
+#: A lobe whose peak lies more than this before the trigger is not the catalogued pulse
+#: (a trigger fires on the rising edge of its pulse; a trigger inside the slow tail of an
+#: earlier, larger pulse is another pulse's, one lost in that tail), s. The same bound as
+#: the features' peak search (features.waveform.PEAK_SEARCH_S).
+PEAK_BEFORE_TRIGGER_S = 3e-6
 #: Neighbours are counted within this time before and after the pulse's peak, s.
 CONTEXT_S = 100e-6
 #: A neighbour counts if its peak reaches this fraction of the catalogued peak.
 NEIGHBOUR_FRACTION = 0.1
-#: An opposite-polarity lobe up to this far after the previous one still joins it when
-#: the record between them keeps its sign (a slow overshoot, or the reversed field of a
+#: A lobe up to this far after the previous one still joins it when the record between
+#: them keeps its sign: an opposite-polarity one as its overshoot (no larger than
+#: OVERSHOOT_MAX_RATIO x the previous), a same-sign one after an overshoot as that lobe (a slow overshoot, or the reversed field of a
 #: current pulse reaching the end of its channel a few us later, broken by noise where it
 #: hovers near the detection level), s. Shorter than the 10-50 us between leader steps
 #: (Rakov & Uman 2003, ch. 4; from memory).
@@ -240,8 +248,6 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
                 lobes, z)
     base = getattr(lobes, "base", None)
     base = np.zeros(m) if base is None else base
-    bridged = getattr(lobes, "bridged", None)
-    bridged = np.zeros(m, dtype=bool) if bridged is None else bridged
     same_row = np.zeros(m, dtype=bool)
     same_row[1:] = lobes.row[1:] == lobes.row[:-1]
     gap = np.zeros(m)
@@ -251,8 +257,22 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     length = lobes.stop - lobes.start
     longer = np.zeros(m)
     longer[1:] = np.maximum(length[1:], length[:-1])
+    bridged = getattr(lobes, "bridged", None)
+    bridged = np.zeros(m, dtype=bool) if bridged is None else bridged
     split = (same_row & ~flip & ~lobes.after_valley
              & (gap <= np.maximum(max(SAME_SIGN_GAP_S * fs, 2.0), SAME_SIGN_GAP_FRACTION * longer)))
+    # an overshoot broken by noise (pieces bridged by a record that keeps their sign) is
+    # one lobe; only after an overshoot proper (close after a larger swing of the other
+    # sign): a pulse on the tail of an earlier one's initial half-cycle is another pulse
+    raw_len = np.zeros(m)
+    raw_len[1:] = length[:-1]
+    raw_ratio = np.zeros(m)
+    raw_ratio[1:] = lobes.peak[1:] / np.maximum(lobes.peak[:-1], 1e-300)
+    is_os = (same_row & flip & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, raw_len))
+             & (raw_ratio <= OVERSHOOT_MAX_RATIO))
+    link = same_row & ~flip & ~lobes.after_valley & bridged & (gap <= BRIDGE_MAX_S * fs)
+    head = np.maximum.accumulate(np.where(link, 0, np.arange(m)))
+    split |= link & is_os[head]
     # merge noise-split same-sign lobes first (they are one lobe)
     lobe_id = np.cumsum(~split) - 1
     n_l = int(lobe_id[-1]) + 1
@@ -356,7 +376,8 @@ def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarra
     before = ~contains & ~after & (d <= tol)
     rank = np.where(contains, 0, np.where(after, 1, np.where(before, 2, 3)))
     dist = np.where(rank < 3, 0.0, d)
-    near = d <= TRIGGER_SEARCH_S * fs
+    near = (d <= TRIGGER_SEARCH_S * fs) & (lobes.peak_col >= trigger_col
+                                           - PEAK_BEFORE_TRIGGER_S * fs)
     if not np.isfinite(trigger_col):
         near = np.ones(len(lobes), dtype=bool)
         rank = np.zeros(len(lobes), dtype=int)
