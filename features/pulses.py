@@ -29,7 +29,9 @@ Definitions (the contract of :mod:`features.schema`):
   broken by noise, unless a deep valley split them.
 * **catalogued pulse**: the pulse holding the lobe at the trigger, else (within
   :data:`TRIGGER_TOLERANCE_S`) one starting just after it, or ending just before it,
-  else the lobe nearest to the trigger within :data:`TRIGGER_SEARCH_S`.
+  else the lobe nearest to the trigger within :data:`TRIGGER_SEARCH_S`; never a lobe
+  whose peak lies more than :data:`PEAK_BEFORE_TRIGGER_S` before the trigger (the tail
+  of an earlier pulse).
 * **neighbours**: the other pulses of the record whose peak reaches
   max(``LOBE_HIGH_SIGMA`` sigma, :data:`NEIGHBOUR_FRACTION` x the catalogued peak),
   counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak.
@@ -50,6 +52,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import _lobes
 from ._lobes import (
     BASELINE_MAX_S,
     BASELINE_MIN_S,
@@ -57,7 +60,6 @@ from ._lobes import (
     LobeTable,
     _run_starts,
     baseline_fit,
-    find_lobes,
 )
 
 # the rest of the lobe part's names, re-exported (`X as X`) for callers of this module
@@ -76,6 +78,7 @@ __all__ = [
     "BASELINE_MIN_S",
     "CONTEXT_S",
     "LobeTable",
+    "LobeTableWithBase",
     "PulseTable",
     "baseline_fit",
     "find_lobes",
@@ -100,10 +103,26 @@ SAME_SIGN_GAP_FRACTION = 0.5
 TRIGGER_TOLERANCE_S = 0.5e-6
 #: Farthest from the trigger the catalogued pulse is looked for, s.
 TRIGGER_SEARCH_S = 40e-6
+#: A lobe whose peak lies more than this before the trigger is not the catalogued pulse
+#: (a trigger fires on the rising edge of its pulse; a trigger inside the slow tail of an
+#: earlier, larger pulse is another pulse's, one lost in that tail), s. The same bound as
+#: the features' peak search (features.waveform.PEAK_SEARCH_S).
+PEAK_BEFORE_TRIGGER_S = 3e-6
 #: Neighbours are counted within this time before and after the pulse's peak, s.
 CONTEXT_S = 100e-6
 #: A neighbour counts if its peak reaches this fraction of the catalogued peak.
 NEIGHBOUR_FRACTION = 0.1
+#: A lobe up to this far after the previous one still joins it when the record between
+#: them keeps its sign: an opposite-polarity one as its overshoot (no larger than
+#: OVERSHOOT_MAX_RATIO x the previous), a same-sign one after an overshoot as that lobe (a slow overshoot, or the reversed field of a
+#: current pulse reaching the end of its channel a few us later, broken by noise where it
+#: hovers near the detection level), s. Shorter than the 10-50 us between leader steps
+#: (Rakov & Uman 2003, ch. 4; from memory).
+BRIDGE_MAX_S = 10e-6
+#: ... its sign held by at least this many standard errors of the gap's mean ...
+BRIDGE_SIGMA = 3.0
+#: ... and this many noise sigmas (a baseline off by a fraction of a count is no bridge).
+BRIDGE_LEVEL = 0.5
 
 
 @dataclass(frozen=True)
@@ -121,6 +140,10 @@ class PulseTable:
     sign : ndarray of int8
         Sign of the initial half-cycle.
     n_lobes : ndarray of int
+    height : ndarray
+        The pulse's own height, V/m: the largest of its lobes' peaks less the level each
+        rides on (the |e| of the valley it was split from an earlier lobe at,
+        :class:`LobeTableWithBase`); ``peak`` for a pulse that starts from the baseline.
     """
 
     row: np.ndarray
@@ -131,9 +154,78 @@ class PulseTable:
     peak: np.ndarray
     sign: np.ndarray
     n_lobes: np.ndarray
+    height: np.ndarray
 
     def __len__(self) -> int:
         return int(self.row.size)
+
+
+@dataclass(frozen=True)
+class LobeTableWithBase(LobeTable):
+    """A :class:`LobeTable` with the level each lobe rides on.
+
+    Attributes
+    ----------
+    base : ndarray of float
+        |e| of the (smoothed) record at the lobe's first sample where the lobe was split
+        from the one before it at a valley (``after_valley``: it rides on that lobe's
+        tail), else 0, V/m. ``peak - base`` is the lobe's own height (its prominence).
+    bridged : ndarray of bool
+        The record between the row's previous lobe and this one keeps this lobe's sign
+        on average (by at least max(``BRIDGE_SIGMA`` standard errors, ``BRIDGE_LEVEL``
+        sigma)): the field did not come back to the baseline in between, the two are one
+        swing broken where it hovered near the detection level.
+    """
+
+    base: np.ndarray = None
+    bridged: np.ndarray = None
+
+
+def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
+               **levels) -> LobeTableWithBase:
+    """Every lobe of every row (:func:`features._lobes.find_lobes`) and its base level.
+
+    A pulse riding on the tail of an earlier one (an overshoot or an RC undershoot that
+    decays slowly, a leader step on a stroke's tail) is split from it at the valley
+    between them; its own height is its peak above that valley, not above the baseline
+    (the topographic prominence). Parameters as :func:`features._lobes.find_lobes`.
+
+    Returns
+    -------
+    LobeTableWithBase
+    """
+    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
+    base = np.zeros(len(lobes))
+    ride = np.flatnonzero(lobes.after_valley)
+    if ride.size:
+        # the smoothed record at the valley (find_lobes' centred moving average)
+        w = e.shape[1]
+        k = max(int(smooth), 1)
+        cols = lobes.start[ride, None] + np.arange(k)[None] - k // 2
+        vals = e[lobes.row[ride, None], np.clip(cols, 0, w - 1)]
+        base[ride] = np.minimum(np.abs(vals.mean(axis=1)), lobes.peak[ride])
+    bridged = np.zeros(len(lobes), dtype=bool)
+    if len(lobes) > 1:
+        # mean of the record in the gap after the previous lobe of the same row
+        j = np.flatnonzero(lobes.row[1:] == lobes.row[:-1]) + 1
+        a, b, r = lobes.stop[j - 1], lobes.start[j], lobes.row[j]
+        has_gap = b > a
+        j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
+        if j.size:
+            rows = np.unique(r)
+            cs = np.zeros((rows.size, e.shape[1] + 1))
+            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
+            ri = np.searchsorted(rows, r)
+            n_gap = b - a
+            mean = (cs[ri, b] - cs[ri, a]) / n_gap
+            sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
+            need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
+            bridged[j] = mean * lobes.sign[j] >= need
+    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
+                             bridged=bridged)
+
+
+_LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
 
 
 def group_pulses(lobes: LobeTable, sample_rate_hz: float):
@@ -152,7 +244,10 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     m = len(lobes)
     if m == 0:
         z = np.zeros(0, np.intp)
-        return PulseTable(z, z, z, z, z, np.zeros(0), np.zeros(0, np.int8), z), lobes, z
+        return (PulseTable(z, z, z, z, z, np.zeros(0), np.zeros(0, np.int8), z, np.zeros(0)),
+                lobes, z)
+    base = getattr(lobes, "base", None)
+    base = np.zeros(m) if base is None else base
     same_row = np.zeros(m, dtype=bool)
     same_row[1:] = lobes.row[1:] == lobes.row[:-1]
     gap = np.zeros(m)
@@ -162,8 +257,22 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     length = lobes.stop - lobes.start
     longer = np.zeros(m)
     longer[1:] = np.maximum(length[1:], length[:-1])
+    bridged = getattr(lobes, "bridged", None)
+    bridged = np.zeros(m, dtype=bool) if bridged is None else bridged
     split = (same_row & ~flip & ~lobes.after_valley
              & (gap <= np.maximum(max(SAME_SIGN_GAP_S * fs, 2.0), SAME_SIGN_GAP_FRACTION * longer)))
+    # an overshoot broken by noise (pieces bridged by a record that keeps their sign) is
+    # one lobe; only after an overshoot proper (close after a larger swing of the other
+    # sign): a pulse on the tail of an earlier one's initial half-cycle is another pulse
+    raw_len = np.zeros(m)
+    raw_len[1:] = length[:-1]
+    raw_ratio = np.zeros(m)
+    raw_ratio[1:] = lobes.peak[1:] / np.maximum(lobes.peak[:-1], 1e-300)
+    is_os = (same_row & flip & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, raw_len))
+             & (raw_ratio <= OVERSHOOT_MAX_RATIO))
+    link = same_row & ~flip & ~lobes.after_valley & bridged & (gap <= BRIDGE_MAX_S * fs)
+    head = np.maximum.accumulate(np.where(link, 0, np.arange(m)))
+    split |= link & is_os[head]
     # merge noise-split same-sign lobes first (they are one lobe)
     lobe_id = np.cumsum(~split) - 1
     n_l = int(lobe_id[-1]) + 1
@@ -188,8 +297,11 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     ratio[1:] = l_peak[1:] / np.maximum(l_peak[:-1], 1e-300)
     flip = np.zeros(n_l, dtype=bool)
     flip[1:] = l_sign[1:] != l_sign[:-1]
-    join = (same_row & flip & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, prev_len))
-            & (ratio <= OVERSHOOT_MAX_RATIO))
+    close_small = (same_row & (gap <= np.maximum(OVERSHOOT_GAP_S * fs, prev_len))
+                   & (ratio <= OVERSHOOT_MAX_RATIO))
+    bridge = (same_row & bridged[~split] & (gap <= BRIDGE_MAX_S * fs)
+              & (ratio <= OVERSHOOT_MAX_RATIO))
+    join = (close_small | bridge) & flip
     # at most MAX_LOBES lobes per pulse: break a chain after every MAX_LOBES joins
     run = np.zeros(n_l, np.intp)
     if n_l:
@@ -197,6 +309,12 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
         seg = np.cumsum(~join) - 1
         run = np.arange(n_l) - starts[seg]
         join &= (run % MAX_LOBES) != 0
+    # an overshoot (or RC undershoot) broken by noise: a same-sign lobe close after a
+    # joined overshoot lobe, no larger, is its continuation (a pulse riding on the
+    # overshoot's tail was split at a valley instead and stands alone, with its height)
+    after_os = np.zeros(n_l, dtype=bool)
+    after_os[1:] = join[:-1]
+    join |= close_small & ~flip & after_os & ~lobes.after_valley[~split]
     pulse_of_lobe = np.cumsum(~join) - 1
     n_p = int(pulse_of_lobe[-1]) + 1
     first = np.flatnonzero(~join)
@@ -210,11 +328,18 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     n_lobes = np.bincount(pulse_of_lobe, minlength=n_p)
     # first_lobe indexes the merged-lobe arrays: return them through the table's first
     # lobe columns (start/peak of the initial half-cycle)
+    # a pulse's own height: its largest lobe above the valley that lobe rides on
+    l_base = base[~split]
+    p_height = np.zeros(n_p)
+    np.maximum.at(p_height, pulse_of_lobe, np.maximum(l_peak - l_base, 0.0))
     table = PulseTable(row=l_row[first], start=l_start[first], stop=p_stop,
                        first_lobe=first, peak_col=p_peak_col, peak=p_peak,
-                       sign=l_sign[first], n_lobes=n_lobes)
-    merged = LobeTable(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
-                       peak=l_peak, sign=l_sign, after_valley=lobes.after_valley[~split])
+                       sign=l_sign[first], n_lobes=n_lobes,
+                       height=p_height)
+    merged = LobeTableWithBase(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
+                               peak=l_peak, sign=l_sign,
+                               after_valley=lobes.after_valley[~split], base=l_base,
+                               bridged=bridged[~split])
     return table, merged, pulse_of_lobe
 
 
@@ -251,7 +376,8 @@ def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarra
     before = ~contains & ~after & (d <= tol)
     rank = np.where(contains, 0, np.where(after, 1, np.where(before, 2, 3)))
     dist = np.where(rank < 3, 0.0, d)
-    near = d <= TRIGGER_SEARCH_S * fs
+    near = (d <= TRIGGER_SEARCH_S * fs) & (lobes.peak_col >= trigger_col
+                                           - PEAK_BEFORE_TRIGGER_S * fs)
     if not np.isfinite(trigger_col):
         near = np.ones(len(lobes), dtype=bool)
         rank = np.zeros(len(lobes), dtype=int)
@@ -325,7 +451,7 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
                        NEIGHBOUR_FRACTION * np.nan_to_num(own_peak))
     dt = (pulses.peak_col - own_peak_col[r]) / fs        # s, + after
     other = ok_row & ~self_
-    sig = other & (pulses.peak >= level[r])
+    sig = other & (pulses.height >= level[r])
     close = sig & (np.abs(dt) <= context_s)
     out["neighbours_before"] = np.where(has, np.bincount(r[close & (dt < 0)], minlength=n), np.nan)
     out["neighbours_after"] = np.where(has, np.bincount(r[close & (dt > 0)], minlength=n), np.nan)
@@ -333,7 +459,7 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
     np.minimum.at(near, r[sig], np.abs(dt[sig]))
     out["nearest_neighbour_s"] = np.where(np.isfinite(near), near, np.nan)
     big = np.zeros(n)
-    np.maximum.at(big, r[close], pulses.peak[close])
+    np.maximum.at(big, r[close], pulses.height[close])
     with np.errstate(divide="ignore", invalid="ignore"):
         out["largest_neighbour_ratio"] = np.where(has, big / own_peak, np.nan)
     # the train: the significant pulses within the context, and the pulse itself
