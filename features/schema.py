@@ -336,7 +336,8 @@ FEATURES: tuple[Feature, ...] = (
             "vhf", model=False, requires=frozenset({"vhf"}),
             tolerance=_VHF_POWER),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
-            "envelope peak (positive: VHF leads); both channels delay-corrected", "vhf",
+            "burst (centroid of the smoothed envelope's top half above the noise floor; "
+            "positive: VHF leads); both channels delay-corrected", "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
