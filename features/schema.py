@@ -332,7 +332,8 @@ FEATURES: tuple[Feature, ...] = (
             tolerance=_PEAK_TIME),
     # ---------------------------------------------------------------- vhf
     Feature("vhf_peak_db", "dB", "10 log10 of the peak of the smoothed VHF power envelope "
-            "(0.1 us bins, 0.5 us moving average) in the pulse's window, catalog units",
+            "(0.1 us bins, 0.5 us moving average, then one over a quarter of the burst's top) "
+            "in the pulse's window, catalog units",
             "vhf", model=False, requires=frozenset({"vhf"}),
             tolerance=_VHF_POWER),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
