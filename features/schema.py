@@ -332,11 +332,13 @@ FEATURES: tuple[Feature, ...] = (
             tolerance=_PEAK_TIME),
     # ---------------------------------------------------------------- vhf
     Feature("vhf_peak_db", "dB", "10 log10 of the peak of the smoothed VHF power envelope "
-            "(0.1 us bins, 0.5 us moving average) in the pulse's window, catalog units",
+            "(0.1 us bins, 0.5 us moving average, then one over a quarter of the burst's top) "
+            "in the pulse's window, catalog units",
             "vhf", model=False, requires=frozenset({"vhf"}),
             tolerance=_VHF_POWER),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
-            "envelope peak (positive: VHF leads); both channels delay-corrected", "vhf",
+            "burst (centroid of the smoothed envelope's top half above the noise floor; "
+            "positive: VHF leads); both channels delay-corrected", "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
@@ -348,9 +350,14 @@ FEATURES: tuple[Feature, ...] = (
             tolerance=Tolerance(rel=0.8, sigma=2, noise="vhf", db=10,
                                 bound="vhf_censored")),
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
-            "field strength, each over its own noise floor (range and gain free)", "vhf",
+            "field strength, each over its own noise floor (range and gain free); a lower "
+            "bound where vhf_censored", "vhf",
             model=False, requires=frozenset({"vhf"}),
-            tolerance=Tolerance(value=2.0, truth="instrument")),
+            # compared as a power ratio (db=10) so that a clipped VHF peak counts as the
+            # lower bound vhf_snr_db's own tolerance already treats it as (the magnitude
+            # rule of a bound cannot judge a signed dB difference): +2 dB / -3.8 dB
+            tolerance=Tolerance(rel=10 ** 0.2 - 1, db=10, bound="vhf_censored",
+                                truth="instrument")),
     Feature("vhf_snr_db", "dB", "smoothed VHF envelope peak over its noise floor (median "
             "outside the window)", "vhf", requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.5, sigma=2, noise="snr", db=10, bound="vhf_censored",

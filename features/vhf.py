@@ -23,8 +23,20 @@ common practice, no source).
 * **noise floor**: the median of the smoothed envelope over :data:`VHF_NOISE_S` before
   the window (after it when the record starts later): a quiet stretch, where bursts of
   other pulses occupy a small part of the time.
-* **peak**, its time (parabola through three bins), **SNR** = peak / noise floor (dB),
-  **width**: the time the smoothed envelope stays above 10 % of its peak around it
+* **peak** and **SNR** = peak / noise floor (dB): the largest value of the envelope
+  smoothed again over a quarter of its burst's top (:func:`_burst_centre`; the largest
+  of a speckled top is biased up by its fluctuation, less so over more looks); in a
+  clipped window, the 0.5 us envelope's largest bin (parabola through three bins).
+* **peak time**: the centroid of the burst's top half (:func:`_burst_centre`). The
+  smoothed power of a noise-like signal still fluctuates by ~1/sqrt(N) of its mean, N
+  the independent looks in the smoothing window (bandwidth x window; the speckle
+  statistics of Goodman, Speckle Phenomena in Optics, 2007, ch. 3, from memory): 16
+  looks, +-25 %, for a 33 MHz band and 0.5 us. The largest bin of a burst whose top
+  falls by less than that over microseconds (an energetic in-cloud pulse's VHF) wanders
+  over the whole top; the centroid of the top averages its speckle (common practice, no
+  source). A clipped window (``censored``) keeps the largest bin (parabola through three
+  bins): its flat top holds the burst and whatever follows it at the clip level.
+* **width**: the time the smoothed envelope stays above 10 % of its peak around it
   (NaN below 10 dB SNR, where 10 % of the peak is under the noise floor).
 * **censored**: a raw sample of the window at or beyond the channel's full scale: the
   peak is then a lower bound (NBEs, the strongest VHF emitters, saturate receivers set
@@ -67,6 +79,16 @@ VHF_SPAN_S = (-60e-6, 100e-6)
 VHF_DB_CAP = 200.0
 #: SNR below which the width is not resolved, dB.
 MIN_SNR_WIDTH_DB = 10.0
+#: The peak time is the centroid of the envelope above this fraction of the way from the
+#: noise floor to the peak (half: the centre of the width at half maximum when the top
+#: is symmetric) ...
+TOP_LEVEL = 0.5
+#: ... within the stretch around the peak above this fraction (a quarter: below the dips
+#: of 16-look speckle, +-25 %, inside a burst's top).
+EDGE_LEVEL = 0.25
+#: The burst's top (above ``TOP_LEVEL``) is smoothed again over this fraction of its
+#: duration before its centroid is taken.
+TOP_SMOOTH_FRACTION = 0.25
 #: Rows of voltage records turned into power at once (bounds the memory of the FFT).
 _HILBERT_ROWS = 64
 
@@ -166,6 +188,66 @@ def _bin_means(power, k, nb):
     return acc
 
 
+def _stretch(env, jp, edge):
+    """Bins of each row's burst: between the crossings of ``edge`` nearest to ``jp``
+    (the record's ends where it has none), as a boolean mask of shape ``env.shape``."""
+    nb = env.shape[1]
+    a = crossing_before(env, jp, edge)
+    b = crossing_after(env, jp, edge)
+    cols = np.arange(nb)[None, :]
+    return ((cols > np.where(np.isfinite(a), a, -1.0)[:, None])
+            & (cols < np.where(np.isfinite(b), b, nb)[:, None]))
+
+
+def _burst_centre(env, inwin, jp, peak, noise):
+    """Time (fractional bin) and peak of each row's burst: the centroid of its top half.
+
+    Parameters
+    ----------
+    env : ndarray, shape (n, nb)
+        Smoothed envelope (:func:`vhf_envelope`).
+    inwin : ndarray of bool, shape (n, nb)
+        Bins of each row's search window.
+    jp : ndarray of int, shape (n,)
+        Bin of each row's largest envelope value in the window.
+    peak, noise : ndarray, shape (n,)
+        That peak and the noise floor, the envelope's units.
+
+    Returns
+    -------
+    centre : ndarray, shape (n,)
+        Fractional bin index; NaN where the top holds no excess.
+    peak : ndarray, shape (n,)
+        The largest value of the burst-smoothed envelope in the window.
+
+    Notes
+    -----
+    The burst is the stretch around the peak above :data:`EDGE_LEVEL` of the way from
+    the floor to the peak (a speckle dip inside the burst's top does not end it; a
+    separate burst beyond a dip under that level is left out). The envelope is
+    smoothed again over :data:`TOP_SMOOTH_FRACTION` of the time the burst spends above
+    :data:`TOP_LEVEL` of the way (at least one bin): a broad burst's speckle is then
+    averaged over proportionally more looks. The centroid of that envelope's excess over
+    :data:`TOP_LEVEL` of the way to its new peak, within its own burst stretch, is the
+    burst's time: the middle of the flat top of a box-smoothed short burst, the maximum
+    of a symmetric one.
+    """
+    rise = np.maximum(peak - noise, 0.0)
+    inside = _stretch(env, jp, noise + EDGE_LEVEL * rise)
+    top = np.count_nonzero(inside & (env >= (noise + TOP_LEVEL * rise)[:, None]), axis=1)
+    half = np.round(0.5 * TOP_SMOOTH_FRACTION * top).astype(np.intp)
+    env2 = moving_average_rows(env, 2 * half + 1)   # odd: centred on its bin
+    jp2 = np.where(inwin, env2, -np.inf).argmax(axis=1)
+    rise2 = np.maximum(env2[np.arange(env.shape[0]), jp2] - noise, 0.0)
+    inside = _stretch(env2, jp2, noise + EDGE_LEVEL * rise2)
+    excess = np.where(inside, np.maximum(env2 - (noise + TOP_LEVEL * rise2)[:, None], 0.0),
+                      0.0)
+    total = excess.sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        c = (excess * np.arange(env.shape[1])[None, :]).sum(axis=1) / total
+    return np.where(total > 0, c, np.nan), rise2 + noise
+
+
 def _noise_floor(env, inwin, n_bins):
     """Median of the ``n_bins`` bins before each row's window (after it if too few)."""
     n, nb = env.shape
@@ -209,7 +291,8 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     -------
     dict of str -> ndarray, shape (n_pulses,)
         ``vhf_peak_db`` (10 log10 of the smoothed peak power, catalog units),
-        ``vhf_peak_time_s`` (physical time of that peak, s), ``vhf_snr_db`` (peak over
+        ``vhf_peak_time_s`` (physical time of the burst, the centroid of its top half,
+        s), ``vhf_snr_db`` (peak over
         the noise floor, dB), ``vhf_width_s`` (s), ``vhf_censored`` (bool),
         ``vhf_ok`` (bool: the row has VHF samples).
     """
@@ -238,24 +321,31 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     jp = np.where(inwin, env, -np.inf).argmax(axis=1)
     frac, peak = parabolic_peak(env, jp)
     peak = np.maximum(peak, 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        peak_db = 10 * np.log10(peak)
-        snr_db = 10 * np.log10(peak / noise)
-    peak_db = np.where(np.isfinite(peak_db), peak_db, np.nan)
-    snr_db = np.where(np.isfinite(snr_db), np.clip(snr_db, -VHF_DB_CAP, VHF_DB_CAP),
-                      np.where(peak > 0, VHF_DB_CAP, np.nan))
-    level = 0.1 * peak
-    a = crossing_before(env, jp, level)
-    b = crossing_after(env, jp, level)
-    width = (np.where(np.isfinite(b), b, nb - 1.0) - np.where(np.isfinite(a), a, 0.0)) * k / fs
-    width = np.where(snr_db >= MIN_SNR_WIDTH_DB, width, np.nan)
-    t_peak = np.interp(frac, np.arange(nb), t_bin)
     censored = np.zeros(n, dtype=bool)
     if full_scale is not None:
         t_raw = np.arange(m) / fs - pretrigger_s - delay_s
         raw_in = (t_raw[None, :] >= lo_s[:, None]) & (t_raw[None, :] <= hi_s[:, None])
         with np.errstate(invalid="ignore"):
             censored = ((np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in).any(axis=1)
+    centre, peak2 = _burst_centre(env, inwin, jp, peak, noise)
+    # a clipped top is flat over the burst and whatever follows it at the clip level: its
+    # centroid is not the burst's; the largest bin is kept there
+    centre = np.where(np.isfinite(centre) & ~censored, centre, frac)
+    # the width keeps the 0.5 us envelope's largest bin (its 10 % level is that of the
+    # benchmarked definition); peak and SNR are read on the burst-smoothed envelope
+    level = 0.1 * peak
+    peak = np.where(censored, peak, np.maximum(peak2, 0.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        peak_db = 10 * np.log10(peak)
+        snr_db = 10 * np.log10(peak / noise)
+    peak_db = np.where(np.isfinite(peak_db), peak_db, np.nan)
+    snr_db = np.where(np.isfinite(snr_db), np.clip(snr_db, -VHF_DB_CAP, VHF_DB_CAP),
+                      np.where(peak > 0, VHF_DB_CAP, np.nan))
+    a = crossing_before(env, jp, level)
+    b = crossing_after(env, jp, level)
+    width = (np.where(np.isfinite(b), b, nb - 1.0) - np.where(np.isfinite(a), a, 0.0)) * k / fs
+    width = np.where(snr_db >= MIN_SNR_WIDTH_DB, width, np.nan)
+    t_peak = np.interp(centre, np.arange(nb), t_bin)
     good = vhf_ok & has_win & (peak > 0)
     out.update({
         "vhf_peak_db": np.where(good, peak_db, np.nan),
