@@ -372,9 +372,25 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     has_back = np.isfinite(back)
     jb = np.where(has_back, np.ceil(np.nan_to_num(back)), jc).astype(np.intp)
     lobe_back = crossing_before(u_s, jb, np.zeros(n), start=jc)
-    j_tail, has_tail = _last_at_least(nu_s, np.maximum(2 * sig_s, lvl(0.01)), jc + 1, lobe_stop)
+    # the overshoot's tail ends at its FIRST fall below the tail level after the
+    # overshoot's peak: the last sample above it would be a noise excursion anywhere in
+    # the search window (2 sigma is exceeded by ~2 % of noise samples)
+    # ... on a copy smoothed over the overshoot's rise (zero crossing to its peak; at
+    # most MAX_SMOOTH_S), which bends the slower tail little but brings the noise, and
+    # with it the tail level, down towards 1 % of P
+    _, j_opk = _masked_max(nu_s, jc, lobe_stop)
+    k_tail = np.clip(np.round(j_opk - np.nan_to_num(zc, nan=s)), k,
+                     max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
+    k_tail = np.where(has_zc, k_tail, 1)
+    nu_t = -moving_average_rows(u, k_tail)
+    h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
+    tail_fall = crossing_after(nu_t, np.minimum(j_opk, np.maximum(lobe_stop - 1, jc)), h_tail,
+                               stop=lobe_stop)
+    h_tail = np.maximum(2 * sig_s, lvl(0.01))
+    j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
-                        np.where(has_tail, j_tail + 1.0, jc.astype(float)))
+                        np.where(np.isfinite(tail_fall), tail_fall,
+                                 np.where(has_tail, j_tail + 1.0, jc.astype(float))))
     lobe_end = np.minimum(lobe_end, m - 1.0)
     lobe_end = np.where(has_zc, lobe_end, np.nan)
     overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),

@@ -231,3 +231,42 @@ def test_input_not_mutated_and_shape_checked():
     np.testing.assert_array_equal(x, copy)
     with pytest.raises(ValueError, match="must be 2-D"):
         field_features(x[0], FS, pretrigger_s=PRE)
+
+
+def _bipolar_exp_tail(t, t0, half_s, rise_s, overshoot, tau_s):
+    """A sine half-cycle of length half_s, then an overshoot of relative height
+    ``overshoot`` rising as a quarter sine over rise_s and decaying as exp(-t / tau_s)."""
+    x = np.zeros_like(t)
+    a = (t >= t0) & (t < t0 + half_s)
+    x[a] = np.sin(np.pi * (t[a] - t0) / half_s)
+    b = (t >= t0 + half_s) & (t < t0 + half_s + rise_s)
+    x[b] = -overshoot * np.sin(0.5 * np.pi * (t[b] - t0 - half_s) / rise_s)
+    c = t >= t0 + half_s + rise_s
+    x[c] = -overshoot * np.exp(-(t[c] - t0 - half_s - rise_s) / tau_s)
+    return x
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_end_of_exponential_overshoot_tail_in_noise(seed):
+    """The overshoot's tail A exp(-t / tau) falls below a level L at tau ln(A / L) after
+    its peak (closed form); the pulse ends there, also with noise on the record, and not
+    at a late noise excursion above the level (the last one of the search window)."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    t_peak = half + rise
+    clean = field_features(x[None], FS, pretrigger_s=PRE)
+    # noiseless: the tail level is 1 % of the peak
+    assert_allclose(clean["pulse_end_s"], t_peak + tau * np.log(a / 0.01), atol=2 / FS)
+    sigma = 0.015 * amp                                          # 36 dB
+    rng = np.random.default_rng(seed)
+    noisy = field_features((x + rng.normal(0, sigma, t.size))[None], FS, pretrigger_s=PRE)
+    # the tail copy averages over the overshoot's rise: noise sigma / sqrt(k), and
+    # the level max(2 sigma / sqrt(k), 1 % of P); a 3-sigma miss of that level moves the
+    # crossing by tau ln(1 + 3 sigma_k / L)
+    k = round(rise * FS)                          # samples from the zero crossing to the peak
+    sig_k = sigma / np.sqrt(k)
+    level = max(2 * sig_k, 0.01 * amp)
+    expect = t_peak + tau * np.log(a * amp / level)
+    slack = tau * np.log(1 + 3 * sig_k / level) + 2 / FS
+    assert abs(noisy["pulse_end_s"][0] - expect) <= slack
