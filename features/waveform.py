@@ -125,6 +125,10 @@ MIN_PEAK_SIGMA_FWHM = 4.0
 MIN_PEAK_SIGMA_OK = 3.0
 #: Longest smoothing of the trailing measures, s.
 MAX_SMOOTH_S = 5e-6
+#: Noise of the overshoot's tail copy, as a fraction of the peak: a sixth of the 1 %
+#: tail level, so that its first fall through that level is the tail's, not a noise dip
+#: (common practice, no source).
+TAIL_NOISE_FRACTION = 1.0 / 600.0
 #: Smallest noise sigma, as a fraction of the row's largest |E| (noiseless records).
 RELATIVE_SIGMA_FLOOR = 1e-7
 
@@ -375,12 +379,17 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     # the overshoot's tail ends at its FIRST fall below the tail level after the
     # overshoot's peak: the last sample above it would be a noise excursion anywhere in
     # the search window (2 sigma is exceeded by ~2 % of noise samples)
-    # ... on a copy smoothed over the overshoot's rise (zero crossing to its peak; at
-    # most MAX_SMOOTH_S), which bends the slower tail little but brings the noise, and
-    # with it the tail level, down towards 1 % of P
+    # ... on a copy smoothed just enough to bring the noise to TAIL_NOISE_FRACTION of P
+    # (a first fall through 1 % of P is then not set by a noise dip), over at most the
+    # overshoot's rise (zero crossing to its peak) and MAX_SMOOTH_S, which bends the
+    # slower tail little
     _, j_opk = _masked_max(nu_s, jc, lobe_stop)
-    k_tail = np.clip(np.round(j_opk - np.nan_to_num(zc, nan=s)), k,
-                     max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        need_tail = np.nan_to_num(np.ceil((sigma / (TAIL_NOISE_FRACTION * peak)) ** 2),
+                                  nan=1.0, posinf=1.0)
+    k_cap = np.minimum(np.round(j_opk - np.nan_to_num(zc, nan=s)),
+                       max(int(round(MAX_SMOOTH_S * fs)), 1))
+    k_tail = np.maximum(np.minimum(need_tail, k_cap), k).astype(np.intp)
     k_tail = np.where(has_zc, k_tail, 1)
     nu_t = -moving_average_rows(u, k_tail)
     h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
@@ -403,7 +412,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
 
     f10 = crossing_after(u_s, s, lvl(0.1), stop=next_start)
     big_os = has_zc & (overshoot >= lvl(0.1))
-    os_fall = crossing_after(nu_s, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
+    # the overshoot's fall through 10 % of P on the tail copy (noise does not end it early)
+    os_fall = crossing_after(nu_t, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
                              + 1)
     end_w = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end), f10)
     end_w = np.where(lvl(0.1) >= 2 * sig_s, end_w, np.nan)

@@ -261,12 +261,31 @@ def test_end_of_exponential_overshoot_tail_in_noise(seed):
     sigma = 0.015 * amp                                          # 36 dB
     rng = np.random.default_rng(seed)
     noisy = field_features((x + rng.normal(0, sigma, t.size))[None], FS, pretrigger_s=PRE)
-    # the tail copy averages over the overshoot's rise: noise sigma / sqrt(k), and
-    # the level max(2 sigma / sqrt(k), 1 % of P); a 3-sigma miss of that level moves the
-    # crossing by tau ln(1 + 3 sigma_k / L)
-    k = round(rise * FS)                          # samples from the zero crossing to the peak
+    # the tail copy averages over k = min((600 sigma / P)^2, the overshoot's rise)
+    # samples: noise sigma / sqrt(k), and the level max(2 sigma / sqrt(k), 1 % of P); a
+    # 3-sigma miss of that level moves the crossing by tau ln(1 + 3 sigma_k / L)
+    k = min(np.ceil((600 * sigma / amp) ** 2), round(rise * FS))
     sig_k = sigma / np.sqrt(k)
     level = max(2 * sig_k, 0.01 * amp)
     expect = t_peak + tau * np.log(a * amp / level)
     slack = tau * np.log(1 + 3 * sig_k / level) + 2 / FS
     assert abs(noisy["pulse_end_s"][0] - expect) <= slack
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_width_to_the_fall_of_an_exponential_overshoot_in_noise(seed):
+    """Width: the 10 % point of the rise (asin(0.1) / pi of the half-sine) to the fall of
+    the overshoot A exp(-t / tau) through 10 % of the peak, tau ln(A / 0.1) after its
+    peak (closed forms), within the time a 3-sigma error of the level shifts the fall."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    expect = half + rise + tau * np.log(a / 0.1) - np.arcsin(0.1) / np.pi * half
+    clean = field_features(x[None], FS, pretrigger_s=PRE)
+    assert_allclose(clean["width_s"], expect, atol=2 / FS)
+    sigma = 0.06 * amp                                           # 24 dB
+    rng = np.random.default_rng(seed)
+    noisy = field_features((x + rng.normal(0, sigma, t.size))[None], FS, pretrigger_s=PRE)
+    sig_k = sigma / np.sqrt(round(rise * FS))   # the tail copy (over the rise)
+    slack = tau * np.log(1 + 3 * sig_k / (0.1 * amp)) + 2 / FS
+    assert abs(noisy["width_s"][0] - expect) <= slack
