@@ -33,10 +33,14 @@ Steps and definitions (the contract of :mod:`features.schema`):
    crossing** is the last fall of the smoothed u through 0 before it goes below -max(3 sigma_s, 2 % of P); a pulse that never does is unipolar (no zero
    crossing, bipolarity 0). The **overshoot lobe** ends where it comes back through 0
    before rising above max(3 sigma_s, 10 % of P) (hysteresis again), or
-   where the overshoot has decayed below max(2 sigma_s, 1 % of P), or at the next
-   pulse; its peak is taken on the smoothed copy.
+   where the overshoot's tail first falls below max(2 sigma_t, 1 % of P) after the
+   overshoot's peak, or at the next pulse; its peak is taken on the smoothed copy. The
+   tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
+   sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
+   early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
+   the noise's).
 7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
-   its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
+   its overshoot on the tail copy, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
    below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
    samples (the noise taken as at least half a digitizer step here); width shorter than two samples or with its 10 % level under 2 sigma_s;
@@ -222,7 +226,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     -------
     dict of str -> ndarray, shape (n_pulses,)
         Keys as in :data:`features.schema.FEATURES` for the field group, plus
-        ``peak_time_s``, ``first_peak_time_s``, ``onset_time_s`` (physical times
+        ``peak_time_s``, ``first_peak_time_s``, ``onset_time_s``, ``end_time_s`` (the
+        pulse's extent even where ``pulse_end_s`` is NaN; physical times
         relative to the trigger, s), ``prev_end_s``, ``next_start_s`` (the neighbouring
         pulses' extents, s, NaN: none) and ``field_ok`` (bool). With ``return_trace``,
         a second dict: ``field_v_per_m`` (processed rows), ``time_s`` (physical time of
@@ -479,7 +484,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "charge_moment_change_c_m": charge_moment,
         "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
         "pulse_start_s": tm(onset),
-        "pulse_end_s": tm(pulse_end),
+        # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
+        # P; where its noise holds the level above that, the end is the noise's: NaN
+        "pulse_end_s": np.where(~has_zc | (2 * sigma / np.sqrt(k_tail) <= lvl(0.01)),
+                                tm(pulse_end), np.nan),
         **nb,
         "pre_level_ratio": pre_level_ratio,
         "baseline_slope_ratio": slope_ratio,
@@ -488,6 +496,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "peak_time_s": tm(s_frac),
         "first_peak_time_s": tm(sub),
         "onset_time_s": tm(onset),
+        "end_time_s": tm(pulse_end),
         "prev_end_s": np.where(prev_ok, tm(prev_end - 1.0), np.nan),
         "next_start_s": np.where(next_ok, tm(next_start.astype(float)), np.nan),
     }

@@ -289,3 +289,19 @@ def test_width_to_the_fall_of_an_exponential_overshoot_in_noise(seed):
     sig_k = sigma / np.sqrt(round(rise * FS))   # the tail copy (over the rise)
     slack = tau * np.log(1 + 3 * sig_k / (0.1 * amp)) + 2 / FS
     assert abs(noisy["width_s"][0] - expect) <= slack
+
+
+def test_unresolved_overshoot_tail_gives_no_pulse_end():
+    """At 20 dB the tail copy (averaged over the overshoot's rise, k samples) keeps a
+    noise of sigma / sqrt(k) = 2.2 % of the peak: twice that stands above the 1 % level
+    that ends the tail, so the end is the noise's and pulse_end_s is NaN (the onset and
+    the peak stay)."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    sigma = 0.1 * amp                                            # 20 dB
+    assert 2 * sigma / np.sqrt(round(rise * FS)) > 0.01 * amp
+    out = field_features((x + np.random.default_rng(5).normal(0, sigma, t.size))[None], FS,
+                         pretrigger_s=PRE)
+    assert np.isnan(out["pulse_end_s"][0])
+    assert np.isfinite(out["pulse_start_s"][0]) and np.isfinite(out["peak_field_v_per_m"][0])
