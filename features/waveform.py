@@ -38,7 +38,8 @@ Steps and definitions (the contract of :mod:`features.schema`):
    tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
    sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
    early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
-   the noise's).
+   the noise's), and for a unipolar-looking pulse where bipolarity is NaN (its noise
+   could hide an overshoot, and with it the end).
 7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
    its overshoot on the tail copy, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
@@ -485,9 +486,11 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
         "pulse_start_s": tm(onset),
         # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
-        # P; where its noise holds the level above that, the end is the noise's: NaN
-        "pulse_end_s": np.where(~has_zc | (2 * sigma / np.sqrt(k_tail) <= lvl(0.01)),
-                                tm(pulse_end), np.nan),
+        # P; where its noise holds the level above that, the end is the noise's: NaN; so
+        # is the end of a unipolar-looking pulse whose noise could hide an overshoot (the
+        # rule of bipolarity)
+        "pulse_end_s": np.where(np.where(has_zc, 2 * sigma / np.sqrt(k_tail) <= lvl(0.01),
+                                         np.isfinite(bipolarity)), tm(pulse_end), np.nan),
         **nb,
         "pre_level_ratio": pre_level_ratio,
         "baseline_slope_ratio": slope_ratio,

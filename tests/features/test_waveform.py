@@ -305,3 +305,17 @@ def test_unresolved_overshoot_tail_gives_no_pulse_end():
                          pretrigger_s=PRE)
     assert np.isnan(out["pulse_end_s"][0])
     assert np.isfinite(out["pulse_start_s"][0]) and np.isfinite(out["peak_field_v_per_m"][0])
+
+
+def test_unipolar_pulse_end_follows_the_bipolarity_rule():
+    """A Gaussian (unipolar) pulse at 20 dB: its noise could hide an overshoot, so its
+    end is as unknown as its bipolarity (both NaN); at 60 dB both are given, the end at
+    the fall through 10 % of the peak, t0 + sqrt(2 ln 10) sigma (closed form)."""
+    t = _t()
+    x = _gauss(t, 5e-6, 1e-6, 10.0)
+    rng = np.random.default_rng(3)
+    low = field_features((x + rng.normal(0, 1.0, t.size))[None], FS, pretrigger_s=PRE)
+    assert np.isnan(low["bipolarity"][0]) and np.isnan(low["pulse_end_s"][0])
+    high = field_features((x + rng.normal(0, 0.01, t.size))[None], FS, pretrigger_s=PRE)
+    assert high["bipolarity"][0] == 0
+    assert_allclose(high["pulse_end_s"], 5e-6 + np.sqrt(2 * np.log(10)) * 1e-6, atol=0.05e-6)
