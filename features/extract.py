@@ -157,7 +157,7 @@ def vhf_window_s(f: dict, n: int) -> tuple[np.ndarray, np.ndarray]:
     Physical time relative to the trigger, s (see :mod:`features.vhf`). Rows without a
     usable field pulse search around the trigger (``PEAK_SEARCH_S``).
     """
-    onset, end = f["pulse_start_s"], f["pulse_end_s"]
+    onset, end = f["pulse_start_s"], f["end_time_s"]
     prev_end, next_start = f["prev_end_s"], f["next_start_s"]
     lo = onset - VHF_LEAD_S
     lo = np.where(np.isfinite(prev_end), np.maximum(lo, 0.5 * (prev_end + onset)), lo)

@@ -306,8 +306,10 @@ FEATURES: tuple[Feature, ...] = (
             "field", requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("pulse_start_s", "s", "the pulse's onset: physical time relative to the trigger",
             "field", model=False, tolerance=_INSTANT),
-    Feature("pulse_end_s", "s", "end of the pulse (of its overshoot lobe when bipolar), "
-            "physical time relative to the trigger", "field", model=False,
+    Feature("pulse_end_s", "s", "end of the pulse (of its overshoot lobe when bipolar: its "
+            "tail's first fall below 1 % of the peak), physical time relative to the "
+            "trigger; NaN for a bipolar pulse whose smoothed tail noise (2 sigma) stands "
+            "above 1 % of the peak, and where bipolarity is NaN", "field", model=False,
             tolerance=_INSTANT),
     Feature("neighbours_before", "1", "other pulses in the record within 100 us before the "
             "peak, reaching max(5 sigma, 10 % of the peak)", "field",

@@ -94,7 +94,7 @@ def pulse_trace(catalog: Catalog, row: int, *, whole_record: bool = False) -> di
     out = {
         "time_s": t,
         "field_v_per_m": e,
-        "extent_s": (float(f["pulse_start_s"][0]), float(f["pulse_end_s"][0])),
+        "extent_s": (float(f["pulse_start_s"][0]), float(f["end_time_s"][0])),
         "peak_time_s": float(f["peak_time_s"][0]),
         "peak_field_v_per_m": float(f["peak_field_v_per_m"][0]),
         "neighbours_s": t_peak[near],

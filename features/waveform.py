@@ -33,10 +33,15 @@ Steps and definitions (the contract of :mod:`features.schema`):
    crossing** is the last fall of the smoothed u through 0 before it goes below -max(3 sigma_s, 2 % of P); a pulse that never does is unipolar (no zero
    crossing, bipolarity 0). The **overshoot lobe** ends where it comes back through 0
    before rising above max(3 sigma_s, 10 % of P) (hysteresis again), or
-   where the overshoot has decayed below max(2 sigma_s, 1 % of P), or at the next
-   pulse; its peak is taken on the smoothed copy.
+   where the overshoot's tail first falls below max(2 sigma_t, 1 % of P) after the
+   overshoot's peak, or at the next pulse; its peak is taken on the smoothed copy. The
+   tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
+   sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
+   early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
+   the noise's), and for a unipolar-looking pulse where bipolarity is NaN (its noise
+   could hide an overshoot, and with it the end).
 7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
-   its overshoot, if that exceeds 10 % of P) last falls below 10 % of P.
+   its overshoot on the tail copy, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
    below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
    samples (the noise taken as at least half a digitizer step here); width shorter than two samples or with its 10 % level under 2 sigma_s;
@@ -125,6 +130,10 @@ MIN_PEAK_SIGMA_FWHM = 4.0
 MIN_PEAK_SIGMA_OK = 3.0
 #: Longest smoothing of the trailing measures, s.
 MAX_SMOOTH_S = 5e-6
+#: Noise of the overshoot's tail copy, as a fraction of the peak: a sixth of the 1 %
+#: tail level, so that its first fall through that level is the tail's, not a noise dip
+#: (common practice, no source).
+TAIL_NOISE_FRACTION = 1.0 / 600.0
 #: Smallest noise sigma, as a fraction of the row's largest |E| (noiseless records).
 RELATIVE_SIGMA_FLOOR = 1e-7
 
@@ -218,7 +227,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     -------
     dict of str -> ndarray, shape (n_pulses,)
         Keys as in :data:`features.schema.FEATURES` for the field group, plus
-        ``peak_time_s``, ``first_peak_time_s``, ``onset_time_s`` (physical times
+        ``peak_time_s``, ``first_peak_time_s``, ``onset_time_s``, ``end_time_s`` (the
+        pulse's extent even where ``pulse_end_s`` is NaN; physical times
         relative to the trigger, s), ``prev_end_s``, ``next_start_s`` (the neighbouring
         pulses' extents, s, NaN: none) and ``field_ok`` (bool). With ``return_trace``,
         a second dict: ``field_v_per_m`` (processed rows), ``time_s`` (physical time of
@@ -372,9 +382,30 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     has_back = np.isfinite(back)
     jb = np.where(has_back, np.ceil(np.nan_to_num(back)), jc).astype(np.intp)
     lobe_back = crossing_before(u_s, jb, np.zeros(n), start=jc)
-    j_tail, has_tail = _last_at_least(nu_s, np.maximum(2 * sig_s, lvl(0.01)), jc + 1, lobe_stop)
+    # the overshoot's tail ends at its FIRST fall below the tail level after the
+    # overshoot's peak: the last sample above it would be a noise excursion anywhere in
+    # the search window (2 sigma is exceeded by ~2 % of noise samples)
+    # ... on a copy smoothed just enough to bring the noise to TAIL_NOISE_FRACTION of P
+    # (a first fall through 1 % of P is then not set by a noise dip), over at most the
+    # overshoot's rise (zero crossing to its peak) and MAX_SMOOTH_S, which bends the
+    # slower tail little
+    _, j_opk = _masked_max(nu_s, jc, lobe_stop)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        need_tail = np.nan_to_num(np.ceil((sigma / (TAIL_NOISE_FRACTION * peak)) ** 2),
+                                  nan=1.0, posinf=1.0)
+    k_cap = np.minimum(np.round(j_opk - np.nan_to_num(zc, nan=s)),
+                       max(int(round(MAX_SMOOTH_S * fs)), 1))
+    k_tail = np.maximum(np.minimum(need_tail, k_cap), k).astype(np.intp)
+    k_tail = np.where(has_zc, k_tail, 1)
+    nu_t = -moving_average_rows(u, k_tail)
+    h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
+    tail_fall = crossing_after(nu_t, np.minimum(j_opk, np.maximum(lobe_stop - 1, jc)), h_tail,
+                               stop=lobe_stop)
+    h_tail = np.maximum(2 * sig_s, lvl(0.01))
+    j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
-                        np.where(has_tail, j_tail + 1.0, jc.astype(float)))
+                        np.where(np.isfinite(tail_fall), tail_fall,
+                                 np.where(has_tail, j_tail + 1.0, jc.astype(float))))
     lobe_end = np.minimum(lobe_end, m - 1.0)
     lobe_end = np.where(has_zc, lobe_end, np.nan)
     overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
@@ -387,7 +418,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
 
     f10 = crossing_after(u_s, s, lvl(0.1), stop=next_start)
     big_os = has_zc & (overshoot >= lvl(0.1))
-    os_fall = crossing_after(nu_s, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
+    # the overshoot's fall through 10 % of P on the tail copy (noise does not end it early)
+    os_fall = crossing_after(nu_t, j_os, lvl(0.1), stop=np.nan_to_num(lobe_end).astype(np.intp)
                              + 1)
     end_w = np.where(big_os, np.where(np.isfinite(os_fall), os_fall, lobe_end), f10)
     end_w = np.where(lvl(0.1) >= 2 * sig_s, end_w, np.nan)
@@ -453,7 +485,12 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "charge_moment_change_c_m": charge_moment,
         "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
         "pulse_start_s": tm(onset),
-        "pulse_end_s": tm(pulse_end),
+        # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
+        # P; where its noise holds the level above that, the end is the noise's: NaN; so
+        # is the end of a unipolar-looking pulse whose noise could hide an overshoot (the
+        # rule of bipolarity)
+        "pulse_end_s": np.where(np.where(has_zc, 2 * sigma / np.sqrt(k_tail) <= lvl(0.01),
+                                         np.isfinite(bipolarity)), tm(pulse_end), np.nan),
         **nb,
         "pre_level_ratio": pre_level_ratio,
         "baseline_slope_ratio": slope_ratio,
@@ -462,6 +499,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "peak_time_s": tm(s_frac),
         "first_peak_time_s": tm(sub),
         "onset_time_s": tm(onset),
+        "end_time_s": tm(pulse_end),
         "prev_end_s": np.where(prev_ok, tm(prev_end - 1.0), np.nan),
         "next_start_s": np.where(next_ok, tm(next_start.astype(float)), np.nan),
     }

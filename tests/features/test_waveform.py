@@ -231,3 +231,91 @@ def test_input_not_mutated_and_shape_checked():
     np.testing.assert_array_equal(x, copy)
     with pytest.raises(ValueError, match="must be 2-D"):
         field_features(x[0], FS, pretrigger_s=PRE)
+
+
+def _bipolar_exp_tail(t, t0, half_s, rise_s, overshoot, tau_s):
+    """A sine half-cycle of length half_s, then an overshoot of relative height
+    ``overshoot`` rising as a quarter sine over rise_s and decaying as exp(-t / tau_s)."""
+    x = np.zeros_like(t)
+    a = (t >= t0) & (t < t0 + half_s)
+    x[a] = np.sin(np.pi * (t[a] - t0) / half_s)
+    b = (t >= t0 + half_s) & (t < t0 + half_s + rise_s)
+    x[b] = -overshoot * np.sin(0.5 * np.pi * (t[b] - t0 - half_s) / rise_s)
+    c = t >= t0 + half_s + rise_s
+    x[c] = -overshoot * np.exp(-(t[c] - t0 - half_s - rise_s) / tau_s)
+    return x
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_end_of_exponential_overshoot_tail_in_noise(seed):
+    """The overshoot's tail A exp(-t / tau) falls below a level L at tau ln(A / L) after
+    its peak (closed form); the pulse ends there, also with noise on the record, and not
+    at a late noise excursion above the level (the last one of the search window)."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    t_peak = half + rise
+    clean = field_features(x[None], FS, pretrigger_s=PRE)
+    # noiseless: the tail level is 1 % of the peak
+    assert_allclose(clean["pulse_end_s"], t_peak + tau * np.log(a / 0.01), atol=2 / FS)
+    sigma = 0.015 * amp                                          # 36 dB
+    rng = np.random.default_rng(seed)
+    noisy = field_features((x + rng.normal(0, sigma, t.size))[None], FS, pretrigger_s=PRE)
+    # the tail copy averages over k = min((600 sigma / P)^2, the overshoot's rise)
+    # samples: noise sigma / sqrt(k), and the level max(2 sigma / sqrt(k), 1 % of P); a
+    # 3-sigma miss of that level moves the crossing by tau ln(1 + 3 sigma_k / L)
+    k = min(np.ceil((600 * sigma / amp) ** 2), round(rise * FS))
+    sig_k = sigma / np.sqrt(k)
+    level = max(2 * sig_k, 0.01 * amp)
+    expect = t_peak + tau * np.log(a * amp / level)
+    slack = tau * np.log(1 + 3 * sig_k / level) + 2 / FS
+    assert abs(noisy["pulse_end_s"][0] - expect) <= slack
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_width_to_the_fall_of_an_exponential_overshoot_in_noise(seed):
+    """Width: the 10 % point of the rise (asin(0.1) / pi of the half-sine) to the fall of
+    the overshoot A exp(-t / tau) through 10 % of the peak, tau ln(A / 0.1) after its
+    peak (closed forms), within the time a 3-sigma error of the level shifts the fall."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    expect = half + rise + tau * np.log(a / 0.1) - np.arcsin(0.1) / np.pi * half
+    clean = field_features(x[None], FS, pretrigger_s=PRE)
+    assert_allclose(clean["width_s"], expect, atol=2 / FS)
+    sigma = 0.06 * amp                                           # 24 dB
+    rng = np.random.default_rng(seed)
+    noisy = field_features((x + rng.normal(0, sigma, t.size))[None], FS, pretrigger_s=PRE)
+    sig_k = sigma / np.sqrt(round(rise * FS))   # the tail copy (over the rise)
+    slack = tau * np.log(1 + 3 * sig_k / (0.1 * amp)) + 2 / FS
+    assert abs(noisy["width_s"][0] - expect) <= slack
+
+
+def test_unresolved_overshoot_tail_gives_no_pulse_end():
+    """At 20 dB the tail copy (averaged over the overshoot's rise, k samples) keeps a
+    noise of sigma / sqrt(k) = 2.2 % of the peak: twice that stands above the 1 % level
+    that ends the tail, so the end is the noise's and pulse_end_s is NaN (the onset and
+    the peak stay)."""
+    half, rise, a, tau, amp = 1.5e-6, 1e-6, 0.4, 2e-6, 5.0
+    t = _t()
+    x = amp * _bipolar_exp_tail(t, 0.0, half, rise, a, tau)
+    sigma = 0.1 * amp                                            # 20 dB
+    assert 2 * sigma / np.sqrt(round(rise * FS)) > 0.01 * amp
+    out = field_features((x + np.random.default_rng(5).normal(0, sigma, t.size))[None], FS,
+                         pretrigger_s=PRE)
+    assert np.isnan(out["pulse_end_s"][0])
+    assert np.isfinite(out["pulse_start_s"][0]) and np.isfinite(out["peak_field_v_per_m"][0])
+
+
+def test_unipolar_pulse_end_follows_the_bipolarity_rule():
+    """A Gaussian (unipolar) pulse at 20 dB: its noise could hide an overshoot, so its
+    end is as unknown as its bipolarity (both NaN); at 60 dB both are given, the end at
+    the fall through 10 % of the peak, t0 + sqrt(2 ln 10) sigma (closed form)."""
+    t = _t()
+    x = _gauss(t, 5e-6, 1e-6, 10.0)
+    rng = np.random.default_rng(3)
+    low = field_features((x + rng.normal(0, 1.0, t.size))[None], FS, pretrigger_s=PRE)
+    assert np.isnan(low["bipolarity"][0]) and np.isnan(low["pulse_end_s"][0])
+    high = field_features((x + rng.normal(0, 0.01, t.size))[None], FS, pretrigger_s=PRE)
+    assert high["bipolarity"][0] == 0
+    assert_allclose(high["pulse_end_s"], 5e-6 + np.sqrt(2 * np.log(10)) * 1e-6, atol=0.05e-6)
