@@ -65,8 +65,11 @@ MILD_CELL = ("own:reference", "own:next")
 #: Ways to triage a test world. A variant whose arguments hold "{model}" runs once per
 #: cell with the cell's model; any other is a zero-label variant, run once per test
 #: world: the cold start (rules, then self-training on the season) and the rules alone.
+#: ``season-fit`` is the trained model with ``--season-fit`` (its confident pulses anchor
+#: a fit on the test season itself).
 TRIAGE_VARIANTS = {
     "model": ["--model", "{model}"],
+    "season-fit": ["--model", "{model}", "--season-fit"],
     "rules": ["--rules"],
     "rules-only": ["--rules", "--rules-only"],
 }

@@ -106,7 +106,7 @@ def _sample(rows, labels, groups, rng, limit):
     return np.sort(np.concatenate(keep))
 
 
-def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1) -> dict:
+def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=None) -> dict:
     """Decisions of every pulse of a spilled season without a trained model.
 
     Parameters
@@ -119,6 +119,9 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1) -> dict:
         ``self_training`` and ``coverage`` are used.
     store : LabelStore, optional
         Anchors: analysts' labels of this catalog.
+    seeds : tuple (rows, labels), optional
+        More anchors: pulses (row numbers) a trained model placed confidently and its
+        classes (``triage --season-fit``); an analyst's label of the same pulse wins.
 
     Returns
     -------
@@ -149,6 +152,11 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1) -> dict:
     X = frame[names]
     groups = _flash_groups(cat)
     a_rows, a_labels = _anchors(store, cat, n)
+    if seeds is not None:
+        s_rows, s_labels = np.asarray(seeds[0], dtype=np.int64), np.asarray(seeds[1], object)
+        keep = ~np.isin(s_rows, a_rows)
+        a_rows = np.concatenate([s_rows[keep], a_rows])
+        a_labels = np.concatenate([s_labels[keep], a_labels])
     best = scores.to_numpy().max(axis=1)
     srt = np.sort(rp, axis=1)
     margin = srt[:, -1] - srt[:, -2]
@@ -209,7 +217,9 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1) -> dict:
     sets = (1.0 - proba) <= q[None, :] + 1e-12
     note = (f"self-trained from {rules.RULES_VERSION}: {rounds} round(s), "
             f"{int(train.sum()):,} pulses in the last training set"
-            + (f" ({a_rows.size:,} analysts' labels as anchors)" if a_rows.size else "")
+            + (f" ({a_rows.size:,} anchors: analysts' labels"
+               + (" and the trained model's confident pulses" if seeds is not None else "")
+               + ")" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,

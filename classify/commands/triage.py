@@ -54,16 +54,25 @@ def add_arguments(parser):
                              "them to this season")
     parser.add_argument("--rules-only", action="store_true",
                         help="with --rules: the rules alone, no self-training")
+    parser.add_argument("--season-fit", action="store_true",
+                        help="with --model, for a season of another station or instrument: "
+                             "fit the season itself, anchored by the pulses the model "
+                             "places confidently (and --store's labels)")
     parser.add_argument("--store", default=None,
-                        help="with --rules: a label store whose analysts' labels of this "
-                             "catalog anchor the self-training")
+                        help="with --rules or --season-fit: a label store whose analysts' "
+                             "labels of this catalog anchor the self-training")
     add_parallel_arguments(parser)
 
 
 def run(args) -> int:
     _unit_interval(args.review_below)
-    if (args.rules_only or args.store) and not args.rules:
-        raise InputError("--rules-only and --store go with --rules (the cold start)")
+    if args.rules_only and not args.rules:
+        raise InputError("--rules-only goes with --rules (the cold start)")
+    if args.season_fit and args.rules:
+        raise InputError("--season-fit goes with --model (--rules already fits the season)")
+    if args.store and not (args.rules or args.season_fit):
+        raise InputError("--store goes with --rules or --season-fit (it anchors the "
+                         "self-training on the season)")
     out = check_output_file(args.out, (".csv",), "--out")
     cat = open_catalog(args.catalog)
     model_dir = None if args.rules else resolve_model(args.model, args.registry)
@@ -75,7 +84,7 @@ def run(args) -> int:
                                  progress=progress_of(args), adapt_priors=args.adapt_priors,
                                  adapt_sets=not args.training_sets,
                                  self_training=not args.rules_only, coverage=args.coverage,
-                                 store=store)
+                                 store=store, season_fit=args.season_fit)
     finally:
         if store is not None:
             store.close()

@@ -109,3 +109,33 @@ def test_cold_start_without_labels_and_with_first_labels(tmp_path):
     rs = df2["label_true"] == "return_stroke"
     assert (df2.loc[rs, "label"] == "return_stroke").mean() >= 0.5
     assert "60 analysts' labels as anchors" in df2["adaptation"].iloc[0]
+
+
+def test_season_fit_on_another_station(model, tmp_path, capsys):
+    """--season-fit: the model's confident pulses anchor a fit on the season itself and
+    keep the model's class; the rest is classified by the fit. On a season of another
+    station (other field rate and record length, int16 counts, the other sign convention)
+    it keeps the model's novelty and says what it did. Self-consistency on invented data;
+    what it gains across worlds is measured by benchmarks/bench_crossworld.py."""
+    c = simulate_season(tmp_path / "c", 500, 65, season="2034", class_mix=BALANCED,
+                        field_rate_hz=5e6, field_samples=1500, vhf_rate_hz=25e6,
+                        vhf_samples=10000, units="counts", sign_convention="atmospheric")
+    plain = _triage(c, model, tmp_path / "a.csv")
+    fitted = _triage(c, model, tmp_path / "b.csv", "--season-fit")
+
+    def f1(df):
+        return f1_score(df["label_true"], df["label"].fillna("none"), average="macro",
+                        labels=sorted(set(df["label_true"])))
+
+    assert f1(fitted) >= 0.95
+    sure = (plain["confidence"] >= 0.95) & ~plain["needs_review"].astype(bool)
+    assert sure.mean() > 0.5
+    assert (fitted.loc[sure, "label"] == plain.loc[sure, "label"]).all()
+    assert fitted["model_version"].str.endswith("+ fitted on the season").all()
+    assert fitted["adaptation"].str.contains("pulses the model placed confidently").all()
+    assert np.allclose(fitted["novelty_score"], plain["novelty_score"], equal_nan=True)
+    assert (fitted["novel"] == plain["novel"]).all()
+    capsys.readouterr()
+    assert main(["triage", str(c), "--rules", "--season-fit", "--out",
+                 str(tmp_path / "x.csv")]) == 2
+    assert "--season-fit goes with --model" in capsys.readouterr().err
