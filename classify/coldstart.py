@@ -19,6 +19,10 @@ round's training set with their own label (weight :data:`ANCHOR_WEIGHT`) and ove
 the rules; a class the rules do not know (a group's own class) is learnt from them, and a
 pulse the rules call ``other`` that the model puts in such a class takes it.
 
+With a trained model, ``triage --season-fit`` passes the pulses the model places
+confidently as more anchors (``seeds``): the same self-training then adapts to a season
+of another station, anchored by the model instead of the rules alone.
+
 The results have the columns of a trained model's; ``model_version`` says
 ``self-trained from rules-3`` (or ``rules-3`` for the rules alone).
 
