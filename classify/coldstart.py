@@ -221,9 +221,9 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     sets = (1.0 - proba) <= q[None, :] + 1e-12
     note = (f"self-trained from {rules.RULES_VERSION}: {rounds} round(s), "
             f"{int(train.sum()):,} pulses in the last training set"
-            + (f" ({a_rows.size:,} anchors: analysts' labels"
-               + (" and the trained model's confident pulses" if seeds is not None else "")
-               + ")" if a_rows.size else "")
+            + (f" ({a_rows.size:,} analysts' labels as anchors)" if a_rows.size and seeds is None
+               else f" ({a_rows.size:,} anchors: the trained model's confident pulses and "
+                    "the analysts' labels)" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,

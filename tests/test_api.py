@@ -37,6 +37,12 @@ PROMISED = {"features": ["open_catalog", "extract_features", "write_catalog", "p
                          "triage_catalog", "train_from_store", "LabelStore",
                          "explain_pulses"]}
 
+def _interruptible():
+    """The child takes Ctrl-C (SIGINT) even when the test run itself was started with it
+    ignored (a background job, nohup), as an analyst's terminal gives it."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 
 @pytest.fixture(scope="module")
 def season():
@@ -259,7 +265,8 @@ def test_review_explains_the_class_with_the_model(season, tmp_path):
     proc = subprocess.Popen([sys.executable, "-m", "classify.cli", "review", str(out),
                              "--catalog", str(season["b"]), "--store", str(tmp_path / "s.db"),
                              "--analyst", "wren", "--model", str(season["model_dir"])],
-                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=_interruptible)
     try:
         lines = [proc.stdout.readline() for _ in range(4)]
         assert lines[2].startswith("why this class: the features' contributions"), lines

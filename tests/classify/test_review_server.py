@@ -37,6 +37,12 @@ from ._review_testkit import XSS_ID, Client, triaged_catalog
 
 ANALYST = "wren"
 
+def _interruptible():
+    """The child takes Ctrl-C (SIGINT) even when the test run itself was started with it
+    ignored (a background job, nohup), as an analyst's terminal gives it."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 
 @pytest.fixture(scope="module")
 def triaged(tmp_path_factory):
@@ -352,7 +358,8 @@ def test_review_command_refuses_bad_input_with_exit_2(triaged, tmp_path, capsys)
 
 def _start_cli(args, env):
     proc = subprocess.Popen([sys.executable, "-m", "classify.cli", *args], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=_interruptible)
     lines = []
     deadline = time.monotonic() + 180
     while time.monotonic() < deadline:
