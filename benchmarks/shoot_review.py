@@ -48,6 +48,7 @@ def _settle(page):
 def shoot(demo: Path, out: Path, work: Path) -> list[Path]:
     from playwright import sync_api
 
+    from classify.commands.review import model_attributions
     from classify.review import ReviewSession, make_server
     from classify.review._lookalike import card_catalog_paths, find_model
     from classify.triage import read_results
@@ -58,7 +59,8 @@ def shoot(demo: Path, out: Path, work: Path) -> list[Path]:
     store = work / "labels.sqlite"
     shutil.copy(demo / "labels.sqlite", store)
     session = ReviewSession(results, open_catalog(demo / "hollowmere-2032"), store, "wren",
-                            model=model, catalog_paths=card_catalog_paths(card))
+                            model=model, catalog_paths=card_catalog_paths(card),
+                            attributions=model_attributions(model))
     server = make_server(session)
     server.start_background()
     out.mkdir(parents=True, exist_ok=True)
