@@ -120,7 +120,11 @@ def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address):
     model, card = _cached_model(settings.model_dir)
     n = spill.n_events
     blocks = [(a, min(a + DECIDE_BLOCK, n)) for a in range(0, n, DECIDE_BLOCK)]
-    parts = list(run_jobs(_predict_rows, blocks, n_jobs=n_jobs, dask_address=dask_address,
+    # one block runs here, on the model already loaded: a joblib worker would import
+    # scikit-learn and load the model again (seconds) for no parallelism
+    local = len(blocks) <= 1 and not dask_address
+    parts = list(run_jobs(_predict_rows, blocks, n_jobs=1 if local else n_jobs,
+                          dask_address=dask_address,
                           extra_args=(settings.model_dir, str(spill.folder), SPILL_COLUMNS)))
     proba = np.vstack([p for p, _, _ in parts]) if parts else np.zeros((0, 1))
     relaxed = np.vstack([r for _, r, _ in parts]) if parts else proba
