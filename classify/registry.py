@@ -133,8 +133,9 @@ def load_model(folder):
     _check_archive(path)
     import skops.io as sio  # here, not at import: reading a card needs no scikit-learn
 
+    data = path.read_bytes()  # read once: the type check and the load share it
     try:
-        untrusted = sio.get_untrusted_types(file=path)
+        untrusted = sio.get_untrusted_types(data=data)
     except Exception as exc:  # noqa: BLE001 - any failure to parse the archive is bad input
         raise InputError(f"{path}: not a readable skops model archive "
                          f"({type(exc).__name__}: {str(exc)[:160]})") from None
@@ -143,7 +144,7 @@ def load_model(folder):
         raise InputError(f"{path}: contains types outside pulsesort's allow-list: "
                          f"{refused}; refusing to load it")
     try:
-        model = sio.load(path, trusted=list(untrusted))
+        model = sio.loads(data, trusted=list(untrusted))
     except Exception as exc:  # noqa: BLE001 - as above: the archive, not pulsesort, is wrong
         raise InputError(f"{path}: the model archive cannot be loaded "
                          f"({type(exc).__name__}: {str(exc)[:160]})") from None
