@@ -236,6 +236,10 @@ def _burst_centre(env, inwin, jp, peak, noise):
         Fractional bin index; NaN where the top holds no excess.
     peak : ndarray, shape (n,)
         The largest value of the burst-smoothed envelope in the window.
+    env2 : ndarray, shape (n, nb)
+        The burst-smoothed envelope.
+    jp2 : ndarray of int, shape (n,)
+        Bin of its largest value in the window.
 
     Notes
     -----
@@ -262,7 +266,7 @@ def _burst_centre(env, inwin, jp, peak, noise):
     total = excess.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         c = (excess * np.arange(env.shape[1])[None, :]).sum(axis=1) / total
-    return np.where(total > 0, c, np.nan), rise2 + noise
+    return np.where(total > 0, c, np.nan), rise2 + noise, env2, jp2
 
 
 def _noise_floor(env, inwin, n_bins):
@@ -344,15 +348,15 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
         raw_in = (t_raw[None, :] >= lo_s[:, None]) & (t_raw[None, :] <= hi_s[:, None])
         with np.errstate(invalid="ignore"):
             censored = ((np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in).any(axis=1)
-    centre, peak2 = _burst_centre(env, inwin, jp, peak, noise)
+    centre, peak2, env2, jp2 = _burst_centre(env, inwin, jp, peak, noise)
     # a clipped top is flat over the burst and whatever follows it at the clip level: its
     # centroid is not the burst's; the largest bin is kept there
     centre = np.where(np.isfinite(centre) & ~censored, centre, frac)
-    # the width keeps the 0.5 us envelope's largest bin (its 10 % level is that of the
-    # benchmarked definition); peak and SNR are read on the burst-smoothed envelope
-    # 10 % of the burst's own power over the floor (the floor adds to the envelope on
-    # both sides: 10 % of the peak itself would widen a burst near 10 dB SNR)
-    level = noise + 0.1 * np.maximum(peak - noise, 0.0)
+    # the width: where the burst-smoothed envelope (its speckle averaged over a quarter
+    # of its top, so that a dip of a broad burst's tail does not end it early) falls
+    # through 10 % of the burst's own power over the floor (the floor adds to the
+    # envelope on both sides: 10 % of the peak itself would widen a burst near 10 dB)
+    level = noise + 0.1 * np.maximum(peak2 - noise, 0.0)
     peak = np.where(censored, peak, np.maximum(peak2, 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         peak_db = 10 * np.log10(peak)
@@ -362,8 +366,8 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
                       np.where(peak > 0, VHF_DB_CAP, np.nan))
     # the burst's width only where both its crossings of the level lie in the record:
     # one running off it leaves the width unmeasured (NaN), not cut short at its edge
-    a = crossing_before(env, jp, level)
-    b = crossing_after(env, jp, level)
+    a = crossing_before(env2, jp2, level)
+    b = crossing_after(env2, jp2, level)
     width = (b - a) * k / fs
     # a clipped burst's 10 % level is that of a lower bound of its peak: no width
     width = np.where((snr_db >= MIN_SNR_WIDTH_DB) & ~censored, width, np.nan)

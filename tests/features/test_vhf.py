@@ -243,10 +243,11 @@ def test_window_keeps_an_energetic_pulse_s_leading_vhf():
 
 def test_width_nan_when_the_burst_runs_off_the_record():
     """A Gaussian burst (sigma 1 us, 30 dB over the floor): its width at 10 % of the
-    peak's excess over the floor is the closed form 2 sigma sqrt(2 ln 10) = 4.29 us (the
-    0.5 us box widens a 1 us Gaussian by < 1 %), also on a floor 10 dB under the peak
-    (10 % of the peak itself, 0.11, lies where the burst is at 0.01: 2 sigma
-    sqrt(2 ln 100) = 6.07 us); a burst whose record ends 1 us after its centre, where it is still at exp(-1/2) =
+    peak's excess over the floor is the closed form 2 s sqrt(2 ln 10), s the Gaussian's
+    sigma widened by the two boxes it is smoothed with (0.5 us, and a quarter of its
+    2.35 us top, 0.6 us: variances add, s^2 = 1 + (0.5^2 + 0.6^2) / 12 us^2), 4.40 us,
+    also on a floor 10 dB under the peak (10 % of the peak itself, 0.11, lies where the
+    burst is at 0.01: 2 sigma sqrt(2 ln 100) = 6.07 us); a burst whose record ends 1 us after its centre, where it is still at exp(-1/2) =
     61 % of its peak, cannot be measured: NaN, not the truncated 3.1 us."""
     fs = 100e6
     t = np.arange(20000) / fs - PRE                       # -100 us to 100 us
@@ -254,7 +255,8 @@ def test_width_nan_when_the_burst_runs_off_the_record():
     rows = np.stack([1e-3 + g(2e-6), 0.1 + g(2e-6), 1e-3 + g(99e-6)])
     window = (np.array([-10e-6, -10e-6, 90e-6]), np.array([20e-6, 20e-6, 100e-6]))
     out = vhf_features(rows, fs, "power", window, pretrigger_s=PRE)
-    assert_allclose(out["vhf_width_s"][:2], 2e-6 * np.sqrt(2 * np.log(10)), rtol=0.02)
+    s = 1e-6 * np.sqrt(1 + (0.5 ** 2 + 0.6 ** 2) / 12)
+    assert_allclose(out["vhf_width_s"][:2], 2 * s * np.sqrt(2 * np.log(10)), rtol=0.02)
     assert np.isnan(out["vhf_width_s"][2])
     assert_allclose(out["vhf_peak_time_s"], [2e-6, 2e-6, 99e-6], atol=0.1e-6)
 
