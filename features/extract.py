@@ -31,7 +31,14 @@ from .catalog import Catalog, Channel, return_freed_memory
 from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import breakdown_polarity, source_features
-from .vhf import VHF_LEAD_S, VHF_MAX_WINDOW_S, VHF_SPAN_S, VHF_TRAIL_S, vhf_features
+from .vhf import (
+    VHF_LEAD_S,
+    VHF_MAX_WINDOW_S,
+    VHF_MIN_LEAD_S,
+    VHF_SPAN_S,
+    VHF_TRAIL_S,
+    vhf_features,
+)
 from .waveform import ANALYSIS_WINDOW_S, PEAK_SEARCH_S, field_features
 
 if TYPE_CHECKING:
@@ -152,16 +159,24 @@ def clip_level(ch: Channel) -> float | None:
 
 
 def vhf_window_s(f: dict, n: int) -> tuple[np.ndarray, np.ndarray]:
-    """Where each pulse's VHF peak is searched: its extent, widened, between neighbours.
+    """Where each pulse's VHF peak is searched: around its rise, between neighbours.
 
-    Physical time relative to the trigger, s (see :mod:`features.vhf`). Rows without a
-    usable field pulse search around the trigger (``PEAK_SEARCH_S``).
+    Physical time relative to the trigger, s (see :mod:`features.vhf`): from the onset
+    less the pulse's own rise (onset to field peak), at least :data:`VHF_MIN_LEAD_S` and
+    at most :data:`VHF_LEAD_S`, to :data:`VHF_TRAIL_S` after the field peak (the VHF of
+    breakdown accompanies the current's rise, Rakov & Uman 2003, from memory; a long
+    pulse's tail, e.g. a stepped-leader step's, holds its neighbours' bursts, not its
+    own), never beyond half-way to a neighbouring pulse, at most
+    :data:`VHF_MAX_WINDOW_S` long. Rows without a usable field pulse search around the
+    trigger (``PEAK_SEARCH_S``).
     """
     onset, end = f["pulse_start_s"], f["end_time_s"]
+    peak = np.fmax(f["peak_time_s"], onset)
     prev_end, next_start = f["prev_end_s"], f["next_start_s"]
-    lo = onset - VHF_LEAD_S
+    lead = np.clip(np.nan_to_num(peak - onset, nan=VHF_LEAD_S), VHF_MIN_LEAD_S, VHF_LEAD_S)
+    lo = onset - lead
     lo = np.where(np.isfinite(prev_end), np.maximum(lo, 0.5 * (prev_end + onset)), lo)
-    hi = np.minimum(end + VHF_TRAIL_S, onset + VHF_MAX_WINDOW_S)
+    hi = np.minimum(np.fmin(peak, end) + VHF_TRAIL_S, onset + VHF_MAX_WINDOW_S)
     hi = np.where(np.isfinite(next_start), np.minimum(hi, 0.5 * (end + next_start)), hi)
     ok = np.isfinite(lo) & np.isfinite(hi)
     lo = np.where(ok, lo, PEAK_SEARCH_S[0] - VHF_LEAD_S)

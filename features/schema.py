@@ -340,7 +340,8 @@ FEATURES: tuple[Feature, ...] = (
             tolerance=_VHF_POWER),
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
             "burst (centroid of the smoothed envelope's top half above the noise floor; "
-            "positive: VHF leads); both channels delay-corrected", "vhf",
+            "positive: VHF leads; searched from the onset less the rise to 2 us after the "
+            "field peak); both channels delay-corrected; NaN below 3 dB VHF SNR", "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
@@ -364,8 +365,9 @@ FEATURES: tuple[Feature, ...] = (
             "outside the window)", "vhf", requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.5, sigma=2, noise="snr", db=10, bound="vhf_censored",
                                 truth="instrument")),
-    Feature("vhf_width_s", "s", "time the smoothed envelope stays above 10 % of its peak "
-            "around it; NaN below 10 dB SNR", "vhf", requires=frozenset({"vhf"}),
+    Feature("vhf_width_s", "s", "time the smoothed envelope's excess over the noise floor "
+            "stays above 10 % of the peak's around it; NaN below 10 dB SNR, where clipped "
+            "(vhf_censored) and where the burst runs off the record", "vhf", requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.10, vhf_bins=1)),
     Feature("vhf_censored", "bool", "a raw VHF sample of the window reaches full scale: the "
             "VHF peak is a lower bound", "vhf", requires=frozenset({"vhf"})),

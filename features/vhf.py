@@ -15,11 +15,14 @@ envelope**: the power averaged into bins of :data:`VHF_BIN_S` and then over a mo
 window of :data:`VHF_SMOOTH_S` (0.5 us: about the duration of a leader step's VHF burst;
 common practice, no source).
 
-* **window**: the catalogued pulse's own extent in the field record, widened
-  :data:`VHF_LEAD_S` before its onset (an energetic in-cloud pulse's VHF leads its
-  largest field peak by ~10 us; common practice, no source) and :data:`VHF_TRAIL_S`
-  after its end, never beyond half-way to a neighbouring pulse, at most
-  :data:`VHF_MAX_WINDOW_S` long.
+* **window**: around the catalogued pulse's rise in the field record: from its onset
+  less its own onset-to-peak time (at least :data:`VHF_MIN_LEAD_S`, at most
+  :data:`VHF_LEAD_S`: an energetic in-cloud pulse's VHF leads its largest field peak by
+  ~10 us, common practice, no source) to :data:`VHF_TRAIL_S` after its field peak (the
+  VHF of breakdown accompanies the current's rise, Rakov & Uman 2003, from memory; the
+  long tail of a stepped-leader step's extent holds its neighbours' bursts), never
+  beyond half-way to a neighbouring pulse, at most :data:`VHF_MAX_WINDOW_S` long
+  (:func:`features.extract.vhf_window_s`).
 * **noise floor**: the median of the smoothed envelope over :data:`VHF_NOISE_S` before
   the window (after it when the record starts later): a quiet stretch, where bursts of
   other pulses occupy a small part of the time.
@@ -35,9 +38,13 @@ common practice, no source).
   falls by less than that over microseconds (an energetic in-cloud pulse's VHF) wanders
   over the whole top; the centroid of the top averages its speckle (common practice, no
   source). A clipped window (``censored``) keeps the largest bin (parabola through three
-  bins): its flat top holds the burst and whatever follows it at the clip level.
+  bins): its flat top holds the burst and whatever follows it at the clip level. NaN
+  below :data:`MIN_SNR_TIME_DB` (3 dB), where the window's largest noise cell competes
+  with the burst.
 * **width**: the time the smoothed envelope stays above 10 % of its peak around it
-  (NaN below 10 dB SNR, where 10 % of the peak is under the noise floor).
+  (NaN below 10 dB SNR, where 10 % of the peak is under the noise floor, and where the
+  burst does not fall below that level inside the window on either side: running into
+  a neighbour's burst or off the record, it cannot be measured).
 * **censored**: a raw sample of the window at or beyond the channel's full scale: the
   peak is then a lower bound (NBEs, the strongest VHF emitters, saturate receivers set
   sensitive enough for everything else).
@@ -66,9 +73,13 @@ __all__ = ["VHF_BIN_S", "VHF_SMOOTH_S", "VHF_SPAN_S", "vhf_power", "vhf_envelope
 VHF_BIN_S = 0.1e-6
 #: Moving average of the binned envelope, s.
 VHF_SMOOTH_S = 0.5e-6
-#: The window opens this long before the field pulse's onset, s.
+#: The window opens the pulse's rise (onset to field peak) before its onset, at most this
+#: long, s ...
 VHF_LEAD_S = 15e-6
-#: ... and closes this long after its end, s.
+#: ... and at least this long (the onset is read where the field clears the noise, up to
+#: a few smoothing windows after the current starts), s ...
+VHF_MIN_LEAD_S = 1e-6
+#: ... and closes this long after the field peak, s.
 VHF_TRAIL_S = 2e-6
 #: Longest window, s.
 VHF_MAX_WINDOW_S = 80e-6
@@ -79,6 +90,12 @@ VHF_SPAN_S = (-60e-6, 100e-6)
 VHF_DB_CAP = 200.0
 #: SNR below which the width is not resolved, dB.
 MIN_SNR_WIDTH_DB = 10.0
+#: SNR below which the burst's time is not resolved, dB: the smoothed noise envelope of
+#: a band of B over VHF_SMOOTH_S averages N = B x 0.5 us looks (16 for 33 MHz) and its
+#: largest cell in a window of a few us reaches ~1 + 3/sqrt(N) of its mean, 1-3 dB
+#: (gamma-distributed speckle, Goodman, Speckle Phenomena in Optics, 2007, ch. 3, from
+#: memory): a peak less than twice the floor may be that noise, not the pulse's burst.
+MIN_SNR_TIME_DB = 3.0
 #: The peak time is the centroid of the envelope above this fraction of the way from the
 #: noise floor to the peak (half: the centre of the width at half maximum when the top
 #: is symmetric) ...
@@ -219,6 +236,10 @@ def _burst_centre(env, inwin, jp, peak, noise):
         Fractional bin index; NaN where the top holds no excess.
     peak : ndarray, shape (n,)
         The largest value of the burst-smoothed envelope in the window.
+    env2 : ndarray, shape (n, nb)
+        The burst-smoothed envelope.
+    jp2 : ndarray of int, shape (n,)
+        Bin of its largest value in the window.
 
     Notes
     -----
@@ -245,7 +266,7 @@ def _burst_centre(env, inwin, jp, peak, noise):
     total = excess.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         c = (excess * np.arange(env.shape[1])[None, :]).sum(axis=1) / total
-    return np.where(total > 0, c, np.nan), rise2 + noise
+    return np.where(total > 0, c, np.nan), rise2 + noise, env2, jp2
 
 
 def _noise_floor(env, inwin, n_bins):
@@ -327,13 +348,15 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
         raw_in = (t_raw[None, :] >= lo_s[:, None]) & (t_raw[None, :] <= hi_s[:, None])
         with np.errstate(invalid="ignore"):
             censored = ((np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in).any(axis=1)
-    centre, peak2 = _burst_centre(env, inwin, jp, peak, noise)
+    centre, peak2, env2, jp2 = _burst_centre(env, inwin, jp, peak, noise)
     # a clipped top is flat over the burst and whatever follows it at the clip level: its
     # centroid is not the burst's; the largest bin is kept there
     centre = np.where(np.isfinite(centre) & ~censored, centre, frac)
-    # the width keeps the 0.5 us envelope's largest bin (its 10 % level is that of the
-    # benchmarked definition); peak and SNR are read on the burst-smoothed envelope
-    level = 0.1 * peak
+    # the width: where the burst-smoothed envelope (its speckle averaged over a quarter
+    # of its top, so that a dip of a broad burst's tail does not end it early) falls
+    # through 10 % of the burst's own power over the floor (the floor adds to the
+    # envelope on both sides: 10 % of the peak itself would widen a burst near 10 dB)
+    level = noise + 0.1 * np.maximum(peak2 - noise, 0.0)
     peak = np.where(censored, peak, np.maximum(peak2, 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         peak_db = 10 * np.log10(peak)
@@ -341,15 +364,18 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     peak_db = np.where(np.isfinite(peak_db), peak_db, np.nan)
     snr_db = np.where(np.isfinite(snr_db), np.clip(snr_db, -VHF_DB_CAP, VHF_DB_CAP),
                       np.where(peak > 0, VHF_DB_CAP, np.nan))
-    a = crossing_before(env, jp, level)
-    b = crossing_after(env, jp, level)
-    width = (np.where(np.isfinite(b), b, nb - 1.0) - np.where(np.isfinite(a), a, 0.0)) * k / fs
-    width = np.where(snr_db >= MIN_SNR_WIDTH_DB, width, np.nan)
+    # the burst's width only where both its crossings of the level lie in the record:
+    # one running off it leaves the width unmeasured (NaN), not cut short at its edge
+    a = crossing_before(env2, jp2, level)
+    b = crossing_after(env2, jp2, level)
+    width = (b - a) * k / fs
+    # a clipped burst's 10 % level is that of a lower bound of its peak: no width
+    width = np.where((snr_db >= MIN_SNR_WIDTH_DB) & ~censored, width, np.nan)
     t_peak = np.interp(centre, np.arange(nb), t_bin)
     good = vhf_ok & has_win & (peak > 0)
     out.update({
         "vhf_peak_db": np.where(good, peak_db, np.nan),
-        "vhf_peak_time_s": np.where(good, t_peak, np.nan),
+        "vhf_peak_time_s": np.where(good & (snr_db >= MIN_SNR_TIME_DB), t_peak, np.nan),
         "vhf_snr_db": np.where(good, snr_db, np.nan),
         "vhf_width_s": np.where(good, width, np.nan),
         "vhf_censored": censored & good,

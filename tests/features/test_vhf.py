@@ -195,3 +195,87 @@ def test_speckled_broad_burst_snr_near_the_mean_envelope():
     out = vhf_features(_speckled_rows(env, rng, n_rows, 1), fs, "power", window,
                        pretrigger_s=PRE)
     assert abs(np.median(out["vhf_snr_db"]) - 10 * np.log10(1.1 / 0.1)) < 0.75
+
+
+def _field_row(onset_s, peak_s, end_s):
+    """The field columns :func:`features.extract.vhf_window_s` reads, one pulse, no
+    neighbour found in the field record."""
+    return {"pulse_start_s": np.array([onset_s]), "peak_time_s": np.array([peak_s]),
+            "end_time_s": np.array([end_s]), "prev_end_s": np.array([np.nan]),
+            "next_start_s": np.array([np.nan])}
+
+
+def test_window_leaves_out_neighbouring_steps_bursts():
+    """A stepped-leader step (onset 0, field peak 0.2 us, extent to 15 us) with its own
+    VHF burst at 0.1 us (Gaussian, sigma 0.1 us) and twice as strong bursts of
+    neighbouring steps, too weak in the field to be catalogued, 30 us and 5 us before
+    its onset and 8 us after its peak (in its extent): the window [onset - 1 us,
+    peak + 2 us] holds its own burst only, whose time is the Gaussian's centre (the
+    smoothed top of a symmetric burst is symmetric about it)."""
+    from features.extract import vhf_window_s
+
+    fs = 100e6
+    t = np.arange(20000) / fs - PRE
+    burst = lambda c, a: a * np.exp(-0.5 * ((t - c) / 0.1e-6) ** 2)  # noqa: E731
+    p = 1e-3 + burst(0.1e-6, 1.0) + burst(-30e-6, 2.0) + burst(-5e-6, 2.0) + burst(8.2e-6, 2.0)
+    lo, hi = vhf_window_s(_field_row(0.0, 0.2e-6, 15e-6), 1)
+    assert_allclose([lo[0], hi[0]], [-1e-6, 2.2e-6], atol=1e-12)
+    out = vhf_features(p[None], fs, "power", (lo, hi), pretrigger_s=PRE)
+    assert_allclose(out["vhf_peak_time_s"], 0.1e-6, atol=0.02e-6)
+
+
+def test_window_keeps_an_energetic_pulse_s_leading_vhf():
+    """An energetic in-cloud pulse rising for 9 us (onset -6 us, field peak 3 us): its
+    VHF burst 7 us before the field peak (1 us after the onset) and one 3 us before the
+    onset, within the rise's length, are both searched (the window opens the rise, 9 us,
+    before the onset); the stronger, 3 us before the onset, is found."""
+    from features.extract import vhf_window_s
+
+    fs = 100e6
+    t = np.arange(20000) / fs - PRE
+    p = (1e-3 + 1.0 * np.exp(-0.5 * ((t + 5e-6) / 0.3e-6) ** 2)
+         + 1.5 * np.exp(-0.5 * ((t + 9e-6) / 0.3e-6) ** 2))
+    lo, hi = vhf_window_s(_field_row(-6e-6, 3e-6, 90e-6), 1)
+    assert_allclose([lo[0], hi[0]], [-15e-6, 5e-6], atol=1e-12)
+    out = vhf_features(p[None], fs, "power", (lo, hi), pretrigger_s=PRE)
+    assert_allclose(out["vhf_peak_time_s"], -9e-6, atol=0.02e-6)
+
+
+def test_width_nan_when_the_burst_runs_off_the_record():
+    """A Gaussian burst (sigma 1 us, 30 dB over the floor): its width at 10 % of the
+    peak's excess over the floor is the closed form 2 s sqrt(2 ln 10), s the Gaussian's
+    sigma widened by the two boxes it is smoothed with (0.5 us, and a quarter of its
+    2.35 us top, 0.6 us: variances add, s^2 = 1 + (0.5^2 + 0.6^2) / 12 us^2), 4.40 us,
+    also on a floor 10 dB under the peak (10 % of the peak itself, 0.11, lies where the
+    burst is at 0.01: 2 sigma sqrt(2 ln 100) = 6.07 us); a burst whose record ends 1 us after its centre, where it is still at exp(-1/2) =
+    61 % of its peak, cannot be measured: NaN, not the truncated 3.1 us."""
+    fs = 100e6
+    t = np.arange(20000) / fs - PRE                       # -100 us to 100 us
+    g = lambda c: np.exp(-0.5 * ((t - c) / 1e-6) ** 2)   # noqa: E731
+    rows = np.stack([1e-3 + g(2e-6), 0.1 + g(2e-6), 1e-3 + g(99e-6)])
+    window = (np.array([-10e-6, -10e-6, 90e-6]), np.array([20e-6, 20e-6, 100e-6]))
+    out = vhf_features(rows, fs, "power", window, pretrigger_s=PRE)
+    s = 1e-6 * np.sqrt(1 + (0.5 ** 2 + 0.6 ** 2) / 12)
+    assert_allclose(out["vhf_width_s"][:2], 2 * s * np.sqrt(2 * np.log(10)), rtol=0.02)
+    assert np.isnan(out["vhf_width_s"][2])
+    assert_allclose(out["vhf_peak_time_s"], [2e-6, 2e-6, 99e-6], atol=0.1e-6)
+
+
+def test_time_nan_in_pure_speckled_noise():
+    """Speckled noise only (16 looks, Gamma-distributed: Goodman, Speckle Phenomena in
+    Optics, 2007, ch. 3, from memory): the largest smoothed cell of a 3 us window stays
+    under twice the floor (3 dB), so no burst time is claimed; a burst 10x the floor
+    (10.4 dB) in the same noise is timed."""
+    rng = np.random.default_rng(7)
+    fs, m, n_rows = 100e6, 20000, 100
+    t = np.arange(m) / fs - PRE
+    window = (np.full(n_rows, -1e-6), np.full(n_rows, 2e-6))
+    quiet = vhf_features(_speckled_rows(np.ones(m), rng, n_rows, 16), fs, "power", window,
+                         pretrigger_s=PRE)
+    assert np.all(quiet["vhf_snr_db"] < 3.0)
+    assert np.isnan(quiet["vhf_peak_time_s"]).all()
+    env = 1.0 + 10.0 * np.exp(-0.5 * (t / 0.3e-6) ** 2)
+    loud = vhf_features(_speckled_rows(env, rng, n_rows, 16), fs, "power", window,
+                        pretrigger_s=PRE)
+    assert np.isfinite(loud["vhf_peak_time_s"]).all()
+    assert np.median(np.abs(loud["vhf_peak_time_s"])) < 0.1e-6
