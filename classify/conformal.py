@@ -70,18 +70,30 @@ def conformal_thresholds(proba, y_index, n_classes, coverage):
     Returns
     -------
     ndarray, shape (n_classes,)
-        q_k; a class is in a pulse's set when 1 - p_k <= q_k. A class with too
-        few calibration pulses for the level gets q_k = 1 (always in the set).
+        q_k; a class is in a pulse's set when 1 - p_k <= q_k. A class with some
+        calibration pulses but too few for the level gets the marginal threshold
+        (the same quantile of every pulse's score, whatever its class: split
+        conformal without the Mondrian split, Vovk et al. 2005; from memory), so a
+        group's new class with a handful of labels does not enter every set; a
+        class with none gets q_k = 1 (always in the set).
     """
     alpha = 1.0 - coverage
+
+    def quantile(s):
+        """The split-conformal quantile of scores ``s``, or None when too few."""
+        rank = math.ceil((len(s) + 1) * (1 - alpha))
+        return np.sort(s)[rank - 1] if len(s) and rank <= len(s) else None
+
     scores = 1.0 - proba[np.arange(len(y_index)), y_index]
+    marginal = quantile(scores)
     q = np.ones(n_classes)
     for k in range(n_classes):
-        s = np.sort(scores[y_index == k])
-        n = len(s)
-        rank = math.ceil((n + 1) * (1 - alpha))
-        if n and rank <= n:
-            q[k] = s[rank - 1]
+        mine = scores[y_index == k]
+        own = quantile(mine)
+        if own is not None:
+            q[k] = own
+        elif mine.size and marginal is not None:
+            q[k] = marginal
     return q
 
 

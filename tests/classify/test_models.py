@@ -48,6 +48,19 @@ def test_conformal_thresholds_hand_computed():
     assert q[1] == 1.0  # no calibration pulses of class 1: always in the set
 
 
+def test_a_class_with_too_few_calibration_pulses_gets_the_marginal_threshold():
+    """Class 1 has 2 pulses, too few for rank ceil(3 * 0.8) = 3: it takes the marginal
+    split-conformal threshold over all 11 pulses, rank ceil(12 * 0.8) = 10 of the sorted
+    scores (Vovk et al. 2005; hand-computed), not 1 (which would put it in every set)."""
+    p0 = 1 - np.linspace(0.1, 0.9, 9)                   # class 0 scores 0.1 .. 0.9
+    proba = np.vstack([np.column_stack([p0, 1 - p0]), [[0.05, 0.95], [0.15, 0.85]]])
+    y = np.array([0] * 9 + [1, 1])
+    q = conformal_thresholds(proba, y, 2, coverage=0.8)
+    scores = np.sort(np.r_[np.linspace(0.1, 0.9, 9), 0.05, 0.15])
+    assert_allclose(q[0], 0.8)
+    assert_allclose(q[1], scores[9])
+
+
 def test_grouped_cv_keeps_flashes_together():
     """No group appears in two out-of-fold folds."""
     X, y, g = _blobs()
