@@ -159,6 +159,7 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     if seeds is not None:
         s_rows, s_labels = np.asarray(seeds[0], dtype=np.int64), np.asarray(seeds[1], object)
         keep = ~np.isin(s_rows, a_rows)
+        n_analysts = a_rows.size
         a_rows = np.concatenate([s_rows[keep], a_rows])
         a_labels = np.concatenate([s_labels[keep], a_labels])
     best = scores.to_numpy().max(axis=1)
@@ -222,8 +223,8 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     note = (f"self-trained from {rules.RULES_VERSION}: {rounds} round(s), "
             f"{int(train.sum()):,} pulses in the last training set"
             + (f" ({a_rows.size:,} analysts' labels as anchors)" if a_rows.size and seeds is None
-               else f" ({a_rows.size:,} anchors: the trained model's confident pulses and "
-                    "the analysts' labels)" if a_rows.size else "")
+               else f" ({a_rows.size - n_analysts:,} of the trained model's confident pulses"
+                    f" and {n_analysts:,} analysts' labels as anchors)" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,
