@@ -156,10 +156,12 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     X = frame[names]
     groups = _flash_groups(cat)
     a_rows, a_labels = _anchors(store, cat, n)
+    anchors_text = f"{a_rows.size:,} analysts' labels as anchors"
     if seeds is not None:
         s_rows, s_labels = np.asarray(seeds[0], dtype=np.int64), np.asarray(seeds[1], object)
         keep = ~np.isin(s_rows, a_rows)
-        n_analysts = a_rows.size
+        anchors_text = (f"{int(keep.sum()):,} of the trained model's confident pulses and "
+                        + anchors_text)
         a_rows = np.concatenate([s_rows[keep], a_rows])
         a_labels = np.concatenate([s_labels[keep], a_labels])
     best = scores.to_numpy().max(axis=1)
@@ -222,9 +224,7 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     sets = (1.0 - proba) <= q[None, :] + 1e-12
     note = (f"self-trained from {rules.RULES_VERSION}: {rounds} round(s), "
             f"{int(train.sum()):,} pulses in the last training set"
-            + (f" ({a_rows.size:,} analysts' labels as anchors)" if a_rows.size and seeds is None
-               else f" ({a_rows.size - n_analysts:,} of the trained model's confident pulses"
-                    f" and {n_analysts:,} analysts' labels as anchors)" if a_rows.size else "")
+            + (f" ({anchors_text})" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,

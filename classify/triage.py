@@ -216,8 +216,8 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     coverage : float, optional
         Target coverage of the sets (default: the model's, or 0.95 for the cold start).
     store : LabelStore, optional
-        Cold start: analysts' labels of this catalog in the store anchor the
-        self-training.
+        Cold start or ``season_fit``: analysts' labels of this catalog in the store
+        anchor the self-training.
     season_fit : bool, default=False
         Model mode: fit the season itself, anchored by the trained model. The pulses the
         model places confidently (calibrated probability >= 0.95, one-class set, not
