@@ -65,11 +65,14 @@ MILD_CELL = ("own:reference", "own:next")
 #: Ways to triage a test world. A variant whose arguments hold "{model}" runs once per
 #: cell with the cell's model; any other is a zero-label variant, run once per test
 #: world: the cold start (rules, then self-training on the season) and the rules alone.
-#: ``season-fit`` is the trained model with ``--season-fit`` (its confident pulses anchor
-#: a fit on the test season itself).
+#: ``model`` is the trained model alone (``--season-fit never``), ``season-fit`` the
+#: trained model with ``--season-fit`` (always: its confident pulses anchor a fit on the
+#: test season itself), ``auto`` what ``triage --model`` does by default (the fit only
+#: where the model would send more than 5 % of the season to review).
 TRIAGE_VARIANTS = {
-    "model": ["--model", "{model}"],
+    "model": ["--model", "{model}", "--season-fit", "never"],
     "season-fit": ["--model", "{model}", "--season-fit"],
+    "auto": ["--model", "{model}"],
     "rules": ["--rules"],
     "rules-only": ["--rules", "--rules-only"],
 }

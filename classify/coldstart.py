@@ -115,9 +115,10 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
 
     Parameters
     ----------
-    spill : features.spill.FeatureSpill
-    columns : sequence of str
-        The spill's numeric columns.
+    spill : features.spill.FeatureSpill or pandas.DataFrame
+        The season's numeric features: a spill, or a frame of its columns.
+    columns : sequence of str or None
+        The spill's numeric columns (unused for a frame).
     cat : Catalog
     settings : classify.triage.TriageSettings
         ``self_training`` and ``coverage`` are used.
@@ -135,7 +136,8 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     """
     from .conformal import season_thresholds
 
-    frame = pd.DataFrame(np.array(spill.numeric()), columns=list(columns))
+    frame = spill if isinstance(spill, pd.DataFrame) else pd.DataFrame(
+        np.array(spill.numeric()), columns=list(columns))
     n = len(frame)
     usable = frame["field_ok"].to_numpy() > 0
     coverage = 0.95 if settings.coverage is None else float(settings.coverage)

@@ -330,7 +330,7 @@ def _the_model(model, card, registry):
 def predict_catalog(catalog, model="current", *, card=None, registry=None, review_below=0.8,
                     coverage=None, adapt_sets=True, adapt_priors=False, features=None,
                     n_jobs=1, dask_address=None, chunk_size=None,
-                    progress=None) -> pd.DataFrame:
+                    progress=None, season_fit="auto", store=None) -> pd.DataFrame:
     """Classify every pulse of a catalog in memory: the table ``pulsesort triage`` writes.
 
     Features of every pulse (:func:`features.extract_features`), the model's predictions
@@ -365,6 +365,12 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     n_jobs, dask_address, chunk_size, progress
         How the features are computed (:func:`features.extract.iter_features`); the
         results do not depend on them.
+    season_fit : {"auto", "always", "never"} or bool, default="auto"
+        Fit the season itself, anchored by the model's confident pulses
+        (:func:`classify.seasonfit.fit_to_season`); ``"auto"`` when the model would send
+        more than 5 % of the usable pulses to review for doubt.
+    store : LabelStore, optional
+        Analysts' labels of this catalog, more anchors of a season fit.
 
     Returns
     -------
@@ -437,6 +443,15 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     pred = predict_features(est, feats)
     d = season_decisions(est, pred, _flag(feats, "field_ok"), version=version, features=feats,
                          adapt_priors=adapt_priors, adapt_sets=adapt_sets, coverage=coverage)
+    from .seasonfit import fit_to_season
+    from .triage import SPILL_COLUMNS, TriageSettings
+
+    d = fit_to_season(
+        d, lambda: pd.DataFrame({c: feats[c].to_numpy(dtype=np.float64)
+                                 for c in SPILL_COLUMNS}),
+        cat, TriageSettings(model_dir=None, review_below=float(review_below), coverage=coverage),
+        mode=season_fit,
+        store=store, n_jobs=n_jobs)
     d["censored_v"] = _flag(feats, "vhf_censored")
     d["censored_f"] = _flag(feats, "field_censored")
     out, reasons = decision_table(d, float(review_below), ids, cat.catalog_id)

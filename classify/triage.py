@@ -39,9 +39,10 @@ from features.csvio import csv_header, csv_rows
 from features.extract import DEFAULT_CHUNK_SIZE, _progress, compute_chunk, plan_chunks, run_jobs
 from features.spill import FeatureSpill
 
-from . import coldstart, rules
+from . import coldstart
 from .predict import decision_table, predict_features, season_decisions
 from .registry import load_model, verify_model_dir
+from .seasonfit import fit_to_season, season_fit_mode
 
 __all__ = ["TriageSettings", "triage_catalog", "read_results", "print_summary",
            "RESULT_COLUMNS", "SPILL_COLUMNS"]
@@ -70,12 +71,22 @@ class TriageSettings:
     adapt_sets: bool = True
     self_training: bool = True
     coverage: float | None = None
-    season_fit: bool = False
+    season_fit: str = "never"
 
 
 @functools.lru_cache(maxsize=4)
 def _cached_model(model_dir: str):
     return load_model(model_dir)
+
+
+def _fit_mode(season_fit, model_dir) -> str:
+    mode = season_fit_mode(season_fit)
+    if model_dir is None:
+        if mode == "always":
+            raise InputError("season_fit needs a trained model (model_dir); the cold start "
+                             "already fits the season")
+        return "never"
+    return mode
 
 
 def _journal_key(cat, settings: TriageSettings, chunk_size: int) -> str:
@@ -138,36 +149,6 @@ def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address):
         features=lambda: pd.DataFrame(np.array(spill.numeric()), columns=list(SPILL_COLUMNS)))
 
 
-def _season_fit(d, spill, cat, settings, store, n_jobs):
-    """The cold start's self-training on this season, anchored by the trained model's
-    confident pulses (and the analysts' labels); novelty stays the trained model's."""
-    proba, relaxed = d["proba"], d["relaxed"]
-    top = np.argmax(proba, axis=1)
-    novel = np.zeros(len(top), dtype=bool) if d["novelty_threshold"] is None else \
-        np.asarray(d["novelty"]) > d["novelty_threshold"]
-    sure = (d["usable"] & (proba.max(axis=1) >= coldstart.CONFIDENT) & ~novel
-            & (d["sets"].sum(axis=1) == 1) & (np.argmax(relaxed, axis=1) == top))
-    rows = np.flatnonzero(sure)
-    fit = coldstart.cold_start(spill, SPILL_COLUMNS, cat, settings, store=store,
-                               n_jobs=n_jobs, seeds=(rows, d["classes"][top[rows]]))
-    if fit["version"] == rules.RULES_VERSION:  # the self-training could not run
-        return d
-    # the pulses the model placed confidently keep the model's decision
-    cols = {c: i for i, c in enumerate(np.asarray(fit["classes"]).astype(str))}
-    src = [j for j, c in enumerate(np.asarray(d["classes"]).astype(str)) if c in cols]
-    dst = [cols[str(d["classes"][j])] for j in src]
-    for key in ("proba", "relaxed", "sets"):
-        fit[key] = np.array(fit[key], copy=True)
-        block = np.zeros((rows.size, fit[key].shape[1]), dtype=fit[key].dtype)
-        block[:, dst] = np.asarray(d[key])[rows][:, src]
-        fit[key][rows] = block
-    fit["novelty"], fit["novelty_threshold"] = d["novelty"], d["novelty_threshold"]
-    fit["version"] = f"{d['version']} + fitted on the season"
-    fit["adaptation"] = (f"fitted on the season from {rows.size:,} pulses the model placed "
-                         f"confidently: {fit['adaptation']}")
-    return fit
-
-
 # ---------------------------------------------------------------------- phase 3
 def _decision_records(d, a: int, b: int, settings: TriageSettings, event_ids, catalog_id):
     return decision_table(d, settings.review_below, event_ids, catalog_id, a, b)
@@ -186,7 +167,7 @@ def _merge_counts(total: dict, out: pd.DataFrame, reasons: dict) -> None:
 def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEFAULT_CHUNK_SIZE,
                    n_jobs=1, dask_address=None, resume=False, progress=None,
                    adapt_priors=False, adapt_sets=True, self_training=True, coverage=None,
-                   store=None, stop_after_chunks=None, season_fit=False):
+                   store=None, stop_after_chunks=None, season_fit="auto"):
     """Triage every pulse of ``cat`` into the CSV file ``out``.
 
     Parameters
@@ -218,15 +199,16 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     store : LabelStore, optional
         Cold start or ``season_fit``: analysts' labels of this catalog in the store
         anchor the self-training.
-    season_fit : bool, default=False
-        Model mode: fit the season itself, anchored by the trained model. The pulses the
-        model places confidently (calibrated probability >= 0.95, one-class set, not
-        novel, the same class with a censored value relaxed) and the analysts' labels in
-        ``store`` anchor the cold start's self-training on this season
-        (:func:`classify.coldstart.cold_start`), whose model then classifies every
-        pulse; novelty stays the trained model's. For a season of another station or
-        instrument: measured across worlds it gains most where the trained model
-        generalises least (README, Benchmarks).
+    season_fit : {"auto", "always", "never"} or bool, default="auto"
+        Model mode: fit the season itself, anchored by the trained model
+        (:func:`classify.seasonfit.fit_to_season`): the pulses the model places
+        confidently (calibrated probability >= 0.95, one-class set, not novel, the same
+        class with a censored value relaxed) and the analysts' labels in ``store``
+        anchor the cold start's self-training on this season, whose model then
+        classifies every pulse; novelty stays the trained model's. ``"auto"`` fits when
+        the model would send more than 5 % of the usable pulses to review for doubt (a
+        season unlike the training's); True is ``"always"``, False ``"never"``. Ignored by the cold
+        start (which fits the season anyway), except that ``"always"`` is refused there.
     stop_after_chunks : int, optional
         Stop (as if killed) after this many chunks of the features phase; for testing
         resume.
@@ -279,10 +261,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     settings = TriageSettings(model_dir=None if model_dir is None else str(model_dir),
                               review_below=float(review_below), adapt_priors=adapt_priors,
                               adapt_sets=adapt_sets, self_training=self_training,
-                              coverage=coverage, season_fit=bool(season_fit))
-    if season_fit and model_dir is None:
-        raise InputError("season_fit needs a trained model (model_dir); the cold start "
-                         "already fits the season")
+                              coverage=coverage, season_fit=_fit_mode(season_fit, model_dir))
     if model_dir is not None:
         verify_model_dir(model_dir)
     t0 = time.perf_counter()
@@ -341,8 +320,9 @@ def _run(cat, out, partial, journal, spill_dir, key, settings, chunk_size, n_job
     # phase 2: decide
     if settings.model_dir is not None:
         d = _model_decisions(spill, settings, n_jobs, dask_address)
-        if settings.season_fit:
-            d = _season_fit(d, spill, cat, settings, store, n_jobs)
+        d = fit_to_season(
+            d, lambda: pd.DataFrame(np.array(spill.numeric()), columns=list(SPILL_COLUMNS)),
+            cat, settings, mode=settings.season_fit, store=store, n_jobs=n_jobs)
     else:
         d = coldstart.cold_start(spill, SPILL_COLUMNS, cat, settings, store=store,
                                  n_jobs=n_jobs)

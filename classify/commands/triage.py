@@ -5,6 +5,7 @@ from __future__ import annotations
 import io
 
 from classify.registry import resolve_model
+from classify.seasonfit import MODES
 from classify.triage import print_summary, triage_catalog
 from features import InputError, open_catalog
 
@@ -54,13 +55,17 @@ def add_arguments(parser):
                              "them to this season")
     parser.add_argument("--rules-only", action="store_true",
                         help="with --rules: the rules alone, no self-training")
-    parser.add_argument("--season-fit", action="store_true",
-                        help="with --model, for a season of another station or instrument: "
-                             "fit the season itself, anchored by the pulses the model "
-                             "places confidently (and --store's labels)")
+    parser.add_argument("--season-fit", nargs="?", const="always", default="auto",
+                        choices=MODES, metavar="WHEN",
+                        help="with --model: fit the season itself, anchored by the pulses "
+                             "the model places confidently (and --store's labels): 'auto' "
+                             "(default) when the model would send more than 5 %% of the "
+                             "season to review (another station or instrument), 'always' (the flag "
+                             "alone) or 'never'")
     parser.add_argument("--store", default=None,
-                        help="with --rules or --season-fit: a label store whose analysts' "
-                             "labels of this catalog anchor the self-training")
+                        help="a label store whose analysts' labels of this catalog anchor "
+                             "the self-training (--rules, or --model when the season is "
+                             "fitted)")
     add_parallel_arguments(parser)
 
 
@@ -68,11 +73,11 @@ def run(args) -> int:
     _unit_interval(args.review_below)
     if args.rules_only and not args.rules:
         raise InputError("--rules-only goes with --rules (the cold start)")
-    if args.season_fit and args.rules:
+    if args.season_fit == "always" and args.rules:
         raise InputError("--season-fit goes with --model (--rules already fits the season)")
-    if args.store and not (args.rules or args.season_fit):
-        raise InputError("--store goes with --rules or --season-fit (it anchors the "
-                         "self-training on the season)")
+    if args.store and not args.rules and args.season_fit == "never":
+        raise InputError("--store goes with --rules or a season fit (it anchors the "
+                         "self-training on the season), not with --season-fit never")
     out = check_output_file(args.out, (".csv",), "--out")
     cat = open_catalog(args.catalog)
     model_dir = None if args.rules else resolve_model(args.model, args.registry)

@@ -72,6 +72,10 @@ def test_coverage_holds_under_a_class_mix_shift(model, tmp_path):
     df = _triage(b, model, tmp_path / "r.csv")
     covered = [t in s.split("|") for t, s in zip(df["label_true"], df["prediction_set"])]
     assert np.mean(covered) >= 0.93
+    # this small model doubts more than 5 % of the season, so the default (auto) fitted
+    # it; the sets of the fit hold the coverage too
+    assert df["adaptation"].str.contains(r"fitted on the season \(the model doubts .* % "
+                                         r"of 400 usable pulses, > 5 %\)").all()
     assert df["adaptation"].str.contains("sets adapted to the season at 0.95").all()
 
 
@@ -120,8 +124,9 @@ def test_season_fit_on_another_station(model, tmp_path, capsys):
     c = simulate_season(tmp_path / "c", 500, 65, season="2034", class_mix=BALANCED,
                         field_rate_hz=5e6, field_samples=1500, vhf_rate_hz=25e6,
                         vhf_samples=10000, units="counts", sign_convention="atmospheric")
-    plain = _triage(c, model, tmp_path / "a.csv")
+    plain = _triage(c, model, tmp_path / "a.csv", "--season-fit", "never")
     fitted = _triage(c, model, tmp_path / "b.csv", "--season-fit")
+    auto = _triage(c, model, tmp_path / "c.csv")                 # the default: auto
 
     def f1(df):
         return f1_score(df["label_true"], df["label"].fillna("none"), average="macro",
@@ -135,6 +140,12 @@ def test_season_fit_on_another_station(model, tmp_path, capsys):
     assert fitted["adaptation"].str.contains("pulses the model placed confidently").all()
     assert np.allclose(fitted["novelty_score"], plain["novelty_score"], equal_nan=True)
     assert (fitted["novel"] == plain["novel"]).all()
+    # auto (the default): this model doubts 1 % of this season (<= 5 %), so its
+    # decisions stand as they are
+    assert plain["needs_review"].astype(bool).mean() <= 0.05
+    assert auto["adaptation"].str.contains(r"no season fit \(the model doubts .* % of 500 "
+                                           r"usable pulses, <= 5 %\)").all()
+    assert (auto["label"] == plain["label"]).all()
     capsys.readouterr()
     assert main(["triage", str(c), "--rules", "--season-fit", "--out",
                  str(tmp_path / "x.csv")]) == 2

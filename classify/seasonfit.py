@@ -1,0 +1,137 @@
+"""Fitting a trained model's decisions to a season of another station (``season_fit``).
+
+A model trained on one station's labels meets a season of another station, another
+instrument setting or another year. Where it places nearly every pulse confidently, the
+season looks like its training and its decisions stand. Where it does not, the season
+itself is fitted: the pulses the model places confidently (calibrated probability
+>= :data:`classify.coldstart.CONFIDENT`, a one-class prediction set, not novel, the same
+class with a censored value relaxed) and the analysts' labels of the catalog anchor the
+cold start's self-training on the season (:func:`classify.coldstart.cold_start`), whose
+model then classifies every pulse; the anchors keep the trained model's decisions and
+novelty stays the trained model's.
+
+``mode`` says when: ``"always"``, ``"never"``, or ``"auto"`` (the default of
+``pulsesort triage --model`` and :func:`classify.predict.predict_catalog`): fit when the
+model would send more than :data:`AUTO_DOUBT_SHARE` of the usable pulses to review for
+doubt (:func:`doubtful`). The results file's ``adaptation`` column says which was done
+and on what share.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from features import InputError
+
+from . import coldstart, rules
+
+#: ``mode="auto"`` fits the season when the trained model would send more than this share
+#: of its usable pulses to review for doubt. The project's choice, no source: it is the
+#: review budget the project holds a model to on a season it fits (5 %), so a season on
+#: which the model doubts more than that is treated as another world.
+AUTO_DOUBT_SHARE = 0.05
+
+#: The values of ``season_fit``.
+MODES = ("auto", "always", "never")
+
+
+def season_fit_mode(value) -> str:
+    """``"auto"``, ``"always"`` or ``"never"`` from a mode name or a bool.
+
+    >>> season_fit_mode(True), season_fit_mode(False), season_fit_mode("auto")
+    ('always', 'never', 'auto')
+    """
+    if value is True or value is False or isinstance(value, np.bool_):
+        return "always" if value else "never"
+    if isinstance(value, str) and value in MODES:
+        return value
+    raise InputError(f"season_fit: expected one of {', '.join(MODES)} (or a bool), "
+                     f"got {value!r}")
+
+
+def confident_rows(d) -> np.ndarray:
+    """Rows the trained model places confidently: usable, calibrated probability >=
+    :data:`classify.coldstart.CONFIDENT`, a one-class set, not novel, and the same top
+    class with a censored value relaxed."""
+    proba, relaxed = np.asarray(d["proba"]), np.asarray(d["relaxed"])
+    top = np.argmax(proba, axis=1)
+    novel = np.zeros(len(top), dtype=bool) if d["novelty_threshold"] is None else \
+        np.asarray(d["novelty"]) > d["novelty_threshold"]
+    sure = (np.asarray(d["usable"]) & (proba.max(axis=1) >= coldstart.CONFIDENT) & ~novel
+            & (np.asarray(d["sets"]).sum(axis=1) == 1) & (np.argmax(relaxed, axis=1) == top))
+    return np.flatnonzero(sure)
+
+
+def doubtful(d, review_below: float) -> np.ndarray:
+    """Usable pulses the trained model would send to review for doubt: confidence below
+    ``review_below``, more than one class in the prediction set (which always holds the
+    most probable class, as :func:`classify.decide.decide` completes it), or novel."""
+    proba = np.asarray(d["proba"])
+    novel = np.zeros(len(proba), dtype=bool) if d["novelty_threshold"] is None else \
+        np.asarray(d["novelty"]) > d["novelty_threshold"]
+    sets = np.array(d["sets"], dtype=bool, copy=True)
+    sets[np.arange(len(proba)), np.argmax(proba, axis=1)] = True
+    return np.asarray(d["usable"]) & ((proba.max(axis=1) < review_below) | novel
+                                      | (sets.sum(axis=1) > 1))
+
+
+def fit_to_season(d, frame, cat, settings, *, mode="auto", store=None, n_jobs=1) -> dict:
+    """The trained model's decisions ``d``, fitted to the season where ``mode`` says so.
+
+    Parameters
+    ----------
+    d : dict
+        The trained model's decisions (:func:`classify.predict.season_decisions`).
+    frame : pandas.DataFrame or callable
+        The season's numeric feature columns (the triage spill's), or a function that
+        returns them (called only when the season is fitted).
+    cat : Catalog
+        The season's catalog (its flashes group the self-training's folds).
+    settings : classify.triage.TriageSettings
+        ``review_below``, ``self_training`` and ``coverage`` are used.
+    mode : {"auto", "always", "never"}, default="auto"
+        ``"auto"`` fits when the model would send more than :data:`AUTO_DOUBT_SHARE` of
+        the usable pulses to review for doubt (:func:`doubtful`).
+    store : LabelStore, optional
+        Analysts' labels of this catalog: more anchors (an analyst's label wins).
+    n_jobs : int, default=1
+
+    Returns
+    -------
+    dict
+        ``d`` itself (its ``adaptation`` text saying why no fit was made) or the fitted
+        decisions, in the same form.
+    """
+    mode = season_fit_mode(mode)
+    if mode == "never":
+        return d
+    usable = int(np.count_nonzero(d["usable"]))
+    doubt = np.count_nonzero(doubtful(d, settings.review_below)) / usable if usable else 0.0
+    share = f"the model doubts {100 * doubt:.1f} % of {usable:,} usable pulses"
+    if mode == "auto" and doubt <= AUTO_DOUBT_SHARE:
+        d = dict(d)
+        d["adaptation"] = (f"{d['adaptation']}; no season fit ({share}, "
+                           f"<= {100 * AUTO_DOUBT_SHARE:g} %)")
+        return d
+    rows = confident_rows(d)
+    top = np.argmax(np.asarray(d["proba"]), axis=1)
+    fit = coldstart.cold_start(frame() if callable(frame) else frame, None, cat, settings,
+                               store=store, n_jobs=n_jobs,
+                               seeds=(rows, np.asarray(d["classes"])[top[rows]]))
+    if fit["version"] == rules.RULES_VERSION:  # the self-training could not run
+        return d
+    # the pulses the model placed confidently keep the model's decision
+    cols = {c: i for i, c in enumerate(np.asarray(fit["classes"]).astype(str))}
+    src = [j for j, c in enumerate(np.asarray(d["classes"]).astype(str)) if c in cols]
+    dst = [cols[str(d["classes"][j])] for j in src]
+    for key in ("proba", "relaxed", "sets"):
+        fit[key] = np.array(fit[key], copy=True)
+        block = np.zeros((rows.size, fit[key].shape[1]), dtype=fit[key].dtype)
+        block[:, dst] = np.asarray(d[key])[rows][:, src]
+        fit[key][rows] = block
+    fit["novelty"], fit["novelty_threshold"] = d["novelty"], d["novelty_threshold"]
+    fit["version"] = f"{d['version']} + fitted on the season"
+    why = "" if mode == "always" else f" ({share}, > {100 * AUTO_DOUBT_SHARE:g} %)"
+    fit["adaptation"] = (f"fitted on the season{why} from {rows.size:,} pulses the model "
+                         f"placed confidently: {fit['adaptation']}")
+    return fit
