@@ -94,8 +94,14 @@ __all__ = [
 #: Most lobes of one pulse (initial half-cycle, overshoot, one more swing).
 MAX_LOBES = 3
 #: An opposite-polarity lobe joins the pulse before it if it starts within this gap, s
-#: (or within the previous lobe's own duration when that is longer).
-OVERSHOOT_GAP_S = 2e-6
+#: (or within the previous lobe's own duration when that is longer): the reversed field
+#: of the current stopping at its channel's end, L/v after the pulse (channel sections
+#: up to ~500 m at 1e8 m/s), arrives after silence when the source is far (the static
+#: and induction terms that fill the gap fade as 1/r^3 and 1/r^2, the radiation term as
+#: 1/r; Uman, McLain & Krider 1975; Rakov & Uman 2003, ch. 3; from memory). Shorter
+#: than the 10-50 us between leader steps (Rakov & Uman 2003, ch. 4), which keep the
+#: sign of the train anyway.
+OVERSHOOT_GAP_S = 5e-6
 #: ... and is at most this many times the previous lobe's peak.
 OVERSHOOT_MAX_RATIO = 1.2
 #: Same-sign lobes closer than this, or than this fraction of the longer one's duration,
