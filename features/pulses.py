@@ -102,6 +102,10 @@ MAX_LOBES = 3
 #: than the 10-50 us between leader steps (Rakov & Uman 2003, ch. 4), which keep the
 #: sign of the train anyway.
 OVERSHOOT_GAP_S = 5e-6
+#: ... but a third lobe (a further swing of the initial sign) only within this gap or
+#: bridged to the lobe before it, s: ringing swings on without a pause; a lobe of the
+#: initial sign after a pause rises from the baseline, the next pulse of a train.
+SWING_GAP_S = 2e-6
 #: ... and is at most this many times the previous lobe's peak.
 OVERSHOOT_MAX_RATIO = 1.2
 #: Same-sign lobes closer than this, or than this fraction of the longer one's duration,
@@ -318,13 +322,19 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     bridge = (same_row & bridged[~split] & (gap <= BRIDGE_MAX_S * fs)
               & (ratio <= OVERSHOOT_MAX_RATIO))
     join = (close_small | bridge) & flip
-    # at most MAX_LOBES lobes per pulse: break a chain after every MAX_LOBES joins
-    run = np.zeros(n_l, np.intp)
+    # a further swing of the initial sign (a chain's third lobe) after silence longer
+    # than SWING_GAP_S has its own rise from the baseline: another pulse (a leader step
+    # after the previous one's reversal), not ringing; then at most MAX_LOBES lobes per
+    # pulse (a chain broken after every MAX_LOBES joins)
+    keep = bridge | (gap <= SWING_GAP_S * fs)
     if n_l:
-        starts = np.flatnonzero(~join)
-        seg = np.cumsum(~join) - 1
-        run = np.arange(n_l) - starts[seg]
-        join &= (run % MAX_LOBES) != 0
+        for _ in range(MAX_LOBES):          # a break shifts the chains after it
+            run = _chain_position(join)
+            new = join & (keep | (run % MAX_LOBES < 2))
+            if (new == join).all():
+                break
+            join = new
+        join &= (_chain_position(join) % MAX_LOBES) != 0
     # an overshoot (or RC undershoot) broken by noise: a same-sign lobe close after a
     # joined overshoot lobe, no larger, is its continuation (a pulse riding on the
     # overshoot's tail was split at a valley instead and stands alone, with its height)
@@ -360,6 +370,13 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
                                after_valley=lobes.after_valley[~split], base=l_base,
                                bridged=bridged[~split])
     return table, merged, pulse_of_lobe
+
+
+def _chain_position(join):
+    """Position of each lobe in its chain of joined lobes (0: the chain's first)."""
+    starts = np.flatnonzero(~join)
+    seg = np.cumsum(~join) - 1
+    return np.arange(join.size) - starts[seg]
 
 
 def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):

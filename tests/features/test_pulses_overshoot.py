@@ -83,3 +83,40 @@ def test_a_step_riding_on_the_overshoot_is_a_neighbour(shape):
     assert (out["neighbours_after"] == 1).mean() >= 0.95
     near = out["nearest_neighbour_s"]
     assert (np.abs(near - (at - out["peak_time_s"])) <= 0.1 * (at - 1e-6) + 1 / FS).mean() >= 0.95
+
+
+def _step_train(t, next_at):
+    """A step (Gaussian, sigma 0.3 us, 1 V/m at 1 us), its reversal 3 us later (-0.5 V/m,
+    silence in between: a distant source, see the module docstring) and the next step
+    of the train (+0.55 V/m, 1.1 x the reversal) at ``next_at``."""
+    return (_gauss(t, 1e-6, 0.3e-6, 1.0) + _gauss(t, 4e-6, 0.3e-6, -0.5)
+            + _gauss(t, next_at, 0.3e-6, 0.55))
+
+
+def test_next_step_after_the_reversal_is_a_neighbour():
+    """The next step 8 us after a step (4 us of silence after its reversal: it rises from
+    the baseline, Rakov & Uman 2003, ch. 4: steps 10-50 us apart, a few closer) is one
+    neighbour after, at 8 us, not the step's third lobe; its own reversal is not
+    another one."""
+    rng = np.random.default_rng(6)
+    x = _step_train(_t(), 9e-6)[None] + rng.normal(0, 0.01, (100, M))
+    x += _gauss(_t(), 12e-6, 0.3e-6, -0.27)[None]   # the second step's reversal
+    out = field_features(x, FS, pretrigger_s=PRE)
+    assert (out["neighbours_after"] == 1).mean() >= 0.95
+    near = out["nearest_neighbour_s"] - (9e-6 - out["peak_time_s"])
+    assert (np.abs(near) <= 0.1 * 8e-6 + 1 / FS).mean() >= 0.95
+
+
+def test_ringing_without_a_pause_is_one_pulse():
+    """A damped oscillation (2 us period, amplitude e-folding in 1 us: three swings
+    above the 10 % level (0.61, -0.22, 0.08 V/m, 0.06 the level) with no pause between them, the ringing of a narrow bipolar
+    event's channel; Nag & Rakov 2010, J. Geophys. Res. 115, D20102; from memory) is one
+    pulse: no neighbour."""
+    rng = np.random.default_rng(7)
+    t = _t()
+    u = t - 1e-6
+    ring = np.where(u >= 0, np.sin(2 * np.pi * u / 2e-6) * np.exp(-u / 1e-6), 0.0)
+    x = ring[None] + rng.normal(0, 0.005, (100, M))
+    out = field_features(x, FS, pretrigger_s=PRE)
+    assert (out["neighbours_after"] == 0).mean() >= 0.95
+    assert np.isnan(out["nearest_neighbour_s"]).mean() >= 0.95
