@@ -26,7 +26,10 @@ Definitions (the contract of :mod:`features.schema`):
   overshoot), at most :data:`MAX_LOBES` lobes, each no more than
   :data:`OVERSHOOT_MAX_RATIO` times the previous one; lobes of the same sign separated
   by less than :data:`SAME_SIGN_GAP_S` (or half the longer one's duration) are one lobe
-  broken by noise, unless a deep valley split them.
+  broken by noise, unless a deep valley split them. A lobe of the overshoot's sign riding
+  on the overshoot (no return to the baseline in between) within :data:`REVERSAL_MAX_S`
+  of the peak is the reversed field of the current stopping at its channel's end, part of
+  the pulse (:func:`_rides_own_overshoot`).
 * **catalogued pulse**: the pulse holding the lobe at the trigger, else (within
   :data:`TRIGGER_TOLERANCE_S`) one starting just after it, or ending just before it,
   else the lobe nearest to the trigger within :data:`TRIGGER_SEARCH_S`; never a lobe
@@ -91,8 +94,18 @@ __all__ = [
 #: Most lobes of one pulse (initial half-cycle, overshoot, one more swing).
 MAX_LOBES = 3
 #: An opposite-polarity lobe joins the pulse before it if it starts within this gap, s
-#: (or within the previous lobe's own duration when that is longer).
-OVERSHOOT_GAP_S = 2e-6
+#: (or within the previous lobe's own duration when that is longer): the reversed field
+#: of the current stopping at its channel's end, L/v after the pulse (channel sections
+#: up to ~500 m at 1e8 m/s), arrives after silence when the source is far (the static
+#: and induction terms that fill the gap fade as 1/r^3 and 1/r^2, the radiation term as
+#: 1/r; Uman, McLain & Krider 1975; Rakov & Uman 2003, ch. 3; from memory). Shorter
+#: than the 10-50 us between leader steps (Rakov & Uman 2003, ch. 4), which keep the
+#: sign of the train anyway.
+OVERSHOOT_GAP_S = 5e-6
+#: ... but a third lobe (a further swing of the initial sign) only within this gap or
+#: bridged to the lobe before it, s: ringing swings on without a pause; a lobe of the
+#: initial sign after a pause rises from the baseline, the next pulse of a train.
+SWING_GAP_S = 2e-6
 #: ... and is at most this many times the previous lobe's peak.
 OVERSHOOT_MAX_RATIO = 1.2
 #: Same-sign lobes closer than this, or than this fraction of the longer one's duration,
@@ -123,6 +136,13 @@ BRIDGE_MAX_S = 10e-6
 BRIDGE_SIGMA = 3.0
 #: ... and this many noise sigmas (a baseline off by a fraction of a count is no bridge).
 BRIDGE_LEVEL = 0.5
+#: A lobe of the overshoot's sign riding on a pulse's overshoot (no return to the
+#: baseline) and starting within this of the pulse's peak is its channel-end reversal
+#: (:func:`_rides_own_overshoot`), s: L/v of a channel of up to ~2.5 km at 1e8 m/s, and
+#: the 10-30 us a narrow bipolar event's whole waveform lasts (Rakov & Uman 2003, ch. 8;
+#: from memory). A pulse later than this on an RC undershoot (a fast antenna whose decay
+#: the catalog does not give) stands alone.
+REVERSAL_MAX_S = 25e-6
 
 
 @dataclass(frozen=True)
@@ -302,19 +322,28 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     bridge = (same_row & bridged[~split] & (gap <= BRIDGE_MAX_S * fs)
               & (ratio <= OVERSHOOT_MAX_RATIO))
     join = (close_small | bridge) & flip
-    # at most MAX_LOBES lobes per pulse: break a chain after every MAX_LOBES joins
-    run = np.zeros(n_l, np.intp)
+    # a further swing of the initial sign (a chain's third lobe) after silence longer
+    # than SWING_GAP_S has its own rise from the baseline: another pulse (a leader step
+    # after the previous one's reversal), not ringing; then at most MAX_LOBES lobes per
+    # pulse (a chain broken after every MAX_LOBES joins)
+    keep = bridge | (gap <= SWING_GAP_S * fs)
     if n_l:
-        starts = np.flatnonzero(~join)
-        seg = np.cumsum(~join) - 1
-        run = np.arange(n_l) - starts[seg]
-        join &= (run % MAX_LOBES) != 0
+        for _ in range(MAX_LOBES):          # a break shifts the chains after it
+            run = _chain_position(join)
+            new = join & (keep | (run % MAX_LOBES < 2))
+            if (new == join).all():
+                break
+            join = new
+        join &= (_chain_position(join) % MAX_LOBES) != 0
     # an overshoot (or RC undershoot) broken by noise: a same-sign lobe close after a
     # joined overshoot lobe, no larger, is its continuation (a pulse riding on the
     # overshoot's tail was split at a valley instead and stands alone, with its height)
+    l_after_valley = lobes.after_valley[~split]
     after_os = np.zeros(n_l, dtype=bool)
     after_os[1:] = join[:-1]
-    join |= close_small & ~flip & after_os & ~lobes.after_valley[~split]
+    join |= close_small & ~flip & after_os & ~l_after_valley
+    join |= _rides_own_overshoot(join, same_row & ~flip & l_after_valley, l_sign, l_peak,
+                                 l_start, l_peak_col, REVERSAL_MAX_S * fs)
     pulse_of_lobe = np.cumsum(~join) - 1
     n_p = int(pulse_of_lobe[-1]) + 1
     first = np.flatnonzero(~join)
@@ -341,6 +370,50 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
                                after_valley=lobes.after_valley[~split], base=l_base,
                                bridged=bridged[~split])
     return table, merged, pulse_of_lobe
+
+
+def _chain_position(join):
+    """Position of each lobe in its chain of joined lobes (0: the chain's first)."""
+    starts = np.flatnonzero(~join)
+    seg = np.cumsum(~join) - 1
+    return np.arange(join.size) - starts[seg]
+
+
+def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
+    """Lobes that continue a pulse's own overshoot: the reversed field at its channel end.
+
+    A current pulse stopping at the end of its channel radiates a field of the opposite
+    sign to its initial half-cycle, L/v after it (in the transmission-line model with a
+    channel of finite length L the far field is proportional to i(t) - i(t - L/v):
+    Uman, McLain & Krider 1975, Am. J. Phys. 43, 33; Rakov & Uman 2003, ch. 12 and, for
+    the compact intracloud discharge's reflections, ch. 8; from memory). It rides on the
+    pulse's overshoot, of the overshoot's sign, after a valley: part of the pulse, not
+    another discharge (a leader step's own field has the initial half-cycle's sign, so a
+    step riding on an overshoot is a sign flip and stays apart).
+
+    Parameters
+    ----------
+    join : ndarray of bool, shape (n_lobes,)
+        Lobe joins the pulse of the lobe before it (so far).
+    ride : ndarray of bool
+        Lobe is split at a valley from the lobe before it, same sign, same row (the
+        field did not come back to the baseline in between).
+    sign, peak : ndarray
+        Sign and |e| peak of each lobe.
+
+    Returns
+    -------
+    ndarray of bool
+        Lobes to join: a chain of riding lobes whose head is a joined lobe of the sign
+        opposite to its pulse's initial half-cycle, each no larger than
+        ``OVERSHOOT_MAX_RATIO`` x that half-cycle (a larger pulse is another one).
+    """
+    idx = np.arange(join.size)
+    first = np.maximum.accumulate(np.where(join, 0, idx))     # each pulse's first lobe
+    head = np.maximum.accumulate(np.where(ride, 0, idx))      # each riding chain's head
+    on_os = join[head] & (sign[head] != sign[first[head]])
+    soon = start - peak_col[first[head]] <= max_delay
+    return ride & on_os & soon & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]])
 
 
 def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarray,
