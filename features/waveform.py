@@ -58,7 +58,9 @@ Steps and definitions (the contract of :mod:`features.schema`):
    M(t) and Q(t) where it converges. The current moment's peak is M at the zero crossing
    (where dM/dt = 0) or at the end of a unipolar pulse; the charge moment change is Q at
    the end of the overshoot lobe (or of the pulse). Transmission-line peak current
-   I = -2 pi eps0 c^2 (R^3/D^2) E / v with v = ``TL_SPEED_M_PER_S``.
+   I = -2 pi eps0 c^2 (R^3/D^2) E / v with v = ``TL_SPEED_M_PER_S``. The charge
+   moment change is NaN below 20 dB, where its onset and the end of its tail are lost
+   in the noise (an integral cut short is a wrong number).
 
 References
 ----------
@@ -554,7 +556,11 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "bipolarity": bipolarity,
         "range_normalized_peak_v_per_m": peak_signed * geometry / REFERENCE_RANGE_M,
         "current_moment_peak_a_m": current_moment,
-        "charge_moment_change_c_m": charge_moment,
+        # Q integrates from the onset, lost in the noise below 20 dB (the rule of the
+        # initial half-cycle), to the end of the overshoot's tail, lost sooner still: an
+        # integral cut short there is a wrong number, not a smaller one
+        "charge_moment_change_c_m": np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma_res,
+                                             charge_moment, np.nan),
         "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
         "pulse_start_s": tm(onset),
         # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of

@@ -20,6 +20,8 @@ from features.waveform import (
     field_features,
 )
 
+from .test_waveform import _three_term_field
+
 FS = 20e6
 PRE = 100e-6
 M = 8000
@@ -208,3 +210,24 @@ def test_censored_pulse_gives_no_peak_relative_columns():
         assert np.isfinite(out[name][0]) and np.isnan(out[name][1]), name
     # the half-cycle: onset to the zero crossing, 2 us (closed form), clipped or not
     assert_allclose(out["initial_half_cycle_s"], 2e-6, atol=2 / FS)
+
+
+def test_charge_moment_is_nan_where_the_onset_is_lost_in_the_noise():
+    """The charge moment integrates the current moment from the onset to the end of the
+    tail: at 40 dB it is the closed form's, int M dt = M0 (e^2/2) tau (the three-term
+    field of a known current moment; Uman, McLain & Krider 1975, from memory), within
+    the schema's 20 %; at 15 dB, where the onset is lost in the noise (the initial
+    half-cycle's rule) and the tail sooner still, it is NaN, not a number cut short."""
+    m0, tau, d, h = 2.0e7, 1.5e-6, 80e3, 8e3
+    clean = _three_term_field(_t(), m0, tau, d, h)
+    q_true = m0 * np.e ** 2 / 2 * tau
+    for snr_db in (40.0, 15.0):
+        x, _ = _noisy(clean, snr_db, 20, seed=int(snr_db))
+        out = field_features(x, FS, pretrigger_s=PRE, range_m=np.full(20, d),
+                             altitude_m=np.full(20, h))
+        q = out["charge_moment_change_c_m"]
+        if snr_db >= 20:
+            assert (np.abs(q - q_true) <= 0.2 * q_true).all()
+        else:
+            assert np.isnan(q).all()
+            assert np.isfinite(out["current_moment_peak_a_m"]).all()
