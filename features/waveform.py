@@ -453,12 +453,13 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
                    np.where(np.isfinite(o_b - o_a), np.round((o_b - o_a) / 4.0), 1.0))
     k_os = np.clip(k_os, k, max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
     k_os = np.where(has_zc & (overshoot > 0), k_os, k)
-    if (k_os > k).any():
-        ov_s, _ = _masked_max(-moving_average_rows(u, k_os),
-                              np.where(np.isfinite(o_a), np.floor(np.nan_to_num(o_a)), j_os),
+    more = np.flatnonzero(k_os > k)              # (only those rows: a pass over the record)
+    if more.size:
+        ov_s, _ = _masked_max(-moving_average_rows(u[more], k_os[more]),
+                              np.where(np.isfinite(o_a), np.floor(np.nan_to_num(o_a)), j_os)[more],
                               np.where(np.isfinite(o_b), np.ceil(np.nan_to_num(o_b)) + 1,
-                                       j_os + 1))
-        overshoot = np.where(k_os > k, np.maximum(ov_s, 0.0), overshoot)
+                                       j_os + 1)[more])
+        overshoot[more] = np.maximum(ov_s, 0.0)
     resolvable = peak >= 20.0 * sig_s
     bipolarity = np.where(has_zc, overshoot / np.where(peak > 0, peak, 1.0),
                           np.where(resolvable, 0.0, np.nan))
