@@ -315,8 +315,17 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         ext_start = np.where(has, table.start[own_c], -1)
         guard = max(int(round(0.5e-6 * fs)), 2)
         stop_b = np.where(has, np.minimum(stop_a, ext_start - guard), stop_a)
+        # ... beginning after the end of the lobe before the pulse, if any: the line is
+        # the tail's, not drawn through an earlier pulse (none left: stage A's level); a
+        # pulse split from that lobe at a valley rides on its tail: after its peak then
+        first_b = table.first_lobe[own_c]
+        lobe_b = np.maximum(first_b - 1, 0)
+        after = np.where(has & (first_b > 0) & (merged.row[lobe_b] == rows),
+                         np.where(merged.after_valley[first_b], merged.peak_col[lobe_b] + 1,
+                                  merged.stop[lobe_b]), 0)
         lev_b, slo_b, _, start_b, used_b = _pulses.baseline_fit(
-            e0, stop_b, fs, q, max_s=LOCAL_BASELINE_S, min_slope_s=0.5 * LOCAL_BASELINE_S)
+            e0, stop_b, fs, q, max_s=LOCAL_BASELINE_S, min_slope_s=0.5 * LOCAL_BASELINE_S,
+            start_min=after)
         use_b = has & (used_b >= _pulses.BASELINE_MIN_SAMPLES)
         level = np.where(use_b, lev_b, level)
         slope = np.where(use_b, slo_b, 0.0)

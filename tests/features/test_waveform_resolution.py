@@ -231,3 +231,22 @@ def test_charge_moment_is_nan_where_the_onset_is_lost_in_the_noise():
         else:
             assert np.isnan(q).all()
             assert np.isfinite(out["current_moment_peak_a_m"]).all()
+
+
+@pytest.mark.parametrize("start_s, half_s", [(-8e-6, 1.5e-6), (-9e-6, 1.8e-6)])
+def test_baseline_line_is_not_drawn_through_an_earlier_pulse(start_s, half_s):
+    """A pulse after an earlier, complete one whose long overshoot fills the stretch
+    before it (over by -3.5 us): the local baseline line begins after the earlier
+    pulse's last lobe, so the catalogued pulse keeps the closed forms of the bipolar
+    sine (peak 1 V/m, bipolarity 0.5, zero crossing half a half-cycle after the peak),
+    as if alone; a line through the earlier pulse read its peak up to twice too big."""
+    t = _t()
+    earlier = 0.8 * _bipolar_sine(t - start_s, half_s, 0.3)
+    own = _bipolar_sine(t, 2e-6, 0.5)
+    rng = np.random.default_rng(3)
+    x = (earlier + own)[None, :] + rng.normal(0.0, 1e-3, (1, t.size))   # 60 dB
+    out = field_features(x, FS, pretrigger_s=PRE)
+    assert out["neighbours_before"][0] == 1
+    assert_allclose(out["peak_field_v_per_m"], 1.0, rtol=0.01)
+    assert abs(out["bipolarity"][0] - 0.5) <= BIPOLARITY_TOLERANCE / 4
+    assert_allclose(out["zero_crossing_s"], 1e-6, atol=DURATION_SAMPLES / FS)
