@@ -47,9 +47,10 @@ Steps and definitions (the contract of :mod:`features.schema`):
    below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
    samples (the noise taken as at least half a digitizer step here); width shorter than two samples or with its 10 % level under 2 sigma_s;
    bipolarity of a unipolar-looking pulse whose noise could hide an overshoot of 15 %.
-   A time read off a crossing is uncertain by sigma_s / |du_s/dt| there: rise time and
-   zero crossing are NaN where :data:`RESOLVE_SIGMAS` of that uncertainty exceed the
-   column's tolerance (10 % + 1 sample), bipolarity where as many of its level
+   A time read off a crossing is uncertain by sigma_s / |du_s/dt| there (the slope over
+   +-the column's tolerance): rise time, zero crossing and width are NaN where
+   :data:`RESOLVE_SIGMAS` of that uncertainty exceed the column's tolerance (10 % + 1
+   sample; the zero crossing's is that of its line fit), bipolarity where as many of its level
    uncertainty (overshoot and peak noise over P) exceed 0.08. A censored pulse (at the
    digitizer's full scale) has no known peak: the columns of :data:`CENSORED_NAN` are NaN.
 9. **Moments and currents** (:mod:`features.moments`): the D^2/R^3 geometry of an
@@ -535,10 +536,19 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     # over k: its noise averaged over (2 h + 1) / k independent values)
     stzc = _crossing_sigma(u_s, zc, sig_s, np.fmax(tol_zc, k / 2.0)) / np.sqrt(
         np.maximum((2 * np.floor(np.minimum(h_zc, REFINE_MAX_HALF)) + 1) / k, 1.0))
+    # the width's end: on the tail copy where it is the overshoot's fall, else on u_s
+    tol_w = DURATION_REL * np.abs(width) + DURATION_SAMPLES
+    on_tail = big_os & np.isfinite(os_fall)
+    st10_w = _crossing_sigma(u_s, c10, sig_s * np.sqrt(1.01), np.fmax(tol_w, k / 2.0))
+    st_w = np.where(on_tail,
+                    _crossing_sigma(nu_t, end_w, sigma / np.sqrt(k_tail),
+                                    np.fmax(tol_w, k_tail / 2.0)),
+                    np.where(big_os, 0.0,      # (the overshoot lobe's end: not a 10 % fall)
+                             _crossing_sigma(u_s, end_w, sig_s, np.fmax(tol_w, k / 2.0))))
     with np.errstate(invalid="ignore"):
         rise_ok = (RESOLVE_SIGMAS * np.hypot(st10, st90) <= tol_rise) & ~censored
         zc_ok = (RESOLVE_SIGMAS * stzc <= tol_zc) & ~censored
-        width_ok = ~censored
+        width_ok = (RESOLVE_SIGMAS * np.hypot(st10_w, st_w) <= tol_w) & ~censored
         sig_b = np.hypot(sigma / np.sqrt(k_os), bipolarity * sig_s) / peak
         bip_ok = (RESOLVE_SIGMAS * sig_b <= BIPOLARITY_TOLERANCE) & ~censored
     bipolarity = np.where(bip_ok | (bipolarity == 0), bipolarity, np.nan)
