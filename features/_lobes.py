@@ -98,7 +98,7 @@ def _block_sigma(block, valid, block_len, quantum):
 
 def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum: float = 0.0,
                  *, max_s: float = BASELINE_MAX_S, min_slope_s: float = BASELINE_MIN_S,
-                 quiet_level: bool = False):
+                 quiet_level: bool = False, start_min=None):
     """Robust straight-line baseline and noise of the stretch before ``stop`` in each row.
 
     Parameters
@@ -116,6 +116,8 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     quiet_level : bool, default=False
         Take the level from the stretch's quietest sub-block (the record before an
         earlier pulse and its tail) instead of a line through the whole stretch.
+    start_min : ndarray of int, shape (n,), optional
+        The stretch begins no earlier than this column (e.g. after an earlier lobe).
 
     Returns
     -------
@@ -134,6 +136,8 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
     fs = float(sample_rate_hz)
     stop = np.clip(np.asarray(stop, dtype=np.intp), 0, w)
     length = np.minimum(stop, max(int(round(max_s * fs)), BASELINE_MIN_SAMPLES))
+    if start_min is not None:
+        length = np.clip(stop - np.asarray(start_min, dtype=np.intp), 0, length)
     start = stop - length
     # one gather of a fixed-width block per row (rows shorter than it are masked)
     width = int(length.max(initial=0))

@@ -135,3 +135,70 @@ def _first_subpeak(u, s, c50, peak, sigma, fs):
         todo &= ~prominent
         cand[rows[found], j[found]] = False
     return out
+
+
+def _crossing_sigma(u, c, sigma, half):
+    """Time uncertainty of a level crossing, in samples: sigma / |du/dt| there.
+
+    The slope is the central difference of ``u`` over +-``half`` samples about the
+    (fractional) crossing ``c``; a noise sigma moves the crossing by sigma / |slope|
+    (error propagation of a threshold crossing; common practice, no source). ``inf``
+    where the crossing is NaN or the slope is zero.
+    """
+    from ._rowops import interp_rows
+    slope = np.abs(interp_rows(u, c + half) - interp_rows(u, c - half)) / (2.0 * half)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = sigma / slope
+    return np.where(np.isfinite(out), out, np.inf)
+
+
+#: Longest half-window of a crossing's line fit, samples (bounds the gather's width).
+REFINE_MAX_HALF = 64
+
+
+def _refine_crossing(u, c, level, half):
+    """A crossing re-read off a least-squares line through the samples within
+    +-``half`` of it.
+
+    A crossing found as the last (or first) sample pair to pass a level is biased
+    toward the search's end by noise (the last of several noise crossings wins); the
+    line through the samples around it crosses the level where the signal does, its
+    noise averaged over the window (least-squares line; common practice, no source).
+    Kept as it was where the fit's slope is flat or moves it beyond the window.
+
+    Parameters
+    ----------
+    u : ndarray, shape (n, w)
+    c : ndarray, shape (n,)
+        Fractional crossing columns (NaN: none).
+    level : ndarray, shape (n,)
+    half : ndarray, shape (n,)
+        Half-window of the fit, samples (at least 1; at most :data:`REFINE_MAX_HALF`).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+    """
+    n, w = u.shape
+    ok = np.isfinite(c)
+    if not ok.any() or w < 3:
+        return c
+    h = np.clip(np.nan_to_num(half, nan=1.0), 1.0, REFINE_MAX_HALF)
+    big = int(np.ceil(h.max()))
+    centre = np.round(np.where(ok, c, 0.0)).astype(np.intp)
+    offs = np.arange(-big, big + 1)
+    cols = centre[:, None] + offs[None, :]
+    x = cols - np.where(ok, c, 0.0)[:, None]               # samples from the crossing
+    inside = (np.abs(x) <= h[:, None]) & (cols >= 0) & (cols < w)
+    y = np.take_along_axis(u, np.clip(cols, 0, w - 1), axis=1)
+    wgt = inside.astype(float)
+    s0 = wgt.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        xm = (wgt * x).sum(axis=1) / s0
+        ym = (wgt * y).sum(axis=1) / s0
+        sxx = (wgt * (x - xm[:, None]) ** 2).sum(axis=1)
+        sxy = (wgt * (x - xm[:, None]) * (y - ym[:, None])).sum(axis=1)
+        b = sxy / sxx
+        shift = xm + (level - ym) / b                    # where the line meets the level
+    good = ok & (s0 >= 3) & np.isfinite(shift) & (np.abs(shift) <= h) & (b != 0)
+    return np.where(good, c + np.where(good, shift, 0.0), c)

@@ -34,7 +34,8 @@ Steps and definitions (the contract of :mod:`features.schema`):
    crossing, bipolarity 0). The **overshoot lobe** ends where it comes back through 0
    before rising above max(3 sigma_s, 10 % of P) (hysteresis again), or
    where the overshoot's tail first falls below max(2 sigma_t, 1 % of P) after the
-   overshoot's peak, or at the next pulse; its peak is taken on the smoothed copy. The
+   overshoot's peak, or at the next pulse; its peak is taken on a copy smoothed over a
+   quarter of the overshoot's own FWHM (at most to 1 % of P, as the peak's). The
    tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
    sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
    early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
@@ -46,13 +47,21 @@ Steps and definitions (the contract of :mod:`features.schema`):
    below 20 dB SNR or shorter than one sample; FWHM below 12 dB or shorter than two
    samples (the noise taken as at least half a digitizer step here); width shorter than two samples or with its 10 % level under 2 sigma_s;
    bipolarity of a unipolar-looking pulse whose noise could hide an overshoot of 15 %.
+   A time read off a crossing is uncertain by sigma_s / |du_s/dt| there (the slope over
+   +-the column's tolerance): rise time, zero crossing and width are NaN where
+   :data:`RESOLVE_SIGMAS` of that uncertainty exceed the column's tolerance (10 % + 1
+   sample; the zero crossing's is that of its line fit), bipolarity where as many of its level
+   uncertainty (overshoot and peak noise over P) exceed 0.08. A censored pulse (at the
+   digitizer's full scale) has no known peak: the columns of :data:`CENSORED_NAN` are NaN.
 9. **Moments and currents** (:mod:`features.moments`): the D^2/R^3 geometry of an
    elevated source (altitude from the mapped sources, else
    :data:`features.moments.DEFAULT_ALTITUDE_M`, flagged), the three-term inversion for
    M(t) and Q(t) where it converges. The current moment's peak is M at the zero crossing
    (where dM/dt = 0) or at the end of a unipolar pulse; the charge moment change is Q at
    the end of the overshoot lobe (or of the pulse). Transmission-line peak current
-   I = -2 pi eps0 c^2 (R^3/D^2) E / v with v = ``TL_SPEED_M_PER_S``.
+   I = -2 pi eps0 c^2 (R^3/D^2) E / v with v = ``TL_SPEED_M_PER_S``. The charge
+   moment change is NaN below 20 dB, where its onset and the end of its tail are lost
+   in the noise (an integral cut short is a wrong number).
 
 References
 ----------
@@ -75,15 +84,18 @@ from ._rowops import (
     parabolic_peak,
     take_rows,
 )
-from ._waveform_rows import SUBPEAK_HALF_S as SUBPEAK_HALF_S
 from ._waveform_rows import (
+    REFINE_MAX_HALF,
+    _crossing_sigma,
     _fill_missing,
     _first_subpeak,
     _last_at_least,
     _masked_max,
     _mean_before,
+    _refine_crossing,
     _subtract_baseline,
 )
+from ._waveform_rows import SUBPEAK_HALF_S as SUBPEAK_HALF_S
 from .moments import (
     DEFAULT_ALTITUDE_M,
     NEAR_FIELD_RATIO,
@@ -126,6 +138,20 @@ SNR_CAP_DB = 200.0
 #: 2 sigma for the FWHM (12 dB) (common practice, no source).
 MIN_PEAK_SIGMA_RISE = 10.0
 MIN_PEAK_SIGMA_FWHM = 4.0
+#: A duration read off crossings (or a level ratio) is kept where this many of its
+#: standard uncertainties fit inside its tolerance (1.25: at the limit 79 % of Gaussian
+#: errors within, more for the values kept; common practice, no source; 1.5 withheld
+#: half again as many bipolarities for 0.8 % more within); the tolerances are the
+#: schema's (:mod:`features.schema`): 10 % of a duration plus one sample, 0.08 for
+#: bipolarity.
+RESOLVE_SIGMAS = 1.25
+DURATION_REL = 0.10
+DURATION_SAMPLES = 1.0
+BIPOLARITY_TOLERANCE = 0.08
+#: Columns relative to the peak (its level or its time) that a censored pulse, whose
+#: peak the digitizer clipped, cannot give: NaN there.
+CENSORED_NAN = ("rise_time_s", "fwhm_s", "zero_crossing_s", "width_s", "bipolarity",
+                "pulse_end_s")
 #: Smallest peak, in noise sigmas, for a usable field record.
 MIN_PEAK_SIGMA_OK = 3.0
 #: Longest smoothing of the trailing measures, s.
@@ -291,8 +317,17 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         ext_start = np.where(has, table.start[own_c], -1)
         guard = max(int(round(0.5e-6 * fs)), 2)
         stop_b = np.where(has, np.minimum(stop_a, ext_start - guard), stop_a)
+        # ... beginning after the end of the lobe before the pulse, if any: the line is
+        # the tail's, not drawn through an earlier pulse (none left: stage A's level); a
+        # pulse split from that lobe at a valley rides on its tail: after its peak then
+        first_b = table.first_lobe[own_c]
+        lobe_b = np.maximum(first_b - 1, 0)
+        after = np.where(has & (first_b > 0) & (merged.row[lobe_b] == rows),
+                         np.where(merged.after_valley[first_b], merged.peak_col[lobe_b] + 1,
+                                  merged.stop[lobe_b]), 0)
         lev_b, slo_b, _, start_b, used_b = _pulses.baseline_fit(
-            e0, stop_b, fs, q, max_s=LOCAL_BASELINE_S, min_slope_s=0.5 * LOCAL_BASELINE_S)
+            e0, stop_b, fs, q, max_s=LOCAL_BASELINE_S, min_slope_s=0.5 * LOCAL_BASELINE_S,
+            start_min=after)
         use_b = has & (used_b >= _pulses.BASELINE_MIN_SAMPLES)
         level = np.where(use_b, lev_b, level)
         slope = np.where(use_b, slo_b, 0.0)
@@ -375,6 +410,13 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     nu_s = -u_s                                # the overshoot's side, searched upwards
     zc = crossing_before(nu_s, jc, np.zeros(n), start=s)
     has_zc &= np.isfinite(zc)
+    # ... re-read off a line through the samples within +-3 sigma_t of it (the span of its
+    # noise crossings: the last of them is not the signal's), at most its tolerance
+    # (10 % + 1 sample; between the lobes the pulse is nearly straight over that)
+    tol_zc = DURATION_REL * np.abs(zc - s_frac) + DURATION_SAMPLES
+    h_zc = np.clip(3 * _crossing_sigma(u_s, zc, sig_s, np.fmax(tol_zc, k / 2.0)),
+                   np.maximum(k / 2.0, 1.0), np.fmax(0.5 * np.abs(zc - s_frac), k / 2.0))
+    zc = np.where(has_zc, _refine_crossing(u_s, zc, np.zeros(n), h_zc), zc)
     ihc = zc - onset
     lobe_stop = np.minimum(np.minimum(next_start, jc + np.ceil(10 * np.nan_to_num(ihc))
                                       .astype(np.intp) + 1), m)
@@ -411,6 +453,24 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
                                   np.where(has_zc, np.nan_to_num(lobe_end) + 1, 0))
     overshoot = np.where(has_zc, np.maximum(overshoot, 0.0), 0.0)
+    # the overshoot's peak on a copy smoothed over a quarter of the overshoot's own FWHM
+    # (as the peak's, at most to 1 % of P): a broad overshoot's largest noisy sample would
+    # overstate it by a noise maximum
+    o_a = crossing_before(nu_s, j_os, 0.5 * overshoot,
+                          start=np.floor(np.nan_to_num(zc)).astype(np.intp))
+    o_b = crossing_after(nu_s, j_os, 0.5 * overshoot,
+                         stop=np.nan_to_num(lobe_end).astype(np.intp) + 1)
+    k_os = np.fmin(np.nan_to_num(need, nan=1.0, posinf=1.0),
+                   np.where(np.isfinite(o_b - o_a), np.round((o_b - o_a) / 4.0), 1.0))
+    k_os = np.clip(k_os, k, max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
+    k_os = np.where(has_zc & (overshoot > 0), k_os, k)
+    more = np.flatnonzero(k_os > k)              # (only those rows: a pass over the record)
+    if more.size:
+        ov_s, _ = _masked_max(-moving_average_rows(u[more], k_os[more]),
+                              np.where(np.isfinite(o_a), np.floor(np.nan_to_num(o_a)), j_os)[more],
+                              np.where(np.isfinite(o_b), np.ceil(np.nan_to_num(o_b)) + 1,
+                                       j_os + 1)[more])
+        overshoot[more] = np.maximum(ov_s, 0.0)
     resolvable = peak >= 20.0 * sig_s
     bipolarity = np.where(has_zc, overshoot / np.where(peak > 0, peak, 1.0),
                           np.where(resolvable, 0.0, np.nan))
@@ -459,12 +519,47 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         censored = ((np.abs(x_filled[:, b0:b1]) >= float(full_scale_v_per_m) * (1 - 1e-9))
                     & (band_cols >= lo_c[:, None]) & (band_cols < hi_c[:, None])).any(axis=1)
 
-    # resolution: NaN rather than a number the record cannot carry
+    # resolution: NaN rather than a number the record cannot carry. A time read off a
+    # crossing moves by sigma_s / |du_s/dt| there (error propagation of a threshold
+    # crossing; common practice, no source); a duration whose RESOLVE_SIGMAS-sigma
+    # uncertainty exceeds its tolerance (DURATION_REL of it + DURATION_SAMPLES) is not
+    # resolved, and a level ratio likewise against BIPOLARITY_TOLERANCE. A censored pulse
+    # (at full scale) has no known peak: nothing relative to it (levels, 10-90 %, the
+    # peak's time) is measured
+    # (the slope over +-the tolerance: within it the crossing is resolved when the pulse
+    # moves by more than its noise, and so measured the slope is not the noise's)
+    tol_rise = DURATION_REL * np.abs(c90 - c10) + DURATION_SAMPLES
+    tol_zc = DURATION_REL * np.abs(zc - s_frac) + DURATION_SAMPLES
+    # (a level f P moves with the peak too: its noise is sigma_s sqrt(1 + f^2))
+    st10 = _crossing_sigma(u_s, c10, sig_s * np.sqrt(1.01), np.fmax(tol_rise, k / 2.0))
+    st90 = _crossing_sigma(u_s, c90, sig_s * np.sqrt(1.81), np.fmax(tol_rise, k / 2.0))
+    # (the zero crossing is read off a line through 2 h + 1 samples of a record smoothed
+    # over k: its noise averaged over (2 h + 1) / k independent values)
+    stzc = _crossing_sigma(u_s, zc, sig_s, np.fmax(tol_zc, k / 2.0)) / np.sqrt(
+        np.maximum((2 * np.floor(np.minimum(h_zc, REFINE_MAX_HALF)) + 1) / k, 1.0))
+    # the width's end: on the tail copy where it is the overshoot's fall, else on u_s
+    tol_w = DURATION_REL * np.abs(width) + DURATION_SAMPLES
+    on_tail = big_os & np.isfinite(os_fall)
+    st10_w = _crossing_sigma(u_s, c10, sig_s * np.sqrt(1.01), np.fmax(tol_w, k / 2.0))
+    st_w = np.where(on_tail,
+                    _crossing_sigma(nu_t, end_w, sigma / np.sqrt(k_tail),
+                                    np.fmax(tol_w, k_tail / 2.0)),
+                    np.where(big_os, 0.0,      # (the overshoot lobe's end: not a 10 % fall)
+                             _crossing_sigma(u_s, end_w, sig_s, np.fmax(tol_w, k / 2.0))))
+    with np.errstate(invalid="ignore"):
+        rise_ok = (RESOLVE_SIGMAS * np.hypot(st10, st90) <= tol_rise) & ~censored
+        zc_ok = (RESOLVE_SIGMAS * stzc <= tol_zc) & ~censored
+        width_ok = (RESOLVE_SIGMAS * np.hypot(st10_w, st_w) <= tol_w) & ~censored
+        sig_b = np.hypot(sigma / np.sqrt(k_os), bipolarity * sig_s) / peak
+        bip_ok = (RESOLVE_SIGMAS * sig_b <= BIPOLARITY_TOLERANCE) & ~censored
+    bipolarity = np.where(bip_ok | (bipolarity == 0), bipolarity, np.nan)
+    bipolarity = np.where(censored, np.nan, bipolarity)
     rise = (c90 - c10) * dt
-    rise = np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma_res) & (c90 - c10 >= 1.0), rise, np.nan)
+    rise = np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma_res) & (c90 - c10 >= 1.0) & rise_ok,
+                    rise, np.nan)
     fwhm = np.where((peak >= MIN_PEAK_SIGMA_FWHM * sigma_res) & (fwhm_samples >= 2.0),
                     fwhm_samples * dt, np.nan)
-    width = np.where(width >= 2.0, width * dt, np.nan)
+    width = np.where((width >= 2.0) & width_ok, width * dt, np.nan)
     sub = _first_subpeak(u, s, c50, peak, sigma, fs)
 
     t0 = -pretrigger_s - delay_s            # physical time of column 0
@@ -476,13 +571,17 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "fwhm_s": fwhm,
         "initial_half_cycle_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma_res),
                                          ihc * dt, np.nan),
-        "zero_crossing_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma_res),
+        "zero_crossing_s": np.where(has_zc & (peak >= MIN_PEAK_SIGMA_RISE * sigma_res) & zc_ok,
                                     (zc - s_frac) * dt, np.nan),
         "width_s": width,
         "bipolarity": bipolarity,
         "range_normalized_peak_v_per_m": peak_signed * geometry / REFERENCE_RANGE_M,
         "current_moment_peak_a_m": current_moment,
-        "charge_moment_change_c_m": charge_moment,
+        # Q integrates from the onset, lost in the noise below 20 dB (the rule of the
+        # initial half-cycle), to the end of the overshoot's tail, lost sooner still: an
+        # integral cut short there is a wrong number, not a smaller one
+        "charge_moment_change_c_m": np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma_res,
+                                             charge_moment, np.nan),
         "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
         "pulse_start_s": tm(onset),
         # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
@@ -505,6 +604,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     }
     for key, val in out.items():
         out[key] = np.where(ok, val, np.nan)
+    for key in CENSORED_NAN:
+        out[key] = np.where(censored, np.nan, out[key])
     out.update({
         "field_ok": ok,
         "field_censored": censored & ok,
