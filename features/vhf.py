@@ -58,6 +58,10 @@ common practice, no source).
 * **censored**: a raw sample of the window at or beyond the channel's full scale: the
   peak is then a lower bound (NBEs, the strongest VHF emitters, saturate receivers set
   sensitive enough for everything else).
+
+(Longer than 400 lines: the envelope, its noise floor and spread, and the burst's time,
+standard error and width are computed on the same arrays in one pass; split, they would
+be handed between modules as half a dozen arrays.)
 """
 
 from __future__ import annotations
@@ -375,7 +379,7 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     dict of str -> ndarray, shape (n_pulses,)
         ``vhf_peak_db`` (10 log10 of the smoothed peak power, catalog units),
         ``vhf_peak_time_s`` (physical time of the burst, the centroid of its top half,
-        s), ``vhf_snr_db`` (peak over
+        s; NaN below 3 dB SNR or a standard error over :data:`MAX_TIME_SE_S`), ``vhf_snr_db`` (peak over
         the noise floor, dB), ``vhf_width_s`` (s), ``vhf_censored`` (bool),
         ``vhf_ok`` (bool: the row has VHF samples).
     """
