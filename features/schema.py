@@ -341,7 +341,9 @@ FEATURES: tuple[Feature, ...] = (
     Feature("vhf_field_lag_s", "s", "physical time of the field peak minus that of the VHF "
             "burst (centroid of the smoothed envelope's top half above the noise floor; "
             "positive: VHF leads; searched from the onset less the rise to 2 us after the "
-            "field peak); both channels delay-corrected; NaN below 3 dB VHF SNR", "vhf",
+            "field peak); both channels delay-corrected; NaN below 3 dB VHF SNR and where "
+            "the burst time's standard error (the envelope's speckle and noise through the "
+            "centroid) exceeds 0.15 us", "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
@@ -367,7 +369,8 @@ FEATURES: tuple[Feature, ...] = (
                                 truth="instrument")),
     Feature("vhf_width_s", "s", "time the smoothed envelope's excess over the noise floor "
             "stays above 10 % of the peak's around it; NaN below 10 dB SNR, where clipped "
-            "(vhf_censored) and where the burst runs off the record", "vhf", requires=frozenset({"vhf"}),
+            "(vhf_censored) and where the burst runs off the record", "vhf",
+            requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.10, vhf_bins=1)),
     Feature("vhf_censored", "bool", "a raw VHF sample of the window reaches full scale: the "
             "VHF peak is a lower bound", "vhf", requires=frozenset({"vhf"})),
