@@ -51,18 +51,40 @@ VARIANT_CHUNK_SIZE = 64
 VARIANT_ONE_PER_TRIGGER = 0.5
 VARIANT_DEAD_TIME_S = (2e-4, 2e-3)
 VARIANT_NO_FLASH_IDS = 0.3
+#: A variant catalogues, with chance VARIANT_THINNED, only a share of the pulses drawn
+#: uniformly in VARIANT_KEEP_FRACTION (a higher trigger level, a cap per flash); each of
+#: its flashes, with chance VARIANT_TIME_SCALED, has another storm's time scale: its
+#: pulses' times since the flash began stretched by a factor drawn log-uniformly in
+#: VARIANT_TIME_SCALE (flash stages last from a few to a few hundred ms; our choice, no
+#: source), so the time in the flash separates leaders from recoils less sharply.
+VARIANT_THINNED = 0.5
+VARIANT_KEEP_FRACTION = (0.25, 1.0)
+VARIANT_TIME_SCALED = 0.7
+VARIANT_TIME_SCALE = (0.33, 3.0)
+
+
+def _log_uniform(rng, bounds):
+    lo, hi = bounds
+    return float(np.exp(rng.uniform(np.log(lo), np.log(hi))))
 
 
 def _practice(cat, rng):
     """Which pulses a station variant catalogues, and their flash context."""
     from features.augment import practice_context
 
-    dead = None
-    if rng.random() < VARIANT_ONE_PER_TRIGGER:
-        lo, hi = VARIANT_DEAD_TIME_S
-        dead = float(np.exp(rng.uniform(np.log(lo), np.log(hi))))
-    return practice_context(cat, dead_time_s=dead,
-                            drop_flash_ids=bool(rng.random() < VARIANT_NO_FLASH_IDS))
+    dead = _log_uniform(rng, VARIANT_DEAD_TIME_S) if rng.random() < VARIANT_ONE_PER_TRIGGER \
+        else None
+    drop_ids = bool(rng.random() < VARIANT_NO_FLASH_IDS)
+    keep = float(rng.uniform(*VARIANT_KEEP_FRACTION)) if rng.random() < VARIANT_THINNED else 1.0
+    # each flash its own storm's time scale (one draw per flash id)
+    codes = np.unique(cat.events["flash_id"].astype(str).to_numpy(), return_inverse=True)[1]
+    n_flashes = int(codes.max()) + 1 if len(codes) else 0
+    lo, hi = np.log(VARIANT_TIME_SCALE)
+    per_flash = np.where(rng.random(n_flashes) < VARIANT_TIME_SCALED,
+                         np.exp(rng.uniform(lo, hi, n_flashes)), 1.0)
+    scale = per_flash[codes]
+    return practice_context(cat, dead_time_s=dead, drop_flash_ids=drop_ids, keep_fraction=keep,
+                            time_scale=scale, rng=rng)
 
 
 def training_table(catalogs, store, *, station_variants=0, seed=0,
@@ -77,7 +99,8 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
         Also compute the labelled pulses' features as this many other stations would
         record them (:mod:`features.augment`; each chunk of 64 pulses another station)
         and catalogue them (half the variants one record per trigger with a dead time,
-        some without flash ids: :func:`features.augment.practice_context`), so the model
+        some without flash ids, half keeping only a share of the pulses, most flashes on
+        another time scale: :func:`features.augment.practice_context`), so the model
         learns what a pulse is, not what this station's records and catalogs look like.
     seed : int, default=0
         Seed of the stations drawn.

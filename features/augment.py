@@ -227,15 +227,37 @@ def apply_vhf(vhf: np.ndarray, ch: Channel, v: StationVariant, rng=None):
     return x, dataclasses.replace(ch, full_scale=full)
 
 
-def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False):
+def _stretch_flashes(t_ns, flash_id, scale):
+    """Times with each pulse's time since its flash's first pulse multiplied by ``scale``.
+
+    Pulses without flash id ("") are stretched about the catalog's first pulse.
+    """
+    code = np.full(len(t_ns), -1, dtype=np.int64)
+    has = flash_id != ""
+    if has.any():
+        code[has] = np.unique(flash_id[has], return_inverse=True)[1]
+    first = np.full(code.max() + 2, np.iinfo(np.int64).max, dtype=np.int64)
+    np.minimum.at(first, code + 1, t_ns)
+    first[0] = t_ns.min()
+    t0 = first[code + 1]
+    return t0 + np.round((t_ns - t0).astype(np.float64) * scale).astype(np.int64)
+
+
+def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False, keep_fraction=1.0,
+                     time_scale=1.0, rng=None):
     """The flash context of the pulses another cataloguing practice would have kept.
 
     A station that records one window per trigger and is then dead for ``dead_time_s``
     catalogues the first pulse of a train and none of the steps that follow within the
     dead time (they are inside its record instead); a station that gives no flash ids
-    has its flashes grouped (:func:`features.flashes.group_flashes`). The context
-    features (:mod:`features.context`) of the kept pulses then differ from those of a
-    station that catalogues every pulse, and a model must not depend on the practice.
+    has its flashes grouped (:func:`features.flashes.group_flashes`); a station with a
+    higher trigger level or a cap on the pulses kept per flash catalogues only some of
+    them (``keep_fraction``, at random), so a flash's first catalogued pulse need not be
+    its first pulse; and storms elsewhere have flashes whose stages last longer or
+    shorter (``time_scale`` stretches each pulse's time since its flash began). The
+    context features (:mod:`features.context`) of the kept pulses then differ from those
+    of a station that catalogues every pulse of this storm, and a model must not depend
+    on the practice or on one storm's time scale.
 
     Parameters
     ----------
@@ -244,6 +266,14 @@ def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False):
         Dead time after each kept trigger, s (None: every pulse kept).
     drop_flash_ids : bool, default=False
         Ignore the catalog's flash ids (group flashes instead).
+    keep_fraction : float, default=1.0
+        Chance that each pulse is catalogued at all (before the dead time), 0-1.
+    time_scale : float or ndarray, shape (n_events,), default=1.0
+        Time of each pulse since the first pulse of its flash (of the catalog, for
+        pulses without flash id) multiplied by this (> 0; 1: as recorded); one value
+        per pulse gives each flash its own time scale when the values of a flash agree.
+    rng : numpy.random.Generator, optional
+        Random stream of the thinning (needed when ``keep_fraction < 1``).
 
     Returns
     -------
@@ -256,13 +286,24 @@ def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False):
     from .flashes import group_flashes, pulse_positions_m
 
     n = catalog.n_events
-    t = catalog.time_ns
+    scale = np.broadcast_to(np.asarray(time_scale, dtype=np.float64), (n,))
+    if not 0.0 < keep_fraction <= 1.0 or not np.all(scale > 0.0):
+        raise ValueError("keep_fraction must be in (0, 1] and time_scale > 0")
+    t = np.asarray(catalog.time_ns, dtype=np.int64)
+    if n and np.any(scale != 1.0):
+        t = _stretch_flashes(t, catalog.events["flash_id"].astype(str).to_numpy(), scale)
     keep = np.ones(n, dtype=bool)
+    if keep_fraction < 1.0 and n:
+        rng = np.random.default_rng() if rng is None else rng
+        keep = rng.random(n) < keep_fraction
     if dead_time_s is not None and n:
+        candidate = keep.copy()
         keep[:] = False
         dead_ns = int(round(dead_time_s * 1e9))
         last = None
         for i in np.argsort(t, kind="stable"):
+            if not candidate[i]:
+                continue
             if last is None or t[i] >= last + dead_ns:
                 keep[i] = True
                 last = int(t[i])

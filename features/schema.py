@@ -397,7 +397,8 @@ FEATURES: tuple[Feature, ...] = (
             tolerance=Tolerance(sigma=3, noise="speed_se_m_per_s", of="speed_m_per_s")),
     Feature("speed_snr", "1", "speed_m_per_s / speed_se_m_per_s: how far the speed stands "
             "above its noise (0 when the motion is within the noise; the SE has n_sources - 2 "
-            "degrees of freedom, so with few sources large values happen by chance)", "mapping",
+            "degrees of freedom, so with few sources large values happen by chance); scales with "
+            "the station's position noise as much as with the motion", "mapping", model=False,
             requires=frozenset({"range", "sources"}),
             tolerance=Tolerance(rel=0.10, sigma=3, noise="speed_se_m_per_s", of="speed_m_per_s")),
     Feature("vertical_speed_m_per_s", "m/s", "signed vertical component of that velocity "
