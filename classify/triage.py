@@ -82,6 +82,24 @@ def _cached_model(model_dir: str):
     return load_model(model_dir)
 
 
+def _load_in_background(model_dir: str):
+    """Start loading the model (:func:`_cached_model`) in a thread; return its future.
+
+    The load (importing scikit-learn and skops, building ~1,600 tree predictors: ~2 s
+    CPU, mostly Python holding the GIL) overlaps the features phase when its work runs
+    in worker processes, while this process mostly waits for their results.
+    ``future.result()`` must be taken before anything else calls :func:`_cached_model`
+    for that folder, so the model is loaded once.
+    """
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="pulsesort-model")
+    try:
+        return pool.submit(_cached_model, model_dir)
+    finally:
+        pool.shutdown(wait=False)
+
+
 def _journal_key(cat, settings: TriageSettings, chunk_size: int) -> str:
     model_hash = None
     if settings.model_dir:
@@ -118,10 +136,11 @@ def _predict_rows(block, model_dir: str, spill_folder: str, columns: tuple):
     return p["proba"], p["relaxed"], p["novelty"]
 
 
-def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address):
+def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address, loading=None):
     """Everything phase 3 needs from a trained model, for every pulse of the spill
-    (:func:`classify.predict.season_decisions`)."""
-    model, card = _cached_model(settings.model_dir)
+    (:func:`classify.predict.season_decisions`); ``loading`` is the future of
+    :func:`_load_in_background`, if started."""
+    model, card = _cached_model(settings.model_dir) if loading is None else loading.result()
     n = spill.n_events
     blocks = [(a, min(a + DECIDE_BLOCK, n)) for a in range(0, n, DECIDE_BLOCK)]
     # one block runs here, on the model already loaded: a joblib worker would import
@@ -338,6 +357,11 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
 
 def _run(cat, out, partial, journal, spill_dir, key, settings, chunk_size, n_jobs,
          dask_address, progress, store, stop_after_chunks, t0):
+    # with the features computed in other processes, the model loads meanwhile (in one
+    # process the loading thread would contend for the GIL: measured no faster); a model
+    # that fails to load stops the run as soon as that is known
+    loading = (_load_in_background(settings.model_dir) if settings.model_dir is not None
+               and (n_jobs != 1 or dask_address) else None)
     plan = plan_chunks(cat, chunk_size)
     spill = FeatureSpill(spill_dir, cat.n_events, SPILL_COLUMNS, key)
     done = spill.n_chunks_done
@@ -351,6 +375,8 @@ def _run(cat, out, partial, journal, spill_dir, key, settings, chunk_size, n_job
                                            dask_address=dask_address), start=done):
             spill.write_chunk(plan.bounds[i][0], feats)
             bar.update(len(feats))
+            if loading is not None and loading.done():
+                loading.result()  # raises the load's error, if any
             if stop_after_chunks is not None and i + 1 - done >= stop_after_chunks \
                     and i + 1 < len(plan):
                 return {"stopped": True, "chunks_done": i + 1}
@@ -360,7 +386,7 @@ def _run(cat, out, partial, journal, spill_dir, key, settings, chunk_size, n_job
     return_freed_memory()
     # phase 2: decide
     if settings.model_dir is not None:
-        d = _model_decisions(spill, settings, n_jobs, dask_address)
+        d = _model_decisions(spill, settings, n_jobs, dask_address, loading)
         if settings.season_fit:
             d = _season_fit(d, spill, cat, settings, store, n_jobs)
     else:
