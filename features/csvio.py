@@ -19,12 +19,21 @@ __all__ = ["csv_text", "csv_rows", "csv_header", "format_for_csv"]
 
 
 def _quote(text: str) -> str:
-    if any(c in text for c in ',"\n\r'):
+    if "," in text or '"' in text or "\n" in text or "\r" in text:
         return '"' + text.replace('"', '""') + '"'
     return text
 
 
 def _times(s: pd.Series) -> list[str]:
+    if s.dtype.unit == "ns":
+        # NumPy's ISO text of the wall-clock times: the same characters as strftime and
+        # the nanoseconds below, ~7x faster (a nanosecond datetime64 spans 1677-2262, so
+        # the year always has four digits)
+        wall = s.dt.tz_localize(None).to_numpy(dtype="datetime64[ns]")
+        text = np.char.add(np.datetime_as_string(wall, unit="ns"), "Z").tolist()
+        for i in np.flatnonzero(np.isnat(wall)).tolist():
+            text[i] = ""
+        return text
     ns = (s.astype("int64") % 1_000_000_000).astype(str).str.zfill(9)
     text = s.dt.strftime("%Y-%m-%dT%H:%M:%S") + "." + ns + "Z"
     return text.where(s.notna(), "").tolist()

@@ -90,6 +90,22 @@ def test_triage_with_an_unreadable_model_exits_2(folder, make_catalog, tmp_path,
     assert not out.exists()
 
 
+def test_triage_in_workers_with_an_unreadable_model_exits_2(folder, make_catalog, tmp_path,
+                                                          capsys):
+    """With --jobs 2 the model loads in a thread beside the workers: its refusal still
+    exits 2 naming the file, with no results or partial files left behind."""
+    (folder / "model.skops").write_bytes(b"PK\x03\x04 truncated")
+    write_sums(folder)
+    cat = make_catalog("cat", np.zeros((4, 400), np.float32),
+                       field_meta={"pretrigger_s": 5e-6})
+    out = tmp_path / "results.csv"
+    assert main(["triage", str(cat), "--model", str(folder), "--out", str(out), "--jobs", "2",
+                 "--chunk-size", "2"]) == 2
+    err = capsys.readouterr().err
+    assert "model.skops: not a skops model archive" in err and "internal error" not in err
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith("results")) == []
+
+
 def test_truncated_archive(folder, capsys):
     """Half an archive, checksums updated: refused naming the file."""
     data = (folder / "model.skops").read_bytes()
