@@ -443,15 +443,17 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     pred = predict_features(est, feats)
     d = season_decisions(est, pred, _flag(feats, "field_ok"), version=version, features=feats,
                          adapt_priors=adapt_priors, adapt_sets=adapt_sets, coverage=coverage)
-    from .seasonfit import fit_to_season
-    from .triage import SPILL_COLUMNS, TriageSettings
+    from types import SimpleNamespace
 
-    d = fit_to_season(
-        d, lambda: pd.DataFrame({c: feats[c].to_numpy(dtype=np.float64)
-                                 for c in SPILL_COLUMNS}),
-        cat, TriageSettings(model_dir=None, review_below=float(review_below), coverage=coverage),
-        mode=season_fit,
-        store=store, n_jobs=n_jobs)
+    from .seasonfit import fit_to_season
+
+    def numeric():
+        num = feats.drop(columns="event_id").select_dtypes(include=["number", "bool"])
+        return pd.DataFrame({c: num[c].to_numpy(dtype=np.float64) for c in num.columns})
+
+    d = fit_to_season(d, numeric, cat, SimpleNamespace(review_below=float(review_below),
+                                                       self_training=True, coverage=coverage),
+                      mode=season_fit, store=store, n_jobs=n_jobs)
     d["censored_v"] = _flag(feats, "vhf_censored")
     d["censored_f"] = _flag(feats, "field_censored")
     out, reasons = decision_table(d, float(review_below), ids, cat.catalog_id)

@@ -87,8 +87,8 @@ def fit_to_season(d, frame, cat, settings, *, mode="auto", store=None, n_jobs=1)
         returns them (called only when the season is fitted).
     cat : Catalog
         The season's catalog (its flashes group the self-training's folds).
-    settings : classify.triage.TriageSettings
-        ``review_below``, ``self_training`` and ``coverage`` are used.
+    settings : classify.triage.TriageSettings or alike
+        Its ``review_below``, ``self_training`` and ``coverage`` are used.
     mode : {"auto", "always", "never"}, default="auto"
         ``"auto"`` fits when the model would send more than :data:`AUTO_DOUBT_SHARE` of
         the usable pulses to review for doubt (:func:`doubtful`).
