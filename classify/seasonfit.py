@@ -49,15 +49,20 @@ def season_fit_mode(value) -> str:
                      f"got {value!r}")
 
 
+def _novel(d) -> np.ndarray:
+    """Pulses beyond the trained model's novelty threshold (none without one)."""
+    if d["novelty_threshold"] is None:
+        return np.zeros(len(d["proba"]), dtype=bool)
+    return np.asarray(d["novelty"]) > d["novelty_threshold"]
+
+
 def confident_rows(d) -> np.ndarray:
     """Rows the trained model places confidently: usable, calibrated probability >=
     :data:`classify.coldstart.CONFIDENT`, a one-class set, not novel, and the same top
     class with a censored value relaxed."""
     proba, relaxed = np.asarray(d["proba"]), np.asarray(d["relaxed"])
     top = np.argmax(proba, axis=1)
-    novel = np.zeros(len(top), dtype=bool) if d["novelty_threshold"] is None else \
-        np.asarray(d["novelty"]) > d["novelty_threshold"]
-    sure = (np.asarray(d["usable"]) & (proba.max(axis=1) >= coldstart.CONFIDENT) & ~novel
+    sure = (np.asarray(d["usable"]) & (proba.max(axis=1) >= coldstart.CONFIDENT) & ~_novel(d)
             & (np.asarray(d["sets"]).sum(axis=1) == 1) & (np.argmax(relaxed, axis=1) == top))
     return np.flatnonzero(sure)
 
@@ -67,11 +72,9 @@ def doubtful(d, review_below: float) -> np.ndarray:
     ``review_below``, more than one class in the prediction set (which always holds the
     most probable class, as :func:`classify.decide.decide` completes it), or novel."""
     proba = np.asarray(d["proba"])
-    novel = np.zeros(len(proba), dtype=bool) if d["novelty_threshold"] is None else \
-        np.asarray(d["novelty"]) > d["novelty_threshold"]
     sets = np.array(d["sets"], dtype=bool, copy=True)
     sets[np.arange(len(proba)), np.argmax(proba, axis=1)] = True
-    return np.asarray(d["usable"]) & ((proba.max(axis=1) < review_below) | novel
+    return np.asarray(d["usable"]) & ((proba.max(axis=1) < review_below) | _novel(d)
                                       | (sets.sum(axis=1) > 1))
 
 
