@@ -227,7 +227,8 @@ def judge(case, noisy, twin, context, record, world, inst) -> pd.DataFrame:
             within = tol.within(x, t, lower_bound=bound, **kw)
             allowed = tol.allowed(t, **kw)
             if alt is not None:  # either end of the truth's range, or between them
-                within |= tol.within(x, alt, lower_bound=bound, **kw)
+                kw_alt = dict(kw, noise=_carried_noise(tol, alt, noisy, twin, inst))
+                within |= tol.within(x, alt, lower_bound=bound, **kw_alt)
                 within |= (x >= np.fmin(t, alt)) & (x <= np.fmax(t, alt))
                 t = np.where(np.isfinite(t), t, alt)
         frames.append(_frame(case, noisy, world, inst, f.name, tol.truth,
