@@ -53,7 +53,8 @@ def season(tmp_path_factory):
          "return stroke of a cloud-to-ground flash", "--analyst", "wren", "--store", store)
     _run("labels", "import", f"{a}.labels.csv", "--catalog", a, "--store", store)
     _run("train", a, "--store", store, "--out", model, *FAST_TRAIN)
-    # the model's decisions as they are (a season fit may add the rules' "other")
+    # the model's decisions as they are (a season fit may add the rules' "other" where the
+    # model is unsure)
     _run("triage", b, "--model", model, "--out", root / "results.csv", "--season-fit",
          "never")
     assert not Path(f"{store}-wal").exists()  # closed: the file alone is the store
@@ -220,3 +221,20 @@ def test_review_page_shows_five_class_buttons_and_records_return_stroke(season, 
         d = s.decisions(["hollowmere-2032"])
     assert d[["event_id", "label", "analyst"]].values.tolist() == [[eid, "return_stroke",
                                                                      "wren"]]
+
+
+def test_a_season_fit_keeps_the_groups_classes_where_the_model_is_sure(season, tmp_path):
+    """Fitted on the season, the pulses the five-class model is sure of keep its class:
+    the rules' "other" (a pulse no rule class fits, as a return stroke is to the rules)
+    does not overrule the group's model. Self-consistency on invented data."""
+    plain = read_results(season["results"])
+    sure = (plain["confidence"] >= 0.95) & ~plain["needs_review"].astype(bool)
+    _run("triage", season["b"], "--rules", "--out", tmp_path / "rules.csv")
+    rules_other = sure & (read_results(tmp_path / "rules.csv")["label"] == "other")
+    assert rules_other.sum() >= 5                  # the rules alone call them "other"
+    _run("triage", season["b"], "--model", season["model"], "--out", tmp_path / "fit.csv",
+         "--season-fit", "always")
+    fitted = read_results(tmp_path / "fit.csv")
+    assert fitted["adaptation"].str.contains("fitted on the season").all()
+    assert (fitted.loc[sure, "label"] == plain.loc[sure, "label"]).mean() >= 0.99
+    assert not (fitted.loc[sure, "label"] == "other").any()
