@@ -367,9 +367,11 @@ FEATURES: tuple[Feature, ...] = (
             "outside the window)", "vhf", requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.5, sigma=2, noise="snr", db=10, bound="vhf_censored",
                                 truth="instrument")),
-    Feature("vhf_width_s", "s", "time the smoothed envelope's excess over the noise floor "
-            "stays above 10 % of the peak's around it; NaN below 10 dB SNR, where clipped "
-            "(vhf_censored) and where the burst runs off the record", "vhf",
+    Feature("vhf_width_s", "s", "time the envelope (0.1 us bins, 0.5 us moving average, "
+            "then a quarter of the burst's top) stays above 10 % of the way from the noise "
+            "floor to its peak around it; NaN below 10 dB SNR, where clipped "
+            "(vhf_censored), where the burst runs off the record and where the width's "
+            "standard error from the envelope's speckle exceeds 5 %", "vhf",
             requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.10, vhf_bins=1)),
     Feature("vhf_censored", "bool", "a raw VHF sample of the window reaches full scale: the "

@@ -51,10 +51,16 @@ common practice, no source).
   propagated through the centroid. A broad top in few looks (a microseconds-long burst
   in a narrow band, or at a few dB SNR) has no time resolved to better than a few
   tenths of a microsecond.
-* **width**: the time the smoothed envelope stays above 10 % of its peak around it
-  (NaN below 10 dB SNR, where 10 % of the peak is under the noise floor, and where the
-  burst does not fall below that level inside the window on either side: running into
-  a neighbour's burst or off the record, it cannot be measured).
+* **width**: the time the envelope, smoothed again over a quarter of its burst's top
+  (:func:`_burst_centre`: on top of the 0.1 us bins and the 0.5 us moving average),
+  stays above 10 % of the way from the noise floor to its peak around it. NaN below
+  10 dB SNR, where clipped, where the burst does not fall below that level inside the
+  record on either side (running off it, it cannot be measured), and where the width's
+  standard error exceeds 5 % of it (+ half a bin): each crossing's error read off where
+  the envelope crosses the level +- 2 of its standard deviations (its relative spread
+  measured in the noise stretch), :mod:`features._vhf_width`. Near the noise, or on a
+  plateau near 10 % of the peak (a recoil's VHF while its front moves), the envelope
+  does not fall clearly below the level, and a speckle dip is not the burst's end.
 * **censored**: a raw sample of the window at or beyond the channel's full scale: the
   peak is then a lower bound (NBEs, the strongest VHF emitters, saturate receivers set
   sensitive enough for everything else).
@@ -79,6 +85,7 @@ from ._rowops import (
     nanmedian_rows,
     parabolic_peak,
 )
+from ._vhf_width import burst_width, width_resolved
 
 __all__ = ["VHF_BIN_S", "VHF_SMOOTH_S", "VHF_SPAN_S", "vhf_power", "vhf_envelope",
            "vhf_features"]
@@ -102,7 +109,7 @@ VHF_NOISE_S = 20e-6
 #: Span of the VHF record read around the trigger (field physical time), s.
 VHF_SPAN_S = (-60e-6, 100e-6)
 VHF_DB_CAP = 200.0
-#: SNR below which the width is not resolved, dB.
+#: SNR below which the width is not reported, dB (10 % of the peak under the floor).
 MIN_SNR_WIDTH_DB = 10.0
 #: SNR below which the burst's time is not resolved, dB: the smoothed noise envelope of
 #: a band of B over VHF_SMOOTH_S averages N = B x 0.5 us looks (16 for 33 MHz) and its
@@ -420,11 +427,6 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     # a clipped top is flat over the burst and whatever follows it at the clip level: its
     # centroid is not the burst's; the largest bin is kept there
     centre = np.where(np.isfinite(centre) & ~censored, centre, frac)
-    # the width: where the burst-smoothed envelope (its speckle averaged over a quarter
-    # of its top, so that a dip of a broad burst's tail does not end it early) falls
-    # through 10 % of the burst's own power over the floor (the floor adds to the
-    # envelope on both sides: 10 % of the peak itself would widen a burst near 10 dB)
-    level = noise + 0.1 * np.maximum(peak2 - noise, 0.0)
     peak = np.where(censored, peak, np.maximum(peak2, 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         peak_db = 10 * np.log10(peak)
@@ -432,13 +434,16 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     peak_db = np.where(np.isfinite(peak_db), peak_db, np.nan)
     snr_db = np.where(np.isfinite(snr_db), np.clip(snr_db, -VHF_DB_CAP, VHF_DB_CAP),
                       np.where(peak > 0, VHF_DB_CAP, np.nan))
-    # the burst's width only where both its crossings of the level lie in the record:
-    # one running off it leaves the width unmeasured (NaN), not cut short at its edge
-    a = crossing_before(env2, jp2, level)
-    b = crossing_after(env2, jp2, level)
-    width = (b - a) * k / fs
+    # the width on the burst-smoothed envelope (its speckle averaged over a quarter of
+    # its top, so that a dip of a broad burst's tail does not end it early), where it
+    # falls through 10 % of the burst's own power over the floor, both crossings in the
+    # record; NaN where its standard error (from that envelope's fluctuation, measured
+    # in the same noise stretch) exceeds 5 % (:mod:`features._vhf_width`)
+    _, spread2 = _noise_floor(env2, inwin, int(round(VHF_NOISE_S * fs / k)))
+    width, width_se = burst_width(env2, jp2, np.maximum(peak2, 0.0), noise, spread2)
     # a clipped burst's 10 % level is that of a lower bound of its peak: no width
-    width = np.where((snr_db >= MIN_SNR_WIDTH_DB) & ~censored, width, np.nan)
+    width = np.where((snr_db >= MIN_SNR_WIDTH_DB) & ~censored
+                     & width_resolved(width, width_se), width * k / fs, np.nan)
     t_peak = np.interp(centre, np.arange(nb), t_bin)
     # resolved: standard error within MAX_TIME_SE_S (unknown spread, e.g. a noise-free
     # record: resolved); a clipped top is judged by its own rule below
