@@ -43,7 +43,9 @@ common practice, no source).
   clipped window (``censored``) keeps the largest bin (parabola through three bins): its
   flat top holds the burst and whatever follows it at the clip level (measured on
   clipped narrow bipolar events: the middle of the clipped top, or its crossings of a
-  level under the clip, are later than the burst's unclipped peak more often). NaN
+  level under the clip, are later than the burst's unclipped peak more often); the
+  burst's peak lies anywhere between the window's first and last clipped sample, so
+  the time's standard error there is that stretch over sqrt(12) (uniform). NaN
   below :data:`MIN_SNR_TIME_DB` (3 dB), where the window's largest noise cell competes
   with the burst, and where the time's **standard error** exceeds
   :data:`MAX_TIME_SE_S`: the envelope's fluctuation (its relative spread measured in the
@@ -416,11 +418,16 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     frac, peak = parabolic_peak(env, jp)
     peak = np.maximum(peak, 0.0)
     censored = np.zeros(n, dtype=bool)
+    clip_span_s = np.zeros(n)
     if full_scale is not None:
         t_raw = np.arange(m) / fs - pretrigger_s - delay_s
         raw_in = (t_raw[None, :] >= lo_s[:, None]) & (t_raw[None, :] <= hi_s[:, None])
         with np.errstate(invalid="ignore"):
-            censored = ((np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in).any(axis=1)
+            clip = (np.abs(v) >= float(full_scale) * (1 - 1e-6)) & raw_in
+        censored = clip.any(axis=1)
+        # from the first to the last clipped sample of the window (each one sample long)
+        clip_span_s = np.where(censored, (m - clip[:, ::-1].argmax(axis=1)
+                                          - clip.argmax(axis=1)) / fs, 0.0)
     w_bins = max(int(round(VHF_SMOOTH_S * fs / k)), 1)
     centre, peak2, env2, jp2, se = _burst_centre(env, inwin, jp, peak, noise, spread,
                                                  w_bins)
@@ -446,8 +453,11 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
                      & width_resolved(width, width_se), width * k / fs, np.nan)
     t_peak = np.interp(centre, np.arange(nb), t_bin)
     # resolved: standard error within MAX_TIME_SE_S (unknown spread, e.g. a noise-free
-    # record: resolved); a clipped top is judged by its own rule below
-    resolved = censored | ~(se * k / fs > MAX_TIME_SE_S)
+    # record: resolved). A clipped burst's peak lies anywhere in the stretch of the
+    # window from its first to its last clipped sample (its power is not known there):
+    # uniform over it, the time's standard error is the stretch's length over sqrt(12)
+    resolved = np.where(censored, clip_span_s / np.sqrt(12) <= MAX_TIME_SE_S,
+                        ~(se * k / fs > MAX_TIME_SE_S))
     good = vhf_ok & has_win & (peak > 0)
     out.update({
         "vhf_peak_db": np.where(good, peak_db, np.nan),
