@@ -343,7 +343,9 @@ FEATURES: tuple[Feature, ...] = (
             "positive: VHF leads; searched from the onset less the rise to 2 us after the "
             "field peak); both channels delay-corrected; NaN below 3 dB VHF SNR and where "
             "the burst time's standard error (the envelope's speckle and noise through the "
-            "centroid) exceeds 0.15 us", "vhf",
+            "centroid; a clipped VHF window: its stretch of clipped samples / sqrt(12)) "
+            "exceeds 0.15 us, and where field_censored (the field peak's time is unknown)",
+            "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
@@ -356,7 +358,8 @@ FEATURES: tuple[Feature, ...] = (
                                 bound="vhf_censored")),
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
             "field strength, each over its own noise floor (range and gain free); a lower "
-            "bound where vhf_censored", "vhf",
+            "bound where vhf_censored; NaN where field_censored (snr_db then a lower "
+            "bound, the ratio an upper one)", "vhf",
             model=False, requires=frozenset({"vhf"}),
             # compared as a power ratio (db=10) so that a clipped VHF peak counts as the
             # lower bound vhf_snr_db's own tolerance already treats it as (the magnitude
