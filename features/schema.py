@@ -359,7 +359,8 @@ FEATURES: tuple[Feature, ...] = (
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
             "field strength, each over its own noise floor (range and gain free); a lower "
             "bound where vhf_censored; NaN where field_censored (snr_db then a lower "
-            "bound, the ratio an upper one)", "vhf",
+            "bound, the ratio an upper one) and below 18 dB snr_db (where the field peak's "
+            "noise alone moves it by over 2 dB, 2 sigma)", "vhf",
             model=False, requires=frozenset({"vhf"}),
             # compared as a power ratio (db=10) so that a clipped VHF peak counts as the
             # lower bound vhf_snr_db's own tolerance already treats it as (the magnitude
