@@ -394,8 +394,10 @@ def vhf_features(vhf, sample_rate_hz, kind, window_s, *, pretrigger_s=0.0, delay
     dict of str -> ndarray, shape (n_pulses,)
         ``vhf_peak_db`` (10 log10 of the smoothed peak power, catalog units),
         ``vhf_peak_time_s`` (physical time of the burst, the centroid of its top half,
-        s; NaN below 3 dB SNR or a standard error over :data:`MAX_TIME_SE_S`), ``vhf_snr_db`` (peak over
-        the noise floor, dB), ``vhf_width_s`` (s), ``vhf_censored`` (bool),
+        s; NaN below 3 dB SNR or a standard error over :data:`MAX_TIME_SE_S`, a clipped
+        window's from its clipped stretch), ``vhf_snr_db`` (peak over the noise floor,
+        dB), ``vhf_width_s`` (s; NaN where its standard error exceeds 5 %,
+        :mod:`features._vhf_width`), ``vhf_censored`` (bool),
         ``vhf_ok`` (bool: the row has VHF samples).
     """
     v = np.asarray(vhf, dtype=np.float64)
