@@ -32,6 +32,7 @@ from .context import flash_context
 from .csvio import csv_text, format_for_csv
 from .mapping import breakdown_polarity, source_features
 from .vhf import (
+    MIN_RATIO_FIELD_SNR_DB,
     VHF_LEAD_S,
     VHF_MAX_WINDOW_S,
     VHF_MIN_LEAD_S,
@@ -280,10 +281,15 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         "event_id": job.event_id,
         **f,
         "vhf_peak_db": v["vhf_peak_db"],
-        "vhf_field_lag_s": f["peak_time_s"] - v["vhf_peak_time_s"],
-        "vhf_lag_first_peak_s": f["first_peak_time_s"] - v["vhf_peak_time_s"],
+        # a clipped field's peak time and SNR are not known (features.vhf)
+        "vhf_field_lag_s": np.where(f["field_censored"], np.nan,
+                                    f["peak_time_s"] - v["vhf_peak_time_s"]),
+        "vhf_lag_first_peak_s": np.where(f["field_censored"], np.nan,
+                                         f["first_peak_time_s"] - v["vhf_peak_time_s"]),
         "vhf_to_field_db": v["vhf_peak_db"] - np.where(np.isfinite(norm_db), norm_db, np.nan),
-        "vhf_field_ratio_db": v["vhf_snr_db"] - f["snr_db"],
+        "vhf_field_ratio_db": np.where(f["field_censored"]
+                                       | ~(f["snr_db"] >= MIN_RATIO_FIELD_SNR_DB), np.nan,
+                                       v["vhf_snr_db"] - f["snr_db"]),
         "vhf_snr_db": v["vhf_snr_db"],
         "vhf_width_s": v["vhf_width_s"],
         "vhf_censored": v["vhf_censored"],

@@ -343,7 +343,9 @@ FEATURES: tuple[Feature, ...] = (
             "positive: VHF leads; searched from the onset less the rise to 2 us after the "
             "field peak); both channels delay-corrected; NaN below 3 dB VHF SNR and where "
             "the burst time's standard error (the envelope's speckle and noise through the "
-            "centroid) exceeds 0.15 us", "vhf",
+            "centroid; a clipped VHF window: its stretch of clipped samples / sqrt(12)) "
+            "exceeds 0.15 us, and where field_censored (the field peak's time is unknown)",
+            "vhf",
             requires=frozenset({"vhf"}), tolerance=_LAG),
     Feature("vhf_lag_first_peak_s", "s", "the same to the first prominent local maximum of "
             "the field's initial half-cycle (equal to the lag when it has none before the "
@@ -356,7 +358,9 @@ FEATURES: tuple[Feature, ...] = (
                                 bound="vhf_censored")),
     Feature("vhf_field_ratio_db", "dB", "vhf_snr_db - snr_db: VHF strength relative to the "
             "field strength, each over its own noise floor (range and gain free); a lower "
-            "bound where vhf_censored", "vhf",
+            "bound where vhf_censored; NaN where field_censored (snr_db then a lower "
+            "bound, the ratio an upper one) and below 18 dB snr_db (where the field peak's "
+            "noise alone moves it by over 2 dB, 2 sigma)", "vhf",
             model=False, requires=frozenset({"vhf"}),
             # compared as a power ratio (db=10) so that a clipped VHF peak counts as the
             # lower bound vhf_snr_db's own tolerance already treats it as (the magnitude
@@ -367,9 +371,11 @@ FEATURES: tuple[Feature, ...] = (
             "outside the window)", "vhf", requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.5, sigma=2, noise="snr", db=10, bound="vhf_censored",
                                 truth="instrument")),
-    Feature("vhf_width_s", "s", "time the smoothed envelope's excess over the noise floor "
-            "stays above 10 % of the peak's around it; NaN below 10 dB SNR, where clipped "
-            "(vhf_censored) and where the burst runs off the record", "vhf",
+    Feature("vhf_width_s", "s", "time the envelope (0.1 us bins, 0.5 us moving average, "
+            "then a quarter of the burst's top) stays above 10 % of the way from the noise "
+            "floor to its peak around it; NaN below 10 dB SNR, where clipped "
+            "(vhf_censored), where the burst runs off the record and where the width's "
+            "standard error from the envelope's speckle exceeds 5 %", "vhf",
             requires=frozenset({"vhf"}),
             tolerance=Tolerance(rel=0.10, vhf_bins=1)),
     Feature("vhf_censored", "bool", "a raw VHF sample of the window reaches full scale: the "
