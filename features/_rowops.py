@@ -211,7 +211,8 @@ def parabolic_peak(u: np.ndarray, j: np.ndarray) -> tuple[np.ndarray, np.ndarray
 def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     """Centred moving average of each row over ``k[i]`` samples (k >= 1; edges shortened).
 
-    Rows sharing a window length are averaged together (one cumulative sum per length).
+    One cumulative sum of all rows, then the rows of each window length together (as
+    contiguous blocks of the rows ordered by length).
 
     Parameters
     ----------
@@ -225,30 +226,43 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     """
     n, w = y.shape
     k = np.clip(np.asarray(k, dtype=np.intp), 1, max(w, 1))
-    out = y.copy()
-    if w == 0:
-        return out
+    long = k > 1
+    if w == 0 or not long.any():
+        return y.copy()
+    # rows ordered by window length: one cumulative sum for all of them (each row's
+    # sum is its own sequential sum, whatever rows it is computed with), then each
+    # length's rows as one contiguous block
+    if long.all():
+        order, out = np.argsort(k, kind="stable"), np.empty_like(y)
+    else:
+        order, out = np.flatnonzero(long), y.copy()
+        order = order[np.argsort(k[order], kind="stable")]
+    ks = k[order]
+    in_place = (order.size == n and y.dtype == np.float64
+                and bool((order[1:] > order[:-1]).all()))
+    c = np.empty((order.size, w + 1))
+    c[:, 0] = 0.0
+    np.cumsum(y if in_place else y[order], axis=1, out=c[:, 1:])
+    res = out if in_place else np.empty((order.size, w))
     cols = np.arange(w)
-    for kk in np.unique(k):
-        if kk == 1:
-            continue
-        rows = np.flatnonzero(k == kk)
-        c = np.zeros((rows.size, w + 1))
-        np.cumsum(y[rows], axis=1, out=c[:, 1:])
+    cuts = np.flatnonzero(ks[1:] != ks[:-1]) + 1
+    for g0, g1 in zip(np.r_[0, cuts].tolist(), np.r_[cuts, order.size].tolist()):
+        kk = int(ks[g0])
         lo = (kk - 1) // 2             # the window is columns j - lo .. j + hi - 1
         hi = kk - lo
-        a_idx = np.clip(cols - lo, 0, w)
-        b_idx = np.clip(cols + hi, 0, w)
-        # c[b] - c[a]: shifted slices inside the record, gathers at its two ends
-        d = np.empty((rows.size, w))
+        cg, d = c[g0:g1], res[g0:g1]
+        # c[b] - c[a]: shifted slices inside the record (b - a = kk there), gathers at
+        # its two ends
         j0, j1 = min(lo, w), max(min(w - hi + 1, w), min(lo, w))
-        d[:, j0:j1] = c[:, j0 + hi:j1 + hi] - c[:, j0 - lo:j1 - lo]
-        if j0:
-            d[:, :j0] = c[:, b_idx[:j0]] - c[:, a_idx[:j0]]
-        if j1 < w:
-            d[:, j1:] = c[:, b_idx[j1:]] - c[:, a_idx[j1:]]
-        d /= b_idx - a_idx
-        out[rows] = d
+        np.subtract(cg[:, j0 + hi:j1 + hi], cg[:, j0 - lo:j1 - lo], out=d[:, j0:j1])
+        d[:, j0:j1] /= float(kk)
+        for part in (slice(0, j0), slice(j1, w)):
+            a_idx = np.clip(cols[part] - lo, 0, w)
+            b_idx = np.clip(cols[part] + hi, 0, w)
+            if a_idx.size:
+                d[:, part] = (cg[:, b_idx] - cg[:, a_idx]) / (b_idx - a_idx)
+    if not in_place:
+        out[order] = res
     return out
 
 
