@@ -83,11 +83,13 @@ def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
     sub = u[:, c0:c1]
     cols = np.arange(c0, c1)
     mask = (sub < level[:, None]) & (cols < stop[:, None])
-    if start is not None:
-        mask &= cols >= start[:, None]
     if c1 > c0:
         j, found = last_true(mask)
         j = j + c0
+        if start is not None:
+            # the last sample below the level before stop lies before start: there
+            # is none in [start, stop) (one comparison per row, not per column)
+            found &= j >= start
     else:
         j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
     r = np.arange(u.shape[0])
@@ -132,11 +134,12 @@ def crossing_after(u: np.ndarray, start: np.ndarray, level: np.ndarray,
         lv = level[rows, None]
         mask = (sub <= lv) if inclusive else (sub < lv)
         mask &= cols > start[rows, None]
-        if stop is not None:
-            mask &= cols < stop[rows, None]
         jj, hit = first_true(mask)
-        j[rows[hit]] = jj[hit] + a
-        found[rows[hit]] = True
+        # the first one after start at or beyond stop: none before stop (and the row
+        # is not searched further); one comparison per row, not per column
+        ok = hit if stop is None else hit & (jj + a < stop[rows])
+        j[rows[ok]] = jj[ok] + a
+        found[rows[ok]] = True
         rows = rows[~hit]
         if stop is not None:
             rows = rows[stop[rows] > b]
