@@ -361,6 +361,7 @@ def _run(cat, out, partial, journal, spill_dir, key, settings, chunk_size, n_job
                 return {"stopped": True, "chunks_done": i + 1}
     finally:
         bar.close()
+    spill.sync()
     del plan
     return_freed_memory()
     # phase 2: decide

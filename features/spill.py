@@ -15,6 +15,14 @@ processing the waveforms), then adapts to the season, classifies and writes from
 * ``chunks.json``: the chunks written, with the columns and the byte offset of
   ``text.csv`` after each.
 
+Rows go to the files by plain positional writes; every :data:`SYNC_ROWS` rows (or
+:data:`SYNC_CHUNKS` chunks, and at :meth:`FeatureSpill.sync`) the three data files are
+synced to disk and only then ``chunks.json`` names the chunks written, so a run killed
+(or a machine stopped) in between recomputes at most those chunks on ``--resume``, which
+write the same bytes again. Syncing every chunk cost four ``fsync``/``msync`` calls of
+about 5 ms and two header parses per 256-row chunk (about 1.5 s of a 20,000-pulse
+season, measured).
+
 The folder is temporary: triage removes it when the results file is complete.
 """
 
@@ -31,7 +39,22 @@ from numpy.lib.format import open_memmap
 
 from .csvio import csv_rows
 
-__all__ = ["FeatureSpill"]
+__all__ = ["FeatureSpill", "SYNC_ROWS", "SYNC_CHUNKS"]
+
+#: Rows written between two syncs of the spill (and of its journal, ``chunks.json``).
+SYNC_ROWS = 4096
+#: Chunks written between two syncs, at most (small chunks: the journal still moves).
+SYNC_CHUNKS = 8
+
+
+def _data_offset(path) -> int:
+    """Byte offset of the array data in an ``.npy`` file (after its header)."""
+    from numpy.lib import format as npy
+
+    with open(path, "rb") as fh:
+        major, _ = npy.read_magic(fh)
+        (npy.read_array_header_1_0 if major == 1 else npy.read_array_header_2_0)(fh)
+        return fh.tell()
 
 
 class FeatureSpill:
@@ -75,6 +98,10 @@ class FeatureSpill:
         # a run killed between the text write and the journal: cut the text back
         with open(self.folder / "text.csv", "r+b") as fh:
             fh.truncate(self.state["offsets"][-1] if self.state["offsets"] else 0)
+        self._numeric_at = _data_offset(self.folder / "numeric.npy")
+        self._ends_at = _data_offset(self.folder / "row_end.npy")
+        self._text_end = self.state["offsets"][-1] if self.state["offsets"] else 0
+        self._unsynced = []   # (offset, stop) of the chunks written since the last sync
 
     # ------------------------------------------------------------------ writing
     def _save(self, state) -> None:
@@ -90,30 +117,54 @@ class FeatureSpill:
         return len(self.state["offsets"])
 
     def write_chunk(self, start: int, feats: pd.DataFrame) -> None:
-        """Append one chunk's features (rows ``start:start+len``), in catalog order."""
+        """Write one chunk's features (rows ``start:start+len``), in catalog order.
+
+        The chunk is journalled at the next sync (see the module notes).
+        """
         stop = start + len(feats)
         numeric = np.column_stack([feats[c].to_numpy(dtype=np.float64) for c in self.columns]
                                   ) if len(feats) else np.zeros((0, len(self.columns)))
-        arr = np.load(self.folder / "numeric.npy", mmap_mode="r+")
-        arr[start:stop] = numeric
-        arr.flush()
-        del arr
         records = [(r + "\n").encode("utf-8") for r in csv_rows(feats.drop(columns=["event_id"]))]
-        base = self.state["offsets"][-1] if self.state["offsets"] else 0
-        ends = base + np.cumsum([len(r) for r in records], dtype=np.int64)
-        idx = np.load(self.folder / "row_end.npy", mmap_mode="r+")
-        idx[start:stop] = ends
-        idx.flush()
-        del idx
-        with open(self.folder / "text.csv", "ab") as fh:
-            fh.write(b"".join(records))
-            fh.flush()
-            os.fsync(fh.fileno())
-            end = fh.tell()
+        ends = self._text_end + np.cumsum([len(r) for r in records], dtype=np.int64)
+        row_bytes = 8 * len(self.columns)
+        self._pwrite("numeric.npy", np.ascontiguousarray(numeric, dtype="<f8"),
+                     self._numeric_at + start * row_bytes)
+        self._pwrite("row_end.npy", np.ascontiguousarray(ends, dtype="<i8"),
+                     self._ends_at + start * 8)
+        text = b"".join(records)
+        self._pwrite("text.csv", text, self._text_end)
+        self._text_end += len(text)
         if self.state["feature_columns"] is None:
             self.state["feature_columns"] = [str(c) for c in feats.columns]
-        self.state["offsets"].append(end)
-        self.state["stops"].append(stop)
+        self._unsynced.append((self._text_end, stop))
+        first = self.state["stops"][-1] if self.state["stops"] else 0
+        if len(self._unsynced) >= SYNC_CHUNKS or stop - first >= SYNC_ROWS \
+                or stop >= self.n_events:
+            self.sync()
+
+    def _pwrite(self, name: str, data, offset: int) -> None:
+        fd = os.open(self.folder / name, os.O_WRONLY)
+        try:
+            view, done = memoryview(data).cast("B"), 0
+            while done < len(view):
+                done += os.pwrite(fd, view[done:], offset + done)
+        finally:
+            os.close(fd)
+
+    def sync(self) -> None:
+        """Sync the data files, then journal every chunk written so far (``chunks.json``)."""
+        if not self._unsynced:
+            return
+        for name in ("numeric.npy", "row_end.npy", "text.csv"):
+            fd = os.open(self.folder / name, os.O_RDONLY)
+            try:
+                os.fsync(fd)
+            finally:
+                os.close(fd)
+        for offset, stop in self._unsynced:
+            self.state["offsets"].append(offset)
+            self.state["stops"].append(stop)
+        self._unsynced = []
         self._save(self.state)
 
     # ------------------------------------------------------------------ reading
