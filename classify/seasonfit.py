@@ -24,8 +24,6 @@ import numpy as np
 
 from features import InputError
 
-from . import coldstart, rules
-
 #: ``mode="auto"`` fits the season when the trained model would send more than this share
 #: of its usable pulses to review for doubt. The project's choice, no source: it is the
 #: review budget the project holds a model to on a season it fits (5 %), so a season on
@@ -61,9 +59,11 @@ def confident_rows(d) -> np.ndarray:
     """Rows the trained model places confidently: usable, calibrated probability >=
     :data:`classify.coldstart.CONFIDENT`, a one-class set, not novel, and the same top
     class with a censored value relaxed."""
+    from .coldstart import CONFIDENT  # not at import: the CLI's parser reads MODES only
+
     proba, relaxed = np.asarray(d["proba"]), np.asarray(d["relaxed"])
     top = np.argmax(proba, axis=1)
-    sure = (np.asarray(d["usable"]) & (proba.max(axis=1) >= coldstart.CONFIDENT) & ~_novel(d)
+    sure = (np.asarray(d["usable"]) & (proba.max(axis=1) >= CONFIDENT) & ~_novel(d)
             & (np.asarray(d["sets"]).sum(axis=1) == 1) & (np.argmax(relaxed, axis=1) == top))
     return np.flatnonzero(sure)
 
@@ -106,6 +106,8 @@ def fit_to_season(d, frame, cat, settings, *, mode="auto", store=None, n_jobs=1)
         ``d`` itself (its ``adaptation`` text saying why no fit was made) or the fitted
         decisions, in the same form.
     """
+    from . import coldstart, rules
+
     mode = season_fit_mode(mode)
     if mode == "never":
         return d

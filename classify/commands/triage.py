@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import io
 
-from classify.registry import resolve_model
 from classify.seasonfit import MODES
-from classify.triage import print_summary, triage_catalog
 from features import InputError, open_catalog
 
 from ._common import (
@@ -78,6 +76,10 @@ def run(args) -> int:
     if args.store and not args.rules and args.season_fit == "never":
         raise InputError("--store goes with --rules or a season fit (it anchors the "
                          "self-training on the season), not with --season-fit never")
+    # imported here: ``pulsesort --help`` and the other commands do not load the model code
+    from classify.registry import resolve_model
+    from classify.triage import print_summary, triage_catalog
+
     out = check_output_file(args.out, (".csv",), "--out")
     cat = open_catalog(args.catalog)
     model_dir = None if args.rules else resolve_model(args.model, args.registry)
