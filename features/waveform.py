@@ -84,9 +84,11 @@ from ._rowops import (
     parabolic_peak,
     take_rows,
 )
+from ._tail import bounded_tail_window
 from ._waveform_rows import (
     REFINE_MAX_HALF,
     _crossing_sigma,
+    _end_resolved,
     _fill_missing,
     _first_subpeak,
     _last_at_least,
@@ -441,13 +443,27 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     k_tail = np.where(has_zc, k_tail, 1)
     nu_t = -moving_average_rows(u, k_tail)
     h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
-    tail_fall = crossing_after(nu_t, np.minimum(j_opk, np.maximum(lobe_stop - 1, jc)), h_tail,
-                               stop=lobe_stop)
+    t_from = np.minimum(j_opk, np.maximum(lobe_stop - 1, jc))
+    tail_fall = crossing_after(nu_t, t_from, h_tail, stop=lobe_stop)
+    # ... over a window short enough to bend the tail's fall by at most a quarter of the
+    # end's tolerance (:mod:`features._tail`; a fast tail is bent most), re-read there
+    k_b = bounded_tail_window(nu_t, tail_fall, h_tail, k_tail, k,
+                              DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES)
+    redo = np.flatnonzero(k_b < k_tail)
+    if redo.size:
+        k_tail = k_b
+        nu_t[redo] = -moving_average_rows(u[redo], k_tail[redo])
+        h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
+        tail_fall[redo] = crossing_after(nu_t[redo], t_from[redo], h_tail[redo],
+                                         stop=lobe_stop[redo])
     h_tail = np.maximum(2 * sig_s, lvl(0.01))
     j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
                         np.where(np.isfinite(tail_fall), tail_fall,
                                  np.where(has_tail, j_tail + 1.0, jc.astype(float))))
+    # a tail still above its level where the search stops (the next pulse, the record's
+    # end, ten initial half-cycles) has no fall the record shows: its end is hidden
+    tail_cut = has_zc & ~(has_back & np.isfinite(lobe_back)) & ~np.isfinite(tail_fall) & has_tail
     lobe_end = np.minimum(lobe_end, m - 1.0)
     lobe_end = np.where(has_zc, lobe_end, np.nan)
     overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
@@ -552,6 +568,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         width_ok = (RESOLVE_SIGMAS * np.hypot(st10_w, st_w) <= tol_w) & ~censored
         sig_b = np.hypot(sigma / np.sqrt(k_os), bipolarity * sig_s) / peak
         bip_ok = (RESOLVE_SIGMAS * sig_b <= BIPOLARITY_TOLERANCE) & ~censored
+    end_ok = _end_resolved(u_s, nu_t, sig_s, sigma / np.sqrt(k_tail), k, k_tail, c10,
+                           pulse_end, end_w, st_w, has_zc & has_back & np.isfinite(lobe_back),
+                           has_zc & np.isfinite(tail_fall), tail_cut) & ~censored
     bipolarity = np.where(bip_ok | (bipolarity == 0), bipolarity, np.nan)
     bipolarity = np.where(censored, np.nan, bipolarity)
     rise = (c90 - c10) * dt
@@ -588,8 +607,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         # P; where its noise holds the level above that, the end is the noise's: NaN; so
         # is the end of a unipolar-looking pulse whose noise could hide an overshoot (the
         # rule of bipolarity)
-        "pulse_end_s": np.where(np.where(has_zc, 2 * sigma / np.sqrt(k_tail) <= lvl(0.01),
-                                         np.isfinite(bipolarity)), tm(pulse_end), np.nan),
+        "pulse_end_s": np.where(np.where(has_zc, (2 * sigma / np.sqrt(k_tail) <= lvl(0.01))
+                                         & end_ok, np.isfinite(bipolarity) & end_ok),
+                                tm(pulse_end), np.nan),
         **nb,
         "pre_level_ratio": pre_level_ratio,
         "baseline_slope_ratio": slope_ratio,
