@@ -225,7 +225,7 @@ def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, c10, end, end_w, st_w, by_
     half_s = np.fmax(tol, k / 2.0)
     st = np.where(by_back, _crossing_sigma(u_s, end, sig_s, half_s),
                   np.where(by_tail, _crossing_sigma(nu_t, end, sig_t,
-                                                    np.fmax(tol, k_tail / 2.0)),
+                                                    np.fmax(2.0 * tol, k_tail / 2.0)),
                            _crossing_sigma(u_s, end, sig_s, half_s)))
     from_w = np.isfinite(end_w) & (end_w >= end)
     st = np.where(from_w, st_w, st)

@@ -76,6 +76,7 @@ import numpy as np
 from scipy import constants
 
 from . import pulses as _pulses
+from ._baseline import rc_offset
 from ._rowops import (
     crossing_after,
     crossing_before,
@@ -284,10 +285,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     q = float(quantum_v_per_m or 0.0)
     stop_a = np.full(n, int(np.clip(np.floor(jt - TRIGGER_GUARD_S * fs), 0, m)))
     # the digitizer's offset first (decay compensation would turn it into a ramp)
+    # (on the decaying tail of an earlier field change: :mod:`features._baseline`)
     offset = np.zeros(n)
-    if decay_time_s is not None:
-        offset, _, _, _, _ = _pulses.baseline_fit(x, stop_a, fs, q, min_slope_s=np.inf,
-                                                  quiet_level=True)
+    if decay_time_s is not None and m:
+        offset = rc_offset(x, stop_a, fs, q, decay_time_s)
         x = x - offset[:, None]
     e0 = decay_compensate(x, fs, decay_time_s)
 
@@ -456,6 +457,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
         tail_fall[redo] = crossing_after(nu_t[redo], t_from[redo], h_tail[redo],
                                          stop=lobe_stop[redo])
+    # ... re-read off a line through the copy within +-its tolerance (a first fall is
+    # early by a noise dip where the tail is slow: the line crosses where the tail does)
+    tail_fall = _refine_crossing(nu_t, tail_fall, h_tail, np.fmax(
+        DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES, k_tail / 2.0))
     h_tail = np.maximum(2 * sig_s, lvl(0.01))
     j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
