@@ -64,10 +64,14 @@ def bounded_tail_window(nu_t, crossing, level, k_tail, k_min, tol):
 
     Returns
     -------
-    ndarray of intp, shape (n,)
+    window : ndarray of intp, shape (n,)
         ``k_tail`` where its delay fits or the crossing is NaN, else the largest window
         L with tau ln(sinh(L / 2 tau) / (L / 2 tau)) <= share * tol (at least ``k_min``).
+    tau : ndarray, shape (n,)
+        The tail's decay time at the crossing, samples (inf: flat or none).
     """
+    # (the slope over +-half the window: on a fast tail it reaches the steeper part, so
+    # tau comes out short and the window with it; erring on the side of less delay)
     half = np.maximum(k_tail / 2.0, 1.0)
     c = np.nan_to_num(crossing)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -84,4 +88,13 @@ def bounded_tail_window(nu_t, crossing, level, k_tail, k_min, tol):
         lo = np.where(ok, mid, lo)
         hi = np.where(ok, hi, mid)
     out = np.where(fits | ~np.isfinite(crossing), k_tail, np.floor(lo))
-    return np.maximum(out, k_min).astype(np.intp)
+    return np.maximum(out, k_min).astype(np.intp), tau
+
+
+def line_half_window(tau, tol):
+    """Half-window of a line fit across a tail's crossing that bends it at most
+    :data:`TAIL_BIAS_SHARE` of ``tol``: a least-squares line through exp(-t/tau) over
+    +-h meets a level about h^2 / (6 tau) later than the curve (the window's mean,
+    second order), so h = sqrt(6 share tol tau) (samples; at least 1)."""
+    with np.errstate(invalid="ignore"):
+        return np.maximum(np.sqrt(6.0 * TAIL_BIAS_SHARE * tol * tau), 1.0)

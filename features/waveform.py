@@ -85,7 +85,7 @@ from ._rowops import (
     parabolic_peak,
     take_rows,
 )
-from ._tail import bounded_tail_window
+from ._tail import bounded_tail_window, line_half_window
 from ._waveform_rows import (
     REFINE_MAX_HALF,
     _crossing_sigma,
@@ -448,8 +448,8 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     tail_fall = crossing_after(nu_t, t_from, h_tail, stop=lobe_stop)
     # ... over a window short enough to bend the tail's fall by at most a quarter of the
     # end's tolerance (:mod:`features._tail`; a fast tail is bent most), re-read there
-    k_b = bounded_tail_window(nu_t, tail_fall, h_tail, k_tail, k,
-                              DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES)
+    tol_end = DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES
+    k_b, tau_t = bounded_tail_window(nu_t, tail_fall, h_tail, k_tail, k, tol_end)
     redo = np.flatnonzero(k_b < k_tail)
     if redo.size:
         k_tail = k_b
@@ -458,9 +458,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         tail_fall[redo] = crossing_after(nu_t[redo], t_from[redo], h_tail[redo],
                                          stop=lobe_stop[redo])
     # ... re-read off a line through the copy within +-its tolerance (a first fall is
-    # early by a noise dip where the tail is slow: the line crosses where the tail does)
-    tail_fall = _refine_crossing(nu_t, tail_fall, h_tail, np.fmax(
-        DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES, k_tail / 2.0))
+    # early by a noise dip where the tail is slow: the line crosses where the tail does),
+    # over a window that bends it little (:func:`features._tail.line_half_window`)
+    tail_fall = _refine_crossing(nu_t, tail_fall, h_tail, np.fmin(
+        np.fmax(tol_end, k_tail / 2.0), line_half_window(tau_t, tol_end)))
     h_tail = np.maximum(2 * sig_s, lvl(0.01))
     j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
