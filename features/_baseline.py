@@ -18,6 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._lobes import BASELINE_MIN_SAMPLES, baseline_fit
+from ._rowops import cumtrapz_rows
 
 #: The tail's offset is taken where the quiet level's compensated baseline is this many
 #: times noisier (its ramp) than the tail's (common practice, no source).
@@ -76,9 +77,8 @@ def rc_offset(y, stop, sample_rate_hz, quantum, decay_time_s):
     sig_d = np.maximum(sig_d, quantum / np.sqrt(12.0))
     fits = np.isfinite(on_tail) & (rms <= RAMP_NOISE_RATIO * sig_d)
     # compensation is linear: comp(y - c) = comp(y) - c (1 + j / (tau fs)) at column j
-    from .waveform import decay_compensate
     ramp = 1.0 + np.arange(m) / (decay_time_s * fs)
-    sub = decay_compensate(y[rows], fs, decay_time_s)
+    sub = y[rows] + cumtrapz_rows(y[rows], 1.0 / fs) / decay_time_s    # E = y + int y / tau
 
     def noise(c):
         return baseline_fit(sub - c[:, None] * ramp, stop[rows], fs, quantum,

@@ -204,8 +204,8 @@ def _refine_crossing(u, c, level, half):
     return np.where(good, c + np.where(good, shift, 0.0), c)
 
 
-def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, c10, end, end_w, st_w, by_back,
-                  by_tail, cut):
+def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, tol, end, end_w, st_w, by_back,
+                  by_tail, cut, resolve_sigmas):
     """Whether the pulse's end (in samples) is resolved: its crossing's uncertainty
     (:func:`_crossing_sigma`, the slope over +-the tolerance) within the tolerance.
 
@@ -219,9 +219,6 @@ def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, c10, end, end_w, st_w, by_
     the end) plus one sample; :data:`RESOLVE_SIGMAS` uncertainties must fit in it (the
     rule of the other crossings in :mod:`features.waveform`).
     """
-    from .waveform import DURATION_REL, DURATION_SAMPLES, RESOLVE_SIGMAS
-    span = np.where(np.isfinite(end_w), end_w, end) - c10
-    tol = DURATION_REL * np.abs(np.nan_to_num(span)) + DURATION_SAMPLES
     half_s = np.fmax(tol, k / 2.0)
     st = np.where(by_back, _crossing_sigma(u_s, end, sig_s, half_s),
                   np.where(by_tail, _crossing_sigma(nu_t, end, sig_t,
@@ -230,4 +227,4 @@ def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, c10, end, end_w, st_w, by_
     from_w = np.isfinite(end_w) & (end_w >= end)
     st = np.where(from_w, st_w, st)
     with np.errstate(invalid="ignore"):
-        return (RESOLVE_SIGMAS * st <= tol) & ~cut & np.isfinite(end)
+        return (resolve_sigmas * st <= tol) & ~cut & np.isfinite(end)

@@ -37,10 +37,15 @@ Steps and definitions (the contract of :mod:`features.schema`):
    overshoot's peak, or at the next pulse; its peak is taken on a copy smoothed over a
    quarter of the overshoot's own FWHM (at most to 1 % of P, as the peak's). The
    tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
-   sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
-   early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
-   the noise's), and for a unipolar-looking pulse where bipolarity is NaN (its noise
-   could hide an overshoot, and with it the end).
+   sigma_t), over at most the overshoot's rise and a window that delays the fall by at
+   most a quarter of its tolerance (:mod:`features._tail`), so that a noise dip does not
+   end it early, and re-read off a line through it; ``pulse_end_s`` is NaN where
+   2 sigma_t stays above 1 % of P (the end would be the noise's), where the tail is still
+   above its level at the next pulse (the end is hidden), where RESOLVE_SIGMAS of the
+   fall's time noise exceed its tolerance, and for a unipolar-looking pulse where
+   bipolarity is NaN (its noise could hide an overshoot, and with it the end). An
+   RC-coupled record on the decaying tail of an earlier field change has its digitizer
+   offset from a fit of that tail (:mod:`features._baseline`), not its level.
 7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
    its overshoot on the tail copy, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
@@ -574,9 +579,11 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         width_ok = (RESOLVE_SIGMAS * np.hypot(st10_w, st_w) <= tol_w) & ~censored
         sig_b = np.hypot(sigma / np.sqrt(k_os), bipolarity * sig_s) / peak
         bip_ok = (RESOLVE_SIGMAS * sig_b <= BIPOLARITY_TOLERANCE) & ~censored
-    end_ok = _end_resolved(u_s, nu_t, sig_s, sigma / np.sqrt(k_tail), k, k_tail, c10,
+    tol_end = DURATION_REL * np.abs(np.nan_to_num(
+        np.where(np.isfinite(end_w), end_w, pulse_end) - c10)) + DURATION_SAMPLES
+    end_ok = _end_resolved(u_s, nu_t, sig_s, sigma / np.sqrt(k_tail), k, k_tail, tol_end,
                            pulse_end, end_w, st_w, has_zc & has_back & np.isfinite(lobe_back),
-                           has_zc & np.isfinite(tail_fall), tail_cut) & ~censored
+                           has_zc & np.isfinite(tail_fall), tail_cut, RESOLVE_SIGMAS) & ~censored
     bipolarity = np.where(bip_ok | (bipolarity == 0), bipolarity, np.nan)
     bipolarity = np.where(censored, np.nan, bipolarity)
     rise = (c90 - c10) * dt
