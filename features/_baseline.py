@@ -47,9 +47,8 @@ def rc_offset(y, stop, sample_rate_hz, quantum, decay_time_s):
     """
     fs = float(sample_rate_hz)
     n, m = y.shape
-    quiet, _, _, _, _ = baseline_fit(y, stop, fs, quantum, min_slope_s=np.inf,
-                                     quiet_level=True)
-    _, slope, _, start, used = baseline_fit(y, stop, fs, quantum)
+    # (one pass: the quiet level, and the stretch's slope where significant)
+    quiet, slope, _, start, used = baseline_fit(y, stop, fs, quantum, quiet_level=True)
     rows = np.flatnonzero((slope != 0) & (used >= BASELINE_MIN_SAMPLES))
     if not rows.size:
         return quiet
@@ -77,17 +76,22 @@ def rc_offset(y, stop, sample_rate_hz, quantum, decay_time_s):
     sig_d = np.maximum(sig_d, quantum / np.sqrt(12.0))
     fits = np.isfinite(on_tail) & (rms <= RAMP_NOISE_RATIO * sig_d)
     # compensation is linear: comp(y - c) = comp(y) - c (1 + j / (tau fs)) at column j
-    ramp = 1.0 + np.arange(m) / (decay_time_s * fs)
-    sub = y[rows] + cumtrapz_rows(y[rows], 1.0 / fs) / decay_time_s    # E = y + int y / tau
+    # (only the rows the exponential fits, only the columns before the stretch's end)
+    keep = rows[fits]
+    out = quiet.copy()
+    if not keep.size:
+        return out
+    on_tail = on_tail[fits]
+    w = int(min(stop[keep].max(initial=0), m))
+    ramp = 1.0 + np.arange(w) / (decay_time_s * fs)
+    part = y[keep, :w]
+    sub = part + cumtrapz_rows(part, 1.0 / fs) / decay_time_s          # E = y + int y / tau
 
     def noise(c):
-        return baseline_fit(sub - c[:, None] * ramp, stop[rows], fs, quantum,
+        return baseline_fit(sub - c[:, None] * ramp, stop[keep], fs, quantum,
                             min_slope_s=np.inf, quiet_level=True)[2]
 
-    out = quiet.copy()
-    # (only where the quiet level leaves a ramp that clearly swells the noise: a line
-    # through a stretch with a pulse or a real slow field change in it is no tail)
-    on_tail = np.where(fits, on_tail, quiet[rows])
-    out[rows] = np.where(fits & (RAMP_NOISE_RATIO * noise(on_tail) < noise(quiet[rows])),
-                         on_tail, quiet[rows])
+    # (only where the quiet level leaves a ramp that clearly swells the noise)
+    out[keep] = np.where(RAMP_NOISE_RATIO * noise(on_tail) < noise(quiet[keep]), on_tail,
+                         quiet[keep])
     return out
