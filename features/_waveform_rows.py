@@ -202,3 +202,29 @@ def _refine_crossing(u, c, level, half):
         shift = xm + (level - ym) / b                    # where the line meets the level
     good = ok & (s0 >= 3) & np.isfinite(shift) & (np.abs(shift) <= h) & (b != 0)
     return np.where(good, c + np.where(good, shift, 0.0), c)
+
+
+def _end_resolved(u_s, nu_t, sig_s, sig_t, k, k_tail, tol, end, end_w, st_w, by_back,
+                  by_tail, cut, resolve_sigmas):
+    """Whether the pulse's end (in samples) is resolved: its crossing's uncertainty
+    (:func:`_crossing_sigma`, the slope over +-the tolerance) within the tolerance.
+
+    The end is read off the crossing that set it: the overshoot's return through zero
+    (``by_back``, on the smoothed ``u_s``), its tail's fall through 1 % of the peak
+    (``by_tail``, on the tail copy ``nu_t`` of noise ``sig_t``), the width's end
+    ``end_w`` (uncertainty ``st_w``) where that comes later, else the smoothed pulse's
+    fall (``u_s``). A tail still above its level where the search stopped (``cut``: the
+    next pulse, the record's end) shows no fall at all: never resolved. The tolerance is
+    the schema's for an instant: 10 % of the width (10 % point of the leading edge to
+    the end) plus one sample; :data:`RESOLVE_SIGMAS` uncertainties must fit in it (the
+    rule of the other crossings in :mod:`features.waveform`).
+    """
+    half_s = np.fmax(tol, k / 2.0)
+    st = np.where(by_back, _crossing_sigma(u_s, end, sig_s, half_s),
+                  np.where(by_tail, _crossing_sigma(nu_t, end, sig_t,
+                                                    np.fmax(2.0 * tol, k_tail / 2.0)),
+                           _crossing_sigma(u_s, end, sig_s, half_s)))
+    from_w = np.isfinite(end_w) & (end_w >= end)
+    st = np.where(from_w, st_w, st)
+    with np.errstate(invalid="ignore"):
+        return (resolve_sigmas * st <= tol) & ~cut & np.isfinite(end)

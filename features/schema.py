@@ -271,23 +271,29 @@ FEATURES: tuple[Feature, ...] = (
     Feature("polarity", "1", "+1 / -1: sign of the initial half-cycle", "field",
             tolerance=_EXACT),
     Feature("rise_time_s", "s", "10 % to 90 % of the peak on its leading edge (searched back "
-            "from the peak, never before the previous pulse); NaN below 20 dB SNR or under one "
-            "sample", "field", tolerance=_DURATION),
+            "from the peak, never before the previous pulse); NaN below 20 dB SNR, under one "
+            "sample, where 1.25 x the crossings' time noise (noise / slope) exceeds 10 % "
+            "of it + 1 sample, and at the digitizer's full scale", "field",
+            tolerance=_DURATION),
     Feature("fwhm_s", "s", "full width at half maximum of the initial half-cycle; NaN below "
             "12 dB SNR or under two samples", "field", tolerance=_DURATION),
     Feature("initial_half_cycle_s", "s", "onset (last rise through max(1 % of the peak, "
             "3 sigma of the smoothed record)) to the zero crossing; NaN for a unipolar pulse "
-            "and below 20 dB SNR", "field", tolerance=_DURATION),
+            "and below 20 dB SNR (the onset lost in the noise)", "field", tolerance=_DURATION),
     Feature("zero_crossing_s", "s", "peak to the zero crossing: the last fall through 0 "
-            "before the (smoothed) field goes below -max(3 sigma, 2 % of the peak); NaN for a "
-            "unipolar pulse and below 20 dB SNR", "field", tolerance=_DURATION),
+            "before the (smoothed) field goes below -max(3 sigma, 2 % of the peak), re-read "
+            "off a line through it; NaN for a unipolar pulse, below 20 dB SNR, where 1.25 x "
+            "the crossing's time noise (noise / slope) exceeds 10 % of it + 1 sample, and "
+            "at the digitizer's full scale", "field", tolerance=_DURATION),
     Feature("width_s", "s", "whole pulse duration: leading-edge 10 % point to the last fall "
             "of the (smoothed) pulse, or of its overshoot when that exceeds 10 %, below 10 % "
-            "of the peak; NaN where 10 % of the peak is under 2 sigma", "field",
-            tolerance=_DURATION),
+            "of the peak; NaN where 10 % of the peak is under 2 sigma, under two samples, "
+            "where 1.25 x the crossings' time noise (noise / slope) exceeds 10 % of it + 1 "
+            "sample, and at the digitizer's full scale", "field", tolerance=_DURATION),
     Feature("bipolarity", "1", "opposite-polarity overshoot peak (smoothed) / peak, 0 for a "
-            "unipolar pulse; NaN below 20 dB SNR and where noise could hide an overshoot of "
-            "15 %", "field", tolerance=Tolerance(value=0.08)),
+            "unipolar pulse; NaN below 20 dB SNR, where noise could hide an overshoot of "
+            "15 %, where 1.25 x the ratio's noise exceeds 0.08, and at the digitizer's full "
+            "scale", "field", tolerance=Tolerance(value=0.08)),
     Feature("range_normalized_peak_v_per_m", "V/m", "peak scaled to a ground-level source at "
             "100 km with the elevated-source geometry: x (R^3 / D^2) / 100 km, R = "
             "sqrt(D^2 + H^2); NaN without range", "field",
@@ -298,7 +304,8 @@ FEATURES: tuple[Feature, ...] = (
             "converge); + = upward-directed current; NaN without range", "field",
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "
-            "overshoot lobe (or of the pulse), same inversion; NaN without range", "field",
+            "overshoot lobe (or of the pulse), same inversion; NaN without range and below "
+            "20 dB SNR (onset and tail lost in the noise)", "field",
             requires=frozenset({"range"}),
             tolerance=Tolerance(rel=0.20, sigma=2, bound="field_censored")),
     Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 (R^3 / D^2) "
@@ -309,7 +316,10 @@ FEATURES: tuple[Feature, ...] = (
     Feature("pulse_end_s", "s", "end of the pulse (of its overshoot lobe when bipolar: its "
             "tail's first fall below 1 % of the peak), physical time relative to the "
             "trigger; NaN for a bipolar pulse whose smoothed tail noise (2 sigma) stands "
-            "above 1 % of the peak, and where bipolarity is NaN", "field", model=False,
+            "above 1 % of the peak, whose tail is still above it at the next pulse, or where "
+            "1.25 x the fall's time noise (noise / slope) exceeds 10 % of width_s + 1 "
+            "sample; where "
+            "bipolarity is NaN; at the digitizer's full scale", "field", model=False,
             tolerance=_INSTANT),
     Feature("neighbours_before", "1", "other pulses in the record within 100 us before the "
             "peak, reaching max(5 sigma, 10 % of the peak)", "field",

@@ -37,10 +37,15 @@ Steps and definitions (the contract of :mod:`features.schema`):
    overshoot's peak, or at the next pulse; its peak is taken on a copy smoothed over a
    quarter of the overshoot's own FWHM (at most to 1 % of P, as the peak's). The
    tail is followed on a copy smoothed to :data:`TAIL_NOISE_FRACTION` of P (noise
-   sigma_t), over at most the overshoot's rise, so that a noise dip does not end it
-   early; ``pulse_end_s`` is NaN where 2 sigma_t stays above 1 % of P (the end would be
-   the noise's), and for a unipolar-looking pulse where bipolarity is NaN (its noise
-   could hide an overshoot, and with it the end).
+   sigma_t), over at most the overshoot's rise and a window that delays the fall by at
+   most a quarter of its tolerance (:mod:`features._tail`), so that a noise dip does not
+   end it early, and re-read off a line through it; ``pulse_end_s`` is NaN where
+   2 sigma_t stays above 1 % of P (the end would be the noise's), where the tail is still
+   above its level at the next pulse (the end is hidden), where RESOLVE_SIGMAS of the
+   fall's time noise exceed its tolerance, and for a unipolar-looking pulse where
+   bipolarity is NaN (its noise could hide an overshoot, and with it the end). An
+   RC-coupled record on the decaying tail of an earlier field change has its digitizer
+   offset from a fit of that tail (:mod:`features._baseline`), not its level.
 7. **Width**: from the 10 % point of the leading edge to the point where the pulse (or
    its overshoot on the tail copy, if that exceeds 10 % of P) last falls below 10 % of P.
 8. **Resolution**: a quantity the record cannot resolve is NaN, not a number: rise time
@@ -76,6 +81,7 @@ import numpy as np
 from scipy import constants
 
 from . import pulses as _pulses
+from ._baseline import rc_offset
 from ._rowops import (
     crossing_after,
     crossing_before,
@@ -84,9 +90,11 @@ from ._rowops import (
     parabolic_peak,
     take_rows,
 )
+from ._tail import bounded_tail_window, line_half_window
 from ._waveform_rows import (
     REFINE_MAX_HALF,
     _crossing_sigma,
+    _end_resolved,
     _fill_missing,
     _first_subpeak,
     _last_at_least,
@@ -282,10 +290,10 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     q = float(quantum_v_per_m or 0.0)
     stop_a = np.full(n, int(np.clip(np.floor(jt - TRIGGER_GUARD_S * fs), 0, m)))
     # the digitizer's offset first (decay compensation would turn it into a ramp)
+    # (on the decaying tail of an earlier field change: :mod:`features._baseline`)
     offset = np.zeros(n)
-    if decay_time_s is not None:
-        offset, _, _, _, _ = _pulses.baseline_fit(x, stop_a, fs, q, min_slope_s=np.inf,
-                                                  quiet_level=True)
+    if decay_time_s is not None and m:
+        offset = rc_offset(x, stop_a, fs, q, decay_time_s)
         x = x - offset[:, None]
     e0 = decay_compensate(x, fs, decay_time_s)
 
@@ -441,13 +449,32 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     k_tail = np.where(has_zc, k_tail, 1)
     nu_t = -moving_average_rows(u, k_tail)
     h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
-    tail_fall = crossing_after(nu_t, np.minimum(j_opk, np.maximum(lobe_stop - 1, jc)), h_tail,
-                               stop=lobe_stop)
+    t_from = np.minimum(j_opk, np.maximum(lobe_stop - 1, jc))
+    tail_fall = crossing_after(nu_t, t_from, h_tail, stop=lobe_stop)
+    # ... over a window short enough to bend the tail's fall by at most a quarter of the
+    # end's tolerance (:mod:`features._tail`; a fast tail is bent most), re-read there
+    tol_end = DURATION_REL * np.abs(tail_fall - c10) + DURATION_SAMPLES
+    k_b, tau_t = bounded_tail_window(nu_t, tail_fall, h_tail, k_tail, k, tol_end)
+    redo = np.flatnonzero(k_b < k_tail)
+    if redo.size:
+        k_tail = k_b
+        nu_t[redo] = -moving_average_rows(u[redo], k_tail[redo])
+        h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
+        tail_fall[redo] = crossing_after(nu_t[redo], t_from[redo], h_tail[redo],
+                                         stop=lobe_stop[redo])
+    # ... re-read off a line through the copy within +-its tolerance (a first fall is
+    # early by a noise dip where the tail is slow: the line crosses where the tail does),
+    # over a window that bends it little (:func:`features._tail.line_half_window`)
+    tail_fall = _refine_crossing(nu_t, tail_fall, h_tail, np.fmin(
+        np.fmax(tol_end, k_tail / 2.0), line_half_window(tau_t, tol_end)))
     h_tail = np.maximum(2 * sig_s, lvl(0.01))
     j_tail, has_tail = _last_at_least(nu_s, h_tail, jc + 1, lobe_stop)
     lobe_end = np.where(has_back & np.isfinite(lobe_back), lobe_back,
                         np.where(np.isfinite(tail_fall), tail_fall,
                                  np.where(has_tail, j_tail + 1.0, jc.astype(float))))
+    # a tail still above its level where the search stops (the next pulse, the record's
+    # end, ten initial half-cycles) has no fall the record shows: its end is hidden
+    tail_cut = has_zc & ~(has_back & np.isfinite(lobe_back)) & ~np.isfinite(tail_fall) & has_tail
     lobe_end = np.minimum(lobe_end, m - 1.0)
     lobe_end = np.where(has_zc, lobe_end, np.nan)
     overshoot, j_os = _masked_max(nu_s, np.where(has_zc, np.floor(np.nan_to_num(zc)), 0),
@@ -552,6 +579,11 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         width_ok = (RESOLVE_SIGMAS * np.hypot(st10_w, st_w) <= tol_w) & ~censored
         sig_b = np.hypot(sigma / np.sqrt(k_os), bipolarity * sig_s) / peak
         bip_ok = (RESOLVE_SIGMAS * sig_b <= BIPOLARITY_TOLERANCE) & ~censored
+    tol_end = DURATION_REL * np.abs(np.nan_to_num(
+        np.where(np.isfinite(end_w), end_w, pulse_end) - c10)) + DURATION_SAMPLES
+    end_ok = _end_resolved(u_s, nu_t, sig_s, sigma / np.sqrt(k_tail), k, k_tail, tol_end,
+                           pulse_end, end_w, st_w, has_zc & has_back & np.isfinite(lobe_back),
+                           has_zc & np.isfinite(tail_fall), tail_cut, RESOLVE_SIGMAS) & ~censored
     bipolarity = np.where(bip_ok | (bipolarity == 0), bipolarity, np.nan)
     bipolarity = np.where(censored, np.nan, bipolarity)
     rise = (c90 - c10) * dt
@@ -588,8 +620,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         # P; where its noise holds the level above that, the end is the noise's: NaN; so
         # is the end of a unipolar-looking pulse whose noise could hide an overshoot (the
         # rule of bipolarity)
-        "pulse_end_s": np.where(np.where(has_zc, 2 * sigma / np.sqrt(k_tail) <= lvl(0.01),
-                                         np.isfinite(bipolarity)), tm(pulse_end), np.nan),
+        "pulse_end_s": np.where(np.where(has_zc, (2 * sigma / np.sqrt(k_tail) <= lvl(0.01))
+                                         & end_ok, np.isfinite(bipolarity) & end_ok),
+                                tm(pulse_end), np.nan),
         **nb,
         "pre_level_ratio": pre_level_ratio,
         "baseline_slope_ratio": slope_ratio,
