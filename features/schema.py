@@ -276,7 +276,8 @@ FEATURES: tuple[Feature, ...] = (
             "of it + 1 sample, and at the digitizer's full scale", "field",
             tolerance=_DURATION),
     Feature("fwhm_s", "s", "full width at half maximum of the initial half-cycle; NaN below "
-            "12 dB SNR or under two samples", "field", tolerance=_DURATION),
+            "12 dB SNR, under two samples and at the digitizer's full scale", "field",
+            tolerance=_DURATION),
     Feature("initial_half_cycle_s", "s", "onset (last rise through max(1 % of the peak, "
             "3 sigma of the smoothed record)) to the zero crossing; NaN for a unipolar pulse "
             "and below 20 dB SNR (the onset lost in the noise)", "field", tolerance=_DURATION),
