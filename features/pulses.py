@@ -37,7 +37,9 @@ Definitions (the contract of :mod:`features.schema`):
   of an earlier pulse).
 * **neighbours**: the other pulses of the record whose peak reaches
   max(``LOBE_HIGH_SIGMA`` sigma, :data:`NEIGHBOUR_FRACTION` x the catalogued peak),
-  counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak.
+  counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak; not a
+  pulse the record cuts (already under way at its first column, still rising at its
+  last: its peak lies outside the record, all the record holds is its overshoot or rise).
   Leader steps come in trains 10-50 us apart (Rakov & Uman 2003, ch. 4; from memory),
   narrow bipolar events are isolated (no other pulse within ~100 us; common practice in
   NBE studies, no single source), so these tell them apart whatever the station's
@@ -523,7 +525,11 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
     level = np.maximum(LOBE_HIGH_SIGMA * np.nan_to_num(sigma, nan=np.inf),
                        NEIGHBOUR_FRACTION * np.nan_to_num(own_peak))
     dt = (pulses.peak_col - own_peak_col[r]) / fs        # s, + after
-    other = ok_row & ~self_
+    # a pulse the record cuts (already under way at its first column, or still rising at
+    # its last) has its peak outside the record: of an earlier (later) discharge, whose
+    # overshoot or rise is all the record holds; not a pulse in the record
+    cut = (pulses.start == 0) | (pulses.peak_col >= n_cols - 1)
+    other = ok_row & ~self_ & ~cut
     sig = other & (pulses.height >= level[r])
     close = sig & (np.abs(dt) <= context_s)
     out["neighbours_before"] = np.where(has, np.bincount(r[close & (dt < 0)], minlength=n), np.nan)
