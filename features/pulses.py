@@ -56,6 +56,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import ndimage
 
 from . import _lobes
 from ._lobes import (
@@ -140,11 +141,21 @@ BRIDGE_SIGMA = 3.0
 BRIDGE_LEVEL = 0.5
 #: A lobe of the overshoot's sign riding on a pulse's overshoot (no return to the
 #: baseline) and starting within this of the pulse's peak is its channel-end reversal
-#: (:func:`_rides_own_overshoot`), s: L/v of a channel of up to ~2.5 km at 1e8 m/s, and
-#: the 10-30 us a narrow bipolar event's whole waveform lasts (Rakov & Uman 2003, ch. 8;
-#: from memory). A pulse later than this on an RC undershoot (a fast antenna whose decay
-#: the catalog does not give) stands alone.
-REVERSAL_MAX_S = 25e-6
+#: (:func:`_rides_own_overshoot`), s: L/v of a channel section of up to ~500 m for a
+#: wave at ~1e7 m/s, the speed of dart and recoil leaders in a decayed channel (Rakov &
+#: Uman 2003, ch. 4 and 9: 1e6-2e7 m/s; from memory), ~5 km at 1e8 m/s; longer than the
+#: 10-30 us a narrow bipolar event's whole waveform lasts (Rakov & Uman 2003, ch. 8;
+#: from memory). Only lobes of the overshoot's sign: a leader step keeps the train's
+#: (initial) sign and stays apart at any delay. A pulse later than this on an RC
+#: undershoot (a fast antenna whose decay the catalog does not give) stands alone.
+REVERSAL_MAX_S = 50e-6
+#: ... and rising from half its own height (above the valley it rides on) to its peak
+#: over at least this fraction of the time the pulse's initial half-cycle takes to rise
+#: from half its peak to its peak: the reversal is the
+#: initial current wave itself, reflected, no faster (the far field of a finite channel
+#: is proportional to i(t) - i(t - L/v); Uman, McLain & Krider 1975); a pulse of the
+#: overshoot's sign rising twice as fast is another discharge riding there.
+REVERSAL_MIN_RISE = 0.5
 
 
 @dataclass(frozen=True)
@@ -197,10 +208,14 @@ class LobeTableWithBase(LobeTable):
         on average (by at least max(``BRIDGE_SIGMA`` standard errors, ``BRIDGE_LEVEL``
         sigma)): the field did not come back to the baseline in between, the two are one
         swing broken where it hovered near the detection level.
+    rise : ndarray of float
+        Columns from the lobe's last sample below half its own height (``base`` + half
+        of ``peak - base``, smoothed record) to its peak: its rise time, 50-100 %.
     """
 
     base: np.ndarray = None
     bridged: np.ndarray = None
+    rise: np.ndarray = None
 
 
 def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
@@ -244,10 +259,33 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
             need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
             bridged[j] = mean * lobes.sign[j] >= need
     return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged)
+                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth))
 
 
 _LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
+
+
+def _half_rise(e, lobes, base, smooth):
+    """Columns from each lobe's last sample below half its own height (above ``base``,
+    on the smoothed record) to its peak; at most ``peak_col - start``."""
+    n_l = len(lobes)
+    rise = np.zeros(n_l)
+    if n_l == 0:
+        return rise
+    k = max(int(smooth), 1)
+    rows = np.unique(lobes.row)
+    es = e[rows] if k == 1 else ndimage.uniform_filter1d(e[rows], k, axis=1, mode="nearest")
+    ri = np.searchsorted(rows, lobes.row)
+    length = np.maximum(lobes.peak_col - lobes.start, 0) + 1
+    lobe = np.repeat(np.arange(n_l), length)
+    off = np.arange(lobe.size) - np.repeat(np.cumsum(length) - length, length)
+    col = lobes.start[lobe] + off
+    half = base + 0.5 * (lobes.peak - base)
+    below = lobes.sign[lobe] * es[ri[lobe], col] < half[lobe]
+    last = np.full(n_l, -1)
+    np.maximum.at(last, lobe[below], col[below])
+    rise = np.where(last >= 0, lobes.peak_col - last, length - 1).astype(np.float64)
+    return rise
 
 
 def group_pulses(lobes: LobeTable, sample_rate_hz: float):
@@ -344,8 +382,11 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     after_os = np.zeros(n_l, dtype=bool)
     after_os[1:] = join[:-1]
     join |= close_small & ~flip & after_os & ~l_after_valley
+    rise = getattr(lobes, "rise", None)
+    rise = (l_peak_col - l_start).astype(np.float64) if rise is None else rise[~split]
     join |= _rides_own_overshoot(join, same_row & ~flip & l_after_valley, l_sign, l_peak,
-                                 l_start, l_peak_col, REVERSAL_MAX_S * fs)
+                                 l_start, l_peak_col, REVERSAL_MAX_S * fs,
+                                 base[~split], rise)
     pulse_of_lobe = np.cumsum(~join) - 1
     n_p = int(pulse_of_lobe[-1]) + 1
     first = np.flatnonzero(~join)
@@ -381,7 +422,7 @@ def _chain_position(join):
     return np.arange(join.size) - starts[seg]
 
 
-def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
+def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay, base, rise):
     """Lobes that continue a pulse's own overshoot: the reversed field at its channel end.
 
     A current pulse stopping at the end of its channel radiates a field of the opposite
@@ -391,7 +432,10 @@ def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
     the compact intracloud discharge's reflections, ch. 8; from memory). It rides on the
     pulse's overshoot, of the overshoot's sign, after a valley: part of the pulse, not
     another discharge (a leader step's own field has the initial half-cycle's sign, so a
-    step riding on an overshoot is a sign flip and stays apart).
+    step riding on an overshoot is a sign flip and stays apart). The reversal is the
+    initial current wave reflected (the same i(t), dispersed on the way: no faster), so
+    it rises (50-100 % of its own height) no faster than :data:`REVERSAL_MIN_RISE` x
+    the initial half-cycle's rise; a narrower pulse riding there is another discharge.
 
     Parameters
     ----------
@@ -402,20 +446,36 @@ def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
         field did not come back to the baseline in between).
     sign, peak : ndarray
         Sign and |e| peak of each lobe.
+    start, peak_col : ndarray of int
+        First column (for a riding lobe: its valley) and peak column of each lobe.
+    max_delay : float
+        Latest start after the pulse's peak, columns.
+    base : ndarray
+        |e| each lobe rides on (:class:`LobeTableWithBase`); the rise test applies to
+        lobes whose own height reaches ``NEIGHBOUR_FRACTION`` of the half-cycle (the
+        noise-split pieces of the overshoot itself join as they are).
+    rise : ndarray
+        Each lobe's rise from half its own height to its peak, columns
+        (:class:`LobeTableWithBase`).
 
     Returns
     -------
     ndarray of bool
         Lobes to join: a chain of riding lobes whose head is a joined lobe of the sign
         opposite to its pulse's initial half-cycle, each no larger than
-        ``OVERSHOOT_MAX_RATIO`` x that half-cycle (a larger pulse is another one).
+        ``OVERSHOOT_MAX_RATIO`` x that half-cycle (a larger pulse is another one) and
+        rising no faster than ``REVERSAL_MIN_RISE`` x its rise.
     """
     idx = np.arange(join.size)
     first = np.maximum.accumulate(np.where(join, 0, idx))     # each pulse's first lobe
     head = np.maximum.accumulate(np.where(ride, 0, idx))      # each riding chain's head
     on_os = join[head] & (sign[head] != sign[first[head]])
     soon = start - peak_col[first[head]] <= max_delay
-    return ride & on_os & soon & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]])
+    f = first[head]
+    slow = ((rise >= REVERSAL_MIN_RISE * rise[f])
+            | (peak - base < NEIGHBOUR_FRACTION * peak[f]))
+    return (ride & on_os & soon & slow
+            & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]]))
 
 
 def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarray,
