@@ -45,8 +45,8 @@ Definitions (the contract of :mod:`features.schema`):
   NBE studies, no single source), so these tell them apart whatever the station's
   cataloguing practice.
 
-The baseline, noise and lobe part lives in :mod:`features._lobes` and is re-exported
-here; this module groups lobes into pulses (:func:`group_pulses`), finds the
+The baseline, noise and lobe part lives in :mod:`features._lobes`, the level each lobe
+rides on in :mod:`features._riding`, both re-exported here; this module groups lobes into pulses (:func:`group_pulses`), finds the
 catalogued pulse (:func:`catalogued_pulse`) and its neighbours
 (:func:`neighbour_features`).
 """
@@ -56,9 +56,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage
 
-from . import _lobes
 from ._lobes import (
     BASELINE_MAX_S,
     BASELINE_MIN_S,
@@ -78,6 +76,9 @@ from ._lobes import VALLEY_FRACTION as VALLEY_FRACTION
 from ._lobes import VALLEY_SIGMA as VALLEY_SIGMA
 from ._lobes import _noise_floor as _noise_floor
 from ._lobes import robust_sigma_diff as robust_sigma_diff
+from ._riding import BRIDGE_LEVEL as BRIDGE_LEVEL
+from ._riding import BRIDGE_SIGMA as BRIDGE_SIGMA
+from ._riding import LobeTableWithBase, find_lobes
 
 __all__ = [
     "BASELINE_MAX_S",
@@ -135,10 +136,6 @@ NEIGHBOUR_FRACTION = 0.1
 #: hovers near the detection level), s. Shorter than the 10-50 us between leader steps
 #: (Rakov & Uman 2003, ch. 4; from memory).
 BRIDGE_MAX_S = 10e-6
-#: ... its sign held by at least this many standard errors of the gap's mean ...
-BRIDGE_SIGMA = 3.0
-#: ... and this many noise sigmas (a baseline off by a fraction of a count is no bridge).
-BRIDGE_LEVEL = 0.5
 #: A lobe of the overshoot's sign riding on a pulse's overshoot (no return to the
 #: baseline) and starting within this of the pulse's peak is its channel-end reversal
 #: (:func:`_rides_own_overshoot`), s: L/v of a channel section of up to ~500 m for a
@@ -192,100 +189,6 @@ class PulseTable:
     def __len__(self) -> int:
         return int(self.row.size)
 
-
-@dataclass(frozen=True)
-class LobeTableWithBase(LobeTable):
-    """A :class:`LobeTable` with the level each lobe rides on.
-
-    Attributes
-    ----------
-    base : ndarray of float
-        |e| of the (smoothed) record at the lobe's first sample where the lobe was split
-        from the one before it at a valley (``after_valley``: it rides on that lobe's
-        tail), else 0, V/m. ``peak - base`` is the lobe's own height (its prominence).
-    bridged : ndarray of bool
-        The record between the row's previous lobe and this one keeps this lobe's sign
-        on average (by at least max(``BRIDGE_SIGMA`` standard errors, ``BRIDGE_LEVEL``
-        sigma)): the field did not come back to the baseline in between, the two are one
-        swing broken where it hovered near the detection level.
-    rise : ndarray of float
-        Columns from the lobe's last sample below half its own height (``base`` + half
-        of ``peak - base``, smoothed record) to its peak: its rise time, 50-100 %.
-    """
-
-    base: np.ndarray = None
-    bridged: np.ndarray = None
-    rise: np.ndarray = None
-
-
-def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
-               **levels) -> LobeTableWithBase:
-    """Every lobe of every row (:func:`features._lobes.find_lobes`) and its base level.
-
-    A pulse riding on the tail of an earlier one (an overshoot or an RC undershoot that
-    decays slowly, a leader step on a stroke's tail) is split from it at the valley
-    between them; its own height is its peak above that valley, not above the baseline
-    (the topographic prominence). Parameters as :func:`features._lobes.find_lobes`.
-
-    Returns
-    -------
-    LobeTableWithBase
-    """
-    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
-    base = np.zeros(len(lobes))
-    ride = np.flatnonzero(lobes.after_valley)
-    if ride.size:
-        # the smoothed record at the valley (find_lobes' centred moving average)
-        w = e.shape[1]
-        k = max(int(smooth), 1)
-        cols = lobes.start[ride, None] + np.arange(k)[None] - k // 2
-        vals = e[lobes.row[ride, None], np.clip(cols, 0, w - 1)]
-        base[ride] = np.minimum(np.abs(vals.mean(axis=1)), lobes.peak[ride])
-    bridged = np.zeros(len(lobes), dtype=bool)
-    if len(lobes) > 1:
-        # mean of the record in the gap after the previous lobe of the same row
-        j = np.flatnonzero(lobes.row[1:] == lobes.row[:-1]) + 1
-        a, b, r = lobes.stop[j - 1], lobes.start[j], lobes.row[j]
-        has_gap = b > a
-        j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
-        if j.size:
-            rows = np.unique(r)
-            cs = np.zeros((rows.size, e.shape[1] + 1))
-            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
-            ri = np.searchsorted(rows, r)
-            n_gap = b - a
-            mean = (cs[ri, b] - cs[ri, a]) / n_gap
-            sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
-            need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
-            bridged[j] = mean * lobes.sign[j] >= need
-    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth))
-
-
-_LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
-
-
-def _half_rise(e, lobes, base, smooth):
-    """Columns from each lobe's last sample below half its own height (above ``base``,
-    on the smoothed record) to its peak; at most ``peak_col - start``."""
-    n_l = len(lobes)
-    rise = np.zeros(n_l)
-    if n_l == 0:
-        return rise
-    k = max(int(smooth), 1)
-    rows = np.unique(lobes.row)
-    es = e[rows] if k == 1 else ndimage.uniform_filter1d(e[rows], k, axis=1, mode="nearest")
-    ri = np.searchsorted(rows, lobes.row)
-    length = np.maximum(lobes.peak_col - lobes.start, 0) + 1
-    lobe = np.repeat(np.arange(n_l), length)
-    off = np.arange(lobe.size) - np.repeat(np.cumsum(length) - length, length)
-    col = lobes.start[lobe] + off
-    half = base + 0.5 * (lobes.peak - base)
-    below = lobes.sign[lobe] * es[ri[lobe], col] < half[lobe]
-    last = np.full(n_l, -1)
-    np.maximum.at(last, lobe[below], col[below])
-    rise = np.where(last >= 0, lobes.peak_col - last, length - 1).astype(np.float64)
-    return rise
 
 
 def group_pulses(lobes: LobeTable, sample_rate_hz: float):
