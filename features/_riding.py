@@ -17,7 +17,7 @@ import numpy as np
 from scipy import ndimage
 
 from . import _lobes
-from ._lobes import LobeTable
+from ._lobes import LOBE_HIGH_SIGMA, LobeTable
 
 __all__ = ["BRIDGE_LEVEL", "BRIDGE_SIGMA", "LobeTableWithBase", "find_lobes"]
 
@@ -47,11 +47,17 @@ class LobeTableWithBase(LobeTable):
     rise : ndarray of float
         Columns from the lobe's last sample below half its own height (``base`` + half
         of ``peak - base``, smoothed record) to its peak: its rise time, 50-100 %.
+    cut : ndarray of bool
+        The record opens inside the lobe: it starts at the first column with the
+        (smoothed) record there already at ``LOBE_HIGH_SIGMA`` sigma in its sign, so its
+        start and perhaps its peak lie before the record (a run that merely hovers above
+        the low level from the first column, an offset of a count or two, is not cut).
     """
 
     base: np.ndarray = None
     bridged: np.ndarray = None
     rise: np.ndarray = None
+    cut: np.ndarray = None
 
 
 def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
@@ -94,8 +100,16 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
             sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
             need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
             bridged[j] = mean * lobes.sign[j] >= need
+    cut = np.zeros(len(lobes), dtype=bool)
+    at0 = np.flatnonzero(lobes.start == 0)
+    if at0.size and e.shape[1]:
+        k = min(max(int(smooth), 1), e.shape[1])
+        first = e[lobes.row[at0], :k].mean(axis=1) * lobes.sign[at0]
+        sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[lobes.row[at0]]
+        cut[at0] = first >= LOBE_HIGH_SIGMA * sg
     return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth))
+                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth),
+                             cut=cut)
 
 
 _LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")

@@ -38,8 +38,9 @@ Definitions (the contract of :mod:`features.schema`):
 * **neighbours**: the other pulses of the record whose peak reaches
   max(``LOBE_HIGH_SIGMA`` sigma, :data:`NEIGHBOUR_FRACTION` x the catalogued peak),
   counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak; not a
-  pulse the record cuts (already under way at its first column, still rising at its
-  last: its peak lies outside the record, all the record holds is its overshoot or rise).
+  pulse the record cuts (the record opening inside it, at ``LOBE_HIGH_SIGMA`` sigma
+  already, or still rising at its last column: its peak lies outside the record, all
+  the record holds is its overshoot or rise).
   Leader steps come in trains 10-50 us apart (Rakov & Uman 2003, ch. 4; from memory),
   narrow bipolar events are isolated (no other pulse within ~100 us; common practice in
   NBE studies, no single source), so these tell them apart whatever the station's
@@ -174,6 +175,8 @@ class PulseTable:
         The pulse's own height, V/m: the largest of its lobes' peaks less the level each
         rides on (the |e| of the valley it was split from an earlier lobe at,
         :class:`LobeTableWithBase`); ``peak`` for a pulse that starts from the baseline.
+    cut : ndarray of bool or None
+        The record opens inside the pulse's initial lobe (:class:`LobeTableWithBase`).
     """
 
     row: np.ndarray
@@ -185,6 +188,7 @@ class PulseTable:
     sign: np.ndarray
     n_lobes: np.ndarray
     height: np.ndarray
+    cut: np.ndarray = None
 
     def __len__(self) -> int:
         return int(self.row.size)
@@ -307,10 +311,12 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     l_base = base[~split]
     p_height = np.zeros(n_p)
     np.maximum.at(p_height, pulse_of_lobe, np.maximum(l_peak - l_base, 0.0))
+    l_cut = getattr(lobes, "cut", None)
     table = PulseTable(row=l_row[first], start=l_start[first], stop=p_stop,
                        first_lobe=first, peak_col=p_peak_col, peak=p_peak,
                        sign=l_sign[first], n_lobes=n_lobes,
-                       height=p_height)
+                       height=p_height,
+                       cut=None if l_cut is None else l_cut[~split][first])
     merged = LobeTableWithBase(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
                                peak=l_peak, sign=l_sign,
                                after_valley=lobes.after_valley[~split], base=l_base,
@@ -375,7 +381,7 @@ def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay, bas
     on_os = join[head] & (sign[head] != sign[first[head]])
     soon = start - peak_col[first[head]] <= max_delay
     f = first[head]
-    slow = ((rise >= REVERSAL_MIN_RISE * rise[f])
+    slow = ((rise + 1 >= REVERSAL_MIN_RISE * rise[f])          # (to a sample)
             | (peak - base < NEIGHBOUR_FRACTION * peak[f]))
     return (ride & on_os & soon & slow
             & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]]))
@@ -488,10 +494,11 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
     level = np.maximum(LOBE_HIGH_SIGMA * np.nan_to_num(sigma, nan=np.inf),
                        NEIGHBOUR_FRACTION * np.nan_to_num(own_peak))
     dt = (pulses.peak_col - own_peak_col[r]) / fs        # s, + after
-    # a pulse the record cuts (already under way at its first column, or still rising at
-    # its last) has its peak outside the record: of an earlier (later) discharge, whose
-    # overshoot or rise is all the record holds; not a pulse in the record
-    cut = (pulses.start == 0) | (pulses.peak_col >= n_cols - 1)
+    # a pulse the record cuts (opening inside it, or still rising at its last column)
+    # has its peak outside the record: of an earlier (later) discharge, whose overshoot
+    # or rise is all the record holds; not a pulse in the record
+    opens = (pulses.start == 0) if pulses.cut is None else pulses.cut
+    cut = opens | (pulses.peak_col >= n_cols - 1)
     other = ok_row & ~self_ & ~cut
     sig = other & (pulses.height >= level[r])
     close = sig & (np.abs(dt) <= context_s)

@@ -128,14 +128,14 @@ def test_ringing_without_a_pause_is_one_pulse():
 
 
 def test_a_fast_pulse_of_the_overshoot_sign_on_the_overshoot_is_a_neighbour():
-    """Where the recoil-type pulse's reversal would be (35 us later, on its overshoot), a
-    pulse of the overshoot's sign five times narrower (Gaussian sigma 0.1 us against
-    0.5 us, 0.3 V/m) rises faster than the pulse's own current wave could come back
+    """Where a recoil-type pulse's reversal would be (35 us later, on its overshoot), a
+    pulse of the overshoot's sign ten times narrower (Gaussian sigma 0.1 us against
+    1 us, 0.3 V/m) rises faster than the pulse's own current wave could come back
     (the reversal is i(t) reflected, no faster; far field proportional to
     i(t) - i(t - L/v), Uman, McLain & Krider 1975): another discharge, one neighbour
     after, at its own peak time."""
     rng = np.random.default_rng(8)
-    kw = {**SHAPES["recoil"], "reversal": 0.0}
+    kw = {**SHAPES["recoil"], "width_s": 1e-6, "reversal": 0.0}
     t = _t()
     at = 1e-6 + kw["delay_s"]
     x = (_with_reversal(t, **kw) + _gauss(t, at, 0.1e-6, -0.3))[None]

@@ -65,3 +65,18 @@ def test_pulse_still_rising_at_the_record_end_is_no_neighbour():
     out = field_features(x[None] + rng.normal(0, SIGMA, (100, M)), FS, pretrigger_s=PRE)
     assert (out["neighbours_after"] == 0).mean() >= 0.95
     assert np.isnan(out["nearest_neighbour_s"]).mean() >= 0.95
+
+
+def test_slow_pulse_rising_from_before_the_record_is_a_neighbour():
+    """A slow pulse (Gaussian, sigma 3 us, 0.5 V/m) peaking 7 us after the record's
+    start: the record opens on its foot (0.5 exp(-(7/3)^2 / 2) = 0.033 V/m, 3.3 sigma,
+    above the lobe's low level but under the 5 sigma of a pulse under way), and its peak
+    lies in the record: one neighbour before, 50 us from the catalogued peak."""
+    rng = np.random.default_rng(13)
+    t = _t()
+    at = t[0] + 7e-6
+    x = _step(t, 1e-6, 1.0) + 0.5 * np.exp(-0.5 * ((t - at) / 3e-6) ** 2)
+    out = field_features(x[None] + rng.normal(0, SIGMA, (100, M)), FS, pretrigger_s=PRE)
+    assert (out["neighbours_before"] == 1).mean() >= 0.95
+    err = np.abs(out["nearest_neighbour_s"] - (1e-6 - at))
+    assert (err <= 0.1 * (1e-6 - at) + 1 / FS).mean() >= 0.95
