@@ -290,7 +290,12 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     after_os[1:] = join[:-1]
     join |= close_small & ~flip & after_os & ~l_after_valley
     rise = getattr(lobes, "rise", None)
-    rise = (l_peak_col - l_start).astype(np.float64) if rise is None else rise[~split]
+    if rise is None:
+        rise = (l_peak_col - l_start).astype(np.float64)
+    else:                       # a merged lobe's rise: that of the piece holding its peak
+        top_rise = np.zeros(n_l)
+        top_rise[lobe_id[is_top][::-1]] = rise[is_top][::-1]
+        rise = top_rise
     join |= _rides_own_overshoot(join, same_row & ~flip & l_after_valley, l_sign, l_peak,
                                  l_start, l_peak_col, REVERSAL_MAX_S * fs,
                                  base[~split], rise)

@@ -143,3 +143,27 @@ def test_a_fast_pulse_of_the_overshoot_sign_on_the_overshoot_is_a_neighbour():
     assert (out["neighbours_after"] == 1).mean() >= 0.95
     err = np.abs(out["nearest_neighbour_s"] - (at - out["peak_time_s"]))
     assert (err <= 0.1 * kw["delay_s"] + 1 / FS).mean() >= 0.95
+
+
+def test_reversal_broken_by_noise_keeps_the_rise_of_its_peak():
+    """Lobes as the detector leaves a recoil's reversal broken by noise (columns at
+    10 MHz): the initial half-cycle (+1, rising 10 columns from half height), its
+    overshoot (-0.2), a piece riding on it after a valley (rising 2 columns: noise) and,
+    one column later, the rest of the reversal holding its peak (-0.28, rising 8
+    columns). The two pieces are one lobe whose rise is that of its peak's piece, no
+    faster than half the initial rise: the reversal is the pulse's own current wave
+    (far field proportional to i(t) - i(t - L/v); Uman, McLain & Krider 1975), one
+    pulse."""
+    from features import pulses
+    from features._riding import LobeTableWithBase
+
+    lobes = LobeTableWithBase(
+        row=np.zeros(4, np.intp), start=np.array([0, 72, 370, 391]),
+        stop=np.array([70, 366, 390, 470]), peak_col=np.array([12, 150, 380, 402]),
+        peak=np.array([1.0, 0.2, 0.13, 0.28]), sign=np.array([1, -1, -1, -1], np.int8),
+        after_valley=np.array([False, False, True, False]),
+        base=np.array([0.0, 0.0, 0.06, 0.0]), bridged=np.zeros(4, bool),
+        rise=np.array([10.0, 60.0, 2.0, 8.0]), cut=np.zeros(4, bool))
+    table, _, _ = pulses.group_pulses(lobes, 10e6)
+    assert len(table) == 1
+    assert table.n_lobes[0] == 3
