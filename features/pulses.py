@@ -37,14 +37,17 @@ Definitions (the contract of :mod:`features.schema`):
   of an earlier pulse).
 * **neighbours**: the other pulses of the record whose peak reaches
   max(``LOBE_HIGH_SIGMA`` sigma, :data:`NEIGHBOUR_FRACTION` x the catalogued peak),
-  counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak.
+  counted within :data:`CONTEXT_S` before and after the catalogued pulse's peak; not a
+  pulse the record cuts (the record opening inside it, at ``LOBE_HIGH_SIGMA`` sigma
+  already, or still rising at its last column: its peak lies outside the record, all
+  the record holds is its overshoot or rise).
   Leader steps come in trains 10-50 us apart (Rakov & Uman 2003, ch. 4; from memory),
   narrow bipolar events are isolated (no other pulse within ~100 us; common practice in
   NBE studies, no single source), so these tell them apart whatever the station's
   cataloguing practice.
 
-The baseline, noise and lobe part lives in :mod:`features._lobes` and is re-exported
-here; this module groups lobes into pulses (:func:`group_pulses`), finds the
+The baseline, noise and lobe part lives in :mod:`features._lobes`, the level each lobe
+rides on in :mod:`features._riding`, both re-exported here; this module groups lobes into pulses (:func:`group_pulses`), finds the
 catalogued pulse (:func:`catalogued_pulse`) and its neighbours
 (:func:`neighbour_features`).
 """
@@ -55,7 +58,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import _lobes
 from ._lobes import (
     BASELINE_MAX_S,
     BASELINE_MIN_S,
@@ -75,6 +77,9 @@ from ._lobes import VALLEY_FRACTION as VALLEY_FRACTION
 from ._lobes import VALLEY_SIGMA as VALLEY_SIGMA
 from ._lobes import _noise_floor as _noise_floor
 from ._lobes import robust_sigma_diff as robust_sigma_diff
+from ._riding import BRIDGE_LEVEL as BRIDGE_LEVEL
+from ._riding import BRIDGE_SIGMA as BRIDGE_SIGMA
+from ._riding import LobeTableWithBase, find_lobes
 
 __all__ = [
     "BASELINE_MAX_S",
@@ -132,17 +137,23 @@ NEIGHBOUR_FRACTION = 0.1
 #: hovers near the detection level), s. Shorter than the 10-50 us between leader steps
 #: (Rakov & Uman 2003, ch. 4; from memory).
 BRIDGE_MAX_S = 10e-6
-#: ... its sign held by at least this many standard errors of the gap's mean ...
-BRIDGE_SIGMA = 3.0
-#: ... and this many noise sigmas (a baseline off by a fraction of a count is no bridge).
-BRIDGE_LEVEL = 0.5
 #: A lobe of the overshoot's sign riding on a pulse's overshoot (no return to the
 #: baseline) and starting within this of the pulse's peak is its channel-end reversal
-#: (:func:`_rides_own_overshoot`), s: L/v of a channel of up to ~2.5 km at 1e8 m/s, and
-#: the 10-30 us a narrow bipolar event's whole waveform lasts (Rakov & Uman 2003, ch. 8;
-#: from memory). A pulse later than this on an RC undershoot (a fast antenna whose decay
-#: the catalog does not give) stands alone.
-REVERSAL_MAX_S = 25e-6
+#: (:func:`_rides_own_overshoot`), s: L/v of a channel section of up to ~500 m for a
+#: wave at ~1e7 m/s, the speed of dart and recoil leaders in a decayed channel (Rakov &
+#: Uman 2003, ch. 4 and 9: 1e6-2e7 m/s; from memory), ~5 km at 1e8 m/s; longer than the
+#: 10-30 us a narrow bipolar event's whole waveform lasts (Rakov & Uman 2003, ch. 8;
+#: from memory). Only lobes of the overshoot's sign: a leader step keeps the train's
+#: (initial) sign and stays apart at any delay. A pulse later than this on an RC
+#: undershoot (a fast antenna whose decay the catalog does not give) stands alone.
+REVERSAL_MAX_S = 50e-6
+#: ... and rising from half its own height (above the valley it rides on) to its peak
+#: over at least this fraction of the time the pulse's initial half-cycle takes to rise
+#: from half its peak to its peak: the reversal is the
+#: initial current wave itself, reflected, no faster (the far field of a finite channel
+#: is proportional to i(t) - i(t - L/v); Uman, McLain & Krider 1975); a pulse of the
+#: overshoot's sign rising twice as fast is another discharge riding there.
+REVERSAL_MIN_RISE = 0.5
 
 
 @dataclass(frozen=True)
@@ -164,6 +175,8 @@ class PulseTable:
         The pulse's own height, V/m: the largest of its lobes' peaks less the level each
         rides on (the |e| of the valley it was split from an earlier lobe at,
         :class:`LobeTableWithBase`); ``peak`` for a pulse that starts from the baseline.
+    cut : ndarray of bool or None
+        The record opens inside the pulse's initial lobe (:class:`LobeTableWithBase`).
     """
 
     row: np.ndarray
@@ -175,77 +188,11 @@ class PulseTable:
     sign: np.ndarray
     n_lobes: np.ndarray
     height: np.ndarray
+    cut: np.ndarray = None
 
     def __len__(self) -> int:
         return int(self.row.size)
 
-
-@dataclass(frozen=True)
-class LobeTableWithBase(LobeTable):
-    """A :class:`LobeTable` with the level each lobe rides on.
-
-    Attributes
-    ----------
-    base : ndarray of float
-        |e| of the (smoothed) record at the lobe's first sample where the lobe was split
-        from the one before it at a valley (``after_valley``: it rides on that lobe's
-        tail), else 0, V/m. ``peak - base`` is the lobe's own height (its prominence).
-    bridged : ndarray of bool
-        The record between the row's previous lobe and this one keeps this lobe's sign
-        on average (by at least max(``BRIDGE_SIGMA`` standard errors, ``BRIDGE_LEVEL``
-        sigma)): the field did not come back to the baseline in between, the two are one
-        swing broken where it hovered near the detection level.
-    """
-
-    base: np.ndarray = None
-    bridged: np.ndarray = None
-
-
-def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
-               **levels) -> LobeTableWithBase:
-    """Every lobe of every row (:func:`features._lobes.find_lobes`) and its base level.
-
-    A pulse riding on the tail of an earlier one (an overshoot or an RC undershoot that
-    decays slowly, a leader step on a stroke's tail) is split from it at the valley
-    between them; its own height is its peak above that valley, not above the baseline
-    (the topographic prominence). Parameters as :func:`features._lobes.find_lobes`.
-
-    Returns
-    -------
-    LobeTableWithBase
-    """
-    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
-    base = np.zeros(len(lobes))
-    ride = np.flatnonzero(lobes.after_valley)
-    if ride.size:
-        # the smoothed record at the valley (find_lobes' centred moving average)
-        w = e.shape[1]
-        k = max(int(smooth), 1)
-        cols = lobes.start[ride, None] + np.arange(k)[None] - k // 2
-        vals = e[lobes.row[ride, None], np.clip(cols, 0, w - 1)]
-        base[ride] = np.minimum(np.abs(vals.mean(axis=1)), lobes.peak[ride])
-    bridged = np.zeros(len(lobes), dtype=bool)
-    if len(lobes) > 1:
-        # mean of the record in the gap after the previous lobe of the same row
-        j = np.flatnonzero(lobes.row[1:] == lobes.row[:-1]) + 1
-        a, b, r = lobes.stop[j - 1], lobes.start[j], lobes.row[j]
-        has_gap = b > a
-        j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
-        if j.size:
-            rows = np.unique(r)
-            cs = np.zeros((rows.size, e.shape[1] + 1))
-            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
-            ri = np.searchsorted(rows, r)
-            n_gap = b - a
-            mean = (cs[ri, b] - cs[ri, a]) / n_gap
-            sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
-            need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
-            bridged[j] = mean * lobes.sign[j] >= need
-    return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged)
-
-
-_LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
 
 
 def group_pulses(lobes: LobeTable, sample_rate_hz: float):
@@ -342,8 +289,16 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     after_os = np.zeros(n_l, dtype=bool)
     after_os[1:] = join[:-1]
     join |= close_small & ~flip & after_os & ~l_after_valley
+    rise = getattr(lobes, "rise", None)
+    if rise is None:
+        rise = (l_peak_col - l_start).astype(np.float64)
+    else:                       # a merged lobe's rise: that of the piece holding its peak
+        top_rise = np.zeros(n_l)
+        top_rise[lobe_id[is_top][::-1]] = rise[is_top][::-1]
+        rise = top_rise
     join |= _rides_own_overshoot(join, same_row & ~flip & l_after_valley, l_sign, l_peak,
-                                 l_start, l_peak_col, REVERSAL_MAX_S * fs)
+                                 l_start, l_peak_col, REVERSAL_MAX_S * fs,
+                                 base[~split], rise)
     pulse_of_lobe = np.cumsum(~join) - 1
     n_p = int(pulse_of_lobe[-1]) + 1
     first = np.flatnonzero(~join)
@@ -361,10 +316,12 @@ def group_pulses(lobes: LobeTable, sample_rate_hz: float):
     l_base = base[~split]
     p_height = np.zeros(n_p)
     np.maximum.at(p_height, pulse_of_lobe, np.maximum(l_peak - l_base, 0.0))
+    l_cut = getattr(lobes, "cut", None)
     table = PulseTable(row=l_row[first], start=l_start[first], stop=p_stop,
                        first_lobe=first, peak_col=p_peak_col, peak=p_peak,
                        sign=l_sign[first], n_lobes=n_lobes,
-                       height=p_height)
+                       height=p_height,
+                       cut=None if l_cut is None else l_cut[~split][first])
     merged = LobeTableWithBase(row=l_row, start=l_start, stop=l_stop, peak_col=l_peak_col,
                                peak=l_peak, sign=l_sign,
                                after_valley=lobes.after_valley[~split], base=l_base,
@@ -379,7 +336,7 @@ def _chain_position(join):
     return np.arange(join.size) - starts[seg]
 
 
-def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
+def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay, base, rise):
     """Lobes that continue a pulse's own overshoot: the reversed field at its channel end.
 
     A current pulse stopping at the end of its channel radiates a field of the opposite
@@ -389,7 +346,10 @@ def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
     the compact intracloud discharge's reflections, ch. 8; from memory). It rides on the
     pulse's overshoot, of the overshoot's sign, after a valley: part of the pulse, not
     another discharge (a leader step's own field has the initial half-cycle's sign, so a
-    step riding on an overshoot is a sign flip and stays apart).
+    step riding on an overshoot is a sign flip and stays apart). The reversal is the
+    initial current wave reflected (the same i(t), dispersed on the way: no faster), so
+    it rises (50-100 % of its own height) no faster than :data:`REVERSAL_MIN_RISE` x
+    the initial half-cycle's rise; a narrower pulse riding there is another discharge.
 
     Parameters
     ----------
@@ -400,20 +360,36 @@ def _rides_own_overshoot(join, ride, sign, peak, start, peak_col, max_delay):
         field did not come back to the baseline in between).
     sign, peak : ndarray
         Sign and |e| peak of each lobe.
+    start, peak_col : ndarray of int
+        First column (for a riding lobe: its valley) and peak column of each lobe.
+    max_delay : float
+        Latest start after the pulse's peak, columns.
+    base : ndarray
+        |e| each lobe rides on (:class:`LobeTableWithBase`); the rise test applies to
+        lobes whose own height reaches ``NEIGHBOUR_FRACTION`` of the half-cycle (the
+        noise-split pieces of the overshoot itself join as they are).
+    rise : ndarray
+        Each lobe's rise from half its own height to its peak, columns
+        (:class:`LobeTableWithBase`).
 
     Returns
     -------
     ndarray of bool
         Lobes to join: a chain of riding lobes whose head is a joined lobe of the sign
         opposite to its pulse's initial half-cycle, each no larger than
-        ``OVERSHOOT_MAX_RATIO`` x that half-cycle (a larger pulse is another one).
+        ``OVERSHOOT_MAX_RATIO`` x that half-cycle (a larger pulse is another one) and
+        rising no faster than ``REVERSAL_MIN_RISE`` x its rise.
     """
     idx = np.arange(join.size)
     first = np.maximum.accumulate(np.where(join, 0, idx))     # each pulse's first lobe
     head = np.maximum.accumulate(np.where(ride, 0, idx))      # each riding chain's head
     on_os = join[head] & (sign[head] != sign[first[head]])
     soon = start - peak_col[first[head]] <= max_delay
-    return ride & on_os & soon & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]])
+    f = first[head]
+    slow = ((rise + 1 >= REVERSAL_MIN_RISE * rise[f])          # (to a sample)
+            | (peak - base < NEIGHBOUR_FRACTION * peak[f]))
+    return (ride & on_os & soon & slow
+            & (peak <= OVERSHOOT_MAX_RATIO * peak[first[head]]))
 
 
 def catalogued_pulse(pulses: PulseTable, lobes: LobeTable, lobe_pulse: np.ndarray,
@@ -523,7 +499,12 @@ def neighbour_features(pulses: PulseTable, own: np.ndarray, own_peak: np.ndarray
     level = np.maximum(LOBE_HIGH_SIGMA * np.nan_to_num(sigma, nan=np.inf),
                        NEIGHBOUR_FRACTION * np.nan_to_num(own_peak))
     dt = (pulses.peak_col - own_peak_col[r]) / fs        # s, + after
-    other = ok_row & ~self_
+    # a pulse the record cuts (opening inside it, or still rising at its last column)
+    # has its peak outside the record: of an earlier (later) discharge, whose overshoot
+    # or rise is all the record holds; not a pulse in the record
+    opens = (pulses.start == 0) if pulses.cut is None else pulses.cut
+    cut = opens | (pulses.peak_col >= n_cols - 1)
+    other = ok_row & ~self_ & ~cut
     sig = other & (pulses.height >= level[r])
     close = sig & (np.abs(dt) <= context_s)
     out["neighbours_before"] = np.where(has, np.bincount(r[close & (dt < 0)], minlength=n), np.nan)

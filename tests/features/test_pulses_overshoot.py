@@ -46,11 +46,16 @@ def _with_reversal(t, *, width_s, overshoot, decay_s, delay_s, reversal, step_at
 # overshoot 0.3 of the peak over 8 us, reversal 12 us later: a channel of ~1 km at
 # ~1e8 m/s; Rakov & Uman 2003, ch. 8; Nag & Rakov 2010, J. Geophys. Res. 115, D20102:
 # reflections of the current wave in the channel; from memory)
+# and a recoil-type pulse (0.5 us wide, a long shallow overshoot, 0.1 of the peak over
+# 30 us, and the reversal 35 us later: a 350 m section at 1e7 m/s, the speed of dart and
+# recoil leaders; Rakov & Uman 2003, ch. 4 and 9; from memory)
 SHAPES = {
     "leader step": dict(width_s=0.3e-6, overshoot=0.15, decay_s=3e-6, delay_s=4e-6,
                         reversal=0.3),
     "narrow bipolar": dict(width_s=1e-6, overshoot=0.3, decay_s=8e-6, delay_s=12e-6,
                            reversal=0.35),
+    "recoil": dict(width_s=0.5e-6, overshoot=0.1, decay_s=30e-6, delay_s=35e-6,
+                   reversal=0.2),
 }
 
 
@@ -120,3 +125,45 @@ def test_ringing_without_a_pause_is_one_pulse():
     out = field_features(x, FS, pretrigger_s=PRE)
     assert (out["neighbours_after"] == 0).mean() >= 0.95
     assert np.isnan(out["nearest_neighbour_s"]).mean() >= 0.95
+
+
+def test_a_fast_pulse_of_the_overshoot_sign_on_the_overshoot_is_a_neighbour():
+    """Where a recoil-type pulse's reversal would be (35 us later, on its overshoot), a
+    pulse of the overshoot's sign ten times narrower (Gaussian sigma 0.1 us against
+    1 us, 0.3 V/m) rises faster than the pulse's own current wave could come back
+    (the reversal is i(t) reflected, no faster; far field proportional to
+    i(t) - i(t - L/v), Uman, McLain & Krider 1975): another discharge, one neighbour
+    after, at its own peak time."""
+    rng = np.random.default_rng(8)
+    kw = {**SHAPES["recoil"], "width_s": 1e-6, "reversal": 0.0}
+    t = _t()
+    at = 1e-6 + kw["delay_s"]
+    x = (_with_reversal(t, **kw) + _gauss(t, at, 0.1e-6, -0.3))[None]
+    out = field_features(x + rng.normal(0, 0.01, (100, M)), FS, pretrigger_s=PRE)
+    assert (out["neighbours_after"] == 1).mean() >= 0.95
+    err = np.abs(out["nearest_neighbour_s"] - (at - out["peak_time_s"]))
+    assert (err <= 0.1 * kw["delay_s"] + 1 / FS).mean() >= 0.95
+
+
+def test_reversal_broken_by_noise_keeps_the_rise_of_its_peak():
+    """Lobes as the detector leaves a recoil's reversal broken by noise (columns at
+    10 MHz): the initial half-cycle (+1, rising 10 columns from half height), its
+    overshoot (-0.2), a piece riding on it after a valley (rising 2 columns: noise) and,
+    one column later, the rest of the reversal holding its peak (-0.28, rising 8
+    columns). The two pieces are one lobe whose rise is that of its peak's piece, no
+    faster than half the initial rise: the reversal is the pulse's own current wave
+    (far field proportional to i(t) - i(t - L/v); Uman, McLain & Krider 1975), one
+    pulse."""
+    from features import pulses
+    from features._riding import LobeTableWithBase
+
+    lobes = LobeTableWithBase(
+        row=np.zeros(4, np.intp), start=np.array([0, 72, 370, 391]),
+        stop=np.array([70, 366, 390, 470]), peak_col=np.array([12, 150, 380, 402]),
+        peak=np.array([1.0, 0.2, 0.13, 0.28]), sign=np.array([1, -1, -1, -1], np.int8),
+        after_valley=np.array([False, False, True, False]),
+        base=np.array([0.0, 0.0, 0.06, 0.0]), bridged=np.zeros(4, bool),
+        rise=np.array([10.0, 60.0, 2.0, 8.0]), cut=np.zeros(4, bool))
+    table, _, _ = pulses.group_pulses(lobes, 10e6)
+    assert len(table) == 1
+    assert table.n_lobes[0] == 3
