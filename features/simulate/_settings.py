@@ -59,8 +59,12 @@ PRESETS: dict[str, dict] = {
     # the radiation term (their D^2/R^3 geometry vanishes beneath the source) and the
     # pulses change shape and sign. The reference season (10-150 km, uniform over the
     # area) holds none of them, so a model trained on it alone never sees these shapes.
-    # Its own catalog id, so both seasons can share a label store and a training run.
-    "overhead": dict(catalog_id="hollowmere-2031-overhead", range_km=(1.0, 20.0)),
+    # Each class an equal share: the reference mix has few energetic in-cloud pulses,
+    # whose long charge transfer makes the static term matter most there. Its own
+    # catalog id, so both seasons can share a label store and a training run.
+    "overhead": dict(catalog_id="hollowmere-2031-overhead", range_km=(1.0, 20.0),
+                     class_mix={"narrow_bipolar": 0.25, "stepped_leader": 0.25,
+                                "recoil": 0.25, "energetic_in_cloud": 0.25}),
     # a family of stations drawn from ranges (domain randomisation): the settings come
     # from stress_settings(member), explicit keywords override them
     "stress": {},

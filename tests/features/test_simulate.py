@@ -381,11 +381,13 @@ def test_presets_and_explicit_overrides():
 
 
 def test_overhead_preset_is_the_reference_station_with_close_flashes():
-    """The overhead preset moves the flashes to 1-20 km, uniform over the area, only."""
+    """The overhead preset moves the flashes to 1-20 km, uniform over the area, and gives
+    each class an equal share; the station is the reference one."""
     ref, over = resolve_settings(), resolve_settings("overhead")
     assert over.range_km == (1.0, 20.0) and over.catalog_id != ref.catalog_id
+    assert set(over.class_mix.values()) == {0.25}
     differ = {f for f in ref.__dataclass_fields__ if getattr(ref, f) != getattr(over, f)}
-    assert differ == {"range_km", "catalog_id", "preset"}
+    assert differ == {"range_km", "catalog_id", "class_mix", "preset"}
     truth = draw_season(400, 3, preset="overhead", **SHORT)
     first = truth.groupby("flash_id")["distance_m"].first() / 1e3
     assert first.between(0.95, 20.5).all()  # a flash's pulses spread a few km at most
