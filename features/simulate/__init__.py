@@ -81,8 +81,11 @@ def simulate_season(out_dir, n_events, seed, *, preset="reference", overwrite=Fa
         Number of catalogued pulses (rows), >= 1.
     seed : int
         Random seed (>= 0); the same seed and settings give byte-identical files.
-    preset : {"reference", "next", "hard", "stress"}, default="reference"
+    preset : {"reference", "next", "hard", "overhead", "stress"}, default="reference"
         Defaults to start from (:data:`PRESETS`); explicit settings override it.
+        ``"overhead"`` is the reference station with its flashes 1-20 km away (near-field
+        pulse shapes the reference season's 10-150 km never holds), each class an equal
+        share.
         ``"stress"`` takes the station :func:`stress_settings` draws for ``member``.
     overwrite : bool, default=False
         Replace an existing non-empty ``out_dir`` (otherwise ``FileExistsError``).

@@ -54,6 +54,17 @@ PRESETS: dict[str, dict] = {
         with_range=False, with_xyz=False, missing_vhf_fraction=0.05, vhf_noise_floor=0.3,
         angle_noise_deg=0.4,
     ),
+    # the reference station under a storm overhead: flashes within 1-20 km, where the
+    # electrostatic and induction terms of the elevated channel's field rival or outweigh
+    # the radiation term (their D^2/R^3 geometry vanishes beneath the source) and the
+    # pulses change shape and sign. The reference season (10-150 km, uniform over the
+    # area) holds none of them, so a model trained on it alone never sees these shapes.
+    # Each class an equal share: the reference mix has few energetic in-cloud pulses,
+    # whose long charge transfer makes the static term matter most there. Its own
+    # catalog id, so both seasons can share a label store and a training run.
+    "overhead": dict(catalog_id="hollowmere-2031-overhead", range_km=(1.0, 20.0),
+                     class_mix={"narrow_bipolar": 0.25, "stepped_leader": 0.25,
+                                "recoil": 0.25, "energetic_in_cloud": 0.25}),
     # a family of stations drawn from ranges (domain randomisation): the settings come
     # from stress_settings(member), explicit keywords override them
     "stress": {},

@@ -72,6 +72,46 @@ def test_static_term_matches_charge_pair_closed_form():
     assert abs(terms.radiation_v_per_m[0]) < 1e-9 * abs(closed)
 
 
+def test_static_term_of_an_elevated_short_channel_reverses_at_sqrt2_height():
+    """Close to an elevated source the static change has the other sign (D < sqrt(2) H)."""
+    # A short vertical dipole of moment p = Q L at height H above a conducting ground
+    # gives E_z = p/(2 pi eps0) * (2 H^2 - D^2)/R^5, R = sqrt(H^2 + D^2): zero at
+    # D = sqrt(2) H, one sign beneath the source and the other beyond (Uman, McLain &
+    # Krider 1975; Rakov & Uman 2003, ch. 4; from memory). Close flashes' pulses change
+    # shape and sign through this term, which a season of far flashes never shows.
+    cur = DoubleExponentialCurrent(2e3, 1e-6, 10e-6)
+    h, length = 8000.0, 50.0
+    late = np.array([3e-3])
+    q = cur.charge_c(3e-3)
+    for d in (1e3, 5e3, 9e3, 13e3, 20e3, 60e3):
+        terms = channel_field_terms(late, d, cur, h - length / 2, h + length / 2, 1e7,
+                                    n_segments=400)
+        r = np.hypot(h, d)
+        closed = q * length / (2 * np.pi * EPS0) * (2 * h**2 - d**2) / r**5
+        assert_allclose(terms.electrostatic_v_per_m, closed, rtol=1e-3)
+        assert np.sign(terms.electrostatic_v_per_m[0]) == np.sign(np.sqrt(2) * h - d)
+
+
+def test_radiation_of_an_elevated_source_follows_d2_over_r3():
+    """The radiation term scales with the D^2/R^3 geometry: it vanishes beneath the source."""
+    # E_rad = -(1/(2 pi eps0 c^2)) D^2/R^3 dM/dt for a short channel at height H
+    # (Uman, McLain & Krider 1975; from memory): at D = 2 km below a source 10 km up it
+    # is 4 % of the 1/D far-field form, so the near terms take over there.
+    cur = HeidlerCurrent(10e3, 1e-6, 5e-6)
+    # a channel 3 m long: the front crosses it in 30 ns, so the viewing angle's time
+    # compression (1 - v cos(theta)/c) does not matter beside the 1 us rise
+    h, length = 10e3, 3.0
+    tau = np.linspace(0.2e-6, 6e-6, 60)
+    peaks = {}
+    for d in (2e3, 10e3, 80e3):
+        r = np.hypot(h, d)
+        terms = channel_field_terms(r / C + tau, d, cur, h, h + length, 1e8, n_segments=50)
+        peaks[d] = np.abs(terms.radiation_v_per_m).max()
+    geometry = {d: d**2 / np.hypot(h, d) ** 3 for d in peaks}
+    assert_allclose(peaks[2e3] / peaks[80e3], geometry[2e3] / geometry[80e3], rtol=2e-3)
+    assert_allclose(peaks[10e3] / peaks[80e3], geometry[10e3] / geometry[80e3], rtol=2e-3)
+
+
 def test_point_charge_field_sign_and_value():
     """A positive charge overhead gives a downward field, -Q H/(2 pi eps0 R^3)."""
     # Coulomb field doubled by the image at the ground (from memory).

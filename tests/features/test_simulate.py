@@ -380,6 +380,26 @@ def test_presets_and_explicit_overrides():
         resolve_settings(field_rate_hz=None)
 
 
+def test_overhead_preset_is_the_reference_station_with_close_flashes():
+    """The overhead preset moves the flashes to 1-20 km, uniform over the area, and gives
+    each class an equal share; the station is the reference one."""
+    ref, over = resolve_settings(), resolve_settings("overhead")
+    assert over.range_km == (1.0, 20.0) and over.catalog_id != ref.catalog_id
+    shares = {k: v for k, v in over.class_mix.items() if v > 0}
+    assert set(shares.values()) == {0.25} and set(shares) == {
+        k for k, v in ref.class_mix.items() if v > 0}
+    differ = {f for f in ref.__dataclass_fields__ if getattr(ref, f) != getattr(over, f)}
+    assert differ == {"range_km", "catalog_id", "class_mix", "preset"}
+    truth = draw_season(400, 3, preset="overhead", **SHORT)
+    first = truth.groupby("flash_id")["distance_m"].first() / 1e3
+    assert first.between(0.95, 20.5).all()  # a flash's pulses spread a few km at most
+    # uniform over the annulus' area: P(D < 10 km) = (10^2 - 1^2) / (20^2 - 1^2) = 0.248;
+    # binomial standard error over the flashes
+    n = first.size
+    p = 99.0 / 399.0
+    assert abs(np.mean(first < 10.0) - p) < 3.5 * np.sqrt(p * (1 - p) / n)
+
+
 def test_cli_writes_the_catalog_and_reports(tmp_path, capsys):
     """pulsesort simulate writes the catalog and labels and prints what it wrote."""
     out = tmp_path / "cli"
