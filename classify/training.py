@@ -61,9 +61,6 @@ VARIANT_THINNED = 0.5
 VARIANT_KEEP_FRACTION = (0.25, 1.0)
 VARIANT_TIME_SCALED = 0.7
 VARIANT_TIME_SCALE = (0.33, 3.0)
-#: A station variant catalogues a pulse only above this SNR, dB: a trigger at 5 x the
-#: noise rms (20 log10 5 = 14 dB; stations trigger at 4-8 x their noise).
-VARIANT_TRIGGER_SNR_DB = 20.0 * np.log10(5.0)
 
 
 def _log_uniform(rng, bounds):
@@ -140,9 +137,7 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
             vseed = seed * 1000 + ci * 100 + k + 1
             keep, context = _practice(cat, np.random.default_rng(vseed))
             feats = catalog_features(cat, variant_seed=vseed, context=context, **kw)
-            # a pulse the variant's noise pushed below a trigger level is not catalogued
-            seen = keep & ~(feats["snr_db"].to_numpy(float) < VARIANT_TRIGGER_SNR_DB)
-            passes.append(feats[seen].reset_index(drop=True))
+            passes.append(feats[keep].reset_index(drop=True))
         for k, feats in enumerate(passes):
             t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")
             t.insert(2, "season", cat.season or "")

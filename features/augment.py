@@ -18,8 +18,7 @@ Transformations, in order (each optional):
 2. **sample rate**: resampled down with an anti-aliasing polyphase filter
    (:func:`scipy.signal.resample_poly`);
 3. **pre-trigger**: the record's start cut so that only so much remains;
-4. **noise**: white Gaussian noise added, a multiple of the record's own noise (up to
-   12 x at a weak station: 21.6 dB less SNR);
+4. **noise**: white Gaussian noise added, a multiple of the record's own noise;
 5. **digitizer**: quantised to integer counts whose step is the noise divided by
    ``counts_per_noise`` (noise of a fraction of a count: far pulses a few counts tall),
    clipped at +-32767 counts;
@@ -51,7 +50,6 @@ VARIANT_RANGES = {
     "pretrigger_s": (30e-6, 100e-6),
     "decay_time_s": (1e-4, 1e-3),          # or DC-coupled, half the time
     "extra_noise": (0.0, 3.0),             # x the record's own noise
-    "weak_extra_noise": (3.0, 12.0),       # a noisy site or a low-gain antenna (log)
     "counts_per_noise": (1.0, 1 / 0.3),    # noise of 0.3-1 count
     "field_clip_quantile": (0.85, 0.99),   # of the chunk's peaks
     "vhf_noise_gain": (1.0, 10.0),
@@ -96,25 +94,6 @@ class StationVariant:
     seed: int = 0
 
 
-#: Share of the noisier variants that are weak stations (``weak_extra_noise``).
-WEAK_STATION_SHARE = 0.35
-
-
-def _extra_noise(rng, u):
-    """Added noise of a variant: none (30 %), 0-3 x, or a weak station's 3-12 x (log).
-
-    A quiet station records a storm's pulses 10-20 dB above what a noisier site or a
-    low-gain antenna records from the same storm; there a leader's weaker steps sink
-    into the noise, so its pulses look isolated in their records, and shape features
-    go NaN below their SNR limits. 12 x the noise is 21.6 dB: a weak station.
-    """
-    if rng.random() >= 0.7:
-        return 0.0
-    if rng.random() < WEAK_STATION_SHARE:
-        return u("weak_extra_noise", log=True)
-    return u("extra_noise")
-
-
 def draw_variant(rng: np.random.Generator) -> StationVariant:
     """A station drawn from :data:`VARIANT_RANGES` (each setting used or not at random)."""
     r = VARIANT_RANGES
@@ -129,7 +108,7 @@ def draw_variant(rng: np.random.Generator) -> StationVariant:
         pretrigger_s=u("pretrigger_s") if rng.random() < 0.5 else None,
         decay_time_s=(None if rng.random() < 0.5 else u("decay_time_s", log=True))
         if rng.random() < 0.6 else "keep",
-        extra_noise=_extra_noise(rng, u),
+        extra_noise=u("extra_noise") if rng.random() < 0.7 else 0.0,
         counts_per_noise=u("counts_per_noise") if rng.random() < 0.5 else None,
         field_clip_quantile=u("field_clip_quantile") if rng.random() < 0.3 else None,
         vhf_noise_gain=u("vhf_noise_gain", log=True) if rng.random() < 0.6 else 1.0,

@@ -84,31 +84,3 @@ def test_bad_practice_settings_are_refused(tmp_path, kw):
     cat = _catalog(tmp_path, [0.0, 1.0], ["A", "A"])
     with pytest.raises(ValueError):
         practice_context(cat, **kw)
-
-
-def test_weak_stations_are_drawn_at_their_share_and_range():
-    """About 0.7 x 0.35 of the drawn stations are weak ones, with 3-12 x added noise (log)."""
-    from features.augment import WEAK_STATION_SHARE, draw_variant
-
-    rng = np.random.default_rng(5)
-    noise = np.array([draw_variant(rng).extra_noise for _ in range(4000)])
-    weak = noise[noise > 3.0]
-    p = 0.7 * WEAK_STATION_SHARE
-    # binomial standard error of the share (4 sigma), and the median of a log-uniform
-    # variable on [3, 12]: the geometric mean sqrt(3 x 12) = 6
-    assert abs(weak.size / noise.size - p) < 4.0 * np.sqrt(p * (1 - p) / noise.size)
-    assert weak.max() <= 12.0
-    assert abs(np.median(weak) / 6.0 - 1.0) < 0.08
-
-
-def test_added_noise_adds_in_quadrature(tmp_path):
-    """Noise k x the record's own lifts its rms by sqrt(1 + k^2) (variances of independent
-    Gaussian noises add)."""
-    from features.augment import StationVariant, apply_field
-
-    cat = _catalog(tmp_path, [0.0], ["f1"])
-    ch = cat.field
-    rng = np.random.default_rng(3)
-    x = rng.normal(0.0, 0.01, (64, ch.n_samples))                 # V/m, white noise only
-    out, _ = apply_field(x, ch, StationVariant(extra_noise=8.0, decay_time_s="keep"), rng)
-    assert_allclose(np.std(out) / np.std(x), np.sqrt(1.0 + 8.0**2), rtol=0.02)
