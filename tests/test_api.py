@@ -309,7 +309,10 @@ def test_why_panel_of_a_real_model_fits_its_plot_in_chromium(season, tmp_path):
     from classify.commands.review import model_attributions
 
     out = tmp_path / "r.csv"
-    triage_catalog(open_catalog(season["b"]), out, model_dir=season["model_dir"])
+    # a high review threshold: enough pulses in the queue to step through four of them
+    triage_catalog(open_catalog(season["b"]), out, model_dir=season["model_dir"],
+                   review_below=0.9999)
+    assert read_results(out)["needs_review"].sum() >= 4
     model, _ = load_model(season["model_dir"])
     with sync_api.sync_playwright() as p:
         browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
