@@ -17,7 +17,9 @@ Transformations, in order (each optional):
    (DC-coupled);
 2. **sample rate**: resampled down with an anti-aliasing polyphase filter
    (:func:`scipy.signal.resample_poly`);
-3. **pre-trigger**: the record's start cut so that only so much remains;
+3. **pre-trigger and record length**: the record's start cut so that only so much
+   remains before the trigger, and its end so that only so much remains after it (a
+   shorter record holds fewer of a leader train's other steps);
 4. **noise**: white Gaussian noise added, a multiple of the record's own noise;
 5. **digitizer**: quantised to integer counts whose step is the noise divided by
    ``counts_per_noise`` (noise of a fraction of a count: far pulses a few counts tall),
@@ -48,6 +50,7 @@ __all__ = ["StationVariant", "VARIANT_RANGES", "draw_variant", "apply_field", "a
 VARIANT_RANGES = {
     "field_rate_hz": (5e6, 20e6),          # resampled only downwards
     "pretrigger_s": (30e-6, 100e-6),
+    "posttrigger_s": (20e-6, 200e-6),      # record after the trigger (log-uniform)
     "decay_time_s": (1e-4, 1e-3),          # or DC-coupled, half the time
     "extra_noise": (0.0, 3.0),             # x the record's own noise
     "counts_per_noise": (1.0, 1 / 0.3),    # noise of 0.3-1 count
@@ -67,6 +70,9 @@ class StationVariant:
         Resample the field to this rate, Hz (None: keep; never upwards).
     pretrigger_s : float or None
         Keep at most this much record before the trigger, s.
+    posttrigger_s : float or None
+        Keep at most this much record after the trigger, s (a shorter record: fewer of
+        a train's other pulses in it).
     decay_time_s : float, None or "keep"
         The station's RC decay constant, s (None: DC-coupled; "keep": as recorded).
     extra_noise : float
@@ -85,6 +91,7 @@ class StationVariant:
 
     field_rate_hz: float | None = None
     pretrigger_s: float | None = None
+    posttrigger_s: float | None = None
     decay_time_s: float | None | str = "keep"
     extra_noise: float = 0.0
     counts_per_noise: float | None = None
@@ -114,6 +121,7 @@ def draw_variant(rng: np.random.Generator) -> StationVariant:
         vhf_noise_gain=u("vhf_noise_gain", log=True) if rng.random() < 0.6 else 1.0,
         vhf_clip_quantile=u("vhf_clip_quantile") if rng.random() < 0.5 else None,
         seed=int(rng.integers(0, 2**31 - 1)),
+        posttrigger_s=u("posttrigger_s", log=True) if rng.random() < 0.3 else None,
     )
 
 
@@ -162,6 +170,8 @@ def apply_field(x_v_per_m: np.ndarray, ch: Channel, v: StationVariant, rng=None)
         cut = min(cut, max(x.shape[1] - 16, 0))
         x = x[:, cut:]
         pre = pre - cut / fs
+    if v.posttrigger_s is not None:
+        x = x[:, :max(int(np.ceil((pre + v.posttrigger_s) * fs)), 16)]
     n_pre = int(np.clip(pre * fs - 2e-6 * fs, 0, x.shape[1]))
     noise0 = (np.median(robust_sigma_diff(x[:, :n_pre])) if n_pre > 16
               else float(np.median(robust_sigma_diff(x))))

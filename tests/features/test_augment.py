@@ -84,3 +84,49 @@ def test_bad_practice_settings_are_refused(tmp_path, kw):
     cat = _catalog(tmp_path, [0.0, 1.0], ["A", "A"])
     with pytest.raises(ValueError):
         practice_context(cat, **kw)
+
+
+def _train(fs, pre_s, m, onsets_s, rise_s=0.5e-6, fall_s=3e-6):
+    """One row of a leader-step-like train: unit double-exponential pulses, V/m."""
+    t = np.arange(m) / fs - pre_s
+    x = np.zeros(m)
+    for t0 in onsets_s:
+        u = np.clip(t - t0, 0, None)
+        x += np.where(t >= t0, np.exp(-u / fall_s) - np.exp(-u / rise_s), 0.0)
+    return x[None, :]
+
+
+def test_a_shorter_record_after_the_trigger_leaves_the_later_steps_out():
+    """A station recording less after the trigger sees fewer of a train's later pulses:
+    the variant keeps ``pre + post`` of the record (ceil of its samples) and nothing
+    else changes. Steps 60 us apart (leader steps 10-50+ us apart, Rakov & Uman 2003,
+    ch. 4; from memory); the neighbour count is the schema's (features.pulses)."""
+    from features._manifest import Channel
+    from features.augment import StationVariant, apply_field
+    from features.waveform import field_features
+
+    fs, pre, m = 20e6, 50e-6, 8000
+    x = _train(fs, pre, m, [0.0, 60e-6]) + np.random.default_rng(1).normal(0, 1e-3, (1, m))
+    ch = Channel("field", None, fs, pre, 0.0, None, m, np.dtype(np.float32))
+    full, ch_full = apply_field(x, ch, StationVariant())
+    short, ch_short = apply_field(x, ch, StationVariant(posttrigger_s=40e-6))
+    n = int(np.ceil((pre + 40e-6) * fs))
+    assert short.shape == (1, n) and ch_short.n_samples == n
+    assert ch_short.pretrigger_s == pre and ch_full.n_samples == m
+    assert_allclose(short, x[:, :n])
+    after_full = field_features(full, fs, pretrigger_s=pre)["neighbours_after"]
+    after_short = field_features(short, fs, pretrigger_s=pre)["neighbours_after"]
+    assert after_full[0] == 1 and after_short[0] == 0
+
+
+def test_drawn_stations_shorten_the_record_after_the_trigger_at_times():
+    from features.augment import VARIANT_RANGES, draw_variant
+
+    rng = np.random.default_rng(5)
+    post = np.array([draw_variant(rng).posttrigger_s for _ in range(2000)], dtype=float)
+    lo, hi = VARIANT_RANGES["posttrigger_s"]
+    used = post[np.isfinite(post)]
+    assert 0.25 < used.size / post.size < 0.35                 # 30 % of the stations
+    assert (used >= lo).all() and (used <= hi).all()
+    # log-uniform: the median is the geometric mean of the ends
+    assert_allclose(np.median(used), np.sqrt(lo * hi), rtol=0.1)
