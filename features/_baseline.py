@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._lobes import BASELINE_MIN_SAMPLES, baseline_fit
+from ._lobes import BASELINE_MIN_SAMPLES, baseline_fit, robust_sigma_diff
 from ._rowops import cumtrapz_rows
 
 #: The tail's offset is taken where the quiet level's compensated baseline is this many
@@ -69,10 +69,8 @@ def rc_offset(y, stop, sample_rate_hz, quantum, decay_time_s):
         amp = (s1 * sby - sb * sy) / det
         res = np.where(valid, yy - on_tail[:, None] - amp[:, None] * b, 0.0)
         rms = np.sqrt((res * res).sum(axis=1) / np.maximum(s1 - 2, 1))
-        # the noise from first differences (blind to the trend being fitted)
-        d = np.where(valid[:, 1:], np.diff(yy, axis=1), np.nan)
-        sig_d = 1.4826 * np.nanmedian(np.abs(d - np.nanmedian(d, axis=1)[:, None]),
-                                      axis=1) / np.sqrt(2.0)
+    # the noise from first differences (blind to the trend being fitted)
+    sig_d = robust_sigma_diff(yy, valid)
     sig_d = np.maximum(sig_d, quantum / np.sqrt(12.0))
     fits = np.isfinite(on_tail) & (rms <= RAMP_NOISE_RATIO * sig_d)
     # compensation is linear: comp(y - c) = comp(y) - c (1 + j / (tau fs)) at column j

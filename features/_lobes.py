@@ -198,15 +198,21 @@ def _noise_floor(sigma, quantum):
         return np.where(np.isnan(sigma), np.nan, np.maximum(sigma, floor))
 
 
-def robust_sigma_diff(e: np.ndarray) -> np.ndarray:
+def robust_sigma_diff(e: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
     """Noise sigma of each row from its first differences (insensitive to slow trends).
 
     For white noise the differences have sigma * sqrt(2); 1.4826 x MAD estimates their
-    sigma robustly (pulses occupy a small part of a record).
+    sigma robustly (pulses occupy a small part of a record). ``valid`` (same shape as
+    ``e``, optional) marks the samples of ragged rows: only differences of two valid
+    neighbours count (NaN for a row with none).
     """
     d = np.diff(e, axis=1)
-    med = median_rows(d)
-    return 1.4826 * median_rows(np.abs(d - med[:, None])) / np.sqrt(2.0)
+    if valid is None:
+        med = median_rows(d)
+        return 1.4826 * median_rows(np.abs(d - med[:, None])) / np.sqrt(2.0)
+    d = np.where(valid[:, 1:] & valid[:, :-1], d, np.nan)
+    med = nanmedian_rows(d)
+    return 1.4826 * nanmedian_rows(np.abs(d - med[:, None])) / np.sqrt(2.0)
 
 
 @dataclass(frozen=True)
