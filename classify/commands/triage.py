@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import io
 
-from classify.seasonfit import MODES
+from classify.seasonfit import AUTO_DOUBT_SHARE, MODES
 from features import InputError, open_catalog
 
 from ._common import (
@@ -57,7 +57,8 @@ def add_arguments(parser):
                         choices=MODES, metavar="WHEN",
                         help="with --model: fit the season itself, anchored by the pulses "
                              "the model places confidently (and --store's labels): 'auto' "
-                             "(default) when the model would send more than 5 %% of the "
+                             f"(default) when the model would send more than "
+                             f"{100 * AUTO_DOUBT_SHARE:g} %% of the "
                              "season to review (another station or instrument), 'always' (the flag "
                              "alone) or 'never'")
     parser.add_argument("--store", default=None,
