@@ -71,8 +71,8 @@ class StationVariant:
     pretrigger_s : float or None
         Keep at most this much record before the trigger, s.
     posttrigger_s : float or None
-        Keep at most this much record after the trigger, s (a shorter record: fewer of
-        a train's other pulses in it).
+        Keep at most this much field record after the trigger, s (a shorter record:
+        fewer of a train's other pulses in it; the VHF record is left as it is).
     decay_time_s : float, None or "keep"
         The station's RC decay constant, s (None: DC-coupled; "keep": as recorded).
     extra_noise : float
