@@ -19,9 +19,17 @@ radiation field 2.6 times weaker than the 1/D law says.
 (Neumann) iteration on the radiation term: M_{k+1} = int (E - a1 M_k - a0 Q_k) dt / a2,
 Q_{k+1} = int M_{k+1} dt, from the pulse's onset. Each step is a vectorised cumulative
 integral; the series converges when the induction and electrostatic terms are smaller
-than the radiation term over the pulse, roughly c T < R for a pulse of duration T. Rows
-where it does not converge within :data:`INVERSION_TOLERANCE` keep the radiation-only
-estimate (with the D^2/R^3 geometry) and are flagged.
+than the radiation term over the pulse, roughly c T < R for a pulse of duration T.
+
+Close under the source (D < sqrt(2) H, where the electrostatic and induction terms are
+positive and outweigh the radiation term over the pulse) that series diverges, and so
+does every forward-in-time scheme: the equation, a2 Q'' + a1 Q' + a0 Q = E, then has a
+growing homogeneous solution exp(s_+ t) with 1/s_+ a fraction of a microsecond. Those
+rows are solved exactly with the stable two-sided inverse (a causal and an anti-causal
+first-order part, :func:`_two_sided`), which reads the field up to 8/s_+ past the
+pulse's end. Far rows where the series does not converge within
+:data:`INVERSION_TOLERANCE` keep the radiation-only estimate (with the D^2/R^3
+geometry) and are flagged.
 
 Constants are CODATA values from :mod:`scipy.constants`.
 """
@@ -44,6 +52,11 @@ DEFAULT_ALTITUDE_M = 8e3
 NEAR_FIELD_RATIO = 5.0
 #: Relative change of the charge moment between the last two iterations accepted.
 INVERSION_TOLERANCE = 0.02
+#: How far past a pulse's end the field is read under an elevated source, in units of the
+#: anti-causal time 1/s_+ of :func:`_two_sided` (its weight falls to exp(-8) there).
+AFTER_ROOT_TIMES = 8.0
+#: ... and at most this many columns.
+MAX_AFTER_COLUMNS = 4096
 #: Iterations of the moment inversion.
 INVERSION_ITERATIONS = 5
 
@@ -100,12 +113,13 @@ def _coefficients(range_m, altitude_m):
     return a0, a1, a2, r
 
 
-def _invert_block(src, on, dt, a0, a1, a2, iterate, own_end):
+def _invert_block(src, on, dt, a0, a1, a2, iterate, own_end, reach):
     """The inversion of a block of row windows (each starting two zero columns early).
 
     ``src`` is the field where ``on`` (from the onset on), else 0; ``iterate`` marks the
     rows that need the three-term iteration; ``own_end`` is each row's last column (its
-    convergence is judged there). Returns M, Q (same shape) and the converged rows.
+    convergence is judged there); ``reach`` the column before which rows under an
+    elevated source read the field. Returns M, Q (same shape) and the converged rows.
     """
     a0, a1, a2 = a0[:, None], a1[:, None], a2[:, None]
     m = cumtrapz_rows(src, dt) / a2                  # radiation only
@@ -133,8 +147,74 @@ def _invert_block(src, on, dt, a0, a1, a2, iterate, own_end):
         # the end get the radiation-only estimate back, which m and q still hold)
         m[todo[~keep]], q[todo[~keep]] = mi[~keep], qi[~keep]
         todo, mi, qi, q_prev = todo[keep], mi[keep], qi[keep], q_end[keep]
-    # rows that never converged keep the radiation-only estimate (never overwritten)
+    # rows close under an elevated source (D < sqrt(2) H), where the induction and
+    # electrostatic terms outweigh the radiation term over the pulse, are solved exactly
+    a0v, a1v = a0[:, 0], a1[:, 0]
+    near = np.flatnonzero(~converged & (a1v > 0) & (a0v > 0))
+    if near.size:
+        # (the last column read is where the anti-causal part starts from 0: not read)
+        read = np.arange(src.shape[1])[None, :] < reach[near, None] - 1
+        m[near], q[near] = _two_sided(np.where(read, src[near], 0.0), dt, a0v[near],
+                                      a1v[near], a2[near, 0])
+        converged[near] = np.isfinite(q[near, :]).all(axis=1)
+    # far rows that never converged keep the radiation-only estimate (never overwritten)
     return m, q, converged
+
+
+def _roots(a0, a1, a2):
+    """The two roots s_- < 0 < s_+ (1/s) of a2 s^2 + a1 s + a0 (a2 < 0 < a0, a1)."""
+    disc = np.sqrt(a1 * a1 - 4.0 * a2 * a0)
+    # the smaller root without cancellation: s_- s_+ = a0 / a2
+    s_plus = (-a1 - disc) / (2.0 * a2)
+    return a0 / (a2 * s_plus), s_plus
+
+
+def _first_order(x, dt, s, backward):
+    """Solutions of y' = s y + x (``s`` one per row) with x linear between samples (exact
+    for such x).
+
+    Causal from y = 0 at the first column (``backward=False``, s < 0), or anti-causal from
+    y = 0 after the last (``backward=True``, s > 0: y(t) = -int_t^inf exp(s (t - u)) x du).
+    One step per column, every row at once.
+    """
+    n, w = x.shape
+    p = (-s if backward else s) * dt                         # <= 0: a decaying step
+    e = np.exp(p)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        small = np.abs(p) < 1e-4
+        # int_0^h exp(s v) v/h dv and int_0^h exp(s v) (1 - v/h) dv, over h (series near 0)
+        far_w = np.where(small, 0.5 + p / 3.0, ((p - 1.0) * e + 1.0) / (p * p))
+        near_w = np.where(small, 0.5 + p / 6.0, (np.expm1(p) - p) / (p * p))
+    # (for the backward pass the weights are those of the mirrored, decaying problem)
+    y = np.zeros((n, w))
+    if w < 2:
+        return y
+    cols = range(w - 2, -1, -1) if backward else range(1, w)
+    step = -1 if backward else 1
+    sign = -1.0 if backward else 1.0
+    for j in cols:
+        y[:, j] = e * y[:, j - step] + sign * dt * (far_w * x[:, j - step] + near_w * x[:, j])
+    return y
+
+
+def _two_sided(src, dt, a0, a1, a2):
+    """Exact M and Q of ``a2 Q'' + a1 Q' + a0 Q = E`` for rows with a2 < 0 < a0, a1.
+
+    Close under an elevated source the causal solution has a mode growing as
+    exp(s_+ t), s_+ ~ a1 / |a2| = c (2 H^2 - D^2) / (D^2 R) (a fraction of a
+    microsecond), so no forward scheme holds on noisy data. The stable inverse splits
+    1 / (a2 (s - s_-)(s - s_+)) into a causal part (s_- ~ -c/R) and an anti-causal one
+    (s_+): Q = (z - y) / (a2 (s_+ - s_-)) with y' = s_- y + E from the onset on and
+    z' = s_+ z + E from the window's end back, and M = dQ/dt = (s_+ z - s_- y) /
+    (a2 (s_+ - s_-)). The anti-causal part reaches about 1/s_+ into the field after a
+    column (the record beyond the pulse must be in the window).
+    """
+    s_minus, s_plus = _roots(a0, a1, a2)
+    y = _first_order(src, dt, s_minus, backward=False)
+    z = _first_order(src, dt, s_plus, backward=True)
+    sm, sp = s_minus[:, None], s_plus[:, None]
+    scale = a2[:, None] * (sp - sm)
+    return (sp * z - sm * y) / scale, (z - y) / scale
 
 
 def _windows(e, rows, first, width, j_on):
@@ -168,7 +248,13 @@ def _prepare(e, sample_rate_hz, start, stop, range_m, altitude_m):
     j_on = np.ceil(np.where(ok, start, 0.0)).astype(np.intp)
     first = j_on - 2
     last = np.floor(np.where(ok, stop, 0.0)).astype(np.intp)
-    return e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last
+    # rows under an elevated source are solved with an anti-causal part (see _two_sided):
+    # their windows reach AFTER_ROOT_TIMES / s_+ past the pulse's end
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        tail = np.where(usable & ok & ~small & (a0 > 0) & (a1 > 0),
+                        AFTER_ROOT_TIMES / (_roots(a0, a1, a2)[1] * dt), 0.0)
+    after = np.ceil(np.clip(np.nan_to_num(tail), 0, MAX_AFTER_COLUMNS)).astype(np.intp)
+    return e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last, after
 
 
 def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
@@ -198,15 +284,16 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     q_c_m : ndarray, shape (n, w')
         Charge moment change since the onset, C m.
     converged : ndarray of bool, shape (n,)
-        True where the three-term inversion converged (or had nothing to invert);
-        elsewhere the radiation-only estimate with the D^2/R^3 geometry is returned.
+        True where the three-term inversion converged or was solved exactly (or had
+        nothing to invert); elsewhere the radiation-only estimate with the D^2/R^3
+        geometry is returned.
 
     See Also
     --------
     moments_at : the same values at one column per row, integrating each row only over
         its own pulse (what :func:`features.waveform.field_features` uses).
     """
-    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last = _prepare(
+    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last, after = _prepare(
         e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m)
     n, w = e.shape
     c0 = int(np.clip(np.min(j_on[ok], initial=w), 0, max(w - 1, 0))) - 1
@@ -217,11 +304,12 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     converged = usable.copy()
     rows = np.flatnonzero(ok & usable)
     if rows.size and width:
-        span = c1 - first[rows].min()
+        span = max(c1, int((last + 2 + after)[rows].max())) - first[rows].min()
         src, on = _windows(e, rows, first[rows], span, j_on[rows])
         own_end = np.clip(last[rows] - first[rows], 0, span - 1)
+        reach = last[rows] + 2 + after[rows] - first[rows]
         mw, qw, conv = _invert_block(src, on, dt, a0[rows], a1[rows], a2[rows],
-                                     ~small[rows], own_end)
+                                     ~small[rows], own_end, reach)
         converged[rows] = conv
         # row i's window column t is batch column first_i + t - c0
         shift = first[rows] - c0
@@ -265,7 +353,7 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
     converged : ndarray of bool, shape (n,)
         As in :func:`invert_moments`.
     """
-    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last = _prepare(
+    e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last, after = _prepare(
         e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m)
     n, w = e.shape
     at = np.asarray(at, dtype=np.float64)
@@ -274,7 +362,7 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
     converged = usable.copy()
     todo = ok & usable & (w > 0)
     # window widths, grouped by powers of two (at least 64 columns)
-    span = np.where(todo, last + 2 - first, 0)
+    span = np.where(todo, last + 2 + after - first, 0)
     group = np.ceil(np.log2(np.maximum(span, 64))).astype(np.intp)
     for g in np.unique(group[todo]):
         rows = np.flatnonzero(todo & (group == g))
@@ -282,7 +370,7 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
         src, on = _windows(e, rows, first[rows], width, j_on[rows])
         own_end = last[rows] - first[rows]
         m, q, conv = _invert_block(src, on, dt, a0[rows], a1[rows], a2[rows],
-                                   ~small[rows], own_end)
+                                   ~small[rows], own_end, own_end + 2 + after[rows])
         converged[rows] = conv
         cur[rows] = _interp_window(m, at[rows], first[rows], w)
         chg[rows] = _interp_window(q, stop[rows], first[rows], w)

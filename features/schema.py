@@ -301,8 +301,9 @@ FEATURES: tuple[Feature, ...] = (
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("current_moment_peak_a_m", "A m", "current moment M at the zero crossing (or the "
             "end of a unipolar pulse), from the three-term inversion of the field of an "
-            "elevated source (radiation-only with the D^2/R^3 geometry where it does not "
-            "converge); + = upward-directed current; NaN without range", "field",
+            "elevated source (solved exactly close under it, D < sqrt(2) H; radiation-only "
+            "with the D^2/R^3 geometry where a farther one does not converge); + = "
+            "upward-directed current; NaN without range", "field",
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "
             "overshoot lobe (or of the pulse), same inversion; NaN without range and below "
@@ -526,7 +527,7 @@ FEATURES: tuple[Feature, ...] = (
     Feature("near_field", "bool", "range under 5 x the source altitude: the induction and "
             "electrostatic terms matter", "quality", model=False),
     Feature("moments_converged", "bool", "the three-term moment inversion converged "
-            "(otherwise radiation-only with the D^2/R^3 geometry)", "quality", model=False),
+            "or was solved exactly (otherwise radiation-only with the D^2/R^3 geometry)", "quality", model=False),
     Feature("has_vhf", "bool", "the pulse has a usable VHF record", "quality", model=False),
     Feature("field_ok", "bool", "the field record is usable (at most half of the span "
             "missing and a peak of at least 3 sigma)", "quality", model=False),
