@@ -109,6 +109,7 @@ from .moments import (
     NEAR_FIELD_RATIO,
     geometry_factor_m,
     moments_at,
+    radiation_led,
 )
 
 __all__ = [
@@ -522,7 +523,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     current_moment, charge_moment, converged = moments_at(
         e, fs, np.where(ok, onset, np.nan), np.where(ok, pulse_end, np.nan),
         np.where(has_zc, zc, pulse_end), rng, altitude)
-    geometry = geometry_factor_m(rng, altitude)
+    # the radiation geometry scales the peak only where the radiation term leads it
+    geometry = np.where(radiation_led(rng, altitude, (s_frac - onset) * dt),
+                        geometry_factor_m(rng, altitude), np.nan)
     peak_signed = polarity * peak
     k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -170,6 +170,28 @@ def test_elevated_nbe_seen_from_close_by():
     assert out["near_field"][0]
 
 
+def test_close_under_the_source_the_radiation_scalings_are_nan():
+    """A source 9 km up seen from 1.8 km: the induction term cancels much of the radiation
+    term at the peak (Uman, McLain & Krider 1975; from memory; the peak scaled by R^3/D^2
+    reads half the true value here), so the range-normalised peak and the
+    transmission-line current are NaN rather than wrong. Seen from 7 km the radiation
+    term leads and the range-normalised peak is the radiation field of the same dM/dt at
+    100 km, -max(dM/dt) / (2 pi eps0 c^2 100 km), within 10 %."""
+    m0, tau, h = 1.0e8, 1.5e-6, 9e3
+    y = 2 - np.sqrt(2)                         # where dM/dt of _three_term_field's M peaks
+    dmdt_max = m0 * np.e ** 2 / 4 / tau * (2 * y - y * y) * np.exp(-y)
+    e100 = -dmdt_max / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * 100e3)
+    for d, kept in ((1.8e3, False), (7e3, True)):
+        e = _three_term_field(_t(), m0, tau, d, h)
+        out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]),
+                             altitude_m=np.array([h]))
+        assert out["near_field"][0] and out["moments_converged"][0]
+        assert np.isfinite(out["range_normalized_peak_v_per_m"][0]) == kept
+        assert np.isfinite(out["peak_current_a"][0]) == kept
+        if kept:
+            assert_allclose(out["range_normalized_peak_v_per_m"][0], e100, rtol=0.10)
+
+
 def test_decay_compensation_inverts_rc_high_pass():
     """A fast antenna (first-order RC high-pass, scipy.signal) is undone exactly enough."""
     tau = 50e-6
