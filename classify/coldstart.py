@@ -24,7 +24,7 @@ confidently as more anchors (``seeds``): the same self-training then adapts to a
 of another station, anchored by the model instead of the rules alone.
 
 The results have the columns of a trained model's; ``model_version`` says
-``self-trained from rules-3`` (or ``rules-3`` for the rules alone).
+``self-trained from rules-4`` (or ``rules-4`` for the rules alone).
 
 References
 ----------

@@ -1,4 +1,4 @@
-"""Cold start without labels: physics rules in station-independent terms (rules v3).
+"""Cold start without labels: physics rules in station-independent terms (rules v4).
 
 Each class gets a score in [0, 1]: the geometric mean of soft criteria, each a ramp
 between two thresholds (0 on one side, 1 on the other). A criterion whose quantity is
@@ -21,7 +21,8 @@ the cataloguing practice:
   dB above the season's 25th percentile of ``vhf_snr_db``), not to a receiver's noise
   floor;
 * range-normalised amplitudes and transmission-line currents (physical units) where the
-  range is known;
+  range is known; close under the source, where the radiation geometry cannot scale the
+  peak (those two are NaN), the current moment of the three-term inversion instead;
 * mapped speeds only when significant (``speed_snr`` >= 3), else unknown;
 * no shape criterion (half-cycle, zero crossing, bipolarity) in the near field (range
   under 5 x the source height), where the electrostatic and induction terms make a
@@ -46,6 +47,8 @@ stepped_leader
     & Uman 2003, ch. 4: leader pulses ~1 us wide); in a train: at least one comparable
     pulse within 100 us in its own record, 5-100 us apart (interstep intervals 10-50 us,
     Rakov & Uman 2003 ch. 4); weak VHF (< 15 dB above the season's 25th percentile);
+    close under the source a current moment under 1e6-1e7 A m (a step's current of a
+    few kA over a step of tens of metres, Rakov & Uman 2003 ch. 4: ~1e5 A m; computed);
     speed 1e5-2.6e6 m/s when significant (Rakov & Uman 2003, ch. 4).
 recoil
     a few-us pulse (initial half-cycle 2.5-12 us, width 5-40 us, FWHM > 1 us: wider than
@@ -57,7 +60,9 @@ recoil
     0.3; common practice, no source).
 energetic_in_cloud (EIP)
     very large: TL current > 100-150 kA (EIPs are reported at ~100-400 kA; Lyu et al.
-    2016, GRL) or a range-normalised peak > 10-20 V/m at 100 km; wide: initial half-cycle
+    2016, GRL) or a range-normalised peak > 10-20 V/m at 100 km, or close under the source
+    a current moment > 2e7-5e7 A m (100-400 kA over a channel of some hundreds of metres
+    or more; computed from those currents, no direct source); wide: initial half-cycle
     > 8 us, width > 25 us, FWHM > 3 us; bipolar; VHF weak for its size (not the season's
     strongest); at 7-14 km when known; early in its flash (< 20 ms) when known.
 other: return strokes
@@ -82,7 +87,7 @@ import pandas as pd
 __all__ = ["RULES_VERSION", "CLASSES", "OTHER_BELOW", "season_reference", "rule_scores",
            "rule_proba", "other_pulses"]
 
-RULES_VERSION = "rules-3"
+RULES_VERSION = "rules-4"
 CLASSES = ("energetic_in_cloud", "narrow_bipolar", "recoil", "stepped_leader")
 #: Scores are turned into pseudo-probabilities by normalising ``score ** SHARPNESS``.
 SHARPNESS = 3.0
@@ -98,7 +103,8 @@ _COLUMNS = ("initial_half_cycle_s", "zero_crossing_s", "width_s", "fwhm_s", "bip
             "neighbours_before", "neighbours_after", "neighbour_interval_s",
             "largest_neighbour_ratio", "vhf_snr_db", "peak_current_a",
             "range_normalized_peak_v_per_m", "speed_m_per_s", "speed_snr", "altitude_m",
-            "channel_reuse", "time_in_flash_s", "field_ok", "near_field")
+            "channel_reuse", "time_in_flash_s", "field_ok", "near_field",
+            "current_moment_peak_a_m")
 
 
 def _ramp_up(x, lo, hi, log=True):
@@ -157,6 +163,10 @@ def _get(df, reference):
     f["speed"] = np.where(sig, f["speed_m_per_s"], np.nan)
     f["current"] = np.abs(f["peak_current_a"])
     f["norm_peak"] = np.abs(f["range_normalized_peak_v_per_m"])
+    # close under the source the peak cannot be scaled by the radiation geometry (both
+    # NaN there): the size is the current moment of the exact three-term inversion
+    scaled = np.isfinite(f["current"]) | np.isfinite(f["norm_peak"])
+    f["moment"] = np.where(scaled, np.nan, np.abs(f["current_moment_peak_a_m"]))
     nb = f["neighbours_before"] + f["neighbours_after"]
     f["n_neighbours"] = nb
     return f
@@ -210,6 +220,7 @@ def rule_scores(df: pd.DataFrame, reference=None) -> pd.DataFrame:
             _band(interval, 2e-6, 5e-6, 100e-6, 200e-6),
             _ramp_down(vhf, 15.0, 25.0, log=False),
             _band(f["speed"], 3e4, 1e5, 2.6e6, 6e6),
+            _ramp_down(f["moment"], 1e6, 1e7),
         ),
         "recoil": _combine(
             _band(ihc, 1.5e-6, 2.5e-6, 12e-6, 18e-6),
@@ -225,6 +236,7 @@ def rule_scores(df: pd.DataFrame, reference=None) -> pd.DataFrame:
         "energetic_in_cloud": _combine(
             _ramp_up(f["current"], 60e3, 100e3),
             _ramp_up(f["norm_peak"], 8.0, 15.0),
+            _ramp_up(f["moment"], 2e7, 5e7),
             _ramp_up(ihc, 6e-6, 9e-6),
             _ramp_up(width, 18e-6, 28e-6),
             _ramp_up(fwhm, 2e-6, 4e-6),
@@ -239,7 +251,8 @@ def rule_scores(df: pd.DataFrame, reference=None) -> pd.DataFrame:
     core = {"narrow_bipolar": (ihc, width, fwhm, bip, vhf),
             "stepped_leader": (width, fwhm, ihc, nb),
             "recoil": (ihc, width, fwhm),
-            "energetic_in_cloud": (f["current"], f["norm_peak"], ihc, width, fwhm)}
+            "energetic_in_cloud": (f["current"], f["norm_peak"], f["moment"], ihc, width,
+                                   fwhm)}
     for c, qs in core.items():
         known = np.any([np.isfinite(q) for q in qs], axis=0)
         scores[c] = np.where(known, scores[c], 0.5 * scores[c])

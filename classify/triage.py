@@ -284,7 +284,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
     >>> summary = triage_catalog(open_catalog(folder), folder.parent / "results.csv",
     ...                          self_training=False)
     >>> summary["n"], summary["model_version"]
-    (2, 'rules-3')
+    (2, 'rules-4')
     >>> read_results(summary["out"]).columns[:6].tolist()
     ['event_id', 'label', 'confidence', 'needs_review', 'novel', 'prediction_set']
 

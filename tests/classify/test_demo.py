@@ -24,4 +24,4 @@ def test_demo_runs_whole_job_and_scores_both_triages(tmp_path):
     # Both triages must beat chance by a wide margin on the demo's four classes.
     assert s["macro_f1_vs_truth"] > 0.8
     assert s["coldstart_macro_f1"] > 0.6
-    assert s["triage"]["model_version"] != "rules-3"
+    assert s["triage"]["model_version"] != "rules-4"

@@ -185,7 +185,7 @@ def test_keyboard_review_writes_exactly_those_decisions(browser, triaged, tmp_pa
     assert review["event_id"].tolist() == [d[0] for d in decided] + [undone[0]]
     assert review["label"].tolist() == [d[1] for d in decided] + [undone[1]]
     assert (review["analyst"] == "wren").all()
-    assert (review["model_version"] == "rules-3").all()
+    assert (review["model_version"] == "rules-4").all()
     expected_conf = [res.at[e, f"p_{lab}"] for e, lab, _ in decided + [undone]]
     assert_allclose(review["confidence"].to_numpy(), expected_conf, rtol=1e-9)
     assert review["note"].tolist()[2] == NOTE

@@ -186,7 +186,7 @@ def test_decisions_go_to_the_store_at_once_with_provenance(served):
     row = d.iloc[0]
     assert (row["event_id"], row["label"], row["origin"], row["analyst"], row["note"]) == \
         (first, "recoil", "review", ANALYST, note)
-    assert row["model_version"] == res.at[first, "model_version"] == "rules-3"
+    assert row["model_version"] == res.at[first, "model_version"] == "rules-4"
     assert_allclose(row["confidence"], res.at[first, "p_recoil"], rtol=1e-9)
     assert row["decided_at"].tzinfo is not None
     # a second click on the same pulse is refused (409), nothing more is written
@@ -273,7 +273,7 @@ def test_pulse_view_is_complete_and_strict_json(served):
     assert width["unit"] == "µs"
     if np.isfinite(raw):
         assert_allclose(width["value"], raw * 1e6, rtol=1e-3)
-    assert p["model"]["version"] == "rules-3"
+    assert p["model"]["version"] == "rules-4"
     q = p["queue"]
     assert_allclose(q["priority"], q["uncertainty"] + q["novelty_weight"] * q["novelty_rank"],
                     rtol=1e-12)
@@ -421,7 +421,7 @@ def test_lookalikes_come_from_the_model_per_class(tmp_path):
     results = read_results(out)
     model, card = find_model(results, registry=models)        # from model_version "m1"
     assert card["version"] == "m1"
-    assert find_model(results.assign(model_version="rules-3")) == (None, None)
+    assert find_model(results.assign(model_version="rules-4")) == (None, None)
     session = ReviewSession(results, open_catalog(b), tmp_path / "review.sqlite", ANALYST,
                             model=model, catalog_paths=card_catalog_paths(card))
     assert session.info()["lookalike_source"] == "model"

@@ -129,3 +129,24 @@ def test_vhf_is_judged_against_the_season():
     assert strong > weak
     season = pd.DataFrame({"vhf_snr_db": np.arange(100.0)})
     assert rules.season_reference(season)["vhf_q25_db"] == pytest.approx(24.75)
+
+
+def test_close_under_the_source_the_size_is_the_current_moment():
+    """Right under an EIP its peak cannot be scaled by the radiation geometry (TL current
+    and range-normalised peak NaN) and its field is clipped (no shape): the current
+    moment of the exact inversion still tells a 100-400 kA EIP (Lyu et al. 2016; over a
+    channel of some hundreds of metres, ~1e8 A m; computed) from a leader step (a few kA
+    over tens of metres, ~1e5 A m; Rakov & Uman 2003 ch. 4; computed), alike otherwise."""
+    common = dict(near_field=1.0, neighbours_before=0, neighbours_after=1,
+                  largest_neighbour_ratio=0.3, vhf_snr_db=16.0, altitude_m=9e3)
+    eip = rules.rule_scores(pd.DataFrame([_row(current_moment_peak_a_m=-1.5e8, **common)]),
+                            REF)
+    step = rules.rule_scores(pd.DataFrame([_row(current_moment_peak_a_m=2e5, **common)]),
+                             REF)
+    assert eip.idxmax(axis=1).iloc[0] == "energetic_in_cloud", eip.round(3).to_dict("records")
+    assert step["energetic_in_cloud"].iloc[0] < eip["energetic_in_cloud"].iloc[0]
+    assert step["stepped_leader"].iloc[0] > eip["stepped_leader"].iloc[0]
+    # far away the moment is not a second size criterion: the scaled peak decides
+    far = dict(TEXTBOOK["recoil"], current_moment_peak_a_m=-1.5e8)
+    assert rules.rule_scores(pd.DataFrame([far]), REF).equals(
+        rules.rule_scores(pd.DataFrame([TEXTBOOK["recoil"]]), REF))

@@ -131,11 +131,11 @@ def test_rules_mode_needs_no_labels(tmp_path):
     out = tmp_path / "r.csv"
     assert main(["triage", str(cat), "--rules", "--out", str(out)]) == 0
     df = read_results(out)
-    assert df["model_version"].eq("self-trained from rules-3").all()
-    assert df["adaptation"].str.startswith("self-trained from rules-3").all()
+    assert df["model_version"].eq("self-trained from rules-4").all()
+    assert df["adaptation"].str.startswith("self-trained from rules-4").all()
     assert main(["triage", str(cat), "--rules", "--rules-only", "--out", str(out)]) == 0
     df = read_results(out)
-    assert df["model_version"].eq("rules-3").all()
+    assert df["model_version"].eq("rules-4").all()
     assert {"p_narrow_bipolar", "p_stepped_leader", "p_recoil",
             "p_energetic_in_cloud"} <= set(df.columns)
 
