@@ -5,7 +5,8 @@ instrument setting or another year. Where it places nearly every pulse confident
 season looks like its training and its decisions stand. Where it does not, the season
 itself is fitted: the pulses the model places confidently (calibrated probability
 >= :data:`classify.coldstart.CONFIDENT`, a one-class prediction set, not novel, the same
-class with a censored value relaxed) and the analysts' labels of the catalog anchor the
+class with a censored value relaxed, not close under its source: :func:`close_under_source`)
+and the analysts' labels of the catalog anchor the
 cold start's self-training on the season (:func:`classify.coldstart.cold_start`), whose
 model then classifies every pulse; the anchors keep the trained model's decisions (the
 rules' ``other``, a pulse no rule class fits, does not overrule them) and novelty stays
@@ -68,6 +69,24 @@ def confident_rows(d) -> np.ndarray:
     return np.flatnonzero(sure)
 
 
+def close_under_source(table) -> np.ndarray:
+    """Pulses whose peak the radiation geometry cannot scale: range known, the
+    range-normalised peak NaN (:func:`features.moments.radiation_led`).
+
+    Their field is mostly the electrostatic and induction terms, whose shape and sign
+    differ from the radiation field a model sees at the usual distances, so a trained
+    model's confidence there is an extrapolation: they are not anchors of a season fit.
+    """
+    n = len(table)
+    if "range_m" not in table or "range_normalized_peak_v_per_m" not in table:
+        return np.zeros(n, dtype=bool)
+    rng = np.asarray(table["range_m"], dtype=np.float64)
+    norm = np.asarray(table["range_normalized_peak_v_per_m"], dtype=np.float64)
+    ok = (np.asarray(table["field_ok"], dtype=np.float64) > 0 if "field_ok" in table
+          else np.ones(n, dtype=bool))
+    return ok & np.isfinite(rng) & np.isnan(norm)
+
+
 def doubtful(d, review_below: float) -> np.ndarray:
     """Usable pulses the trained model would send to review for doubt: confidence below
     ``review_below``, more than one class in the prediction set (which always holds the
@@ -119,10 +138,11 @@ def fit_to_season(d, frame, cat, settings, *, mode="auto", store=None, n_jobs=1)
         d["adaptation"] = (f"{d['adaptation']}; no season fit ({share}, "
                            f"<= {100 * AUTO_DOUBT_SHARE:g} %)")
         return d
+    table = frame() if callable(frame) else frame
     rows = confident_rows(d)
+    rows = rows[~close_under_source(table)[rows]]
     top = np.argmax(np.asarray(d["proba"]), axis=1)
-    fit = coldstart.cold_start(frame() if callable(frame) else frame, None, cat, settings,
-                               store=store, n_jobs=n_jobs,
+    fit = coldstart.cold_start(table, None, cat, settings, store=store, n_jobs=n_jobs,
                                seeds=(rows, np.asarray(d["classes"])[top[rows]]))
     if fit["version"] == rules.RULES_VERSION:  # the self-training could not run
         return d

@@ -7,9 +7,16 @@ is exercised end to end in ``test_shift.py``.
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 
-from classify.seasonfit import AUTO_DOUBT_SHARE, doubtful, fit_to_season, season_fit_mode
+from classify.seasonfit import (
+    AUTO_DOUBT_SHARE,
+    close_under_source,
+    doubtful,
+    fit_to_season,
+    season_fit_mode,
+)
 from classify.triage import TriageSettings
 from features import InputError
 
@@ -64,3 +71,14 @@ def test_modes():
         == ["always", "never", "always", "auto", "always", "never"]
     with pytest.raises(InputError, match="season_fit: expected one of auto, always, never"):
         season_fit_mode("sometimes")
+
+
+def test_pulses_close_under_their_source_are_not_anchors():
+    """A pulse whose range is known but whose peak the radiation geometry cannot scale
+    (range-normalised peak NaN: features.moments.radiation_led) is close under its
+    source; one without range, or with an unusable field record, is not judged."""
+    table = pd.DataFrame({"range_m": [2e3, 60e3, np.nan, 2e3],
+                          "range_normalized_peak_v_per_m": [np.nan, 12.0, np.nan, np.nan],
+                          "field_ok": [1.0, 1.0, 1.0, 0.0]})
+    assert close_under_source(table).tolist() == [True, False, False, False]
+    assert not close_under_source(table.drop(columns="range_m")).any()
