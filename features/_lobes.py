@@ -290,6 +290,23 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         Peaks (``peak``, ``peak_col``) are those of the smoothed record.
         ``after_valley`` marks lobes split from the one before them at a valley.
     """
+    return smoothed_lobes(e, sigma, smooth=smooth, low_sigma=low_sigma,
+                          high_sigma=high_sigma, valley_fraction=valley_fraction)[0]
+
+
+def smoothed_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
+                   low_sigma: float = LOBE_LOW_SIGMA, high_sigma: float = LOBE_HIGH_SIGMA,
+                   valley_fraction: float = VALLEY_FRACTION):
+    """:func:`find_lobes`, and the smoothed record it searched.
+
+    Returns
+    -------
+    lobes : LobeTable
+    smoothed : ndarray, shape (n, w)
+        ``e`` after the centred moving average of ``smooth`` samples (``e`` itself when
+        ``smooth`` is 1), for callers that need the record the lobes were found on
+        without smoothing it a second time.
+    """
     n, w = e.shape
     smooth = max(int(smooth), 1)
     if smooth > 1:
@@ -310,7 +327,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     k_start, k_stop = starts[keep], stops[keep]
     z = np.zeros(0, np.intp)
     if not k_start.size:
-        return LobeTable(z, z, z, z, np.zeros(0), np.zeros(0, np.int8), np.zeros(0, bool))
+        return LobeTable(z, z, z, z, np.zeros(0), np.zeros(0, np.int8), np.zeros(0, bool)), e
     # the samples of the kept runs, flat, with their run number
     lengths = k_stop - k_start
     owner = np.repeat(np.arange(k_start.size), lengths)
@@ -363,4 +380,4 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     r = k_start[sel] // w
     return LobeTable(row=r, start=k_start[sel] - r * w, stop=k_stop[sel] - r * w,
                      peak_col=peak_flat[sel] - r * w, peak=run_peak[sel],
-                     sign=piece_sign[sel], after_valley=after[sel])
+                     sign=piece_sign[sel], after_valley=after[sel]), e

@@ -14,7 +14,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage
 
 from . import _lobes
 from ._lobes import LOBE_HIGH_SIGMA, LobeTable
@@ -73,7 +72,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     -------
     LobeTableWithBase
     """
-    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
+    lobes, smoothed = _lobes.smoothed_lobes(e, sigma, smooth=smooth, **levels)
     base = np.zeros(len(lobes))
     ride = np.flatnonzero(lobes.after_valley)
     if ride.size:
@@ -92,8 +91,10 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
         if j.size:
             rows = np.unique(r)
-            cs = np.zeros((rows.size, e.shape[1] + 1))
-            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
+            # (a cumulative sum is sequential: up to the last gap's end it is the same)
+            c1 = int(b.max()) + 1
+            cs = np.zeros((rows.size, c1))
+            np.cumsum(e[rows, :c1 - 1], axis=1, out=cs[:, 1:])
             ri = np.searchsorted(rows, r)
             n_gap = b - a
             mean = (cs[ri, b] - cs[ri, a]) / n_gap
@@ -108,30 +109,27 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[lobes.row[at0]]
         cut[at0] = first >= LOBE_HIGH_SIGMA * sg
     return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth),
+                             bridged=bridged, rise=_half_rise(smoothed, lobes, base),
                              cut=cut)
 
 
 _LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
 
 
-def _half_rise(e, lobes, base, smooth):
+def _half_rise(es, lobes, base):
     """Columns from each lobe's last sample below half its own height (above ``base``,
-    on the smoothed record) to its peak; at most ``peak_col - start``."""
+    on the smoothed record ``es`` the lobes were found on) to its peak; at most
+    ``peak_col - start``."""
     n_l = len(lobes)
     rise = np.zeros(n_l)
     if n_l == 0:
         return rise
-    k = max(int(smooth), 1)
-    rows = np.unique(lobes.row)
-    es = e[rows] if k == 1 else ndimage.uniform_filter1d(e[rows], k, axis=1, mode="nearest")
-    ri = np.searchsorted(rows, lobes.row)
     length = np.maximum(lobes.peak_col - lobes.start, 0) + 1
     lobe = np.repeat(np.arange(n_l), length)
     off = np.arange(lobe.size) - np.repeat(np.cumsum(length) - length, length)
     col = lobes.start[lobe] + off
     half = base + 0.5 * (lobes.peak - base)
-    below = lobes.sign[lobe] * es[ri[lobe], col] < half[lobe]
+    below = lobes.sign[lobe] * es[lobes.row[lobe], col] < half[lobe]
     last = np.full(n_l, -1)
     np.maximum.at(last, lobe[below], col[below])
     rise = np.where(last >= 0, lobes.peak_col - last, length - 1).astype(np.float64)
