@@ -22,6 +22,7 @@ __all__ = [
     "take_rows",
     "cumtrapz_rows",
     "parabolic_peak",
+    "cumsum_rows",
     "moving_average_rows",
     "median_rows",
     "nanmedian_rows",
@@ -214,7 +215,21 @@ def parabolic_peak(u: np.ndarray, j: np.ndarray) -> tuple[np.ndarray, np.ndarray
     return j + d, h
 
 
-def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
+def cumsum_rows(y: np.ndarray) -> np.ndarray:
+    """Running sum of each row with a leading 0 column: ``c[:, j]`` is the sum of
+    ``y[:, :j]`` (shape ``(n, w + 1)``, float64), as :func:`moving_average_rows` takes it.
+
+    A cumulative sum costs several times a plain pass over the rows (each sum waits for
+    the one before it): callers smoothing the same rows more than once compute it once.
+    """
+    c = np.empty((y.shape[0], y.shape[1] + 1))
+    c[:, 0] = 0.0
+    np.cumsum(y, axis=1, out=c[:, 1:])
+    return c
+
+
+def moving_average_rows(y: np.ndarray, k: np.ndarray, *,
+                        cumsum: np.ndarray | None = None) -> np.ndarray:
     """Centred moving average of each row over ``k[i]`` samples (k >= 1; edges shortened).
 
     One cumulative sum of all rows, then the rows of each window length together (as
@@ -225,6 +240,9 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     y : ndarray, shape (n, w)
     k : ndarray of int, shape (n,)
         Window length of each row, samples (1: the row unchanged).
+    cumsum : ndarray, shape (n, w + 1), optional
+        ``cumsum_rows(y)`` if the caller has it already: the same numbers without
+        summing the rows again (each row's running sum is its own sequential sum).
 
     Returns
     -------
@@ -246,30 +264,36 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     ks = k[order]
     in_place = (order.size == n and y.dtype == np.float64
                 and bool((order[1:] > order[:-1]).all()))
-    c = np.empty((order.size, w + 1))
-    c[:, 0] = 0.0
-    np.cumsum(y if in_place else y[order], axis=1, out=c[:, 1:])
+    if cumsum is not None:
+        c = cumsum if in_place else cumsum[order]
+    else:
+        c = np.empty((order.size, w + 1))
+        c[:, 0] = 0.0
+        np.cumsum(y if in_place else y[order], axis=1, out=c[:, 1:])
     res = out if in_place else np.empty((order.size, w))
-    cols = np.arange(w)
     cuts = (np.flatnonzero(ks[1:] != ks[:-1]) + 1).tolist()
+    lo = (ks - 1) // 2                  # the window is columns j - lo .. j + hi - 1
+    hi = ks - lo
+    j0 = np.minimum(lo, w)
+    j1 = np.maximum(np.minimum(w - hi + 1, w), j0)
+    # c[b] - c[a] inside the record (b - a = k there): shifted slices, each length's
+    # rows together
     for g0, g1 in zip([0] + cuts, cuts + [order.size]):
-        kk = int(ks[g0])
-        lo = (kk - 1) // 2             # the window is columns j - lo .. j + hi - 1
-        hi = kk - lo
-        cg, d = c[g0:g1], res[g0:g1]
-        # c[b] - c[a]: shifted slices inside the record (b - a = kk there), gathers at
-        # its two ends
-        j0, j1 = min(lo, w), max(min(w - hi + 1, w), min(lo, w))
-        np.subtract(cg[:, j0 + hi:j1 + hi], cg[:, j0 - lo:j1 - lo], out=d[:, j0:j1])
-        d[:, j0:j1] /= float(kk)
-        # (window ends clipped into the record by plain minimum/maximum: np.clip
-        # costs ~15 us of Python per call, times the window lengths of every block)
-        if j0:
-            a_idx, b_idx = np.maximum(cols[:j0] - lo, 0), cols[:j0] + hi
-            d[:, :j0] = (cg[:, b_idx] - cg[:, a_idx]) / (b_idx - a_idx)
-        if j1 < w:
-            a_idx, b_idx = cols[j1:] - lo, np.minimum(cols[j1:] + hi, w)
-            d[:, j1:] = (cg[:, b_idx] - cg[:, a_idx]) / (b_idx - a_idx)
+        kk, a0, b0, a1 = int(ks[g0]), int(j0[g0]), int(j1[g0]), int(lo[g0])
+        d = res[g0:g1, a0:b0]
+        np.subtract(c[g0:g1, a0 + kk - a1:b0 + kk - a1], c[g0:g1, a0 - a1:b0 - a1], out=d)
+        d /= float(kk)
+    # ... and at its two ends, where the window is cut short, all rows at once: the
+    # columns before the largest j0 and from the smallest j1 on, with each row's window
+    # clipped into the record (a column inside a row's own record gets the same numbers
+    # again: b - a = k there, and the quotient is the same division)
+    rows = np.arange(order.size)[:, None]
+    for e0, e1 in ((0, int(j0.max())), (int(j1.min()), w)):
+        if e1 > e0:
+            j = np.arange(e0, e1)[None, :]
+            a_idx = np.maximum(j - lo[:, None], 0)
+            b_idx = np.minimum(j + hi[:, None], w)
+            res[:, e0:e1] = (c[rows, b_idx] - c[rows, a_idx]) / (b_idx - a_idx)
     if not in_place:
         out[order] = res
     return out
