@@ -74,7 +74,9 @@ def _block_sigma(block, valid, block_len, quantum):
     use = nb * block_len if width >= block_len else width
     b = np.where(valid[:, :use], block[:, :use], np.nan).reshape(n, nb, -1)
     flat = b.reshape(n * nb, -1)
-    med = nanmedian_rows(flat)
+    # (a median of 0 of either sign: |x - med| is the same; the level taken below has
+    # its sign settled)
+    med = nanmedian_rows(flat, signed_zero=False)
     dev = np.abs(flat - med[:, None])
     mad = 1.4826 * nanmedian_rows(dev)
     cnt = np.isfinite(flat).sum(axis=1)
@@ -93,6 +95,9 @@ def _block_sigma(block, valid, block_len, quantum):
     quiet = np.isfinite(mad) & (mad <= 1.5 * low[:, None])
     out = np.where(quiet, mad, 0.0).sum(axis=1) / np.maximum(quiet.sum(axis=1), 1)
     level = med.reshape(n, nb)[np.arange(n), order[:, 0]]
+    zero = np.flatnonzero(level == 0)
+    if zero.size:
+        level[zero] = nanmedian_rows(flat[zero * nb + order[zero, 0]])
     return np.where(good > 0, out, np.nan), np.where(good > 0, level, np.nan)
 
 
@@ -167,10 +172,19 @@ def _two_half_slope(block, valid, start, length, sigma, sloped):
     0 where not ``sloped`` or not significant."""
     width = block.shape[1]
     half = length // 2
-    first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
-    second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block, np.nan)
-    m1 = nanmedian_rows(first)
-    m2 = nanmedian_rows(second)
+    if length.size and (length == width).all():
+        # every row's stretch is the whole block (one stop for all rows): its halves are
+        # plain column ranges. The medians are those of the same values; only a median
+        # of 0 could differ, in its sign, which no slope below keeps (m2 - m1 is the
+        # same number, or a zero, which is no significant slope)
+        m1 = median_rows(block[:, :width // 2], signed_zero=False)
+        m2 = median_rows(block[:, width // 2:], signed_zero=False)
+    else:
+        first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
+        second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block,
+                          np.nan)
+        m1 = nanmedian_rows(first)
+        m2 = nanmedian_rows(second)
     # centres of the two halves, in columns of e
     c1 = start + (half - 1) / 2.0
     c2 = start + half + (length - half - 1) / 2.0

@@ -305,12 +305,15 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray, *,
 SORT_MEDIAN_MAX = 512
 
 
-def median_rows(a: np.ndarray) -> np.ndarray:
+def median_rows(a: np.ndarray, *, signed_zero: bool = True) -> np.ndarray:
     """Median of each row of a NaN-free 2-D array, exactly as :func:`numpy.median`.
 
     The middle value, or the mean of the two middle values, of each row (taken from a
     sort for rows of up to :data:`SORT_MEDIAN_MAX` samples), bit for bit the same,
-    signed zeros included.
+    signed zeros included. With ``signed_zero=False`` a median of 0 may come back with
+    either sign (the rest bit for bit the same), for callers whose results do not
+    depend on it: quantised records hold many zeros, and settling the sign costs a
+    :func:`numpy.median` of every such row.
     """
     n, w = a.shape
     if w > SORT_MEDIAN_MAX or w == 0 or n == 0:
@@ -321,19 +324,19 @@ def median_rows(a: np.ndarray) -> np.ndarray:
     out = mid[:, 0].copy() if w % 2 else np.mean(mid, axis=1)
     # a middle value of 0 may be -0.0 or +0.0 (they sort as equal): the partition
     # decides which one numpy.median returns, so rows holding a -0.0 take it
-    zero = np.flatnonzero((mid == 0).any(axis=1))
-    if zero.size:
+    zero = np.flatnonzero((mid == 0).any(axis=1)) if signed_zero else ()
+    if len(zero):
         zero = zero[(np.signbit(a[zero]) & (a[zero] == 0)).any(axis=1)]
         out[zero] = np.median(a[zero], axis=1)
     return out
 
 
-def nanmedian_rows(a: np.ndarray) -> np.ndarray:
+def nanmedian_rows(a: np.ndarray, *, signed_zero: bool = True) -> np.ndarray:
     """Median of each row ignoring NaN (NaN for an all-NaN or empty row); vectorised.
 
-    Rows without NaN use :func:`median_rows`; rows with NaN are sorted (NaN last) and
-    the middle of their valid values taken, with no Python loop over rows (unlike
-    :func:`numpy.nanmedian` on 2-D input).
+    Rows without NaN use :func:`median_rows` (``signed_zero`` as there); rows with NaN
+    are sorted (NaN last) and the middle of their valid values taken, with no Python
+    loop over rows (unlike :func:`numpy.nanmedian` on 2-D input).
     """
     a = np.asarray(a, dtype=np.float64)
     n, w = a.shape
@@ -344,9 +347,9 @@ def nanmedian_rows(a: np.ndarray) -> np.ndarray:
     has_nan = nan.any(axis=1)
     clean = ~has_nan
     if clean.all():
-        return median_rows(a)
+        return median_rows(a, signed_zero=signed_zero)
     if clean.any():
-        out[clean] = median_rows(a[clean])
+        out[clean] = median_rows(a[clean], signed_zero=signed_zero)
     sub = np.sort(a[has_nan], axis=1)
     cnt = (~nan[has_nan]).sum(axis=1)
     lo = np.minimum(np.maximum((cnt - 1) // 2, 0), w - 1)
