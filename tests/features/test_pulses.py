@@ -231,6 +231,30 @@ def test_lobes_and_pulses_of_a_record():
     assert own.tolist() == [0]
 
 
+
+def test_smoothed_lobes_returns_the_record_it_searched():
+    """features._lobes.smoothed_lobes: the lobes of find_lobes and the record after
+    scipy.ndimage.uniform_filter1d (mode 'nearest'), the moving average it searched; the
+    record itself without smoothing (two noisy rows of invented pulses)."""
+    from scipy import ndimage
+
+    from features import _lobes
+
+    t = _t()
+    rng = np.random.default_rng(8)
+    x = np.vstack([_bipolar(t, 1e-6, 4e-6, 0.4) + _gauss(t, 80e-6, 0.3e-6, 0.8),
+                   _gauss(t, 5e-6, 2e-6, -0.6)]) + rng.normal(0, 0.01, (2, M))
+    sigma = np.array([0.01, 0.01])
+    for smooth in (1, 5):
+        lobes, smoothed = _lobes.smoothed_lobes(x, sigma, smooth=smooth)
+        plain = _lobes.find_lobes(x, sigma, smooth=smooth)
+        for name in ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley"):
+            assert getattr(lobes, name).tolist() == getattr(plain, name).tolist()
+        expected = x if smooth == 1 else ndimage.uniform_filter1d(x, smooth, axis=1,
+                                                                   mode="nearest")
+        assert smoothed.tobytes() == expected.tobytes()
+    assert len(lobes) >= 3
+
 def _rc_gauss(t, t0, width_s, amp, tau_s):
     """A Gaussian pulse seen through a first-order RC high-pass of time constant tau_s
     (a fast antenna): g(t) - (1/tau) int g(t') exp(-(t - t')/tau) dt', the integral an
