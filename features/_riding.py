@@ -17,6 +17,7 @@ import numpy as np
 
 from . import _lobes
 from ._lobes import LOBE_HIGH_SIGMA, LobeTable
+from ._rowops import running_sum
 
 __all__ = ["BRIDGE_LEVEL", "BRIDGE_SIGMA", "LobeTableWithBase", "find_lobes"]
 
@@ -94,7 +95,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
             # (a cumulative sum is sequential: up to the last gap's end it is the same)
             c1 = int(b.max()) + 1
             cs = np.zeros((rows.size, c1))
-            np.cumsum(e[rows, :c1 - 1], axis=1, out=cs[:, 1:])
+            running_sum(e[rows, :c1 - 1], cs[:, 1:])
             ri = np.searchsorted(rows, r)
             n_gap = b - a
             mean = (cs[ri, b] - cs[ri, a]) / n_gap
