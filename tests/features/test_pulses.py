@@ -255,6 +255,28 @@ def test_smoothed_lobes_returns_the_record_it_searched():
         assert smoothed.tobytes() == expected.tobytes()
     assert len(lobes) >= 3
 
+
+def test_gap_means_are_within_their_bound_of_the_exact_mean():
+    """The gap means that decide ``bridged``: the running sums' (features._riding.
+    _gap_means) and the direct sums' (_gap_means_fast) both lie within the bound the
+    latter returns of the exactly rounded mean (math.fsum), on rows with a dynamic range
+    of 1e6 (invented rows), so a comparison beyond twice the bound is the same."""
+    import math
+
+    from features._riding import _gap_means, _gap_means_fast
+
+    rng = np.random.default_rng(12)
+    e = rng.normal(size=(6, 5000))
+    e[rng.random(e.shape) < 0.01] *= 1e6                  # spikes: large prefix sums
+    r = np.array([0, 0, 2, 3, 5, 5])
+    a = np.array([10, 3000, 0, 4998, 100, 200])
+    b = np.array([20, 4990, 4999, 4999, 101, 4000])
+    exact = np.array([math.fsum(e[i, x:y]) / (y - x) for i, x, y in zip(r, a, b)])
+    fast, tol = _gap_means_fast(e, r, a, b)
+    assert (tol > 0).all()
+    assert (np.abs(fast - exact) <= tol).all()
+    assert (np.abs(_gap_means(e, r, a, b) - exact) <= tol).all()
+
 def _rc_gauss(t, t0, width_s, amp, tau_s):
     """A Gaussian pulse seen through a first-order RC high-pass of time constant tau_s
     (a fast antenna): g(t) - (1/tau) int g(t') exp(-(t - t')/tau) dt', the integral an
