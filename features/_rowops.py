@@ -189,10 +189,21 @@ def cumtrapz_rows(y: np.ndarray, dt: float) -> np.ndarray:
     """Cumulative trapezoidal integral along each row, starting at 0 (same shape)."""
     out = np.empty_like(y)
     out[:, 0] = 0.0
-    if y.shape[1] > 1:
-        steps = y[:, 1:] + y[:, :-1]
-        steps *= 0.5 * dt
-        running_sum(steps, out[:, 1:])
+    n, w = y.shape
+    if w < 2:
+        return out
+    h, rest = n // 2, 0
+    if _pairs_rows(y, out, h, w - 1):
+        # the steps written straight into pairs of rows (running_sum, without packing)
+        pairs = np.empty((h, w - 1, 2))
+        np.add(y[:h, 1:], y[:h, :-1], out=pairs[:, :, 0])
+        np.add(y[h:2 * h, 1:], y[h:2 * h, :-1], out=pairs[:, :, 1])
+        pairs *= 0.5 * dt
+        _sum_pairs(pairs, out[:, 1:], h)
+        rest = 2 * h                                 # (an odd row left: below)
+    steps = y[rest:, 1:] + y[rest:, :-1]
+    steps *= 0.5 * dt
+    running_sum(steps, out[rest:, 1:])
     return out
 
 
@@ -245,19 +256,29 @@ def running_sum(y: np.ndarray, out: np.ndarray) -> np.ndarray:
     """
     n, w = y.shape
     h = n // 2
-    if y.dtype != np.float64 or out.dtype != np.float64 or h < PAIR_MIN_ROWS \
-            or w < PAIR_MIN_COLUMNS:
+    if not _pairs_rows(y, out, h, w):
         return np.cumsum(y, axis=1, out=out)
     pairs = np.empty((h, w, 2))
     pairs[:, :, 0] = y[:h]
     pairs[:, :, 1] = y[h:2 * h]
+    _sum_pairs(pairs, out, h)
+    if n % 2:
+        np.cumsum(y[2 * h:], axis=1, out=out[2 * h:])
+    return out
+
+
+def _pairs_rows(y, out, h, w):
+    """Whether :func:`running_sum` packs ``h`` pairs of rows of ``w`` columns."""
+    return (y.dtype == np.float64 and out.dtype == np.float64 and h >= PAIR_MIN_ROWS
+            and w >= PAIR_MIN_COLUMNS)
+
+
+def _sum_pairs(pairs, out, h):
+    """Running sums of packed row pairs ``(h, w, 2)`` into ``out[:h]`` and ``out[h:2h]``."""
     z = pairs.view(np.complex128)[:, :, 0]
     np.cumsum(z, axis=1, out=z)
     out[:h] = pairs[:, :, 0]
     out[h:2 * h] = pairs[:, :, 1]
-    if n % 2:
-        np.cumsum(y[2 * h:], axis=1, out=out[2 * h:])
-    return out
 
 
 def cumsum_rows(y: np.ndarray) -> np.ndarray:
