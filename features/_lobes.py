@@ -177,11 +177,13 @@ def _two_half_slope(block, valid, start, length, sigma, sloped):
     half = length // 2
     if length.size and (length == width).all():
         # every row's stretch is the whole block (one stop for all rows): its halves are
-        # plain column ranges. The medians are those of the same values; only a median
-        # of 0 could differ, in its sign, which no slope below keeps (m2 - m1 is the
-        # same number, or a zero, which is no significant slope)
-        m1 = median_rows(block[:, :width // 2], signed_zero=False)
-        m2 = median_rows(block[:, width // 2:], signed_zero=False)
+        # plain column ranges, without the NaN of the other half to sort. The medians
+        # are those of the same values (rows free of NaN take (a + b) / 2 for
+        # 0.5 (a + b): the same number); only a median of 0 could differ, in its sign,
+        # which no slope below keeps (m2 - m1 is the same number, or a zero, which is
+        # no significant slope)
+        m1 = nanmedian_rows(block[:, :width // 2], signed_zero=False)
+        m2 = nanmedian_rows(block[:, width // 2:], signed_zero=False)
     else:
         first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
         second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block,

@@ -385,3 +385,33 @@ def test_trigger_on_the_tail_of_an_earlier_pulse_catalogues_nothing():
     table, merged, lobe_pulse = pulses.group_pulses(lobes, FS)
     own = pulses.catalogued_pulse(table, merged, lobe_pulse, 2, PRE * FS, FS)
     assert own[0] == -1 and own[1] >= 0
+
+
+def test_two_half_slope_of_whole_blocks_is_the_medians_slope():
+    """A baseline stretch that is the whole block in every row (one stop for all rows):
+    the slope is (median of the second half - median of the first) / (distance of their
+    centres), numpy.nanmedian row by row, kept where it exceeds SLOPE_SIGNIFICANCE
+    standard errors, sqrt(2 pi / L) sigma / (c2 - c1) (the rule of features._lobes;
+    invented quantised rows, one holding NaN)."""
+    from features import _lobes
+
+    rng = np.random.default_rng(13)
+    n, width = 9, 800
+    cols = np.arange(width)
+    block = np.round(rng.normal(size=(n, width)) * 0.8 + np.outer(rng.normal(size=n) * 0.01,
+                                                                     cols))
+    block[4, 100:110] = np.nan
+    start = np.full(n, 1000)
+    length = np.full(n, width)
+    sigma = np.full(n, 0.8)
+    slope = _lobes._two_half_slope(block, np.ones((n, width), bool), start, length, sigma,
+                                   np.ones(n, bool))
+    half = width // 2
+    m1 = np.nanmedian(block[:, :half], axis=1)
+    m2 = np.nanmedian(block[:, half:], axis=1)
+    dc = half + (width - half - 1) / 2.0 - (half - 1) / 2.0
+    raw = (m2 - m1) / dc
+    se = np.sqrt(2 * np.pi / width) * sigma / dc
+    expected = np.where(np.abs(raw) > _lobes.SLOPE_SIGNIFICANCE * se, raw, 0.0)
+    assert (expected != 0).any() and (expected == 0).any()
+    assert_allclose(slope, expected, rtol=0, atol=0)
