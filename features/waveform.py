@@ -546,8 +546,13 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         b0 = int(np.clip(lo_c.min(initial=m), 0, m))
         b1 = int(np.clip(hi_c.max(initial=0), b0, m))
         band_cols = np.arange(b0, b1)[None, :]
-        censored = ((np.abs(x_filled[:, b0:b1]) >= float(full_scale_v_per_m) * (1 - 1e-9))
-                    & (band_cols >= lo_c[:, None]) & (band_cols < hi_c[:, None])).any(axis=1)
+        band, clip = x_filled[:, b0:b1], float(full_scale_v_per_m) * (1 - 1e-9)
+        # (|x| >= clip somewhere in the band, NaN ignored: only then, rarely, each row's
+        # own extent is masked)
+        if band.size and (np.fmax.reduce(band, axis=None) >= clip
+                          or -np.fmin.reduce(band, axis=None) >= clip):
+            censored = ((np.abs(band) >= clip) & (band_cols >= lo_c[:, None])
+                        & (band_cols < hi_c[:, None])).any(axis=1)
 
     # resolution: NaN rather than a number the record cannot carry. A time read off a
     # crossing moves by sigma_s / |du_s/dt| there (error propagation of a threshold
