@@ -17,7 +17,7 @@ import numpy as np
 
 from . import _lobes
 from ._lobes import LOBE_HIGH_SIGMA, LobeTable
-from ._rowops import running_sum
+from ._runsum import running_sum
 
 __all__ = ["BRIDGE_LEVEL", "BRIDGE_SIGMA", "LobeTableWithBase", "find_lobes"]
 
