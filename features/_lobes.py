@@ -74,7 +74,9 @@ def _block_sigma(block, valid, block_len, quantum):
     use = nb * block_len if width >= block_len else width
     b = np.where(valid[:, :use], block[:, :use], np.nan).reshape(n, nb, -1)
     flat = b.reshape(n * nb, -1)
-    med = nanmedian_rows(flat)
+    # (a median of 0 of either sign: |x - med| is the same; the level taken below has
+    # its sign settled)
+    med = nanmedian_rows(flat, signed_zero=False)
     dev = np.abs(flat - med[:, None])
     mad = 1.4826 * nanmedian_rows(dev)
     cnt = np.isfinite(flat).sum(axis=1)
@@ -93,6 +95,9 @@ def _block_sigma(block, valid, block_len, quantum):
     quiet = np.isfinite(mad) & (mad <= 1.5 * low[:, None])
     out = np.where(quiet, mad, 0.0).sum(axis=1) / np.maximum(quiet.sum(axis=1), 1)
     level = med.reshape(n, nb)[np.arange(n), order[:, 0]]
+    zero = np.flatnonzero(level == 0)
+    if zero.size:
+        level[zero] = nanmedian_rows(flat[zero * nb + order[zero, 0]])
     return np.where(good > 0, out, np.nan), np.where(good > 0, level, np.nan)
 
 
@@ -148,7 +153,10 @@ def baseline_fit(e: np.ndarray, stop: np.ndarray, sample_rate_hz: float, quantum
                 np.zeros(n, dtype=np.intp))
     cols = start[:, None] + np.arange(width)[None, :]
     valid = np.arange(width)[None, :] < length[:, None]
-    block = np.take_along_axis(e, np.clip(cols, 0, w - 1), axis=1)
+    if n and (start == start[0]).all() and 0 <= start[0] and start[0] + width <= w:
+        block = e[:, start[0]:start[0] + width]        # one stretch for all rows: a slice
+    else:
+        block = np.take_along_axis(e, np.clip(cols, 0, w - 1), axis=1)
     block = np.where(valid, block, np.nan)
     usable = length >= BASELINE_MIN_SAMPLES
     sigma, quiet = _block_sigma(block, valid,
@@ -167,10 +175,21 @@ def _two_half_slope(block, valid, start, length, sigma, sloped):
     0 where not ``sloped`` or not significant."""
     width = block.shape[1]
     half = length // 2
-    first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
-    second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block, np.nan)
-    m1 = nanmedian_rows(first)
-    m2 = nanmedian_rows(second)
+    if length.size and (length == width).all():
+        # every row's stretch is the whole block (one stop for all rows): its halves are
+        # plain column ranges, without the NaN of the other half to sort. The medians
+        # are those of the same values (rows free of NaN take (a + b) / 2 for
+        # 0.5 (a + b): the same number); only a median of 0 could differ, in its sign,
+        # which no slope below keeps (m2 - m1 is the same number, or a zero, which is
+        # no significant slope)
+        m1 = nanmedian_rows(block[:, :width // 2], signed_zero=False)
+        m2 = nanmedian_rows(block[:, width // 2:], signed_zero=False)
+    else:
+        first = np.where(np.arange(width)[None, :] < half[:, None], block, np.nan)
+        second = np.where((np.arange(width)[None, :] >= half[:, None]) & valid, block,
+                          np.nan)
+        m1 = nanmedian_rows(first)
+        m2 = nanmedian_rows(second)
     # centres of the two halves, in columns of e
     c1 = start + (half - 1) / 2.0
     c2 = start + half + (length - half - 1) / 2.0
@@ -290,6 +309,23 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         Peaks (``peak``, ``peak_col``) are those of the smoothed record.
         ``after_valley`` marks lobes split from the one before them at a valley.
     """
+    return smoothed_lobes(e, sigma, smooth=smooth, low_sigma=low_sigma,
+                          high_sigma=high_sigma, valley_fraction=valley_fraction)[0]
+
+
+def smoothed_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
+                   low_sigma: float = LOBE_LOW_SIGMA, high_sigma: float = LOBE_HIGH_SIGMA,
+                   valley_fraction: float = VALLEY_FRACTION):
+    """:func:`find_lobes`, and the smoothed record it searched.
+
+    Returns
+    -------
+    lobes : LobeTable
+    smoothed : ndarray, shape (n, w)
+        ``e`` after the centred moving average of ``smooth`` samples (``e`` itself when
+        ``smooth`` is 1), for callers that need the record the lobes were found on
+        without smoothing it a second time.
+    """
     n, w = e.shape
     smooth = max(int(smooth), 1)
     if smooth > 1:
@@ -310,7 +346,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     k_start, k_stop = starts[keep], stops[keep]
     z = np.zeros(0, np.intp)
     if not k_start.size:
-        return LobeTable(z, z, z, z, np.zeros(0), np.zeros(0, np.int8), np.zeros(0, bool))
+        return LobeTable(z, z, z, z, np.zeros(0), np.zeros(0, np.int8), np.zeros(0, bool)), e
     # the samples of the kept runs, flat, with their run number
     lengths = k_stop - k_start
     owner = np.repeat(np.arange(k_start.size), lengths)
@@ -363,4 +399,4 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     r = k_start[sel] // w
     return LobeTable(row=r, start=k_start[sel] - r * w, stop=k_stop[sel] - r * w,
                      peak_col=peak_flat[sel] - r * w, peak=run_peak[sel],
-                     sign=piece_sign[sel], after_valley=after[sel])
+                     sign=piece_sign[sel], after_valley=after[sel]), e

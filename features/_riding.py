@@ -14,10 +14,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage
 
 from . import _lobes
 from ._lobes import LOBE_HIGH_SIGMA, LobeTable
+from ._runsum import running_sum
 
 __all__ = ["BRIDGE_LEVEL", "BRIDGE_SIGMA", "LobeTableWithBase", "find_lobes"]
 
@@ -73,7 +73,7 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
     -------
     LobeTableWithBase
     """
-    lobes = _lobes.find_lobes(e, sigma, smooth=smooth, **levels)
+    lobes, smoothed = _lobes.smoothed_lobes(e, sigma, smooth=smooth, **levels)
     base = np.zeros(len(lobes))
     ride = np.flatnonzero(lobes.after_valley)
     if ride.size:
@@ -91,15 +91,18 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         has_gap = b > a
         j, a, b, r = j[has_gap], a[has_gap], b[has_gap], r[has_gap]
         if j.size:
-            rows = np.unique(r)
-            cs = np.zeros((rows.size, e.shape[1] + 1))
-            np.cumsum(e[rows], axis=1, out=cs[:, 1:])
-            ri = np.searchsorted(rows, r)
             n_gap = b - a
-            mean = (cs[ri, b] - cs[ri, a]) / n_gap
             sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[r]
             need = np.maximum(BRIDGE_SIGMA * sg / np.sqrt(n_gap), BRIDGE_LEVEL * sg)
-            bridged[j] = mean * lobes.sign[j] >= need
+            # a direct sum per gap; the running sums' means only where the two could
+            # fall on different sides of the threshold (NaN: not sure either)
+            mean, tol = _gap_means_fast(e, r, a, b)
+            side = mean * lobes.sign[j] - need
+            bridged[j] = side >= 0.0
+            redo = np.flatnonzero(~(np.abs(side) > 2.0 * tol))
+            if redo.size:
+                bridged[j[redo]] = (_gap_means(e, r[redo], a[redo], b[redo])
+                                    * lobes.sign[j[redo]] >= need[redo])
     cut = np.zeros(len(lobes), dtype=bool)
     at0 = np.flatnonzero(lobes.start == 0)
     if at0.size and e.shape[1]:
@@ -108,30 +111,63 @@ def find_lobes(e: np.ndarray, sigma: np.ndarray, *, smooth: int = 1,
         sg = np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.inf)[lobes.row[at0]]
         cut[at0] = first >= LOBE_HIGH_SIGMA * sg
     return LobeTableWithBase(**{f: getattr(lobes, f) for f in _LOBE_FIELDS}, base=base,
-                             bridged=bridged, rise=_half_rise(e, lobes, base, smooth),
+                             bridged=bridged, rise=_half_rise(smoothed, lobes, base),
                              cut=cut)
 
 
 _LOBE_FIELDS = ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley")
 
 
-def _half_rise(e, lobes, base, smooth):
+def _gap_means(e, r, a, b):
+    """Mean of ``e[r, a:b]`` for each gap, as the difference of the row's running sums
+    (the numbers that decide ``bridged``)."""
+    rows = np.unique(r)
+    # (a running sum is sequential: up to the last gap's end it is the same)
+    c1 = int(b.max()) + 1
+    cs = np.zeros((rows.size, c1))
+    running_sum(e[rows, :c1 - 1], cs[:, 1:])
+    ri = np.searchsorted(rows, r)
+    return (cs[ri, b] - cs[ri, a]) / (b - a)
+
+
+def _gap_means_fast(e, r, a, b):
+    """The means of :func:`_gap_means` from one direct sum per gap, and how far apart
+    the two ways of summing can be.
+
+    Both sums hold at most w terms of size at most M (the row's largest ``|e|``): each
+    is within (w - 1) eps / 2 times w M of the exact sum (recursive summation; Higham,
+    Accuracy and Stability of Numerical Algorithms, 2002, ch. 4; pairwise summation
+    less), a difference and a division within eps / 2 of their results. Returns the
+    means and a bound ``tol`` on their distance from :func:`_gap_means`' (four times
+    those terms): a comparison of the mean with a threshold more than ``2 tol`` away
+    comes out the same either way.
+    """
+    n, w = e.shape
+    flat = np.ascontiguousarray(e, dtype=np.float64).ravel()
+    idx = np.empty(2 * r.size, dtype=np.intp)
+    idx[0::2] = r * w + a
+    idx[1::2] = r * w + b           # (< n w: a lobe starts inside its record)
+    mean = np.add.reduceat(flat, idx)[0::2] / (b - a)
+    size = np.maximum(e.max(axis=1), -e.min(axis=1))[r]
+    eps = np.finfo(np.float64).eps
+    with np.errstate(invalid="ignore", over="ignore"):
+        return mean, 4.0 * eps * (float(w) * w * size / (b - a) + np.abs(mean))
+
+
+def _half_rise(es, lobes, base):
     """Columns from each lobe's last sample below half its own height (above ``base``,
-    on the smoothed record) to its peak; at most ``peak_col - start``."""
+    on the smoothed record ``es`` the lobes were found on) to its peak; at most
+    ``peak_col - start``."""
     n_l = len(lobes)
     rise = np.zeros(n_l)
     if n_l == 0:
         return rise
-    k = max(int(smooth), 1)
-    rows = np.unique(lobes.row)
-    es = e[rows] if k == 1 else ndimage.uniform_filter1d(e[rows], k, axis=1, mode="nearest")
-    ri = np.searchsorted(rows, lobes.row)
     length = np.maximum(lobes.peak_col - lobes.start, 0) + 1
     lobe = np.repeat(np.arange(n_l), length)
     off = np.arange(lobe.size) - np.repeat(np.cumsum(length) - length, length)
     col = lobes.start[lobe] + off
     half = base + 0.5 * (lobes.peak - base)
-    below = lobes.sign[lobe] * es[ri[lobe], col] < half[lobe]
+    below = lobes.sign[lobe] * es[lobes.row[lobe], col] < half[lobe]
     last = np.full(n_l, -1)
     np.maximum.at(last, lobe[below], col[below])
     rise = np.where(last >= 0, lobes.peak_col - last, length - 1).astype(np.float64)

@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._runsum import cumsum_rows, cumtrapz_rows, running_sum
+
 __all__ = [
     "first_true",
     "last_true",
@@ -22,6 +24,8 @@ __all__ = [
     "take_rows",
     "cumtrapz_rows",
     "parabolic_peak",
+    "cumsum_rows",
+    "running_sum",
     "moving_average_rows",
     "median_rows",
     "nanmedian_rows",
@@ -183,17 +187,6 @@ def integrate_rows(y: np.ndarray, a: np.ndarray, b: np.ndarray, dt: float) -> np
     return np.where(ok, whole - head + tail, np.nan)
 
 
-def cumtrapz_rows(y: np.ndarray, dt: float) -> np.ndarray:
-    """Cumulative trapezoidal integral along each row, starting at 0 (same shape)."""
-    out = np.empty_like(y)
-    out[:, 0] = 0.0
-    if y.shape[1] > 1:
-        steps = y[:, 1:] + y[:, :-1]
-        steps *= 0.5 * dt
-        np.cumsum(steps, axis=1, out=out[:, 1:])
-    return out
-
-
 def parabolic_peak(u: np.ndarray, j: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Sub-sample position and height of a peak at sample ``j`` of each row.
 
@@ -214,7 +207,8 @@ def parabolic_peak(u: np.ndarray, j: np.ndarray) -> tuple[np.ndarray, np.ndarray
     return j + d, h
 
 
-def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
+def moving_average_rows(y: np.ndarray, k: np.ndarray, *,
+                        cumsum: np.ndarray | None = None) -> np.ndarray:
     """Centred moving average of each row over ``k[i]`` samples (k >= 1; edges shortened).
 
     One cumulative sum of all rows, then the rows of each window length together (as
@@ -225,6 +219,9 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     y : ndarray, shape (n, w)
     k : ndarray of int, shape (n,)
         Window length of each row, samples (1: the row unchanged).
+    cumsum : ndarray, shape (n, w + 1), optional
+        ``cumsum_rows(y)`` if the caller has it already: the same numbers without
+        summing the rows again (each row's running sum is its own sequential sum).
 
     Returns
     -------
@@ -246,30 +243,36 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
     ks = k[order]
     in_place = (order.size == n and y.dtype == np.float64
                 and bool((order[1:] > order[:-1]).all()))
-    c = np.empty((order.size, w + 1))
-    c[:, 0] = 0.0
-    np.cumsum(y if in_place else y[order], axis=1, out=c[:, 1:])
+    if cumsum is not None:
+        c = cumsum if in_place else cumsum[order]
+    else:
+        c = np.empty((order.size, w + 1))
+        c[:, 0] = 0.0
+        running_sum(y if in_place else y[order], c[:, 1:])
     res = out if in_place else np.empty((order.size, w))
-    cols = np.arange(w)
     cuts = (np.flatnonzero(ks[1:] != ks[:-1]) + 1).tolist()
+    lo = (ks - 1) // 2                  # the window is columns j - lo .. j + hi - 1
+    hi = ks - lo
+    j0 = np.minimum(lo, w)
+    j1 = np.maximum(np.minimum(w - hi + 1, w), j0)
+    # c[b] - c[a] inside the record (b - a = k there): shifted slices, each length's
+    # rows together
     for g0, g1 in zip([0] + cuts, cuts + [order.size]):
-        kk = int(ks[g0])
-        lo = (kk - 1) // 2             # the window is columns j - lo .. j + hi - 1
-        hi = kk - lo
-        cg, d = c[g0:g1], res[g0:g1]
-        # c[b] - c[a]: shifted slices inside the record (b - a = kk there), gathers at
-        # its two ends
-        j0, j1 = min(lo, w), max(min(w - hi + 1, w), min(lo, w))
-        np.subtract(cg[:, j0 + hi:j1 + hi], cg[:, j0 - lo:j1 - lo], out=d[:, j0:j1])
-        d[:, j0:j1] /= float(kk)
-        # (window ends clipped into the record by plain minimum/maximum: np.clip
-        # costs ~15 us of Python per call, times the window lengths of every block)
-        if j0:
-            a_idx, b_idx = np.maximum(cols[:j0] - lo, 0), cols[:j0] + hi
-            d[:, :j0] = (cg[:, b_idx] - cg[:, a_idx]) / (b_idx - a_idx)
-        if j1 < w:
-            a_idx, b_idx = cols[j1:] - lo, np.minimum(cols[j1:] + hi, w)
-            d[:, j1:] = (cg[:, b_idx] - cg[:, a_idx]) / (b_idx - a_idx)
+        kk, a0, b0, a1 = int(ks[g0]), int(j0[g0]), int(j1[g0]), int(lo[g0])
+        d = res[g0:g1, a0:b0]
+        np.subtract(c[g0:g1, a0 + kk - a1:b0 + kk - a1], c[g0:g1, a0 - a1:b0 - a1], out=d)
+        d /= float(kk)
+    # ... and at its two ends, where the window is cut short, all rows at once: the
+    # columns before the largest j0 and from the smallest j1 on, with each row's window
+    # clipped into the record (a column inside a row's own record gets the same numbers
+    # again: b - a = k there, and the quotient is the same division)
+    rows = np.arange(order.size)[:, None]
+    for e0, e1 in ((0, int(j0.max())), (int(j1.min()), w)):
+        if e1 > e0:
+            j = np.arange(e0, e1)[None, :]
+            a_idx = np.maximum(j - lo[:, None], 0)
+            b_idx = np.minimum(j + hi[:, None], w)
+            res[:, e0:e1] = (c[rows, b_idx] - c[rows, a_idx]) / (b_idx - a_idx)
     if not in_place:
         out[order] = res
     return out
@@ -281,12 +284,15 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray) -> np.ndarray:
 SORT_MEDIAN_MAX = 512
 
 
-def median_rows(a: np.ndarray) -> np.ndarray:
+def median_rows(a: np.ndarray, *, signed_zero: bool = True) -> np.ndarray:
     """Median of each row of a NaN-free 2-D array, exactly as :func:`numpy.median`.
 
     The middle value, or the mean of the two middle values, of each row (taken from a
     sort for rows of up to :data:`SORT_MEDIAN_MAX` samples), bit for bit the same,
-    signed zeros included.
+    signed zeros included. With ``signed_zero=False`` a median of 0 may come back with
+    either sign (the rest bit for bit the same), for callers whose results do not
+    depend on it: quantised records hold many zeros, and settling the sign costs a
+    :func:`numpy.median` of every such row.
     """
     n, w = a.shape
     if w > SORT_MEDIAN_MAX or w == 0 or n == 0:
@@ -297,19 +303,19 @@ def median_rows(a: np.ndarray) -> np.ndarray:
     out = mid[:, 0].copy() if w % 2 else np.mean(mid, axis=1)
     # a middle value of 0 may be -0.0 or +0.0 (they sort as equal): the partition
     # decides which one numpy.median returns, so rows holding a -0.0 take it
-    zero = np.flatnonzero((mid == 0).any(axis=1))
-    if zero.size:
+    zero = np.flatnonzero((mid == 0).any(axis=1)) if signed_zero else ()
+    if len(zero):
         zero = zero[(np.signbit(a[zero]) & (a[zero] == 0)).any(axis=1)]
         out[zero] = np.median(a[zero], axis=1)
     return out
 
 
-def nanmedian_rows(a: np.ndarray) -> np.ndarray:
+def nanmedian_rows(a: np.ndarray, *, signed_zero: bool = True) -> np.ndarray:
     """Median of each row ignoring NaN (NaN for an all-NaN or empty row); vectorised.
 
-    Rows without NaN use :func:`median_rows`; rows with NaN are sorted (NaN last) and
-    the middle of their valid values taken, with no Python loop over rows (unlike
-    :func:`numpy.nanmedian` on 2-D input).
+    Rows without NaN use :func:`median_rows` (``signed_zero`` as there); rows with NaN
+    are sorted (NaN last) and the middle of their valid values taken, with no Python
+    loop over rows (unlike :func:`numpy.nanmedian` on 2-D input).
     """
     a = np.asarray(a, dtype=np.float64)
     n, w = a.shape
@@ -320,9 +326,9 @@ def nanmedian_rows(a: np.ndarray) -> np.ndarray:
     has_nan = nan.any(axis=1)
     clean = ~has_nan
     if clean.all():
-        return median_rows(a)
+        return median_rows(a, signed_zero=signed_zero)
     if clean.any():
-        out[clean] = median_rows(a[clean])
+        out[clean] = median_rows(a[clean], signed_zero=signed_zero)
     sub = np.sort(a[has_nan], axis=1)
     cnt = (~nan[has_nan]).sum(axis=1)
     lo = np.minimum(np.maximum((cnt - 1) // 2, 0), w - 1)

@@ -85,6 +85,7 @@ from ._baseline import rc_offset
 from ._rowops import (
     crossing_after,
     crossing_before,
+    cumsum_rows,
     cumtrapz_rows,
     moving_average_rows,
     parabolic_peak,
@@ -391,7 +392,9 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     k = np.fmin(np.nan_to_num(need, nan=1.0, posinf=1.0),
                 np.where(np.isfinite(f50 - c50), np.round((f50 - c50) / 4.0), 1.0))
     k = np.clip(k, 1, max(int(round(MAX_SMOOTH_S * fs)), 1)).astype(np.intp)
-    u_s = moving_average_rows(u, k)
+    # (every smoothed copy of u below: one running sum of its rows, taken once)
+    u_sum = cumsum_rows(u)
+    u_s = moving_average_rows(u, k, cumsum=u_sum)
     sig_s = sigma / np.sqrt(k)
     # a level is located no better than half a digitizer step (the largest rounding
     # error), however quiet the record: the resolution tests use that at least
@@ -448,7 +451,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
                        max(int(round(MAX_SMOOTH_S * fs)), 1))
     k_tail = np.maximum(np.minimum(need_tail, k_cap), k).astype(np.intp)
     k_tail = np.where(has_zc, k_tail, 1)
-    nu_t = -moving_average_rows(u, k_tail)
+    nu_t = -moving_average_rows(u, k_tail, cumsum=u_sum)
     h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
     t_from = np.minimum(j_opk, np.maximum(lobe_stop - 1, jc))
     tail_fall = crossing_after(nu_t, t_from, h_tail, stop=lobe_stop)
@@ -459,7 +462,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     redo = np.flatnonzero(k_b < k_tail)
     if redo.size:
         k_tail = k_b
-        nu_t[redo] = -moving_average_rows(u[redo], k_tail[redo])
+        nu_t[redo] = -moving_average_rows(u[redo], k_tail[redo], cumsum=u_sum[redo])
         h_tail = np.maximum(2 * sigma / np.sqrt(k_tail), lvl(0.01))
         tail_fall[redo] = crossing_after(nu_t[redo], t_from[redo], h_tail[redo],
                                          stop=lobe_stop[redo])
@@ -494,7 +497,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     k_os = np.where(has_zc & (overshoot > 0), k_os, k)
     more = np.flatnonzero(k_os > k)              # (only those rows: a pass over the record)
     if more.size:
-        ov_s, _ = _masked_max(-moving_average_rows(u[more], k_os[more]),
+        ov_s, _ = _masked_max(-moving_average_rows(u[more], k_os[more], cumsum=u_sum[more]),
                               np.where(np.isfinite(o_a), np.floor(np.nan_to_num(o_a)), j_os)[more],
                               np.where(np.isfinite(o_b), np.ceil(np.nan_to_num(o_b)) + 1,
                                        j_os + 1)[more])
@@ -546,8 +549,13 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         b0 = int(np.clip(lo_c.min(initial=m), 0, m))
         b1 = int(np.clip(hi_c.max(initial=0), b0, m))
         band_cols = np.arange(b0, b1)[None, :]
-        censored = ((np.abs(x_filled[:, b0:b1]) >= float(full_scale_v_per_m) * (1 - 1e-9))
-                    & (band_cols >= lo_c[:, None]) & (band_cols < hi_c[:, None])).any(axis=1)
+        band, clip = x_filled[:, b0:b1], float(full_scale_v_per_m) * (1 - 1e-9)
+        # (|x| >= clip somewhere in the band, NaN ignored: only then, rarely, each row's
+        # own extent is masked)
+        if band.size and (np.fmax.reduce(band, axis=None) >= clip
+                          or -np.fmin.reduce(band, axis=None) >= clip):
+            censored = ((np.abs(band) >= clip) & (band_cols >= lo_c[:, None])
+                        & (band_cols < hi_c[:, None])).any(axis=1)
 
     # resolution: NaN rather than a number the record cannot carry. A time read off a
     # crossing moves by sigma_s / |du_s/dt| there (error propagation of a threshold

@@ -231,6 +231,52 @@ def test_lobes_and_pulses_of_a_record():
     assert own.tolist() == [0]
 
 
+
+def test_smoothed_lobes_returns_the_record_it_searched():
+    """features._lobes.smoothed_lobes: the lobes of find_lobes and the record after
+    scipy.ndimage.uniform_filter1d (mode 'nearest'), the moving average it searched; the
+    record itself without smoothing (two noisy rows of invented pulses)."""
+    from scipy import ndimage
+
+    from features import _lobes
+
+    t = _t()
+    rng = np.random.default_rng(8)
+    x = np.vstack([_bipolar(t, 1e-6, 4e-6, 0.4) + _gauss(t, 80e-6, 0.3e-6, 0.8),
+                   _gauss(t, 5e-6, 2e-6, -0.6)]) + rng.normal(0, 0.01, (2, M))
+    sigma = np.array([0.01, 0.01])
+    for smooth in (1, 5):
+        lobes, smoothed = _lobes.smoothed_lobes(x, sigma, smooth=smooth)
+        plain = _lobes.find_lobes(x, sigma, smooth=smooth)
+        for name in ("row", "start", "stop", "peak_col", "peak", "sign", "after_valley"):
+            assert getattr(lobes, name).tolist() == getattr(plain, name).tolist()
+        expected = x if smooth == 1 else ndimage.uniform_filter1d(x, smooth, axis=1,
+                                                                   mode="nearest")
+        assert smoothed.tobytes() == expected.tobytes()
+    assert len(lobes) >= 3
+
+
+def test_gap_means_are_within_their_bound_of_the_exact_mean():
+    """The gap means that decide ``bridged``: the running sums' (features._riding.
+    _gap_means) and the direct sums' (_gap_means_fast) both lie within the bound the
+    latter returns of the exactly rounded mean (math.fsum), on rows with a dynamic range
+    of 1e6 (invented rows), so a comparison beyond twice the bound is the same."""
+    import math
+
+    from features._riding import _gap_means, _gap_means_fast
+
+    rng = np.random.default_rng(12)
+    e = rng.normal(size=(6, 5000))
+    e[rng.random(e.shape) < 0.01] *= 1e6                  # spikes: large prefix sums
+    r = np.array([0, 0, 2, 3, 5, 5])
+    a = np.array([10, 3000, 0, 4998, 100, 200])
+    b = np.array([20, 4990, 4999, 4999, 101, 4000])
+    exact = np.array([math.fsum(e[i, x:y]) / (y - x) for i, x, y in zip(r, a, b)])
+    fast, tol = _gap_means_fast(e, r, a, b)
+    assert (tol > 0).all()
+    assert (np.abs(fast - exact) <= tol).all()
+    assert (np.abs(_gap_means(e, r, a, b) - exact) <= tol).all()
+
 def _rc_gauss(t, t0, width_s, amp, tau_s):
     """A Gaussian pulse seen through a first-order RC high-pass of time constant tau_s
     (a fast antenna): g(t) - (1/tau) int g(t') exp(-(t - t')/tau) dt', the integral an
@@ -339,3 +385,33 @@ def test_trigger_on_the_tail_of_an_earlier_pulse_catalogues_nothing():
     table, merged, lobe_pulse = pulses.group_pulses(lobes, FS)
     own = pulses.catalogued_pulse(table, merged, lobe_pulse, 2, PRE * FS, FS)
     assert own[0] == -1 and own[1] >= 0
+
+
+def test_two_half_slope_of_whole_blocks_is_the_medians_slope():
+    """A baseline stretch that is the whole block in every row (one stop for all rows):
+    the slope is (median of the second half - median of the first) / (distance of their
+    centres), numpy.nanmedian row by row, kept where it exceeds SLOPE_SIGNIFICANCE
+    standard errors, sqrt(2 pi / L) sigma / (c2 - c1) (the rule of features._lobes;
+    invented quantised rows, one holding NaN)."""
+    from features import _lobes
+
+    rng = np.random.default_rng(13)
+    n, width = 9, 800
+    cols = np.arange(width)
+    block = np.round(rng.normal(size=(n, width)) * 0.8 + np.outer(rng.normal(size=n) * 0.01,
+                                                                     cols))
+    block[4, 100:110] = np.nan
+    start = np.full(n, 1000)
+    length = np.full(n, width)
+    sigma = np.full(n, 0.8)
+    slope = _lobes._two_half_slope(block, np.ones((n, width), bool), start, length, sigma,
+                                   np.ones(n, bool))
+    half = width // 2
+    m1 = np.nanmedian(block[:, :half], axis=1)
+    m2 = np.nanmedian(block[:, half:], axis=1)
+    dc = half + (width - half - 1) / 2.0 - (half - 1) / 2.0
+    raw = (m2 - m1) / dc
+    se = np.sqrt(2 * np.pi / width) * sigma / dc
+    expected = np.where(np.abs(raw) > _lobes.SLOPE_SIGNIFICANCE * se, raw, 0.0)
+    assert (expected != 0).any() and (expected == 0).any()
+    assert_allclose(slope, expected, rtol=0, atol=0)

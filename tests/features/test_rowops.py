@@ -106,3 +106,62 @@ def test_moving_average_rows_is_the_centred_mean(width):
         lo = (kk - 1) // 2
         expected = [y[i, max(j - lo, 0):min(j - lo + kk, width)].mean() for j in range(width)]
         np.testing.assert_allclose(out[i], expected, rtol=1e-12, atol=1e-12)
+
+
+def test_moving_average_rows_from_a_given_running_sum():
+    """With its running sum passed in (cumsum_rows, which is numpy.cumsum after a 0
+    column), the moving average is the same numbers bit for bit, and still the plain
+    mean of each window (invented rows, every window length from 1 to past the row)."""
+    from features._rowops import cumsum_rows, moving_average_rows
+
+    rng = np.random.default_rng(3)
+    y = rng.normal(size=(12, 40))
+    y[::4] = np.round(y[::4] * 2) / 2                  # quantised rows
+    c = cumsum_rows(y)
+    assert_array_equal(c[:, 1:], np.cumsum(y, axis=1))
+    assert_array_equal(c[:, 0], 0.0)
+    k = np.array([1, 2, 3, 4, 5, 9, 10, 17, 39, 40, 41, 3])
+    out = moving_average_rows(y, k, cumsum=c)
+    assert out.tobytes() == moving_average_rows(y, k).tobytes()
+    rows = np.array([7, 2, 9])                         # a subset with its sums' rows
+    assert (moving_average_rows(y[rows], k[rows], cumsum=c[rows]).tobytes()
+            == out[rows].tobytes())
+    for i, kk in enumerate(np.clip(k, 1, 40)):
+        lo = (kk - 1) // 2
+        expected = [y[i, max(j - lo, 0):min(j - lo + kk, 40)].mean() for j in range(40)]
+        np.testing.assert_allclose(out[i], expected, rtol=1e-12, atol=1e-12)
+
+
+def test_median_rows_without_the_sign_of_zero_is_numpy_median():
+    """signed_zero=False: numpy.median's values (a 0 of either sign), on quantised rows
+    holding many 0.0 and -0.0 samples."""
+    rng = np.random.default_rng(4)
+    a = np.round(rng.normal(size=(60, 200)) * 0.6)    # -0.0 where a small value rounds
+    assert (np.signbit(a) & (a == 0)).any()
+    expected = np.median(a, axis=1)
+    assert (expected == 0).sum() > 10
+    assert_array_equal(median_rows(a, signed_zero=False), expected)
+    assert_array_equal(nanmedian_rows(a, signed_zero=False), expected)
+    b = a.copy()
+    b[::5, ::7] = np.nan
+    assert_array_equal(nanmedian_rows(b, signed_zero=False), np.nanmedian(b, axis=1))
+
+
+def test_running_sum_is_numpy_cumsum():
+    """running_sum packs rows in pairs (a complex running sum): numpy.cumsum's numbers
+    bit for bit, signed zeros, infinities and NaN included, for even and odd row counts
+    and rows too few or too short to pair (invented rows)."""
+    from features._rowops import running_sum
+
+    rng = np.random.default_rng(6)
+    for n, w in ((9, 100), (10, 300), (3, 500), (40, 20), (0, 80), (12, 0)):
+        y = rng.normal(size=(n, w)) * 10.0 ** rng.uniform(-6, 6, size=(n, 1))
+        y[rng.random(y.shape) < 0.05] = -0.0
+        y[rng.random(y.shape) < 0.01] = np.inf
+        y[rng.random(y.shape) < 0.01] = np.nan
+        out = np.empty((n, w))
+        with np.errstate(invalid="ignore"):
+            expected = np.cumsum(y, axis=1)
+            got = running_sum(y, out)
+        assert got is out
+        assert out.tobytes() == expected.tobytes()
