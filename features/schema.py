@@ -307,13 +307,11 @@ FEATURES: tuple[Feature, ...] = (
             "end of a unipolar pulse), from the three-term inversion of the field of an "
             "elevated source (solved exactly close under it, D < sqrt(2) H; radiation-only "
             "with the D^2/R^3 geometry where a farther one does not converge); + = "
-            "upward-directed current; NaN without range and for a field at full scale close "
-            "under the source (where the radiation term does not lead the peak)", "field",
+            "upward-directed current; NaN without range", "field",
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "
-            "overshoot lobe (or of the pulse), same inversion; NaN without range, below "
-            "20 dB SNR (onset and tail lost in the noise) and as the current moment at "
-            "full scale", "field",
+            "overshoot lobe (or of the pulse), same inversion; NaN without range and below "
+            "20 dB SNR (onset and tail lost in the noise)", "field",
             requires=frozenset({"range"}),
             tolerance=Tolerance(rel=0.20, sigma=2, bound="field_censored")),
     Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 (R^3 / D^2) "

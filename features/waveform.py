@@ -633,17 +633,15 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         "width_s": width,
         "bipolarity": bipolarity,
         # (close under the source a field at full scale has lost part of the electrostatic
-        # and induction terms the inversion needs: its moments and radiation term are
-        # not even bounds)
+        # and induction terms the inversion needs: its radiation term is not even a bound)
         "range_normalized_peak_v_per_m": np.where(censored & ~radiating, np.nan,
                                                   radiated_v_per_m),
-        "current_moment_peak_a_m": np.where(censored & ~radiating, np.nan, current_moment),
+        "current_moment_peak_a_m": current_moment,
         # Q integrates from the onset, lost in the noise below 20 dB (the rule of the
         # initial half-cycle), to the end of the overshoot's tail, lost sooner still: an
         # integral cut short there is a wrong number, not a smaller one
-        "charge_moment_change_c_m": np.where((peak >= MIN_PEAK_SIGMA_RISE * sigma_res)
-                                             & ~(censored & ~radiating), charge_moment,
-                                             np.nan),
+        "charge_moment_change_c_m": np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma_res,
+                                             charge_moment, np.nan),
         "peak_current_a": np.where(censored & ~radiating, np.nan, current_a),
         "pulse_start_s": tm(onset),
         # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
