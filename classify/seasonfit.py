@@ -70,12 +70,13 @@ def confident_rows(d) -> np.ndarray:
 
 
 def close_under_source(table) -> np.ndarray:
-    """Pulses whose peak the radiation geometry cannot scale: range known, the
-    range-normalised peak NaN (:func:`features.moments.radiation_led`).
+    """Pulses close under their source whose radiation term is not measured: range known,
+    the range-normalised peak NaN (the radiation term within its noise, or the field at
+    full scale; :mod:`features.waveform`).
 
-    Their field is mostly the electrostatic and induction terms, whose shape and sign
-    differ from the radiation field a model sees at the usual distances, so a trained
-    model's confidence there is an extrapolation: they are not anchors of a season fit.
+    Their field is the electrostatic and induction terms, whose shape and sign differ
+    from the radiation field a model sees at the usual distances, so a trained model's
+    confidence there is an extrapolation: they are not anchors of a season fit.
     """
     n = len(table)
     if "range_m" not in table or "range_normalized_peak_v_per_m" not in table:

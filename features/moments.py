@@ -351,7 +351,8 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
     return c0, m, q, converged
 
 
-def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
+def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, *,
+               peak_rate=False):
     """The current moment at one column and the charge moment change at the end, per row.
 
     The inversion of :func:`invert_moments`, integrating each row only over its own
@@ -370,6 +371,9 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
         wanted (linear interpolation between samples).
     range_m, altitude_m : ndarray, shape (n,)
         Horizontal distance D and source height H, m.
+    peak_rate : bool or ndarray of bool, shape (n,), default=False
+        Also return the current moment's rate of change where it is largest between
+        ``start`` and ``at`` (for every row, or for the rows marked).
 
     Returns
     -------
@@ -379,13 +383,20 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
         Q at ``stop``, C m.
     converged : ndarray of bool, shape (n,)
         As in :func:`invert_moments`.
+    rate_a_m_per_s : ndarray, shape (n,)
+        Only with ``peak_rate``: dM/dt of largest magnitude (signed) on the samples from
+        the onset to ``at``, from the field's radiation term, ``(E - a1 M - a0 Q) / a2``,
+        A m/s (NaN in rows not marked); its noise is the field's times
+        2 pi eps0 c^2 R^3 / D^2.
     """
     e, dt, (a0, a1, a2), usable, ok, small, j_on, first, last, after = _prepare(
         e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m)
     n, w = e.shape
     at = np.asarray(at, dtype=np.float64)
+    want = np.broadcast_to(np.asarray(peak_rate, dtype=bool), (n,))
     cur = np.full(n, np.nan)
     chg = np.full(n, np.nan)
+    rate = np.full(n, np.nan)
     converged = usable.copy()
     todo = ok & usable & (w > 0)
     # window widths, grouped by powers of two (at least 64 columns)
@@ -401,7 +412,28 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m):
         converged[rows] = conv
         cur[rows] = _interp_window(m, at[rows], first[rows], w)
         chg[rows] = _interp_window(q, stop[rows], first[rows], w)
-    return cur, chg, converged
+        k = np.flatnonzero(want[rows])
+        if k.size:
+            rk = rows[k]
+            # (not within the anti-causal reach of the last column read: the field
+            # after it is unknown there)
+            last_on = on[k].shape[1] - 1 - np.argmax(on[k][:, ::-1], axis=1)
+            limit = np.minimum(own_end[k] + 1 + after[rk], last_on) - after[rk]
+            rate[rk] = _peak_rate(src[k], m[k], q[k], on[k], a0[rk], a1[rk], a2[rk],
+                                  np.fmin(at[rk] - first[rk], limit))
+    return (cur, chg, converged, rate) if peak_rate is not False else (cur, chg, converged)
+
+
+def _peak_rate(src, m, q, on, a0, a1, a2, at_col):
+    """dM/dt = (E - a1 M - a0 Q) / a2 of largest magnitude from the onset to ``at_col``."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = (src - a1[:, None] * m - a0[:, None] * q) / a2[:, None]
+    cols = np.arange(src.shape[1])[None, :]
+    r = np.where(on & (cols <= np.nan_to_num(at_col, nan=-1.0)[:, None]) & np.isfinite(r),
+                 r, 0.0)
+    j = np.argmax(np.abs(r), axis=1)
+    out = r[np.arange(len(r)), j]
+    return np.where(np.isfinite(at_col), out, np.nan)
 
 
 def _interp_window(values, x, first, n_cols):

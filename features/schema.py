@@ -297,9 +297,11 @@ FEATURES: tuple[Feature, ...] = (
             "scale", "field", tolerance=Tolerance(value=0.08)),
     Feature("range_normalized_peak_v_per_m", "V/m", "peak scaled to a ground-level source at "
             "100 km with the elevated-source geometry: x (R^3 / D^2) / 100 km, R = "
-            "sqrt(D^2 + H^2); NaN without range and close under the source, where the "
-            "radiation term does not lead the peak 5 to 1 (D^2 R < 5 c T (2 H^2 - D^2), T "
-            "from onset to peak)", "field",
+            "sqrt(D^2 + H^2); close under the source, where the radiation term does not "
+            "lead the peak 5 to 1 (D^2 R < 5 c T (2 H^2 - D^2), T from onset to peak), the "
+            "radiation term's own peak instead: -max dM/dt / (2 pi eps0 c^2 100 km) from "
+            "the exact inversion, NaN within 5 x its noise or at full scale; NaN without "
+            "range", "field",
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("current_moment_peak_a_m", "A m", "current moment M at the zero crossing (or the "
             "end of a unipolar pulse), from the three-term inversion of the field of an "
@@ -313,8 +315,8 @@ FEATURES: tuple[Feature, ...] = (
             requires=frozenset({"range"}),
             tolerance=Tolerance(rel=0.20, sigma=2, bound="field_censored")),
     Feature("peak_current_a", "A", "transmission-line estimate I = -2 pi eps0 c^2 (R^3 / D^2) "
-            "E / v with v = 1.5e8 m/s; + = upward-directed current; NaN without range and "
-            "where the radiation term does not lead the peak (as range_normalized_peak)",
+            "E / v with v = 1.5e8 m/s (close under the source max dM/dt / v, as "
+            "range_normalized_peak); + = upward-directed current; NaN without range",
             "field", requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("pulse_start_s", "s", "the pulse's onset: physical time relative to the trigger",
             "field", model=False, tolerance=_INSTANT),

@@ -133,6 +133,10 @@ PEAK_SEARCH_S = (-3e-6, 40e-6)
 LOCAL_BASELINE_S = 5e-6
 #: The first baseline stretch ends this long before the trigger, s.
 TRIGGER_GUARD_S = 3e-6
+#: Close under the source, the radiation term's peak (dM/dt of the exact inversion) is
+#: kept where it stands this many times above its noise (the most a row's noise reaches
+#: over a few hundred samples is ~4 sigma; common practice, no source).
+RATE_SIGMAS = 5.0
 #: Transmission-line return-stroke speed assumed for ``peak_current_a``, m/s.
 #: Half the speed of light: the middle of measured return-stroke speeds
 #: (about c/3 to 2c/3; Rakov & Uman 2003, ch. 4; from memory).
@@ -523,14 +527,24 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     known = np.isfinite(alt_given) & (alt_given >= 0)
     altitude = np.where(known, alt_given, DEFAULT_ALTITUDE_M)
     altitude_assumed = ~known
-    current_moment, charge_moment, converged = moments_at(
+    # the radiation geometry scales the peak only where the radiation term leads it;
+    # closer under the source the peak is mostly the electrostatic and induction terms,
+    # and the radiation term's own peak, dM/dt of the exact inversion, is scaled instead
+    # (NaN where it is within RATE_SIGMAS of its noise, the field's x 1/|a2|)
+    radiating = radiation_led(rng, altitude, (s_frac - onset) * dt)
+    current_moment, charge_moment, converged, rate = moments_at(
         e, fs, np.where(ok, onset, np.nan), np.where(ok, pulse_end, np.nan),
-        np.where(has_zc, zc, pulse_end), rng, altitude)
-    # the radiation geometry scales the peak only where the radiation term leads it
-    geometry = np.where(radiation_led(rng, altitude, (s_frac - onset) * dt),
-                        geometry_factor_m(rng, altitude), np.nan)
-    peak_signed = polarity * peak
+        np.where(has_zc, zc, pulse_end), rng, altitude,
+        peak_rate=~radiating & np.isfinite(rng))
+    geometry = geometry_factor_m(rng, altitude)
     k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry
+    peak_signed = polarity * peak
+    rate = np.where(np.abs(rate) >= RATE_SIGMAS * k_rad * sigma, rate, np.nan)
+    radiated_v_per_m = np.where(
+        radiating, peak_signed * geometry / REFERENCE_RANGE_M,
+        -rate / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * REFERENCE_RANGE_M))
+    current_a = np.where(radiating, -k_rad * peak_signed / tl_speed_m_per_s,
+                         rate / tl_speed_m_per_s)
     with np.errstate(divide="ignore", invalid="ignore"):
         snr = 20 * np.log10(peak / sigma)
     snr = np.where(np.isfinite(snr), np.minimum(snr, SNR_CAP_DB),
@@ -618,14 +632,17 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
                                     (zc - s_frac) * dt, np.nan),
         "width_s": width,
         "bipolarity": bipolarity,
-        "range_normalized_peak_v_per_m": peak_signed * geometry / REFERENCE_RANGE_M,
+        # (close under the source a field at full scale has lost part of the electrostatic
+        # and induction terms the inversion needs: its radiation term is not even a bound)
+        "range_normalized_peak_v_per_m": np.where(censored & ~radiating, np.nan,
+                                                  radiated_v_per_m),
         "current_moment_peak_a_m": current_moment,
         # Q integrates from the onset, lost in the noise below 20 dB (the rule of the
         # initial half-cycle), to the end of the overshoot's tail, lost sooner still: an
         # integral cut short there is a wrong number, not a smaller one
         "charge_moment_change_c_m": np.where(peak >= MIN_PEAK_SIGMA_RISE * sigma_res,
                                              charge_moment, np.nan),
-        "peak_current_a": -k_rad * peak_signed / tl_speed_m_per_s,
+        "peak_current_a": np.where(censored & ~radiating, np.nan, current_a),
         "pulse_start_s": tm(onset),
         # the end of an overshoot's tail is resolved where the tail copy's level is 1 % of
         # P; where its noise holds the level above that, the end is the noise's: NaN; so

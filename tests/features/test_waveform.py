@@ -170,22 +170,41 @@ def test_elevated_nbe_seen_from_close_by():
     assert out["near_field"][0]
 
 
-def test_close_under_the_source_the_radiation_scalings_are_nan():
+def test_close_under_the_source_the_radiation_term_is_scaled_not_the_peak():
     """A source 9 km up seen from 1.8 km: the induction term cancels much of the radiation
     term at the peak (Uman, McLain & Krider 1975; from memory; the peak scaled by R^3/D^2
     reads half the true value here), so the range-normalised peak and the
-    transmission-line current are NaN rather than wrong. Seen from 7 km the radiation
-    term leads and the range-normalised peak is the radiation field of the same dM/dt at
-    100 km, -max(dM/dt) / (2 pi eps0 c^2 100 km), within 10 %."""
+    transmission-line current come from the radiation term itself, dM/dt of the exact
+    inversion. Seen from 1.8 km and from 7 km (where the peak is scaled) both give the
+    radiation field of the same dM/dt at 100 km, -max(dM/dt) / (2 pi eps0 c^2 100 km),
+    within 10 %, and the TL current max(dM/dt) / v."""
     m0, tau, h = 1.0e8, 1.5e-6, 9e3
     y = 2 - np.sqrt(2)                         # where dM/dt of _three_term_field's M peaks
     dmdt_max = m0 * np.e ** 2 / 4 / tau * (2 * y - y * y) * np.exp(-y)
     e100 = -dmdt_max / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * 100e3)
-    for d, kept in ((1.8e3, False), (7e3, True)):
+    for d in (1.8e3, 7e3):
         e = _three_term_field(_t(), m0, tau, d, h)
         out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]),
                              altitude_m=np.array([h]))
         assert out["near_field"][0] and out["moments_converged"][0]
+        assert_allclose(out["range_normalized_peak_v_per_m"][0], e100, rtol=0.10)
+        assert_allclose(out["peak_current_a"][0], dmdt_max / TL_SPEED_M_PER_S, rtol=0.10)
+
+
+def test_right_under_the_source_the_radiation_term_is_kept_above_its_noise_only():
+    """The same source right overhead (400 m): its radiation term at the station is
+    ~(D/R)^2 of the far-field one. With noise of 0.1 % of the peak it still gives the
+    100 km radiation field within 10 %; with 2 % it is within its noise, and the scaled
+    values are NaN rather than noise (the moments stay: test_moments.py)."""
+    m0, tau, d, h = 1.0e8, 1.5e-6, 400.0, 9e3
+    y = 2 - np.sqrt(2)
+    dmdt_max = m0 * np.e ** 2 / 4 / tau * (2 * y - y * y) * np.exp(-y)
+    e100 = -dmdt_max / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * 100e3)
+    clean = _three_term_field(_t(), m0, tau, d, h)
+    noise = np.abs(clean).max() * np.random.default_rng(3).normal(size=clean.size)
+    for level, kept in ((1e-3, True), (0.02, False)):
+        out = field_features((clean + level * noise)[None], FS, pretrigger_s=PRE,
+                             range_m=np.array([d]), altitude_m=np.array([h]))
         assert np.isfinite(out["range_normalized_peak_v_per_m"][0]) == kept
         assert np.isfinite(out["peak_current_a"][0]) == kept
         if kept:
