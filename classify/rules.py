@@ -21,8 +21,9 @@ the cataloguing practice:
   dB above the season's 25th percentile of ``vhf_snr_db``), not to a receiver's noise
   floor;
 * range-normalised amplitudes and transmission-line currents (physical units) where the
-  range is known; close under the source, where the radiation geometry cannot scale the
-  peak (those two are NaN), the current moment of the three-term inversion instead;
+  range is known; close under the source, where the radiation term is not measured
+  (those two are NaN: within its noise, or a field at full scale), the current moment
+  of the three-term inversion instead;
 * mapped speeds only when significant (``speed_snr`` >= 3), else unknown;
 * no shape criterion (half-cycle, zero crossing, bipolarity) in the near field (range
   under 5 x the source height), where the electrostatic and induction terms make a
@@ -163,8 +164,9 @@ def _get(df, reference):
     f["speed"] = np.where(sig, f["speed_m_per_s"], np.nan)
     f["current"] = np.abs(f["peak_current_a"])
     f["norm_peak"] = np.abs(f["range_normalized_peak_v_per_m"])
-    # close under the source the peak cannot be scaled by the radiation geometry (both
-    # NaN there): the size is the current moment of the exact three-term inversion
+    # close under the source where the radiation term is not measured (both NaN there:
+    # within its noise, or a field at full scale) the size is the current moment of the
+    # exact three-term inversion
     scaled = np.isfinite(f["current"]) | np.isfinite(f["norm_peak"])
     f["moment"] = np.where(scaled, np.nan, np.abs(f["current_moment_peak_a_m"]))
     nb = f["neighbours_before"] + f["neighbours_after"]

@@ -537,12 +537,11 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
         np.where(has_zc, zc, pulse_end), rng, altitude,
         peak_rate=~radiating & np.isfinite(rng))
     geometry = geometry_factor_m(rng, altitude)
-    k_rad = 2 * np.pi * constants.epsilon_0 * constants.c ** 2 * geometry
+    k_rad = moment_factor_a_per_v(geometry)
     peak_signed = polarity * peak
     rate = np.where(np.abs(rate) >= RATE_SIGMAS * k_rad * sigma, rate, np.nan)
-    radiated_v_per_m = np.where(
-        radiating, peak_signed * geometry / REFERENCE_RANGE_M,
-        -rate / (2 * np.pi * constants.epsilon_0 * constants.c ** 2 * REFERENCE_RANGE_M))
+    radiated_v_per_m = np.where(radiating, peak_signed * geometry / REFERENCE_RANGE_M,
+                                -rate / moment_factor_a_per_v(REFERENCE_RANGE_M))
     current_a = np.where(radiating, -k_rad * peak_signed / tl_speed_m_per_s,
                          rate / tl_speed_m_per_s)
     with np.errstate(divide="ignore", invalid="ignore"):
