@@ -52,12 +52,16 @@ MAX_ELEVATION_DEG = 89.9
 #: ``motion_elevation_deg`` is claimed where the 95 % half-width of the direction is at
 #: most this, degrees (our choice: a direction known no better is not a direction).
 MOTION_DIRECTION_HALF_WIDTH_DEG = 10.0
-#: ``net_to_path`` is claimed where the mean squared step between sources is at least
-#: this many times what the position noise adds to it, ``2 d sigma^2`` in d dimensions
-#: (sigma: its upper 95 % bound from the track itself).
-#: A step of length L with noise then reads about ``L (1 + (d - 1) sigma^2 / L^2)``
-#: long (Rice 1945 at high signal-to-noise), 5 % long at this limit in 2-D (our choice).
-MIN_STEP_TO_NOISE = 5.0
+#: ``net_to_path`` is claimed where the length the position noise adds to the track's
+#: path, summed step by step, is at most this share of the path. A step of true length
+#: L with noise of variance sigma^2 per axis per position reads on average
+#: ``L + (d - 1) sigma^2 / L`` long in d dimensions (Rice 1945 at high signal-to-noise;
+#: the step's noise is 2 sigma^2 per axis), with L estimated from the step's squared
+#: length less the ``2 d sigma^2`` noise adds to it, and a step not longer than that
+#: counted as noise whole (sigma: its upper 95 % bound from the track itself). Summing
+#: step by step, not over the mean squared step, keeps a track of one long jump and
+#: several noise-sized steps from being claimed (our choice: 5 %).
+MAX_PATH_NOISE_SHARE = 0.05
 
 #: Columns returned by :func:`source_features`, in schema order.
 COLUMNS = ("n_sources", "speed_m_per_s", "speed_se_m_per_s", "speed_snr",
@@ -193,9 +197,9 @@ def _net_to_path(pos, g, n, noise_var):
     """Net displacement over path length of each group's time-ordered track.
 
     ``noise_var`` (n,) bounds each position's noise variance per axis (units of ``pos``
-    squared); a track is claimed (else NaN) only where its mean squared step is at least
-    :data:`MIN_STEP_TO_NOISE` times the ``2 d sigma^2`` that noise adds to a step in d
-    dimensions (path lengths of noise-dominated tracks are sums of noise).
+    squared); a track is claimed (else NaN) only where the length noise adds to its path
+    is at most :data:`MAX_PATH_NOISE_SHARE` of it (path lengths of noise-dominated
+    tracks are sums of noise).
     """
     valid = np.isfinite(pos).all(axis=1)
     pos, g = pos[valid], g[valid]
@@ -203,20 +207,24 @@ def _net_to_path(pos, g, n, noise_var):
     out = np.full(n, np.nan)
     if len(g) == 0:
         return out
+    dim = pos.shape[1]
     d2 = (np.diff(pos, axis=0) ** 2).sum(axis=1)
     step = np.sqrt(d2)
     same = g[1:] == g[:-1]
-    path = np.bincount(g[1:][same], step[same], minlength=n)
-    mean_d2 = np.bincount(g[1:][same], d2[same], minlength=n) / np.maximum(counts - 1, 1)
+    gs, d2s, steps = g[1:][same], d2[same], step[same]
+    path = np.bincount(gs, steps, minlength=n)
+    var = noise_var[gs]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        true2 = d2s - 2.0 * dim * var
+        added = np.where(true2 > 0, (dim - 1) * var / np.sqrt(true2), steps)
+    added = np.bincount(gs, np.where(np.isnan(added), np.inf, added), minlength=n)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
     with np.errstate(invalid="ignore"):
-        clear = mean_d2 >= MIN_STEP_TO_NOISE * 2.0 * pos.shape[1] * noise_var
-    has = (counts >= MIN_SOURCES_FOR_SPEED) & clear
+        clear = added <= MAX_PATH_NOISE_SHARE * path
+    has = (counts >= MIN_SOURCES_FOR_SPEED) & clear & (path > 0)
     first = pos[starts[has]]
     last = pos[starts[has] + counts[has] - 1]
-    net = np.sqrt(((last - first) ** 2).sum(axis=1))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out[has] = np.where(path[has] > 0, net / path[has], np.nan)
+    out[has] = np.sqrt(((last - first) ** 2).sum(axis=1)) / path[has]
     return out
 
 

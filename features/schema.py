@@ -70,8 +70,11 @@ __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "TRUTHS", "Tolerance", "VHF_
            "feature_names", "model_feature_names", "missing_groups",
            "numeric_feature_names", "format_table"]
 
-#: Bump when a definition changes in a way that changes values.
-SCHEMA_VERSION = "2.0"
+#: Bump when a definition changes in a way that changes values. 2.1: moments, peak
+#: current and range-normalised peak of sources close under the station from the exact
+#: three-term inversion and its radiation term; ``net_to_path`` claimed by the noise its
+#: path carries step by step.
+SCHEMA_VERSION = "2.1"
 
 
 #: Length of one VHF envelope bin, s (as ``features.vhf.VHF_BIN_S``).
@@ -457,9 +460,10 @@ FEATURES: tuple[Feature, ...] = (
                                 of="angular_rate_deg_per_s")),
     Feature("net_to_path", "1", "net displacement / path length of the time-ordered source "
             "track on the sky (1 = straight, near 0 = back and forth); angles only, so the "
-            "same with or without xyz; NaN unless the mean squared step between sources is "
-            ">= 5 x the 4 sigma^2 the angle noise adds to it (sigma: upper 95 % bound from each "
-            "source's offset to its neighbours' chord): noise alone makes a track look crooked",
+            "same with or without xyz; NaN unless the length the angle noise adds to the path, "
+            "step by step ((d - 1) sigma^2 / L for a step of length L, a step within the noise "
+            "whole), is <= 5 % of it (sigma: upper 95 % bound from each source's offset to "
+            "its neighbours' chord): noise alone makes a track look crooked",
             "mapping",
             requires=frozenset({"sources"}), tolerance=Tolerance(value=0.10)),
     Feature("altitude_m", "m", "median source altitude above the curved Earth: from xyz, "
