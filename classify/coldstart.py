@@ -155,7 +155,8 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     from .models import PulseClassifier
 
     names = schema.model_feature_names()
-    X = frame[names]
+    X = frame[names].astype(np.float64)
+    schema.mask_unusable_field(X, usable)
     groups = _flash_groups(cat)
     a_rows, a_labels = _anchors(store, cat, n)
     anchors_text = f"{a_rows.size:,} analysts' labels as anchors"
@@ -229,8 +230,11 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
             + (f" ({anchors_text})" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
+    from .predict import classifiable
+
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,
             "novelty": model.novelty_score(X), "novelty_threshold": float(
-                model.novelty_threshold_), "usable": usable, "coverage": coverage,
+                model.novelty_threshold_), "usable": usable,
+            "placeable": classifiable(frame), "coverage": coverage,
             "version": f"self-trained from {rules.RULES_VERSION}", "adaptation": note,
             "other": other}

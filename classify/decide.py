@@ -21,8 +21,10 @@ the results (``review_why``):
     any other (the strongest VHF emitters saturate receivers set sensitive enough for
     everything else: saturation is normal);
 ``field_unusable``
-    there is no usable field record (most of it missing, or no pulse above 3 sigma): its
-    set is empty and it has no class;
+    there is no usable field record (pinned at full scale, most of it missing, or no
+    pulse above 3 sigma) and no VHF record or mapped sources to go on: its set is empty
+    and it has no class (a pulse with VHF or sources but no usable field record is
+    classified from them, :func:`classify.predict.classifiable`);
 ``other``
     (cold start) it fits none of the classes the rules know.
 
@@ -46,8 +48,9 @@ REVIEW_REASONS = {
     "novel": "unlike every labelled pulse the model learned from",
     "censored_decision": "a channel reached full scale and the class depends on how strong "
                          "the pulse really was",
-    "field_unusable": "no usable field record (most of it missing, or no pulse above the "
-                      "noise): no class is given",
+    "field_unusable": "no usable field record (pinned at full scale, most of it missing, "
+                      "or no pulse above the noise) and no VHF or sources to go on: no class "
+                      "is given",
     "other": "it fits none of the classes the rules know (a return stroke, an initial-"
              "breakdown pulse, a noise trigger...)",
 }
@@ -108,7 +111,8 @@ def decide(classes, proba, sets, *, usable, review_below, coverage, novelty=None
         Conformal prediction sets; a usable record's set is completed with its most
         probable class, an unusable record's set is emptied.
     usable : ndarray of bool, shape (n,)
-        The field record is usable (``field_ok``).
+        The pulse can be placed: a usable field record, or VHF or sources to go on
+        (:func:`classify.predict.classifiable`).
     review_below : float
         Confidence below which a pulse goes to review.
     coverage : float
@@ -187,7 +191,7 @@ def decide(classes, proba, sets, *, usable, review_below, coverage, novelty=None
                                  f"recorded, the confidence would fall below "
                                  f"{review_below:.2f}")
             elif code == "field_unusable":
-                parts.append("no usable field record: no class is given")
+                parts.append("no usable field record and no VHF or sources: no class is given")
             elif code == "other":
                 parts.append("fits none of the classes the rules know")
         why[i] = "; ".join(parts)

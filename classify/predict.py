@@ -118,6 +118,18 @@ def model_inputs(model, features: pd.DataFrame) -> pd.DataFrame:
     return select_columns(features, names).astype(np.float64)
 
 
+def classifiable(features: pd.DataFrame) -> np.ndarray:
+    """Pulses a model can place: a usable field record (``field_ok``), or, where the
+    field record is not usable (pinned at full scale, mostly missing), a VHF record
+    (``has_vhf``) or mapped sources (``n_sources``) to go on. The others get an empty
+    prediction set and no class (review reason ``field_unusable``).
+    """
+    n = len(features)
+    sources = (np.nan_to_num(features["n_sources"].to_numpy(dtype=np.float64)) > 0
+               if "n_sources" in features.columns else np.zeros(n, dtype=bool))
+    return schema.field_usable(features) | _flag(features, "has_vhf") | sources
+
+
 def _flag(features: pd.DataFrame, name: str) -> np.ndarray:
     """A boolean column of a features or results table (absent: all False)."""
     if name not in features.columns:
@@ -185,6 +197,7 @@ def predict_features(model, features: pd.DataFrame, *, relax: bool = True,
     True
     """
     X = model_inputs(model, features)
+    schema.mask_unusable_field(X, schema.field_usable(features))
     proba = np.asarray(model.predict_proba(X), dtype=np.float64)
     relaxed = proba.copy()
     if relax:
@@ -203,7 +216,7 @@ def predict_features(model, features: pd.DataFrame, *, relax: bool = True,
 def season_decisions(model, predicted: dict, usable, *, version: str,
                      features: pd.DataFrame | Callable[[], pd.DataFrame] | None = None,
                      adapt_priors: bool = False, adapt_sets: bool = True,
-                     coverage: float | None = None) -> dict:
+                     coverage: float | None = None, placeable=None) -> dict:
     """Adapt a season's predictions to the season: the input of :func:`decision_table`.
 
     Parameters
@@ -230,13 +243,17 @@ def season_decisions(model, predicted: dict, usable, *, version: str,
         (:func:`classify.conformal.season_thresholds`); False keeps the training ones.
     coverage : float, optional
         Target coverage of the sets (default: the model's).
+    placeable : ndarray of bool, shape (n,), optional
+        Pulses the model can place (:func:`classifiable`; default: ``usable``): the
+        others get an empty set.
 
     Returns
     -------
     dict
         ``classes``, ``proba``, ``relaxed``, ``sets`` (bool (n, k)), ``novelty``,
-        ``novelty_threshold``, ``usable``, ``coverage``, ``version``, ``adaptation`` (in
-        words), ``other`` (None), ``priors`` (class -> estimated share, or None).
+        ``novelty_threshold``, ``usable``, ``placeable``, ``coverage``, ``version``,
+        ``adaptation`` (in words), ``other`` (None), ``priors`` (class -> estimated
+        share, or None).
     """
     usable = np.asarray(usable, dtype=bool)
     proba, relaxed = predicted["proba"], predicted["relaxed"]
@@ -264,6 +281,7 @@ def season_decisions(model, predicted: dict, usable, *, version: str,
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,
             "novelty": predicted["novelty"],
             "novelty_threshold": float(model.novelty_threshold_), "usable": usable,
+            "placeable": usable if placeable is None else np.asarray(placeable, dtype=bool),
             "coverage": coverage, "version": version,
             "adaptation": "; ".join(notes) or "none", "other": None, "priors": priors}
 
@@ -301,7 +319,7 @@ def decision_table(d: dict, review_below: float, event_ids, catalog_id: str, sta
     cens_f = d["censored_f"][a:b] if "censored_f" in d else np.zeros(b - a, bool)
     channel = np.where(cens_v & cens_f, "field and VHF",
                        np.where(cens_v, "VHF", np.where(cens_f, "field", "")))
-    out = decide(d["classes"], d["proba"][a:b], d["sets"][a:b], usable=d["usable"][a:b],
+    out = decide(d["classes"], d["proba"][a:b], d["sets"][a:b], usable=d.get("placeable", d["usable"])[a:b],
                  review_below=review_below, coverage=d["coverage"],
                  novelty=d["novelty"][a:b], novelty_threshold=d["novelty_threshold"],
                  relaxed_proba=d["relaxed"][a:b], censored_channel=channel,
@@ -442,7 +460,8 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     feats = feats.reset_index(drop=True)
     pred = predict_features(est, feats)
     d = season_decisions(est, pred, _flag(feats, "field_ok"), version=version, features=feats,
-                         adapt_priors=adapt_priors, adapt_sets=adapt_sets, coverage=coverage)
+                         adapt_priors=adapt_priors, adapt_sets=adapt_sets, coverage=coverage,
+                         placeable=classifiable(feats))
     from types import SimpleNamespace
 
     from .seasonfit import fit_to_season

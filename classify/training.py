@@ -61,11 +61,30 @@ VARIANT_THINNED = 0.5
 VARIANT_KEEP_FRACTION = (0.25, 1.0)
 VARIANT_TIME_SCALED = 0.7
 VARIANT_TIME_SCALE = (0.33, 3.0)
+#: A variant's mapper, with chance VARIANT_UNMAPPED, locates none of a share of the
+#: pulses drawn uniformly in VARIANT_UNMAPPED_SHARE, whatever their class (a mapping
+#: array's detection efficiency depends on the array, the range and the storm), and with
+#: chance VARIANT_UNMAPPED_NO_RANGE their range is unknown too (ranges from the mapper
+#: itself): a model must tell a narrow bipolar event from a recoil without the sources
+#: it usually has (our choice, no source).
+VARIANT_UNMAPPED = 0.5
+VARIANT_UNMAPPED_SHARE = (0.05, 0.6)
+VARIANT_UNMAPPED_NO_RANGE = 0.5
 
 
 def _log_uniform(rng, bounds):
     lo, hi = bounds
     return float(np.exp(rng.uniform(np.log(lo), np.log(hi))))
+
+
+def _mapping(cat, rng):
+    """The catalog as a variant's mapper would have located it (:data:`VARIANT_UNMAPPED`)."""
+    from features.augment import unmapped_view
+
+    if cat.sources is None or rng.random() >= VARIANT_UNMAPPED:
+        return cat
+    drop = rng.random(cat.n_events) < rng.uniform(*VARIANT_UNMAPPED_SHARE)
+    return unmapped_view(cat, drop, drop_range=bool(rng.random() < VARIANT_UNMAPPED_NO_RANGE))
 
 
 def _practice(cat, rng):
@@ -100,7 +119,9 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
         record them (:mod:`features.augment`; each chunk of 64 pulses another station)
         and catalogue them (half the variants one record per trigger with a dead time,
         some without flash ids, half keeping only a share of the pulses, most flashes on
-        another time scale: :func:`features.augment.practice_context`), so the model
+        another time scale: :func:`features.augment.practice_context`) and map them (half
+        the variants locate none of a share of the pulses:
+        :func:`features.augment.unmapped_view`), so the model
         learns what a pulse is, not what this station's records and catalogs look like.
     seed : int, default=0
         Seed of the stations drawn.
@@ -135,8 +156,10 @@ def training_table(catalogs, store, *, station_variants=0, seed=0,
         kw = dict(feature_kwargs, chunk_size=VARIANT_CHUNK_SIZE)
         for k in range(station_variants):
             vseed = seed * 1000 + ci * 100 + k + 1
-            keep, context = _practice(cat, np.random.default_rng(vseed))
-            feats = catalog_features(cat, variant_seed=vseed, context=context, **kw)
+            rng = np.random.default_rng(vseed)
+            vcat = _mapping(cat, rng)
+            keep, context = _practice(vcat, rng)
+            feats = catalog_features(vcat, variant_seed=vseed, context=context, **kw)
             passes.append(feats[keep].reset_index(drop=True))
         for k, feats in enumerate(passes):
             t = feats.merge(labels[["event_id", "label"]], on="event_id", how="inner")

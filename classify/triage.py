@@ -40,7 +40,7 @@ from features.extract import DEFAULT_CHUNK_SIZE, _progress, compute_chunk, plan_
 from features.spill import FeatureSpill
 
 from . import coldstart
-from .predict import decision_table, predict_features, season_decisions
+from .predict import classifiable, decision_table, predict_features, season_decisions
 from .registry import load_model, verify_model_dir
 from .seasonfit import fit_to_season, season_fit_mode
 
@@ -164,11 +164,14 @@ def _model_decisions(spill, settings: TriageSettings, n_jobs, dask_address, load
     relaxed = np.vstack([r for _, r, _ in parts]) if parts else proba
     novelty = np.concatenate([v for _, _, v in parts]) if parts else np.zeros(0)
     del parts
-    usable = np.asarray(spill.numeric()[:, SPILL_COLUMNS.index("field_ok")]) > 0
+    num = spill.numeric()
+    usable = np.asarray(num[:, SPILL_COLUMNS.index("field_ok")]) > 0
+    placeable = classifiable(pd.DataFrame({c: np.asarray(num[:, SPILL_COLUMNS.index(c)])
+                                           for c in ("field_ok", "has_vhf", "n_sources")}))
     return season_decisions(
         model, {"proba": proba, "relaxed": relaxed, "novelty": novelty}, usable,
         version=card["version"], adapt_priors=settings.adapt_priors,
-        adapt_sets=settings.adapt_sets, coverage=settings.coverage,
+        adapt_sets=settings.adapt_sets, coverage=settings.coverage, placeable=placeable,
         features=lambda: pd.DataFrame(np.array(spill.numeric()), columns=list(SPILL_COLUMNS)))
 
 

@@ -305,6 +305,23 @@ class SourceTable:
         """Number of sources of each event, shape (n_events,)."""
         return np.diff(self.offsets)
 
+    def without_events(self, drop) -> SourceTable:
+        """The table with the sources of the events where ``drop`` (bool, shape
+        (n_events,)) is True left out; event rows keep their numbers."""
+        drop = np.asarray(drop, dtype=bool)
+        counts = self.counts()
+        keep = ~np.repeat(drop, counts)
+
+        def take(a):
+            return None if a is None else np.asarray(a)[keep]
+
+        return SourceTable(event_index=take(self.event_index), t_s=take(self.t_s),
+                           azimuth_deg=take(self.azimuth_deg),
+                           elevation_deg=take(self.elevation_deg), xyz_m=take(self.xyz_m),
+                           power_db=take(self.power_db),
+                           offsets=np.concatenate([[0], np.cumsum(np.where(drop, 0, counts))]
+                                                  ).astype(np.int64))
+
     def rows(self, start: int, stop: int) -> SourceTable:
         """The sources of events ``start:stop``, with ``event_index`` relative to ``start``.
 

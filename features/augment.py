@@ -27,6 +27,10 @@ Transformations, in order (each optional):
 6. **full scale**: clipped at a level that the chunk's strongest pulses reach (the peak
    becomes a lower bound, as at a station whose digitizer saturates on them);
 7. **VHF**: the noise floor raised, and a full scale the strongest VHF emitters reach.
+
+A station's mapper, too, locates only some of the pulses its fast antenna records (its
+detection efficiency depends on the array, the range and the storm):
+:func:`unmapped_view` is the catalog as a station that located none of some pulses.
 """
 
 from __future__ import annotations
@@ -43,7 +47,7 @@ from .pulses import robust_sigma_diff
 from .waveform import decay_compensate
 
 __all__ = ["StationVariant", "VARIANT_RANGES", "draw_variant", "apply_field", "apply_vhf",
-           "practice_context"]
+           "practice_context", "unmapped_view"]
 
 #: Ranges stations are drawn from (common practice for fast antennas and VHF receivers,
 #: no single source; they span the settings the catalog spec allows in use).
@@ -330,3 +334,32 @@ def practice_context(catalog, *, dead_time_s=None, drop_flash_ids=False, keep_fr
         full[rows] = val
         context[key] = full
     return keep, context
+
+
+def unmapped_view(catalog, drop, *, drop_range=False):
+    """The catalog as a station whose mapper located none of the pulses ``drop``.
+
+    Parameters
+    ----------
+    catalog : Catalog
+    drop : ndarray of bool, shape (n_events,)
+        Pulses without mapped sources in the view.
+    drop_range : bool, default=False
+        Their ``range_m`` unknown too (a station whose ranges come from its own mapper),
+        else kept (ranges from another network).
+
+    Returns
+    -------
+    Catalog
+        A view: the same waveforms and events, the sources of ``drop`` left out; the
+        catalog on disk is not touched.
+    """
+    drop = np.asarray(drop, dtype=bool)
+    if drop.shape != (catalog.n_events,):
+        raise ValueError(f"drop: expected shape ({catalog.n_events},), got {drop.shape}")
+    sources = None if catalog.sources is None else catalog.sources.without_events(drop)
+    events = catalog.events
+    if drop_range and drop.any():
+        events = events.copy()
+        events["range_m"] = np.where(drop, np.nan, events["range_m"].to_numpy(np.float64))
+    return dataclasses.replace(catalog, sources=sources, events=events)

@@ -62,12 +62,14 @@ False
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "TRUTHS", "Tolerance", "VHF_BIN_S",
-           "feature_names", "model_feature_names", "missing_groups",
+__all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "FIELD_PART_COLUMNS", "TRUTHS",
+           "Tolerance", "VHF_BIN_S", "feature_names", "model_feature_names", "missing_groups",
+           "field_usable", "mask_unusable_field",
            "numeric_feature_names", "format_table"]
 
 #: Bump when a definition changes in a way that changes values. 2.1: moments, peak
@@ -228,8 +230,9 @@ class Feature:
         Whether classifiers use it.
     requires : frozenset of str
         Optional catalog parts the value depends on: "range" (range_m or x/y/z),
-        "vhf", "sources", "flash" (flash_id). Without them it is NaN; classifiers
-        train on copies of pulses with such groups masked so they cope.
+        "vhf", "sources", "flash" (flash_id), "field" (a usable field record:
+        :data:`FIELD_PART_COLUMNS`, added after the table). Without them it is NaN;
+        classifiers train on copies of pulses with such groups masked so they cope.
     tolerance : Tolerance or None
         How far the value may lie from its truth (every numeric column has one).
     """
@@ -542,6 +545,19 @@ FEATURES: tuple[Feature, ...] = (
             "missing and a peak of at least 3 sigma)", "quality", model=False),
 )
 
+#: Columns measured on the field record. A pulse whose field record is unusable
+#: (``field_ok`` false: pinned at full scale all along, as a DC-coupled antenna is after
+#: a close stroke's static change; mostly missing; no pulse above the noise) lacks them
+#: all while its VHF, sources and flash context remain: they require the catalog part
+#: "field", so classifiers train on copies with them masked (like range, VHF, sources
+#: and flash ids) and classify such a pulse from what is left
+#: (:func:`mask_unusable_field`).
+FIELD_PART_COLUMNS = frozenset(
+    {f.name for f in FEATURES if f.group == "field"}
+    | {"vhf_field_lag_s", "vhf_lag_first_peak_s", "field_censored"})
+FEATURES = tuple(dataclasses.replace(f, requires=f.requires | {"field"})
+                 if f.name in FIELD_PART_COLUMNS else f for f in FEATURES)
+
 _BY_NAME = {f.name: f for f in FEATURES}
 
 
@@ -568,6 +584,29 @@ def missing_groups(names=None) -> dict[str, list[str]]:
         for part in sorted(_BY_NAME[n].requires):
             out.setdefault(part, []).append(n)
     return out
+
+
+def field_usable(table) -> np.ndarray:
+    """``field_ok`` of a features table as bool (True where the table has no such column)."""
+    n = len(table)
+    if "field_ok" not in table:
+        return np.ones(n, dtype=bool)
+    col = np.asarray(table["field_ok"])
+    if col.dtype.kind in "fiub":
+        return np.nan_to_num(col.astype(np.float64), nan=0.0) > 0
+    return np.isin(np.char.lower(col.astype(str)), ["true", "1", "1.0"])
+
+
+def mask_unusable_field(X, usable) -> None:
+    """Set the :data:`FIELD_PART_COLUMNS` of ``X`` (a DataFrame of model inputs, changed
+    in place) to NaN on the rows whose field record is not usable (``usable`` False):
+    whatever a pinned or missing record yielded is not a measurement of the pulse."""
+    bad = ~np.asarray(usable, dtype=bool)
+    if not bad.any():
+        return
+    cols = [c for c in X.columns if c in FIELD_PART_COLUMNS]
+    if cols:
+        X.loc[bad, cols] = np.nan
 
 
 def get(name: str) -> Feature:

@@ -163,6 +163,39 @@ def test_predict_catalog_gives_what_triage_writes(season, tmp_path):
     assert (res["label"].to_numpy() == season["truth_b"]["label"].to_numpy()).mean() > 0.9
 
 
+def test_pulse_with_pinned_field_record_is_classified_from_vhf_and_sources(season, tmp_path):
+    """A field record pinned at full scale from start to end (a DC-coupled antenna after
+    a close stroke's static change) has no usable field features, but the pulse's VHF,
+    sources and flash context remain: it gets a class and a non-empty prediction set
+    from them (the model learnt with the field columns masked), not an empty one. The
+    simulator's truth (invented data; self-consistency) checks the classes."""
+    folder = tmp_path / "pinned"
+    shutil.copytree(season["b"], folder)
+    meta = json.loads((folder / "catalog.json").read_text())["field"]
+    field = np.load(folder / meta["file"], mmap_mode="r+")
+    level = -meta["full_scale"] / meta.get("scale", 1.0)
+    if field.dtype.kind in "iu":
+        level = np.iinfo(field.dtype).min if level < np.iinfo(field.dtype).min else round(level)
+    rows = np.arange(0, 300, 5)
+    field[rows] = level
+    field.flush()
+    del field
+    res = predict_catalog(open_catalog(folder), season["model_dir"])
+    pinned = res.iloc[rows]
+    assert not pinned["field_ok"].any()
+    placed = pinned["has_vhf"] | (pinned["n_sources"] > 0)
+    assert placed.mean() > 0.9
+    assert (pinned.loc[placed, "label"] != "").all()
+    assert (pinned.loc[placed, "prediction_set"] != "").all()
+    assert not pinned.loc[placed, "review_reason"].str.contains("field_unusable").any()
+    truth = season["truth_b"]["label"].to_numpy()[rows][placed.to_numpy()]
+    assert (pinned.loc[placed, "label"].to_numpy() == truth).mean() > 0.7
+    # the other pulses are decided as before
+    rest = np.setdiff1d(np.arange(300), rows)
+    assert (res["label"].to_numpy()[rest] == season["truth_b"]["label"].to_numpy()[rest]
+            ).mean() > 0.9
+
+
 def test_predict_catalog_options_and_refusals(season):
     """Given features are used as they are; others' features, a bad review level and a
     model that is neither an estimator nor a name are InputErrors naming them."""

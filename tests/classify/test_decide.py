@@ -58,7 +58,7 @@ def test_every_reason_in_words():
     assert "2 classes cannot be ruled out at 95%: narrow_bipolar or recoil" in why[0]
     assert "unlike every labelled pulse" in why[1] and "4.1" in why[1]
     assert "VHF record reached full scale" in why[2] and "stepped_leader" in why[2]
-    assert why[3] == "no usable field record: no class is given"
+    assert why[3] == "no usable field record and no VHF or sources: no class is given"
     assert why[4] == "fits none of the classes the rules know" and out.loc[4, "label"] == "other"
     codes = set(";".join(out["review_reason"]).split(";"))
     assert codes == set(REVIEW_REASONS)

@@ -130,3 +130,31 @@ def test_drawn_stations_shorten_the_record_after_the_trigger_at_times():
     assert (used >= lo).all() and (used <= hi).all()
     # log-uniform: the median is the geometric mean of the ends
     assert_allclose(np.median(used), np.sqrt(lo * hi), rtol=0.1)
+
+
+def test_unmapped_view_leaves_out_the_sources_of_the_dropped_pulses(tmp_path):
+    """A station whose mapper located none of some pulses: their mapping features are
+    those of a pulse without sources (n_sources 0, NaN speed and altitude), their range
+    unknown only with ``drop_range``; every other pulse and the catalog on disk as they
+    were (self-consistency on a simulated season)."""
+    from features import extract_features
+    from features.augment import unmapped_view
+    from features.simulate import simulate_season
+
+    cat = open_catalog(simulate_season(tmp_path / "hollowmere-map", 60, seed=5))
+    drop = np.zeros(cat.n_events, dtype=bool)
+    drop[::3] = True
+    before = extract_features(cat)
+    for drop_range in (False, True):
+        view = unmapped_view(cat, drop, drop_range=drop_range)
+        after = extract_features(view)
+        assert (after["n_sources"][drop] == 0).all()
+        assert after.loc[drop, ["speed_m_per_s", "altitude_m", "source_range_m"]].isna().all(
+            axis=None)
+        assert np.isnan(after["range_m"][drop]).all() == drop_range
+        assert_allclose(after["range_m"][~drop], before["range_m"][~drop])
+        for col in ("n_sources", "speed_m_per_s", "altitude_m", "peak_field_v_per_m"):
+            assert_allclose(after[col][~drop], before[col][~drop], equal_nan=True)
+    assert cat.sources.counts()[drop].sum() > 0          # the catalog itself is untouched
+    with pytest.raises(ValueError, match="shape"):
+        unmapped_view(cat, drop[:-1])
