@@ -56,11 +56,12 @@ VARIANT_NO_FLASH_IDS = 0.3
 #: its flashes, with chance VARIANT_TIME_SCALED, has another storm's time scale: its
 #: pulses' times since the flash began stretched by a factor drawn log-uniformly in
 #: VARIANT_TIME_SCALE (flash stages last from a few to a few hundred ms; our choice, no
-#: source), so the time in the flash separates leaders from recoils less sharply.
+#: source), so the time in the flash separates leaders from recoils less sharply: a
+#: leader 65 ms into an in-cloud flash is still a leader.
 VARIANT_THINNED = 0.5
 VARIANT_KEEP_FRACTION = (0.25, 1.0)
 VARIANT_TIME_SCALED = 0.7
-VARIANT_TIME_SCALE = (0.33, 3.0)
+VARIANT_TIME_SCALE = (0.2, 10.0)
 #: A variant's mapper, with chance VARIANT_UNMAPPED, locates none of a share of the
 #: pulses drawn uniformly in VARIANT_UNMAPPED_SHARE, whatever their class (a mapping
 #: array's detection efficiency depends on the array, the range and the storm), and with
