@@ -230,7 +230,7 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
             + (f" ({anchors_text})" if a_rows.size else "")
             + f", {changed:.1%} of its labels changed in the last round; sets adapted to the "
             f"season at {coverage:.2f}")
-    from .predict import classifiable
+    from .decide import classifiable
 
     return {"classes": classes, "proba": proba, "relaxed": relaxed, "sets": sets,
             "novelty": model.novelty_score(X), "novelty_threshold": float(

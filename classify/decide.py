@@ -24,7 +24,7 @@ the results (``review_why``):
     there is no usable field record (pinned at full scale, most of it missing, or no
     pulse above 3 sigma) and no VHF record or mapped sources to go on: its set is empty
     and it has no class (a pulse with VHF or sources but no usable field record is
-    classified from them, :func:`classify.predict.classifiable`);
+    classified from them, :func:`classifiable`);
 ``other``
     (cold start) it fits none of the classes the rules know.
 
@@ -37,8 +37,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from features.schema import field_usable
+
 __all__ = ["REVIEW_REASONS", "RELAX_VHF_DB", "RELAX_FIELD", "DECISION_COLUMNS",
-           "relaxed_features", "decide"]
+           "relaxed_features", "decide", "flag", "classifiable"]
 
 #: Every review reason and what it means (also shown on the review page's help).
 REVIEW_REASONS = {
@@ -112,7 +114,7 @@ def decide(classes, proba, sets, *, usable, review_below, coverage, novelty=None
         probable class, an unusable record's set is emptied.
     usable : ndarray of bool, shape (n,)
         The pulse can be placed: a usable field record, or VHF or sources to go on
-        (:func:`classify.predict.classifiable`).
+        (:func:`classifiable`).
     review_below : float
         Confidence below which a pulse goes to review.
     coverage : float
@@ -209,3 +211,27 @@ def decide(classes, proba, sets, *, usable, review_below, coverage, novelty=None
     out["review_why"] = why
     out.attrs["reasons"] = {c: int(v.sum()) for c, v in reasons.items()}
     return out
+
+
+def flag(features: pd.DataFrame, name: str) -> np.ndarray:
+    """A boolean column of a features or results table (absent: all False)."""
+    if name not in features.columns:
+        return np.zeros(len(features), dtype=bool)
+    col = features[name]
+    if col.dtype == bool:
+        return col.to_numpy()
+    if pd.api.types.is_numeric_dtype(col):
+        return np.nan_to_num(col.to_numpy(dtype=np.float64), nan=0.0) > 0
+    return col.astype(str).str.lower().isin(["true", "1", "1.0"]).to_numpy()
+
+
+def classifiable(features: pd.DataFrame) -> np.ndarray:
+    """Pulses a model can place: a usable field record (``field_ok``), or, where the
+    field record is not usable (pinned at full scale, mostly missing), a VHF record
+    (``has_vhf``) or mapped sources (``n_sources``) to go on. The others get an empty
+    prediction set and no class (review reason ``field_unusable``).
+    """
+    n = len(features)
+    sources = (np.nan_to_num(features["n_sources"].to_numpy(dtype=np.float64)) > 0
+               if "n_sources" in features.columns else np.zeros(n, dtype=bool))
+    return field_usable(features) | flag(features, "has_vhf") | sources

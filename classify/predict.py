@@ -34,7 +34,7 @@ from features import InputError, schema
 
 from ._classmix import adjust_priors, estimate_priors_em
 from .conformal import season_thresholds
-from .decide import decide, relaxed_features
+from .decide import classifiable, decide, flag, relaxed_features
 
 __all__ = ["MIN_SEASON_PULSES", "load_model", "model_inputs", "predict_features",
            "season_decisions", "decision_table", "predict_catalog"]
@@ -118,30 +118,6 @@ def model_inputs(model, features: pd.DataFrame) -> pd.DataFrame:
     return select_columns(features, names).astype(np.float64)
 
 
-def classifiable(features: pd.DataFrame) -> np.ndarray:
-    """Pulses a model can place: a usable field record (``field_ok``), or, where the
-    field record is not usable (pinned at full scale, mostly missing), a VHF record
-    (``has_vhf``) or mapped sources (``n_sources``) to go on. The others get an empty
-    prediction set and no class (review reason ``field_unusable``).
-    """
-    n = len(features)
-    sources = (np.nan_to_num(features["n_sources"].to_numpy(dtype=np.float64)) > 0
-               if "n_sources" in features.columns else np.zeros(n, dtype=bool))
-    return schema.field_usable(features) | _flag(features, "has_vhf") | sources
-
-
-def _flag(features: pd.DataFrame, name: str) -> np.ndarray:
-    """A boolean column of a features or results table (absent: all False)."""
-    if name not in features.columns:
-        return np.zeros(len(features), dtype=bool)
-    col = features[name]
-    if col.dtype == bool:
-        return col.to_numpy()
-    if pd.api.types.is_numeric_dtype(col):
-        return np.nan_to_num(col.to_numpy(dtype=np.float64), nan=0.0) > 0
-    return col.astype(str).str.lower().isin(["true", "1", "1.0"]).to_numpy()
-
-
 def predict_features(model, features: pd.DataFrame, *, relax: bool = True,
                      novelty: bool = True) -> dict:
     """Apply a trained model to a features table.
@@ -201,7 +177,7 @@ def predict_features(model, features: pd.DataFrame, *, relax: bool = True,
     proba = np.asarray(model.predict_proba(X), dtype=np.float64)
     relaxed = proba.copy()
     if relax:
-        vc, fc = _flag(features, "vhf_censored"), _flag(features, "field_censored")
+        vc, fc = flag(features, "vhf_censored"), flag(features, "field_censored")
         cens = vc | fc
         if cens.any():
             Xr = relaxed_features(X[cens], vc[cens], fc[cens])
@@ -459,7 +435,7 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
                              "order, expected)")
     feats = feats.reset_index(drop=True)
     pred = predict_features(est, feats)
-    d = season_decisions(est, pred, _flag(feats, "field_ok"), version=version, features=feats,
+    d = season_decisions(est, pred, flag(feats, "field_ok"), version=version, features=feats,
                          adapt_priors=adapt_priors, adapt_sets=adapt_sets, coverage=coverage,
                          placeable=classifiable(feats))
     from types import SimpleNamespace
@@ -473,8 +449,8 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     d = fit_to_season(d, numeric, cat, SimpleNamespace(review_below=float(review_below),
                                                        self_training=True, coverage=coverage),
                       mode=season_fit, store=store, n_jobs=n_jobs)
-    d["censored_v"] = _flag(feats, "vhf_censored")
-    d["censored_f"] = _flag(feats, "field_censored")
+    d["censored_v"] = flag(feats, "vhf_censored")
+    d["censored_f"] = flag(feats, "field_censored")
     out, reasons = decision_table(d, float(review_below), ids, cat.catalog_id)
     table = pd.concat([out, feats.drop(columns="event_id")], axis=1)
     table.attrs.update(reasons=reasons, adaptation=d["adaptation"], model_version=version,

@@ -40,7 +40,8 @@ from features.extract import DEFAULT_CHUNK_SIZE, _progress, compute_chunk, plan_
 from features.spill import FeatureSpill
 
 from . import coldstart
-from .predict import classifiable, decision_table, predict_features, season_decisions
+from .decide import classifiable
+from .predict import decision_table, predict_features, season_decisions
 from .registry import load_model, verify_model_dir
 from .seasonfit import fit_to_season, season_fit_mode
 
