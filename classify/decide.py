@@ -37,10 +37,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from features.schema import field_usable
-
 __all__ = ["REVIEW_REASONS", "RELAX_VHF_DB", "RELAX_FIELD", "DECISION_COLUMNS",
-           "relaxed_features", "decide", "flag", "classifiable"]
+           "relaxed_features", "decide", "flag", "field_ok", "classifiable"]
 
 #: Every review reason and what it means (also shown on the review page's help).
 REVIEW_REASONS = {
@@ -234,4 +232,11 @@ def classifiable(features: pd.DataFrame) -> np.ndarray:
     n = len(features)
     sources = (np.nan_to_num(features["n_sources"].to_numpy(dtype=np.float64)) > 0
                if "n_sources" in features.columns else np.zeros(n, dtype=bool))
-    return field_usable(features) | flag(features, "has_vhf") | sources
+    return field_ok(features) | flag(features, "has_vhf") | sources
+
+
+def field_ok(features: pd.DataFrame) -> np.ndarray:
+    """``field_ok`` of a features table (True where the table has no such column)."""
+    if "field_ok" not in features.columns:
+        return np.ones(len(features), dtype=bool)
+    return flag(features, "field_ok")

@@ -34,7 +34,7 @@ from features import InputError, schema
 
 from ._classmix import adjust_priors, estimate_priors_em
 from .conformal import season_thresholds
-from .decide import classifiable, decide, flag, relaxed_features
+from .decide import classifiable, decide, field_ok, flag, relaxed_features
 
 __all__ = ["MIN_SEASON_PULSES", "load_model", "model_inputs", "predict_features",
            "season_decisions", "decision_table", "predict_catalog"]
@@ -173,7 +173,7 @@ def predict_features(model, features: pd.DataFrame, *, relax: bool = True,
     True
     """
     X = model_inputs(model, features)
-    schema.mask_unusable_field(X, schema.field_usable(features))
+    schema.mask_unusable_field(X, field_ok(features))
     proba = np.asarray(model.predict_proba(X), dtype=np.float64)
     relaxed = proba.copy()
     if relax:

@@ -69,7 +69,7 @@ import numpy as np
 
 __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "FIELD_PART_COLUMNS", "TRUTHS",
            "Tolerance", "VHF_BIN_S", "feature_names", "model_feature_names", "missing_groups",
-           "field_usable", "mask_unusable_field",
+           "mask_unusable_field",
            "numeric_feature_names", "format_table"]
 
 #: Bump when a definition changes in a way that changes values. 2.1: moments, peak
@@ -584,17 +584,6 @@ def missing_groups(names=None) -> dict[str, list[str]]:
         for part in sorted(_BY_NAME[n].requires):
             out.setdefault(part, []).append(n)
     return out
-
-
-def field_usable(table) -> np.ndarray:
-    """``field_ok`` of a features table as bool (True where the table has no such column)."""
-    n = len(table)
-    if "field_ok" not in table:
-        return np.ones(n, dtype=bool)
-    col = np.asarray(table["field_ok"])
-    if col.dtype.kind in "fiub":
-        return np.nan_to_num(col.astype(np.float64), nan=0.0) > 0
-    return np.isin(np.char.lower(col.astype(str)), ["true", "1", "1.0"])
 
 
 def mask_unusable_field(X, usable) -> None:
