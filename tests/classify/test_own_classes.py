@@ -226,7 +226,8 @@ def test_review_page_shows_five_class_buttons_and_records_return_stroke(season, 
 def test_a_season_fit_keeps_the_groups_classes_where_the_model_is_sure(season, tmp_path):
     """Fitted on the season, the pulses the five-class model is sure of keep its class:
     the rules' "other" (a pulse no rule class fits, as a return stroke is to the rules)
-    does not overrule the group's model. Self-consistency on invented data."""
+    does not overrule the group's model, nor the fitted one. Self-consistency on
+    invented data."""
     plain = read_results(season["results"])
     sure = (plain["confidence"] >= 0.95) & ~plain["needs_review"].astype(bool)
     _run("triage", season["b"], "--rules", "--out", tmp_path / "rules.csv")
@@ -238,3 +239,6 @@ def test_a_season_fit_keeps_the_groups_classes_where_the_model_is_sure(season, t
     assert fitted["adaptation"].str.contains("fitted on the season").all()
     assert (fitted.loc[sure, "label"] == plain.loc[sure, "label"]).mean() >= 0.99
     assert not (fitted.loc[sure, "label"] == "other").any()
+    # nor anywhere else: with a trained model, its novelty, not the rules' "other",
+    # flags a class it does not know
+    assert not (fitted["label"] == "other").any()
