@@ -25,6 +25,7 @@ import argparse
 import json
 import os
 import platform
+import resource
 import shutil
 import subprocess
 import sys
@@ -172,6 +173,10 @@ class Measurement:
     returncode: int
     stdout: str = field(repr=False, default="")
     stderr: str = field(repr=False, default="")
+    #: User + system CPU seconds of the process and of the children it waited for
+    #: (joblib/loky workers and process pools are joined before exit), NaN if unknown.
+    #: On a machine shared with other work this moves less than the wall time.
+    cpu_seconds: float = float("nan")
 
     @property
     def peak_rss_mb(self) -> float:
@@ -209,18 +214,21 @@ def run_measured(cmd, *, cwd=None, env=None, extra_roots=(), check=True,
     full_env.update(env or {})
     with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
         t0 = time.perf_counter()
+        ru0 = resource.getrusage(resource.RUSAGE_CHILDREN)
         proc = subprocess.Popen(cmd, cwd=cwd, env=full_env, stdout=out, stderr=err,
                                 stdin=subprocess.DEVNULL)
         sampler = TreeRSSSampler([proc.pid, *extra_roots]).start()
         rc = proc.wait()
         seconds = time.perf_counter() - t0
+        ru1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        cpu = (ru1.ru_utime - ru0.ru_utime) + (ru1.ru_stime - ru0.ru_stime)
         sampler.stop()
         out.seek(0)
         err.seek(0)
         stdout = out.read().decode("utf-8", "replace")
         stderr = err.read().decode("utf-8", "replace")
     m = Measurement(cmd, seconds, sampler.peak_bytes, sampler.peak_processes, rc, stdout,
-                    stderr)
+                    stderr, cpu)
     if check and rc != 0:
         raise RuntimeError(f"command failed with exit {rc}: {' '.join(cmd)}\n"
                            f"{stderr[-4000:]}")

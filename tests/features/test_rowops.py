@@ -92,6 +92,31 @@ def test_crossing_searches_follow_their_definition():
                        _crossing_before_by_definition(u, ints, level, np.zeros(n)))
 
 
+def test_crossing_before_finds_crossings_beyond_its_first_search_windows():
+    """Invented rows (self-consistency): one sample below the level at a given distance
+    before the stop (on either side of the widths the backward search looks at first,
+    and in front of start), as a scan of every allowed column finds it."""
+    from features._rowops import SEARCH_BACK_COLUMNS as first
+
+    distances = [1, first - 1, first, first + 1, 4 * first, 5 * first + 1, 21 * first,
+                 21 * first + 7, 2500, 2999, 3000]
+    n, w = len(distances), 3000
+    u = np.ones((n, w))
+    stop = np.full(n, w)
+    stop[::3] = w - 5                              # rows with their own stops
+    for i, d in enumerate(distances):
+        if stop[i] - d >= 0:
+            u[i, stop[i] - d] = -1.0
+    level = np.zeros(n)
+    start = np.zeros(n)
+    start[8] = 600                  # its sample (column 500) lies before start: none
+    got = crossing_before(u, stop, level, start=start)
+    assert_array_equal(got, _crossing_before_by_definition(u, stop, level, start))
+    # every row finds its sample but row 8 and row 9 (2,999 before its stop of 2,995:
+    # outside the record, so it has none)
+    assert_array_equal(np.flatnonzero(np.isnan(got)), [8, 9])
+
+
 @pytest.mark.parametrize("width", [1, 5, 40, 300])
 def test_moving_average_rows_is_the_centred_mean(width):
     """Each row's centred moving average (shortened at the edges) is the plain mean of
