@@ -62,6 +62,12 @@ __all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_eu
 MASKED_CALIBRATION_ROWS = 5000
 #: Fewest calibration rows of a pattern of missing column groups for its own temperature.
 MIN_CALIBRATION_ROWS = 200
+#: Fewest calibration rows of fully recorded pulses (no group missing) for their own
+#: temperature: below MIN_CALIBRATION_ROWS they would take the pooled one, fitted mostly on
+#: masked copies (15 of 16 combinations hide something), which softens a small model's
+#: every probability (a cold start on 90 pulses fell below its 0.95 self-training level
+#: round after round). One temperature is one parameter: 20 rows fit it (our choice).
+MIN_FULL_PATTERN_ROWS = 20
 #: Fewest calibration pulses of a class (in a pattern) for its own conformal threshold.
 MIN_CONFORMAL_PER_CLASS = 30
 #: Joins catalog_id and event_id in ``sample_ids`` (a character no CSV id contains).
@@ -424,7 +430,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         temps = np.full(n_patterns, pooled_t)
         for p in range(n_patterns):
             sel = pattern == p
-            if cross_fitted and sel.sum() >= MIN_CALIBRATION_ROWS and len(np.unique(y[sel])) > 1:
+            least = MIN_FULL_PATTERN_ROWS if p == 0 else MIN_CALIBRATION_ROWS
+            if cross_fitted and sel.sum() >= least and len(np.unique(y[sel])) > 1:
                 temps[p] = fit_temperature(raw[sel], y[sel], w[sel])
         cal = apply_temperature(raw, temps[pattern])
         pooled_q = conformal_thresholds(cal, y, k, self.coverage)
