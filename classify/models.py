@@ -62,11 +62,12 @@ __all__ = ["PulseClassifier", "conformal_thresholds", "fit_temperature", "nan_eu
 MASKED_CALIBRATION_ROWS = 5000
 #: Fewest calibration rows of a pattern of missing column groups for its own temperature.
 MIN_CALIBRATION_ROWS = 200
-#: Fewest calibration rows of fully recorded pulses (no group missing) for their own
-#: temperature: below MIN_CALIBRATION_ROWS they would take the pooled one, fitted mostly on
-#: masked copies (15 of 16 combinations hide something), which softens a small model's
-#: every probability (a cold start on 90 pulses fell below its 0.95 self-training level
-#: round after round). One temperature is one parameter: 20 rows fit it (our choice).
+#: Fewest calibration rows of a pattern the training pulses have as recorded (no group
+#: missing, or what the station lacks) for its own temperature: below
+#: MIN_CALIBRATION_ROWS it would take the pooled one, fitted mostly on masked copies (31
+#: of 32 combinations hide something), which softens a small model's every probability
+#: (a cold start on 90 pulses fell below its 0.95 self-training level round after
+#: round). One temperature is one parameter: 20 rows fit it (our choice).
 MIN_FULL_PATTERN_ROWS = 20
 #: Fewest calibration pulses of a class (in a pattern) for its own conformal threshold.
 MIN_CONFORMAL_PER_CLASS = 30
@@ -403,7 +404,8 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
         cal_raw, cal_y = np.vstack(cal_raw), np.concatenate(cal_y)
         cal_w, cal_pat = np.concatenate(cal_w), np.concatenate(cal_pat)
         self._fit_pattern_calibration(cal_raw, cal_y, cal_w, cal_pat, n_patterns,
-                                      cross_fitted=splits is not None)
+                                      cross_fitted=splits is not None,
+                                      recorded=np.unique(natural))
         self.oof_proba_ = self._calibrate(oof_raw, natural)
         self.oof_pattern_ = natural
         self.oof_fold_ = oof_fold
@@ -423,14 +425,16 @@ class PulseClassifier(ClassifierMixin, BaseEstimator):
             progress(n_steps, n_steps, "calibration")
         return self
 
-    def _fit_pattern_calibration(self, raw, y, w, pattern, n_patterns, cross_fitted):
-        """Temperature and conformal thresholds for every pattern of missing groups."""
+    def _fit_pattern_calibration(self, raw, y, w, pattern, n_patterns, cross_fitted,
+                                 recorded=(0,)):
+        """Temperature and conformal thresholds for every pattern of missing groups
+        (``recorded``: the patterns the training pulses have as recorded)."""
         k = len(self.classes_)
         pooled_t = fit_temperature(raw, y, w) if cross_fitted else 1.0
         temps = np.full(n_patterns, pooled_t)
         for p in range(n_patterns):
             sel = pattern == p
-            least = MIN_FULL_PATTERN_ROWS if p == 0 else MIN_CALIBRATION_ROWS
+            least = MIN_FULL_PATTERN_ROWS if p in recorded else MIN_CALIBRATION_ROWS
             if cross_fitted and sel.sum() >= least and len(np.unique(y[sel])) > 1:
                 temps[p] = fit_temperature(raw[sel], y[sel], w[sel])
         cal = apply_temperature(raw, temps[pattern])
