@@ -362,7 +362,7 @@ def predict_catalog(catalog, model="current", *, card=None, registry=None, revie
     season_fit : {"auto", "always", "never"} or bool, default="auto"
         Fit the season itself, anchored by the model's confident pulses
         (:func:`classify.seasonfit.fit_to_season`); ``"auto"`` when the model would send
-        more than 5 % of the usable pulses to review for doubt.
+        more than 2.5 % of the usable pulses to review for doubt.
     store : LabelStore, optional
         Analysts' labels of this catalog, more anchors of a season fit.
 

@@ -298,7 +298,7 @@ def triage_catalog(cat, out, *, model_dir=None, review_below=0.8, chunk_size=DEF
         class with a censored value relaxed) and the analysts' labels in ``store``
         anchor the cold start's self-training on this season, whose model then
         classifies every pulse; novelty stays the trained model's. ``"auto"`` fits when
-        the model would send more than 5 % of the usable pulses to review for doubt (a
+        the model would send more than 2.5 % of the usable pulses to review for doubt (a
         season unlike the training's); True is ``"always"``, False ``"never"``. Ignored by the cold
         start (which fits the season anyway), except that ``"always"`` is refused there.
     stop_after_chunks : int, optional

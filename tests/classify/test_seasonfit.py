@@ -1,7 +1,7 @@
 """When a trained model's decisions are fitted to the season (``season_fit``).
 
-The rule is the project's own (fit when the model would send more than 5 % of the usable
-pulses to review for doubt; no source): these tests check it counts the doubtful pulses
+The rule is the project's own (fit when the model would send more than 2.5 % of the
+usable pulses to review for doubt; no source): these tests check it counts the doubtful pulses
 as :func:`classify.decide.decide` would send them, and says what it did. The fit itself
 is exercised end to end in ``test_shift.py``.
 """
@@ -61,7 +61,7 @@ def test_a_season_the_model_is_sure_of_is_left_as_it_is(mode):
         assert out[key] is d[key]
     if mode == "auto":
         assert out["adaptation"] == ("sets adapted to the season at 0.95; no season fit "
-                                     "(the model doubts 5.0 % of 200 usable pulses, <= 5 %)")
+                                     "(the model doubts 2.5 % of 200 usable pulses, <= 2.5 %)")
     else:
         assert out["adaptation"] == d["adaptation"]
 

@@ -11,6 +11,7 @@ import pytest
 from sklearn.metrics import f1_score
 
 from classify.cli import main
+from classify.seasonfit import AUTO_DOUBT_SHARE
 from classify.triage import read_results
 from features.simulate import labels_path, simulate_season
 
@@ -138,16 +139,16 @@ def test_season_fit_on_another_station(model, tmp_path, capsys):
     assert fitted["adaptation"].str.contains("pulses the model placed confidently").all()
     assert np.allclose(fitted["novelty_score"], plain["novelty_score"], equal_nan=True)
     assert (fitted["novel"] == plain["novel"]).all()
-    # auto (the default): fitted exactly when the model alone would send more than 5 %
+    # auto (the default): fitted exactly when the model alone would send more than 2.5 %
     # of the usable pulses to review for doubt
     ok = plain["field_ok"].astype(bool)
     doubt = plain["review_reason"].str.contains("low_confidence|ambiguous_set|novel")[ok].mean()
-    if doubt > 0.05:
+    if doubt > AUTO_DOUBT_SHARE:
         assert auto["adaptation"].str.contains(r"fitted on the season \(the model doubts").all()
         assert (auto["label"].fillna("") == fitted["label"].fillna("")).all()
     else:
         assert auto["adaptation"].str.contains(r"no season fit \(the model doubts .* % of "
-                                               r"500 usable pulses, <= 5 %\)").all()
+                                               r"500 usable pulses, <= 2.5 %\)").all()
         assert (auto["label"].fillna("") == plain["label"].fillna("")).all()
     capsys.readouterr()
     assert main(["triage", str(c), "--rules", "--season-fit", "--out",
