@@ -68,7 +68,7 @@ MILD_CELL = ("own:reference", "own:next")
 #: ``model`` is the trained model alone (``--season-fit never``), ``season-fit`` the
 #: trained model with ``--season-fit`` (always: its confident pulses anchor a fit on the
 #: test season itself), ``auto`` what ``triage --model`` does by default (the fit only
-#: where the model would send more than 5 % of the season to review).
+#: where the model would send more than 2.5 % of the season to review for doubt).
 TRIAGE_VARIANTS = {
     "model": ["--model", "{model}", "--season-fit", "never"],
     "season-fit": ["--model", "{model}", "--season-fit"],
