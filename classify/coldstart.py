@@ -149,6 +149,7 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     if not settings.self_training:
         return {"classes": classes, "proba": rp, "relaxed": rp, "sets": rp >= RULES_SET_LEVEL,
                 "novelty": np.full(n, np.nan), "novelty_threshold": None, "usable": usable,
+                "placeable": usable,
                 "coverage": coverage, "version": rules.RULES_VERSION,
                 "adaptation": "rules alone (no self-training)", "other": other}
 
@@ -209,6 +210,7 @@ def cold_start(spill, columns, cat, settings, *, store=None, n_jobs=1, seeds=Non
     if model is None:
         return {"classes": classes, "proba": rp, "relaxed": rp, "sets": rp >= RULES_SET_LEVEL,
                 "novelty": np.full(n, np.nan), "novelty_threshold": None, "usable": usable,
+                "placeable": usable,
                 "coverage": coverage, "version": rules.RULES_VERSION,
                 "adaptation": "rules alone (the rules' confident core was too small)",
                 "other": other}

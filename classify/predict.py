@@ -295,7 +295,7 @@ def decision_table(d: dict, review_below: float, event_ids, catalog_id: str, sta
     cens_f = d["censored_f"][a:b] if "censored_f" in d else np.zeros(b - a, bool)
     channel = np.where(cens_v & cens_f, "field and VHF",
                        np.where(cens_v, "VHF", np.where(cens_f, "field", "")))
-    out = decide(d["classes"], d["proba"][a:b], d["sets"][a:b], usable=d.get("placeable", d["usable"])[a:b],
+    out = decide(d["classes"], d["proba"][a:b], d["sets"][a:b], usable=d["placeable"][a:b],
                  review_below=review_below, coverage=d["coverage"],
                  novelty=d["novelty"][a:b], novelty_threshold=d["novelty_threshold"],
                  relaxed_proba=d["relaxed"][a:b], censored_channel=channel,
