@@ -352,7 +352,7 @@ def invert_moments(e_v_per_m, sample_rate_hz, start, stop, range_m, altitude_m):
 
 
 def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, *,
-               peak_rate=False):
+               peak_rate=False, extreme=False):
     """The current moment at one column and the charge moment change at the end, per row.
 
     The inversion of :func:`invert_moments`, integrating each row only over its own
@@ -371,6 +371,12 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, 
         wanted (linear interpolation between samples).
     range_m, altitude_m : ndarray, shape (n,)
         Horizontal distance D and source height H, m.
+    extreme : bool or ndarray of bool, shape (n,), default=False
+        Rows (all, or the ones marked) whose current moment is instead M of largest
+        magnitude (signed) on the samples from the onset to ``stop``. Far away M peaks
+        where the radiation field crosses zero, so ``at`` finds it; close under an
+        elevated source the field is mostly the electrostatic and induction terms, has
+        no such crossing, and M at the pulse's end is not its peak.
     peak_rate : bool or ndarray of bool, shape (n,), default=False
         Also return the current moment's rate of change where it is largest between
         ``start`` and ``at`` (for every row, or for the rows marked).
@@ -378,7 +384,8 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, 
     Returns
     -------
     current_moment_a_m : ndarray, shape (n,)
-        M at ``at``, A m (NaN without onset, stop or range).
+        M at ``at`` (or its extreme, rows of ``extreme``), A m (NaN without onset, stop
+        or range).
     charge_moment_c_m : ndarray, shape (n,)
         Q at ``stop``, C m.
     converged : ndarray of bool, shape (n,)
@@ -394,6 +401,7 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, 
     n, w = e.shape
     at = np.asarray(at, dtype=np.float64)
     want = np.broadcast_to(np.asarray(peak_rate, dtype=bool), (n,))
+    widest = np.broadcast_to(np.asarray(extreme, dtype=bool), (n,))
     cur = np.full(n, np.nan)
     chg = np.full(n, np.nan)
     rate = np.full(n, np.nan)
@@ -411,6 +419,16 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, 
                                    ~small[rows], own_end, own_end + 2 + after[rows])
         converged[rows] = conv
         cur[rows] = _interp_window(m, at[rows], first[rows], w)
+        k = np.flatnonzero(widest[rows])
+        if k.size:
+            # (not within the anti-causal reach of the last column read, as below)
+            last_on = on[k].shape[1] - 1 - np.argmax(on[k][:, ::-1], axis=1)
+            limit = np.minimum(own_end[k] + 1 + after[rows[k]], last_on) - after[rows[k]]
+            cols = np.arange(m.shape[1])[None, :]
+            inside = on[k] & (cols <= np.minimum(own_end[k], limit)[:, None])
+            mk = np.where(inside, np.nan_to_num(m[k]), 0.0)
+            j = np.argmax(np.abs(mk), axis=1)
+            cur[rows[k]] = mk[np.arange(k.size), j]
         chg[rows] = _interp_window(q, stop[rows], first[rows], w)
         k = np.flatnonzero(want[rows])
         if k.size:

@@ -75,8 +75,9 @@ __all__ = ["SCHEMA_VERSION", "Feature", "FEATURES", "FIELD_PART_COLUMNS", "TRUTH
 #: Bump when a definition changes in a way that changes values. 2.1: moments, peak
 #: current and range-normalised peak of sources close under the station from the exact
 #: three-term inversion and its radiation term; ``net_to_path`` claimed by the noise its
-#: path carries step by step.
-SCHEMA_VERSION = "2.1"
+#: path carries step by step. 2.2: close under an elevated source the current moment
+#: peak is M's extreme over the pulse (not M at its end).
+SCHEMA_VERSION = "2.2"
 
 
 #: Length of one VHF envelope bin, s (as ``features.vhf.VHF_BIN_S``).
@@ -312,7 +313,9 @@ FEATURES: tuple[Feature, ...] = (
     Feature("current_moment_peak_a_m", "A m", "current moment M at the zero crossing (or the "
             "end of a unipolar pulse), from the three-term inversion of the field of an "
             "elevated source (solved exactly close under it, D < sqrt(2) H; radiation-only "
-            "with the D^2/R^3 geometry where a farther one does not converge); + = "
+            "with the D^2/R^3 geometry where a farther one does not converge); where the "
+            "radiation term does not lead the peak (as range_normalized_peak), M of largest "
+            "magnitude over the pulse: there the field has no crossing where M peaks; + = "
             "upward-directed current; NaN without range", "field",
             requires=frozenset({"range"}), tolerance=_AMPLITUDE),
     Feature("charge_moment_change_c_m", "C m", "int M dt from the onset to the end of the "

@@ -535,7 +535,7 @@ def field_features(field_v_per_m, sample_rate_hz, *, pretrigger_s=0.0, delay_s=0
     current_moment, charge_moment, converged, rate = moments_at(
         e, fs, np.where(ok, onset, np.nan), np.where(ok, pulse_end, np.nan),
         np.where(has_zc, zc, pulse_end), rng, altitude,
-        peak_rate=~radiating & np.isfinite(rng))
+        peak_rate=~radiating & np.isfinite(rng), extreme=~radiating & np.isfinite(rng))
     geometry = geometry_factor_m(rng, altitude)
     k_rad = moment_factor_a_per_v(geometry)
     peak_signed = polarity * peak

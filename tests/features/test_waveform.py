@@ -191,6 +191,24 @@ def test_close_under_the_source_the_radiation_term_is_scaled_not_the_peak():
         assert_allclose(out["peak_current_a"][0], dmdt_max / TL_SPEED_M_PER_S, rtol=0.10)
 
 
+def test_slow_pulse_right_under_the_source_gives_the_current_moment_peak():
+    """An energetic in-cloud pulse 9 km up (M peaking at -1.5e8 A m after 30 us) seen
+    from 1 km: the field is the electrostatic and induction terms (Uman, McLain & Krider
+    1975; from memory), a unipolar change of -419 V/m that stays at -400 V/m (the charge
+    moment remains) to the record's end. The current moment peak is M's extreme, with
+    its sign (downward-directed here), within 5 %; M at the record's end, near 0 and
+    read where the anti-causal inverse has no field after it, is not (it came out
+    +2.4e8 before)."""
+    m0, tau, d, h = -1.5e8, 15e-6, 1e3, 9e3
+    rng = np.random.default_rng(7)
+    e = _three_term_field(_t(), m0, tau, d, h) + rng.normal(0.0, 0.1, _t().size)
+    out = field_features(e[None], FS, pretrigger_s=PRE, range_m=np.array([d]),
+                         altitude_m=np.array([h]))
+    assert out["peak_field_v_per_m"][0] < -400 and out["near_field"][0]
+    assert_allclose(out["current_moment_peak_a_m"][0], m0, rtol=0.05)
+    assert_allclose(out["charge_moment_change_c_m"][0], m0 * np.e ** 2 / 2 * tau, rtol=0.05)
+
+
 def test_right_under_the_source_the_radiation_term_is_kept_above_its_noise_only():
     """The same source right overhead (400 m): its radiation term at the station is
     ~(D/R)^2 of the far-field one. With noise of 0.1 % of the peak it still gives the
