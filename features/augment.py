@@ -26,7 +26,9 @@ Transformations, in order (each optional):
    clipped at +-32767 counts;
 6. **full scale**: clipped at a level that the chunk's strongest pulses reach (the peak
    becomes a lower bound, as at a station whose digitizer saturates on them);
-7. **VHF**: the noise floor raised, and a full scale the strongest VHF emitters reach.
+7. **VHF**: the noise floor raised, and a full scale the strongest VHF emitters reach;
+8. **nearer storms**: some strong, distant pulses seen from 1-15 km, the field rewritten
+   from their inverted moments (:mod:`features._nearer`).
 
 A station's mapper, too, locates only some of the pulses its fast antenna records (its
 detection efficiency depends on the array, the range and the storm):
@@ -61,6 +63,7 @@ VARIANT_RANGES = {
     "field_clip_quantile": (0.85, 0.99),   # of the chunk's peaks
     "vhf_noise_gain": (1.0, 10.0),
     "vhf_clip_quantile": (0.5, 0.95),
+    "near_share": (0.2, 0.6),              # of the strong, far pulses (features._nearer)
 }
 
 
@@ -91,6 +94,10 @@ class StationVariant:
         VHF full scale at this quantile of the chunk's largest VHF sample per row.
     seed : int
         Random stream of the added noise.
+    near_share : float or None
+        Share of the strong pulses 20 km away or more seen from 1-15 km instead, at the
+        same height (:mod:`features._nearer`: their field from the inverted moments,
+        VHF x (R/R')^2, their mapped sources dropped).
     """
 
     field_rate_hz: float | None = None
@@ -103,6 +110,13 @@ class StationVariant:
     vhf_noise_gain: float = 1.0
     vhf_clip_quantile: float | None = None
     seed: int = 0
+    near_share: float | None = None
+
+
+#: Chance that a variant sees some of the pulses from nearer (``near_share``): a season
+#: of distant storms holds no pulse whose field is the electrostatic and induction
+#: terms of a source overhead (our choice, no source).
+VARIANT_NEARER = 0.3
 
 
 def draw_variant(rng: np.random.Generator) -> StationVariant:
@@ -126,6 +140,7 @@ def draw_variant(rng: np.random.Generator) -> StationVariant:
         vhf_clip_quantile=u("vhf_clip_quantile") if rng.random() < 0.5 else None,
         seed=int(rng.integers(0, 2**31 - 1)),
         posttrigger_s=u("posttrigger_s", log=True) if rng.random() < 0.3 else None,
+        near_share=u("near_share") if rng.random() < VARIANT_NEARER else None,
     )
 
 

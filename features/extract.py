@@ -219,6 +219,16 @@ def _keep_work_memory() -> None:
         pass
 
 
+def _nearer(x, ch, job, range_m, mapping):
+    """A variant's share of the chunk's strong, far pulses seen from nearer
+    (:mod:`features._nearer`): rows, moved, new ranges and (old ranges, heights)."""
+    from ._nearer import move_chunk_nearer
+
+    x, moved, near_m = move_chunk_nearer(x, ch, range_m, mapping["altitude_m"],
+                                         job.variant.near_share, [job.variant.seed, job.start, 8])
+    return x, moved, near_m, (np.asarray(range_m), np.asarray(mapping["altitude_m"]))
+
+
 def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     """Features of the rows of one :class:`ChunkJob`, as a DataFrame in schema order."""
     _keep_work_memory()
@@ -232,12 +242,20 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
     # the span read is the channel from its column c0 on
     fch = dataclasses.replace(fch, pretrigger_s=fch.pretrigger_s - c0 / fch.sample_rate_hz,
                               n_samples=raw.shape[1])
+    moved = None
     if job.variant is not None:   # the same pulses as another station records them
         from .augment import apply_field, apply_vhf
 
         rng_v = np.random.default_rng([job.variant.seed, job.start])
         # (the variant's rows are physical already: factor None below)
-        raw, fch = apply_field(_scaled(raw, fch.scale * fch.sign), fch, job.variant, rng_v)
+        raw = _scaled(raw, fch.scale * fch.sign)
+        if job.variant.near_share:
+            raw, moved, near_m, far_m = _nearer(raw, fch, job, rng, mapping)
+            if moved.any():
+                sources = None if job.sources is None else job.sources.without_events(moved)
+                mapping = source_features(sources, near_m, n)
+                rng = np.where(np.isfinite(near_m), near_m, mapping["source_range_m"])
+        raw, fch = apply_field(raw, fch, job.variant, rng_v)
         level = clip_level(fch)
         fclip = np.zeros(n, bool) if level is None else (np.abs(raw) >= level * (1 - 1e-9)
                                                           ).any(axis=1)
@@ -256,7 +274,15 @@ def compute_chunk(job: ChunkJob) -> pd.DataFrame:
         v0, v1 = _column_span(vch, VHF_SPAN_S[0] + vch.delay_s, VHF_SPAN_S[1] + vch.delay_s)
         vraw, vclip = _read_raw(vch, job.start, job.stop, (v0, v1))
         if job.variant is not None:
-            vraw, vch = apply_vhf(_scaled(vraw, vch.scale), vch, job.variant, rng_v)
+            vraw = _scaled(vraw, vch.scale)
+            if moved is not None and moved.any():
+                from ._nearer import nearer_vhf
+
+                vraw[moved] = nearer_vhf(vraw[moved], vch.kind,
+                                         vch.pretrigger_s - v0 / vch.sample_rate_hz,
+                                         vch.sample_rate_hz, far_m[0][moved], far_m[1][moved],
+                                         rng[moved])
+            vraw, vch = apply_vhf(vraw, vch, job.variant, rng_v)
             vlevel = clip_level(vch)
             vclip = np.zeros(n, bool) if vlevel is None else (np.abs(vraw) >= vlevel * (
                 1 - 1e-6)).any(axis=1)
