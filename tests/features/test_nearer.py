@@ -16,29 +16,7 @@ from features.augment import StationVariant, _rc_highpass
 from features.extract import compute_chunk, extract_features, plan_chunks
 from features.waveform import field_features
 
-FS = 20e6
-PRE = 100e-6
-
-
-def _t():
-    return np.arange(8000) / FS - PRE
-
-
-def _three_term_field(t, m0, tau, d, h):
-    """E at the ground, D away from a channel H up, of M(t) = M0 (e^2/4) y^2 exp(-y)
-    (y = (t - 1 us) / tau; peak M0 at y = 2) and Q = int M dt (closed form)."""
-    from scipy import constants
-
-    x = np.clip(t - 1e-6, 0, None)
-    y = x / tau
-    m = m0 * np.e ** 2 / 4 * y ** 2 * np.exp(-y)
-    dmdt = m0 * np.e ** 2 / 4 * (x / tau ** 2) * (2 - y) * np.exp(-y)
-    q = m0 * np.e ** 2 / 4 * tau * (2 - np.exp(-y) * (y * y + 2 * y + 2))
-    c = constants.c
-    r = np.hypot(d, h)
-    k = 1 / (2 * np.pi * constants.epsilon_0)
-    return k * ((2 * h * h - d * d) / r ** 5 * q + (2 * h * h - d * d) / (c * r ** 4) * m
-                - d * d / (c * c * r ** 3) * dmdt)
+from .test_waveform import FS, PRE, _t, _three_term_field
 
 
 @pytest.mark.parametrize("tau_s", [1e-6, 5e-6])
