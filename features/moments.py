@@ -428,7 +428,9 @@ def moments_at(e_v_per_m, sample_rate_hz, start, stop, at, range_m, altitude_m, 
             inside = on[k] & (cols <= np.minimum(own_end[k], limit)[:, None])
             mk = np.where(inside, np.nan_to_num(m[k]), 0.0)
             j = np.argmax(np.abs(mk), axis=1)
-            cur[rows[k]] = mk[np.arange(k.size), j]
+            # (a pulse running to the record's end has no such columns: M at ``at``)
+            cur[rows[k]] = np.where(inside.any(axis=1), mk[np.arange(k.size), j],
+                                    cur[rows[k]])
         chg[rows] = _interp_window(q, stop[rows], first[rows], w)
         k = np.flatnonzero(want[rows])
         if k.size:
